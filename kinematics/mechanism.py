@@ -1,0 +1,444 @@
+"""The mechanism file: a frozen description of a planar tilting linkage.
+
+A mechanism is bodies with named points (front view, ``[y, z]`` in mm, design
+position, global coordinates), joined by pins, links, springs and sliders,
+with exactly two wheels. This module reads and writes the TOML file and
+checks it; it never solves anything (see :mod:`kinematics.model`).
+
+File format (all lengths mm, angles degrees)::
+
+    name = "example"
+    chassis = "chassis"
+    description = "free text"          # optional
+    station_x_mm = 0.0                 # optional: x of the linkage plane
+    [bodies.chassis]
+    datum = [0.0, 0.0]
+    [[pins]]    a = "body.point"  b = "body.point"  name = "..." (optional)
+    [[links]]   a, b, name (optional)
+    [[springs]] name, a, b, rate_n_per_mm, free_length_mm, preload_n (optional)
+    [[sliders]] name (optional), a_from, a_to (a line on one body), b (a point
+                of another body that runs on that line; the two bodies keep
+                their relative angle)
+    [[wheels]]  name = "left" | "right", upright, centre, outer_radius_mm,
+                crown_radius_mm, static_camber_deg
+"""
+from __future__ import annotations
+
+import math
+import re
+import tomllib
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any, Iterable
+
+from .errors import InputError
+
+PIN_TOLERANCE_MM = 0.01
+_NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+
+
+@dataclass(frozen=True)
+class Pin:
+    """Revolute joint: point ``a`` of one body and point ``b`` of another coincide."""
+
+    a: str
+    b: str
+    name: str
+
+
+@dataclass(frozen=True)
+class Link:
+    """Two-force member of fixed length between two body points."""
+
+    a: str
+    b: str
+    name: str
+
+
+@dataclass(frozen=True)
+class Spring:
+    """Suspension element between two body points; its length is a state."""
+
+    name: str
+    a: str
+    b: str
+    rate_n_per_mm: float | None = None
+    free_length_mm: float | None = None
+    preload_n: float | None = None
+
+
+@dataclass(frozen=True)
+class Slider:
+    """Prismatic joint: point ``b`` runs on the line ``a_from -> a_to`` of another body.
+
+    The two bodies keep their design-position relative angle.
+    """
+
+    name: str
+    a_from: str
+    a_to: str
+    b: str
+
+
+@dataclass(frozen=True)
+class Wheel:
+    """A wheel on an upright body; the tyre is a torus (R, r)."""
+
+    name: str
+    upright: str
+    centre: str
+    outer_radius_mm: float
+    crown_radius_mm: float
+    static_camber_deg: float = 0.0
+
+
+@dataclass(frozen=True)
+class Mechanism:
+    """A planar tilting linkage in its design position.
+
+    Attributes
+    ----------
+    bodies : dict of str -> dict of str -> (float, float)
+        Body name -> point name -> (y_mm, z_mm), design position, global frame.
+    """
+
+    name: str
+    chassis: str
+    bodies: dict[str, dict[str, tuple[float, float]]]
+    pins: tuple[Pin, ...] = ()
+    links: tuple[Link, ...] = ()
+    springs: tuple[Spring, ...] = ()
+    sliders: tuple[Slider, ...] = ()
+    wheels: tuple[Wheel, ...] = ()
+    description: str = ""
+    station_x_mm: float = 0.0
+    source: str = field(default="<memory>", compare=False)
+
+    # ------------------------------------------------------------------ lookup
+    def point(self, ref: str) -> tuple[float, float]:
+        body, pt = split_ref(ref)
+        return self.bodies[body][pt]
+
+    def body_of(self, ref: str) -> str:
+        return split_ref(ref)[0]
+
+    def wheel(self, name: str) -> Wheel:
+        for w in self.wheels:
+            if w.name == name:
+                return w
+        raise KeyError(name)
+
+    @property
+    def point_refs(self) -> list[str]:
+        """Every point as ``body.point``, in file order."""
+        return [f"{b}.{p}" for b, pts in self.bodies.items() for p in pts]
+
+    def with_points(self, points: dict[str, tuple[float, float]]) -> "Mechanism":
+        """A copy with some points moved (``{"body.point": (y, z)}``)."""
+        bodies = {b: dict(pts) for b, pts in self.bodies.items()}
+        for ref, yz in points.items():
+            b, p = split_ref(ref)
+            bodies[b][p] = (float(yz[0]), float(yz[1]))
+        return replace(self, bodies=bodies)
+
+
+def split_ref(ref: str) -> tuple[str, str]:
+    body, _, point = ref.partition(".")
+    return body, point
+
+
+# ---------------------------------------------------------------------- reading
+def load_mechanism(path: str | Path) -> Mechanism:
+    """Read and validate a mechanism TOML file.
+
+    Raises
+    ------
+    InputError
+        On any problem, naming the file and the key.
+    """
+    path = Path(path)
+    src = str(path)
+    try:
+        text = path.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError("file not found. Give the path of a mechanism .toml file.", src) from None
+    except OSError as exc:
+        raise InputError(f"cannot read the file ({exc.strerror}).", src) from None
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML ({exc}).", src) from None
+    return parse_mechanism(data, src)
+
+
+def _check_keys(table: dict, allowed: Iterable[str], required: Iterable[str], src: str, where: str):
+    allowed = set(allowed)
+    for key in table:
+        if key not in allowed:
+            raise InputError(
+                f"unknown key '{key}'. Expected one of: {', '.join(sorted(allowed))}.",
+                src, f"{where}.{key}" if where else key)
+    for key in required:
+        if key not in table:
+            raise InputError("this key is required but missing.", src, f"{where}.{key}" if where else key)
+
+
+def _number(value: Any, src: str, key: str, *, positive: bool = False, nonneg: bool = False) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+        raise InputError(f"expected a finite number. Got {value!r} instead.", src, key)
+    value = float(value)
+    if positive and value <= 0:
+        raise InputError(f"must be positive. Got {value} instead.", src, key)
+    if nonneg and value < 0:
+        raise InputError(f"must not be negative. Got {value} instead.", src, key)
+    return value
+
+
+def _string(value: Any, src: str, key: str) -> str:
+    if not isinstance(value, str):
+        raise InputError(f"expected a string. Got {value!r} instead.", src, key)
+    return value
+
+
+def _list_of_tables(data: dict, name: str, src: str) -> list[dict]:
+    items = data.get(name, [])
+    if not isinstance(items, list) or not all(isinstance(t, dict) for t in items):
+        raise InputError(f"expected an array of tables ([[{name}]]).", src, name)
+    return items
+
+
+def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
+    """Validate a mechanism given as a TOML-like dict (see module docs)."""
+    _check_keys(
+        data,
+        ["name", "chassis", "description", "station_x_mm", "bodies", "pins", "links", "springs",
+         "sliders", "wheels"],
+        ["name", "chassis", "bodies", "wheels"], src, "")
+    name = _string(data["name"], src, "name")
+    chassis = _string(data["chassis"], src, "chassis")
+    description = _string(data.get("description", ""), src, "description")
+    station_x = _number(data.get("station_x_mm", 0.0), src, "station_x_mm")
+
+    raw_bodies = data["bodies"]
+    if not isinstance(raw_bodies, dict) or not raw_bodies:
+        raise InputError("expected at least one [bodies.NAME] table.", src, "bodies")
+    bodies: dict[str, dict[str, tuple[float, float]]] = {}
+    for bname, pts in raw_bodies.items():
+        key = f"bodies.{bname}"
+        if not _NAME.match(bname):
+            raise InputError("body names must be letters, digits and '_' (not starting with a digit).", src, key)
+        if not isinstance(pts, dict) or not pts:
+            raise InputError("expected a table of points, name = [y_mm, z_mm].", src, key)
+        bodies[bname] = {}
+        for pname, yz in pts.items():
+            pkey = f"{key}.{pname}"
+            if not _NAME.match(pname):
+                raise InputError("point names must be letters, digits and '_'.", src, pkey)
+            if not (isinstance(yz, list) and len(yz) == 2):
+                raise InputError(f"expected a point [y_mm, z_mm]. Got {yz!r} instead.", src, pkey)
+            bodies[bname][pname] = (_number(yz[0], src, pkey + "[0]"), _number(yz[1], src, pkey + "[1]"))
+    if chassis not in bodies:
+        raise InputError(
+            f"the chassis body '{chassis}' is not defined. Add a [bodies.{chassis}] table, or set "
+            f"chassis to one of: {', '.join(bodies)}.", src, "chassis")
+
+    def ref(value: Any, key: str) -> str:
+        value = _string(value, src, key)
+        body, _, pt = value.partition(".")
+        if not pt:
+            raise InputError(f"expected a point reference 'body.point'. Got {value!r} instead.", src, key)
+        if body not in bodies:
+            raise InputError(f"unknown body '{body}' in {value!r}. Bodies: {', '.join(bodies)}.", src, key)
+        if pt not in bodies[body]:
+            raise InputError(
+                f"unknown point '{pt}' of body '{body}'. Its points: {', '.join(bodies[body])}.", src, key)
+        return value
+
+    used_names: set[str] = set()
+
+    def unique(nm: str, key: str) -> str:
+        if not re.match(r"^[A-Za-z_][A-Za-z0-9_.~@-]*$", nm):
+            raise InputError(f"invalid name {nm!r}.", src, key)
+        if nm in used_names:
+            raise InputError(f"the name {nm!r} is used twice; joint, spring and wheel names must be unique.",
+                             src, key)
+        used_names.add(nm)
+        return nm
+
+    pins = []
+    for i, t in enumerate(_list_of_tables(data, "pins", src)):
+        w = f"pins[{i}]"
+        _check_keys(t, ["a", "b", "name"], ["a", "b"], src, w)
+        a, b = ref(t["a"], w + ".a"), ref(t["b"], w + ".b")
+        if split_ref(a)[0] == split_ref(b)[0]:
+            raise InputError("a pin must join two different bodies.", src, w)
+        pa, pb = bodies[split_ref(a)[0]][split_ref(a)[1]], bodies[split_ref(b)[0]][split_ref(b)[1]]
+        gap = math.hypot(pa[0] - pb[0], pa[1] - pb[1])
+        if gap > PIN_TOLERANCE_MM:
+            raise InputError(
+                f"the points {a} {list(pa)} and {b} {list(pb)} of a pin must coincide in the design "
+                f"position (within {PIN_TOLERANCE_MM} mm). They are {gap:.3f} mm apart.", src, w)
+        pins.append(Pin(a, b, unique(_string(t.get("name", f"{a}~{b}"), src, w + ".name"), w + ".name")))
+
+    links = []
+    for i, t in enumerate(_list_of_tables(data, "links", src)):
+        w = f"links[{i}]"
+        _check_keys(t, ["a", "b", "name"], ["a", "b"], src, w)
+        a, b = ref(t["a"], w + ".a"), ref(t["b"], w + ".b")
+        _check_length(bodies, a, b, src, w)
+        links.append(Link(a, b, unique(_string(t.get("name", f"{a}~{b}"), src, w + ".name"), w + ".name")))
+
+    springs = []
+    for i, t in enumerate(_list_of_tables(data, "springs", src)):
+        w = f"springs[{i}]"
+        _check_keys(t, ["name", "a", "b", "rate_n_per_mm", "free_length_mm", "preload_n"],
+                    ["name", "a", "b"], src, w)
+        a, b = ref(t["a"], w + ".a"), ref(t["b"], w + ".b")
+        _check_length(bodies, a, b, src, w)
+        opt = {}
+        for k, kw in (("rate_n_per_mm", dict(positive=True)), ("free_length_mm", dict(positive=True)),
+                      ("preload_n", dict(nonneg=True))):
+            if k in t:
+                opt[k] = _number(t[k], src, f"{w}.{k}", **kw)
+        springs.append(Spring(unique(_string(t["name"], src, w + ".name"), w + ".name"), a, b, **opt))
+
+    sliders = []
+    for i, t in enumerate(_list_of_tables(data, "sliders", src)):
+        w = f"sliders[{i}]"
+        _check_keys(t, ["name", "a_from", "a_to", "b"], ["a_from", "a_to", "b"], src, w)
+        a0, a1, b = ref(t["a_from"], w + ".a_from"), ref(t["a_to"], w + ".a_to"), ref(t["b"], w + ".b")
+        if split_ref(a0)[0] != split_ref(a1)[0]:
+            raise InputError("a_from and a_to must be points of the same body (the guide).", src, w)
+        if split_ref(b)[0] == split_ref(a0)[0]:
+            raise InputError("b must be a point of another body than the guide a_from/a_to.", src, w)
+        p0, p1, pb = (bodies[split_ref(r)[0]][split_ref(r)[1]] for r in (a0, a1, b))
+        length = math.hypot(p1[0] - p0[0], p1[1] - p0[1])
+        if length < 1.0:
+            raise InputError(f"the guide line a_from -> a_to must be at least 1 mm long. It is {length:.3f} mm.",
+                             src, w)
+        off = abs((pb[0] - p0[0]) * (p1[1] - p0[1]) - (pb[1] - p0[1]) * (p1[0] - p0[0])) / length
+        if off > PIN_TOLERANCE_MM:
+            raise InputError(f"the point {b} must lie on the guide line {a0} -> {a1} in the design position "
+                             f"(within {PIN_TOLERANCE_MM} mm). It is {off:.3f} mm off.", src, w)
+        nm = _string(t.get("name", f"{b}@{split_ref(a0)[0]}"), src, w + ".name")
+        sliders.append(Slider(unique(nm, w + ".name"), a0, a1, b))
+
+    wheels = []
+    raw_wheels = _list_of_tables(data, "wheels", src)
+    for i, t in enumerate(raw_wheels):
+        w = f"wheels[{i}]"
+        _check_keys(t, ["name", "upright", "centre", "outer_radius_mm", "crown_radius_mm", "static_camber_deg"],
+                    ["name", "upright", "centre", "outer_radius_mm", "crown_radius_mm"], src, w)
+        nm = _string(t["name"], src, w + ".name")
+        if nm not in ("left", "right"):
+            raise InputError(f"wheel names must be 'left' and 'right'. Got {nm!r} instead.", src, w + ".name")
+        up = _string(t["upright"], src, w + ".upright")
+        if up not in bodies:
+            raise InputError(f"unknown body '{up}'. Bodies: {', '.join(bodies)}.", src, w + ".upright")
+        if up == chassis:
+            raise InputError("a wheel's upright cannot be the chassis.", src, w + ".upright")
+        centre = ref(t["centre"], w + ".centre")
+        if split_ref(centre)[0] != up:
+            raise InputError(f"the wheel centre must be a point of its upright '{up}'. Got {centre!r}.",
+                             src, w + ".centre")
+        big = _number(t["outer_radius_mm"], src, w + ".outer_radius_mm", positive=True)
+        small = _number(t["crown_radius_mm"], src, w + ".crown_radius_mm", nonneg=True)
+        if small >= big:
+            raise InputError(f"the crown_radius_mm of wheel '{nm}' must be smaller than outer_radius_mm "
+                             f"({big}). Got {small} instead.", src, w + ".crown_radius_mm")
+        camber = _number(t.get("static_camber_deg", 0.0), src, w + ".static_camber_deg")
+        if abs(camber) >= 45:
+            raise InputError(f"static_camber_deg must lie within +-45. Got {camber}.", src, w + ".static_camber_deg")
+        zc = bodies[up][split_ref(centre)[1]][1]
+        need = (big - small) * math.cos(math.radians(camber)) + small
+        if abs(zc - need) > PIN_TOLERANCE_MM:
+            raise InputError(
+                f"in the design position the tyre of wheel '{nm}' must touch the ground (z = 0): with "
+                f"outer_radius_mm {big}, crown_radius_mm {small} and static_camber_deg {camber} its centre "
+                f"must be at z = {need:.3f} mm. It is at z = {zc:.3f} mm.", src, w + ".centre")
+        wheels.append(Wheel(nm, up, centre, big, small, camber))
+    names = sorted(w.name for w in wheels)
+    if names != ["left", "right"]:
+        raise InputError(f"expected exactly two wheels, named 'left' and 'right'. Got {names or 'none'}.",
+                         src, "wheels")
+    wheels.sort(key=lambda w: w.name)  # left first
+
+    return Mechanism(name=name, chassis=chassis, bodies=bodies, pins=tuple(pins), links=tuple(links),
+                     springs=tuple(springs), sliders=tuple(sliders), wheels=tuple(wheels),
+                     description=description, station_x_mm=station_x, source=src)
+
+
+def _check_length(bodies, a, b, src, where):
+    if split_ref(a)[0] == split_ref(b)[0]:
+        raise InputError("the two ends must be points of two different bodies.", src, where)
+    pa, pb = bodies[split_ref(a)[0]][split_ref(a)[1]], bodies[split_ref(b)[0]][split_ref(b)[1]]
+    if math.hypot(pa[0] - pb[0], pa[1] - pb[1]) < 1.0:
+        raise InputError("the two ends are less than 1 mm apart in the design position.", src, where)
+
+
+# ---------------------------------------------------------------------- writing
+def _fmt(x: float) -> str:
+    return repr(float(x))
+
+
+def _q(s: str) -> str:
+    return '"' + s.replace("\\", "\\\\").replace('"', '\\"') + '"'
+
+
+def mechanism_to_toml(mech: Mechanism, header: str = "") -> str:
+    """Serialise a mechanism to the TOML file format (round-trips exactly)."""
+    out = []
+    if header:
+        out += ["# " + line if line else "#" for line in header.splitlines()]
+        out.append("")
+    out.append(f"name = {_q(mech.name)}")
+    out.append(f"chassis = {_q(mech.chassis)}")
+    if mech.description:
+        out.append(f"description = {_q(mech.description)}")
+    out.append(f"station_x_mm = {_fmt(mech.station_x_mm)}")
+    for b, pts in mech.bodies.items():
+        out += ["", f"[bodies.{b}]"]
+        out += [f"{p} = [{_fmt(y)}, {_fmt(z)}]" for p, (y, z) in pts.items()]
+    for p in mech.pins:
+        out += ["", "[[pins]]", f"name = {_q(p.name)}", f"a = {_q(p.a)}", f"b = {_q(p.b)}"]
+    for l in mech.links:
+        out += ["", "[[links]]", f"name = {_q(l.name)}", f"a = {_q(l.a)}", f"b = {_q(l.b)}"]
+    for s in mech.springs:
+        out += ["", "[[springs]]", f"name = {_q(s.name)}", f"a = {_q(s.a)}", f"b = {_q(s.b)}"]
+        for k in ("rate_n_per_mm", "free_length_mm", "preload_n"):
+            v = getattr(s, k)
+            if v is not None:
+                out.append(f"{k} = {_fmt(v)}")
+    for s in mech.sliders:
+        out += ["", "[[sliders]]", f"name = {_q(s.name)}", f"a_from = {_q(s.a_from)}", f"a_to = {_q(s.a_to)}",
+                f"b = {_q(s.b)}"]
+    for w in mech.wheels:
+        out += ["", "[[wheels]]", f"name = {_q(w.name)}", f"upright = {_q(w.upright)}", f"centre = {_q(w.centre)}",
+                f"outer_radius_mm = {_fmt(w.outer_radius_mm)}", f"crown_radius_mm = {_fmt(w.crown_radius_mm)}",
+                f"static_camber_deg = {_fmt(w.static_camber_deg)}"]
+    return "\n".join(out) + "\n"
+
+
+# ---------------------------------------------------------------------- mirror
+def _swap_lr(s: str) -> str:
+    return s.replace("left", "\0").replace("right", "left").replace("\0", "right")
+
+
+def mirror(mech: Mechanism) -> Mechanism:
+    """The mirror image about the chassis centre plane (y -> -y, left <-> right)."""
+    bodies = {_swap_lr(b): {_swap_lr(p): (-y, z) for p, (y, z) in pts.items()} for b, pts in mech.bodies.items()}
+    return Mechanism(
+        name=mech.name + "_mirrored",
+        chassis=_swap_lr(mech.chassis),
+        bodies=bodies,
+        pins=tuple(Pin(_swap_lr(p.a), _swap_lr(p.b), _swap_lr(p.name)) for p in mech.pins),
+        links=tuple(Link(_swap_lr(l.a), _swap_lr(l.b), _swap_lr(l.name)) for l in mech.links),
+        springs=tuple(replace(s, name=_swap_lr(s.name), a=_swap_lr(s.a), b=_swap_lr(s.b)) for s in mech.springs),
+        sliders=tuple(Slider(_swap_lr(s.name), _swap_lr(s.a_from), _swap_lr(s.a_to), _swap_lr(s.b))
+                      for s in mech.sliders),
+        wheels=tuple(sorted((replace(w, name=_swap_lr(w.name), upright=_swap_lr(w.upright),
+                                     centre=_swap_lr(w.centre), static_camber_deg=-w.static_camber_deg)
+                             for w in mech.wheels), key=lambda w: w.name)),
+        description=mech.description,
+        station_x_mm=mech.station_x_mm,
+    )

@@ -1,0 +1,280 @@
+"""Batched Newton (Gauss-Newton) solve of the assembly equations.
+
+Equations, all in mm (see DOMAIN.md and :mod:`kinematics.model`):
+
+- loop pins: ``x(a) - x(b) = 0`` (2 rows each);
+- loop sliders: offset of the runner point from the guide line, and the
+  relative angle times a characteristic length (2 rows each);
+- links: ``|x(a) - x(b)| - L0 = 0``; springs: the same with a target length;
+- wheel on ground: ``z_c - (R - r) cos(gamma) - r = 0`` per wheel;
+- lateral reference: mean contact ``y = y_c - (R - r) sin(gamma)`` is 0;
+- travel (lean-0 stage only): ``z_c - z_O - (z_c0 - z_O0) - s = 0`` per wheel.
+
+The chassis angle is the prescribed lean. The step is the least-squares
+Newton step ``(J^T J) dq = -J^T r`` on angle-scaled columns (exact Newton for a
+square system, Gauss-Newton for a redundant one such as the rigid
+parallelogram, whose redundant equation stays consistent).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .model import ANGLE, Geometry, Model
+
+# status codes of a solved state
+CONVERGED = 0
+STALLED = 1        # the equations cannot all be met here (locked, toggled, over-constrained)
+MAX_ITER = 2       # iteration limit reached
+NONFINITE = 3      # geometry degenerated (zero-length member, NaN)
+SKIPPED = 4        # not attempted: an earlier state of the same path failed
+STATUS_TEXT = {
+    CONVERGED: "converged",
+    STALLED: "cannot reach this state (locked: the equations have no solution here)",
+    MAX_ITER: "no convergence within the iteration limit",
+    NONFINITE: "geometry degenerated (non-finite values)",
+    SKIPPED: "not attempted: an earlier state on the same path failed",
+}
+
+
+@dataclass
+class SolveSettings:
+    """Newton settings.
+
+    tol_mm : largest equation residual accepted as converged, mm.
+    max_iter : iteration limit per solve.
+    max_angle_step_rad : largest change of any angle in one iteration.
+    """
+
+    tol_mm: float = 1e-9
+    max_iter: int = 30
+    max_angle_step_rad: float = 0.25
+
+
+class Batch:
+    """Per-item constant arrays of one batched solve.
+
+    Items are (candidate, path) pairs; ``cand`` maps each item to its
+    candidate in ``geom``.
+    """
+
+    def __init__(self, model: Model, geom: Geometry, cand: np.ndarray):
+        self.model = model
+        self.cand = np.asarray(cand, dtype=int)
+        tab = model._np
+        V, U = model.design_vectors(geom, tab)
+        self.V, self.U = V[self.cand], U[self.cand]
+        pts = geom.points[self.cand]
+        self.R = geom.outer_radius[self.cand]
+        self.r = geom.crown_radius[self.cand]
+        self.gamma0 = geom.static_camber[self.cand]
+        self.Lc = model.char_length(geom)[self.cand]
+        m = model
+        # link and spring design lengths
+        self.L_link = np.linalg.norm(pts[:, m.mech_idx(m.eq_link, 0)] - pts[:, m.mech_idx(m.eq_link, 1)], axis=-1)
+        self.L_spring0 = np.linalg.norm(pts[:, m.mech_idx(m.eq_spring, 0)] - pts[:, m.mech_idx(m.eq_spring, 1)],
+                                        axis=-1)
+        # slider guide normals (design) and wheel-centre design heights
+        if len(m.eq_slider):
+            u = pts[:, m.mech_idx(m.eq_slider, 1)] - pts[:, m.mech_idx(m.eq_slider, 0)]
+            u /= np.linalg.norm(u, axis=-1, keepdims=True)
+            self.n0 = np.stack([-u[..., 1], u[..., 0]], axis=-1)
+        else:
+            self.n0 = np.zeros((len(self.cand), 0, 2))
+        self.zc0 = pts[:, m.needed[m.eq_wheel], 1]
+        # scaling of angle columns: an angle step of 1 rad moves points by ~Lc mm
+        self.col_scale = np.where(m.coord_kind[None, :] == ANGLE, 1.0 / self.Lc[:, None], 1.0)
+
+    def take(self, idx) -> "Batch":
+        new = object.__new__(Batch)
+        for k, v in self.__dict__.items():
+            new.__dict__[k] = v[idx] if isinstance(v, np.ndarray) else v
+        return new
+
+
+def n_rows(model: Model, stage: str) -> int:
+    base = model.n_loop_rows + len(model.eq_link) + 3
+    return base + (2 if stage == "travel" else len(model.eq_spring))
+
+
+def row_names(model: Model, stage: str) -> list[str]:
+    tail = (["travel left", "travel right"] if stage == "travel" else model.row_names_spring)
+    return model.row_names_kin + tail + ["ground left", "ground right", "lateral reference"]
+
+
+def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np.ndarray, stage: str,
+             jac: bool = True):
+    """Residual (N, m) and Jacobian (N, m, n_q) of a stage.
+
+    Parameters
+    ----------
+    target : ndarray
+        stage ``"travel"``: travel s per item, shape (N,), mm;
+        stage ``"lean"``: held spring lengths, shape (N, n_springs), mm.
+    """
+    m = model
+    x, Jx, ang = m.positions(q, lean, b.V, b.U, m._np, jac=jac)
+    N = q.shape[0]
+    rows = n_rows(m, stage)
+    F = np.empty((N, rows))
+    J = np.zeros((N, rows, m.n_q)) if jac else None
+    r0 = 0
+    # loop pins
+    if len(m.eq_pin):
+        a, bb = m.eq_pin[:, 0], m.eq_pin[:, 1]
+        k = 2 * len(a)
+        F[:, r0:r0 + k] = (x[:, a] - x[:, bb]).reshape(N, k)
+        if jac:
+            J[:, r0:r0 + k] = (Jx[:, a] - Jx[:, bb]).reshape(N, k, m.n_q)
+        r0 += k
+    # loop sliders
+    if len(m.eq_slider):
+        f, t, p = m.eq_slider[:, 0], m.eq_slider[:, 1], m.eq_slider[:, 2]
+        ga, gb = m.eq_slider_bodies[:, 0], m.eq_slider_bodies[:, 1]
+        srca, srcb = np.array(m.tree.ang_src)[ga], np.array(m.tree.ang_src)[gb]
+        th_a, th_b = ang[:, srca], ang[:, srcb]
+        c, s = np.cos(th_a), np.sin(th_a)
+        n = np.stack([c * b.n0[..., 0] + s * b.n0[..., 1], -s * b.n0[..., 0] + c * b.n0[..., 1]], -1)
+        d = x[:, p] - x[:, f]
+        ns = len(f)
+        F[:, r0:r0 + 2 * ns:2] = np.sum(n * d, -1)
+        F[:, r0 + 1:r0 + 2 * ns:2] = (th_b - th_a) * b.Lc[:, None]
+        if jac:
+            J[:, r0:r0 + 2 * ns:2] = np.einsum("nsd,nsdq->nsq", n, Jx[:, p] - Jx[:, f])
+            dn = np.stack([n[..., 1], -n[..., 0]], -1)
+            for j in range(ns):  # few sliders; loop over joints, not items
+                if srca[j] > 0:
+                    col = m.ang_coord[srca[j] - 1]
+                    J[:, r0 + 2 * j, col] += np.sum(dn[:, j] * d[:, j], -1)
+                    J[:, r0 + 2 * j + 1, col] -= b.Lc
+                if srcb[j] > 0:
+                    J[:, r0 + 2 * j + 1, m.ang_coord[srcb[j] - 1]] += b.Lc
+        r0 += 2 * ns
+
+    def lengths(eq, L0, r0):
+        a, bb = eq[:, 0], eq[:, 1]
+        d = x[:, a] - x[:, bb]
+        L = np.sqrt(np.sum(d * d, -1))
+        k = len(a)
+        F[:, r0:r0 + k] = L - L0
+        if jac:
+            J[:, r0:r0 + k] = np.einsum("nkd,nkdq->nkq", d / L[..., None], Jx[:, a] - Jx[:, bb])
+        return r0 + k
+
+    if len(m.eq_link):
+        r0 = lengths(m.eq_link, b.L_link, r0)
+    wc = m.eq_wheel
+    if stage == "travel":
+        # wheel centres move s relative to the chassis datum (lean 0: chassis frame = global)
+        F[:, r0:r0 + 2] = x[:, wc, 1] - q[:, 1, None] - b.zc0 - target[:, None]
+        if jac:
+            J[:, r0:r0 + 2] = Jx[:, wc, 1]
+            J[:, r0:r0 + 2, 1] -= 1.0
+        r0 += 2
+    elif len(m.eq_spring):
+        r0 = lengths(m.eq_spring, target, r0)
+    # ground and lateral reference
+    usrc = np.array(m.tree.ang_src)[m.wheel_upright]
+    gamma = b.gamma0 + ang[:, usrc]
+    Rr = b.R - b.r
+    sg, cg = np.sin(gamma), np.cos(gamma)
+    F[:, r0:r0 + 2] = x[:, wc, 1] - Rr * cg - b.r
+    F[:, r0 + 2] = 0.5 * np.sum(x[:, wc, 0] - Rr * sg, -1)
+    if jac:
+        J[:, r0:r0 + 2] = Jx[:, wc, 1]
+        J[:, r0 + 2] = 0.5 * (Jx[:, wc[0], 0] + Jx[:, wc[1], 0])
+        for w in range(2):
+            if usrc[w] > 0:
+                col = m.ang_coord[usrc[w] - 1]
+                J[:, r0 + w, col] += Rr[:, w] * sg[:, w]
+                J[:, r0 + 2, col] -= 0.5 * Rr[:, w] * cg[:, w]
+    return F, J
+
+
+def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.ndarray, stage: str,
+           settings: SolveSettings = SolveSettings()):
+    """Solve a batch of states from the start guesses ``q0``.
+
+    Returns
+    -------
+    q : ndarray of shape (N, n_q)
+    status : ndarray of shape (N,), int8 (see STATUS_TEXT)
+    resid : ndarray of shape (N,)
+        Largest absolute equation residual, mm.
+    iters : ndarray of shape (N,)
+    J : ndarray of shape (N, m, n_q)
+        Jacobian at the returned q (used for tangents).
+    """
+    N = q0.shape[0]
+    q = q0.copy()
+    status = np.full(N, MAX_ITER, dtype=np.int8)
+    resid = np.full(N, np.inf)
+    iters = np.zeros(N, dtype=int)
+    active = np.arange(N)
+    rows = n_rows(model, stage)
+    Jout = np.zeros((N, rows, model.n_q))
+    prev = np.full(N, np.inf)
+    angle_cols = model.coord_kind == ANGLE
+    sub, qs, ls, ts = b, q, lean, target
+    for it in range(settings.max_iter + 1):
+        F, J = residual(model, sub, qs, ls, ts, stage)
+        rmax = np.max(np.abs(F), axis=1)
+        finite = np.isfinite(rmax) & np.all(np.isfinite(J), axis=(1, 2))
+        resid[active] = rmax
+        Jout[active] = J
+        q[active] = qs
+        done = finite & (rmax <= settings.tol_mm)
+        bad = ~finite
+        # stalled: no longer decreasing although not converged
+        stalled = finite & ~done & (it >= 4) & (rmax > 0.9 * prev[active])
+        status[active[done]] = 0
+        status[active[bad]] = NONFINITE
+        status[active[stalled]] = STALLED
+        keep = ~(done | bad | stalled)
+        prev[active] = np.where(rmax < prev[active], rmax, prev[active]) if it >= 2 else rmax
+        if it == settings.max_iter or not keep.any():
+            status[active[keep]] = MAX_ITER
+            break
+        if not keep.all():
+            active = active[keep]
+            F, J, qs = F[keep], J[keep], qs[keep]
+            sub, ls, ts = b.take(active), lean[active], target[active]
+        iters[active] += 1
+        Js = J * sub.col_scale[:, None, :]
+        JT = Js.transpose(0, 2, 1)
+        A = JT @ Js
+        g = JT @ F[..., None]
+        diag = np.einsum("nii->ni", A)
+        A[:, np.arange(model.n_q), np.arange(model.n_q)] += 1e-13 * np.maximum(diag.max(1, keepdims=True), 1.0)
+        try:
+            dq = -np.linalg.solve(A, g)[..., 0]
+        except np.linalg.LinAlgError:
+            dq = -np.einsum("nij,nj->ni", np.linalg.pinv(A), g[..., 0])
+        dq *= sub.col_scale
+        big = np.max(np.abs(np.where(angle_cols, dq, 0.0)), axis=1)
+        f = np.minimum(1.0, settings.max_angle_step_rad / np.maximum(big, 1e-300))
+        qs = qs + dq * f[:, None]
+    return q, status, resid, iters, Jout
+
+
+def tangent(model: Model, J: np.ndarray, dF: np.ndarray, col_scale: np.ndarray) -> np.ndarray:
+    """Least-squares solution of ``J dq = -dF`` (batched), e.g. dq/d(lean) or dq/d(travel).
+
+    Parameters
+    ----------
+    J : ndarray of shape (N, m, n_q)
+    dF : ndarray of shape (N, m)
+        Partial derivative of the residual with respect to the parameter.
+    """
+    Js = J * col_scale[:, None, :]
+    JT = Js.transpose(0, 2, 1)
+    A = JT @ Js
+    diag = np.einsum("nii->ni", A)
+    A[:, np.arange(model.n_q), np.arange(model.n_q)] += 1e-13 * np.maximum(diag.max(1, keepdims=True), 1.0)
+    g = JT @ dF[..., None]
+    try:
+        dq = -np.linalg.solve(A, g)[..., 0]
+    except np.linalg.LinAlgError:
+        dq = -np.einsum("nij,nj->ni", np.linalg.pinv(A), g[..., 0])
+    return dq * col_scale

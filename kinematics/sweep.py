@@ -1,0 +1,359 @@
+"""The sweep procedure of DOMAIN.md and the per-state metrics.
+
+1. Each travel ``s`` is solved at lean 0 (both wheel centres displaced by
+   ``s`` relative to the chassis), by continuation from the design position.
+2. The spring lengths found there are held.
+3. The mechanism is leaned from 0 to each requested lean by continuation
+   (secant predictor, Newton corrector), all candidates and travels in one
+   batch; a path that fails stops there and its later states are reported as
+   not attempted.
+
+All candidates (same topology, different geometry) and all travels are one
+batch: there is no Python loop over candidates or states, only over the
+continuation steps.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .model import Geometry, Model
+from .solver import (CONVERGED, SKIPPED, STATUS_TEXT, Batch, SolveSettings, newton, residual, tangent)
+
+
+@dataclass
+class SweepSettings:
+    """Continuation settings.
+
+    max_lean_step_deg : largest lean step between solved states; requested
+        leans are always solved states.
+    max_travel_step_mm : largest travel step of the lean-0 continuation.
+    """
+
+    max_lean_step_deg: float = 5.0
+    max_travel_step_mm: float = 15.0
+    solve: SolveSettings = field(default_factory=SolveSettings)
+
+
+@dataclass
+class SweepResult:
+    """Every state of a sweep; arrays have shape (n_candidates, n_travel, n_lean, ...).
+
+    Metric arrays hold NaN where ``converged`` is False; writers report those
+    as null, never as numbers.
+    """
+
+    model: Model
+    lean_deg: np.ndarray
+    travel_mm: np.ndarray
+    status: np.ndarray
+    residual_mm: np.ndarray
+    iterations: np.ndarray
+    q: np.ndarray
+    points: np.ndarray            # (C, T, L, n_points, 2) mm
+    body_angle: np.ndarray        # (C, T, L, n_bodies) rad
+    camber: np.ndarray            # (C, T, L, 2) rad
+    contact: np.ndarray           # (C, T, L, 2, 2) mm, [left, right] x [y, z]
+    spring_length: np.ndarray     # (C, T, L, n_springs) mm
+    track: np.ndarray
+    track_change: np.ndarray
+    scrub: np.ndarray
+    heave: np.ndarray
+    camber_error: np.ndarray      # (C, T, L, 2) rad
+    lean_point_offset: np.ndarray
+    bump_track_change: np.ndarray   # (C, T) mm, against the design position
+    bump_camber_change: np.ndarray  # (C, T, 2) rad
+    motion_ratio: np.ndarray        # (C, T, n_springs): spring shortening per mm of bump
+    travel_status: np.ndarray       # (C, T)
+
+    @property
+    def converged(self) -> np.ndarray:
+        return self.status == CONVERGED
+
+    def status_text(self, c: int, t: int, l: int) -> str:
+        return STATUS_TEXT[int(self.status[c, t, l])]
+
+    def records(self, candidate: int = 0) -> list[dict]:
+        """One JSON-ready dict per state of one candidate (nulls where not converged)."""
+        out = []
+        names = self.model.spring_names
+        for ti, s in enumerate(self.travel_mm):
+            for li, phi in enumerate(self.lean_deg):
+                ok = bool(self.converged[candidate, ti, li])
+
+                def val(a, scale=1.0):
+                    v = a[candidate, ti, li]
+                    return float(v * scale) if ok and np.isfinite(v) else None
+
+                deg = 180.0 / math.pi
+                out.append({
+                    "lean_deg": float(phi),
+                    "travel_mm": float(s),
+                    "converged": ok,
+                    "status": self.status_text(candidate, ti, li),
+                    "residual_mm": float(self.residual_mm[candidate, ti, li])
+                    if np.isfinite(self.residual_mm[candidate, ti, li]) else None,
+                    "track_mm": val(self.track),
+                    "track_change_mm": val(self.track_change),
+                    "scrub_mm": val(self.scrub),
+                    "heave_mm": val(self.heave),
+                    "camber_left_deg": val(self.camber[..., 0], deg),
+                    "camber_right_deg": val(self.camber[..., 1], deg),
+                    "camber_error_left_deg": val(self.camber_error[..., 0], deg),
+                    "camber_error_right_deg": val(self.camber_error[..., 1], deg),
+                    "lean_point_offset_mm": val(self.lean_point_offset),
+                    "contact_left_mm": [val(self.contact[..., 0, 0]), val(self.contact[..., 0, 1])]
+                    if ok else None,
+                    "contact_right_mm": [val(self.contact[..., 1, 0]), val(self.contact[..., 1, 1])]
+                    if ok else None,
+                    "spring_lengths_mm": {n: val(self.spring_length[..., k]) for k, n in enumerate(names)},
+                })
+        return out
+
+    def bump_records(self, candidate: int = 0) -> list[dict]:
+        """Lean-0 bump metrics per travel, against the design position."""
+        out = []
+        for ti, s in enumerate(self.travel_mm):
+            ok = bool(self.travel_status[candidate, ti] == CONVERGED)
+            f = (lambda v: float(v) if ok and np.isfinite(v) else None)
+            out.append({
+                "travel_mm": float(s),
+                "converged": ok,
+                "track_change_mm": f(self.bump_track_change[candidate, ti]),
+                "camber_change_left_deg": f(np.degrees(self.bump_camber_change[candidate, ti, 0])),
+                "camber_change_right_deg": f(np.degrees(self.bump_camber_change[candidate, ti, 1])),
+                "motion_ratio": {n: f(self.motion_ratio[candidate, ti, k])
+                                 for k, n in enumerate(self.model.spring_names)},
+            })
+        return out
+
+
+def _lean_paths(lean_rad: np.ndarray, max_step: float):
+    """Continuation paths from 0 outward, one per sign, padded to equal length.
+
+    Returns the (n_branch, K+1) node angles and, per requested lean, its
+    (branch, node) position.
+    """
+    pos = sorted({float(v) for v in lean_rad if v >= 0} | {0.0})
+    neg = sorted({float(v) for v in lean_rad if v < 0}, reverse=True)
+    branches = [pos] + ([[0.0] + neg] if neg else [])
+    paths, where = [], {}
+    for bi, req in enumerate(branches):
+        nodes = [0.0]
+        for v in req[1:]:
+            n = max(1, math.ceil(abs(v - nodes[-1]) / max_step - 1e-9))
+            start = nodes[-1]
+            nodes += [start + (v - start) * (k / n) for k in range(1, n + 1)]
+            where.setdefault(v, (bi, len(nodes) - 1))
+        where.setdefault(0.0, (bi, 0))
+        paths.append(nodes)
+    K = max(len(p) for p in paths)
+    paths = np.array([p + [p[-1]] * (K - len(p)) for p in paths])
+    index = [where[float(v)] for v in lean_rad]
+    return paths, index
+
+
+def _lengths(model: Model, b: Batch, q, lean, eq, jac=False):
+    x, Jx, _ = model.positions(q, lean, b.V, b.U, model._np, jac=jac)
+    d = x[:, eq[:, 0]] - x[:, eq[:, 1]]
+    L = np.linalg.norm(d, axis=-1)
+    if not jac:
+        return L, None
+    dL = np.einsum("nkd,nkdq->nkq", d / L[..., None], Jx[:, eq[:, 0]] - Jx[:, eq[:, 1]])
+    return L, dL
+
+
+def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm=(0.0,),
+          settings: SweepSettings | None = None) -> SweepResult:
+    """Sweep lean x travel for every candidate of ``geom`` in one batch.
+
+    Parameters
+    ----------
+    model : Model
+    geom : Geometry, optional
+        Candidates of the model's topology (default: the mechanism itself).
+    lean_deg : array-like of shape (n_lean,)
+    travel_mm : array-like of shape (n_travel,)
+
+    Returns
+    -------
+    SweepResult
+        Arrays of shape (n_candidates, n_travel, n_lean, ...).
+    """
+    settings = settings or SweepSettings()
+    geom = geom or model.default_geometry
+    lean_deg = np.atleast_1d(np.asarray(lean_deg, dtype=float))
+    travel = np.atleast_1d(np.asarray(travel_mm, dtype=float))
+    C, T, L = geom.n_candidates, len(travel), len(lean_deg)
+    nq, ns = model.n_q, len(model.eq_spring)
+
+    # ---------------------------------------------------------------- travel
+    cand_t = np.repeat(np.arange(C), T)
+    s_item = np.tile(travel, C)
+    bt = Batch(model, geom, cand_t)
+    N = C * T
+    q = model.design_q(N)
+    zero = np.zeros(N)
+    K = max(1, math.ceil(np.max(np.abs(travel)) / settings.max_travel_step_mm - 1e-9))
+    tstatus = np.zeros(N, dtype=np.int8)
+    J = None
+    s_prev = np.zeros(N)
+    for k in range(1, K + 1):
+        s_k = s_item * (k / K)
+        ok = np.flatnonzero(tstatus == CONVERGED)
+        if len(ok) == 0:
+            break
+        sub = bt.take(ok)
+        q_guess = q[ok]
+        if J is not None:
+            dF = np.zeros((len(ok), J.shape[1]))
+            dF[:, model.n_loop_rows + len(model.eq_link):model.n_loop_rows + len(model.eq_link) + 2] = -1.0
+            q_guess = q_guess + tangent(model, J[ok], dF, sub.col_scale) * (s_k - s_prev)[ok, None]
+        qs, st, res, it, Js = newton(model, sub, q_guess, zero[ok], s_k[ok], "travel", settings.solve)
+        q[ok] = qs
+        tstatus[ok] = st
+        if J is None:
+            J = np.zeros((N,) + Js.shape[1:])
+        J[ok] = Js
+        s_prev = s_k
+    t_res = residual(model, bt, q, zero, s_item, "travel", jac=False)[0]
+    t_resid = np.max(np.abs(t_res), axis=1)
+
+    # held spring lengths and motion ratios at lean 0
+    if ns:
+        Ls, dLs = _lengths(model, bt, q, zero, model.eq_spring, jac=True)
+        dF = np.zeros((N, J.shape[1]))
+        off = model.n_loop_rows + len(model.eq_link)
+        dF[:, off:off + 2] = -1.0
+        dq_ds = tangent(model, J, dF, bt.col_scale)
+        motion_ratio = -np.einsum("nkq,nq->nk", dLs, dq_ds)
+    else:
+        Ls = np.zeros((N, 0))
+        motion_ratio = np.zeros((N, 0))
+
+    # ------------------------------------------------------------------ lean
+    lean_rad = np.radians(lean_deg)
+    paths, index = _lean_paths(lean_rad, math.radians(settings.max_lean_step_deg))
+    nb, Kl = paths.shape
+    # items: (candidate, travel, branch)
+    item_ct = np.repeat(np.arange(N), nb)
+    item_branch = np.tile(np.arange(nb), N)
+    bl = bt.take(item_ct)
+    M = len(item_ct)
+    held = Ls[item_ct]
+    Q = np.zeros((M, Kl, nq))
+    S = np.full((M, Kl), SKIPPED, dtype=np.int8)
+    RES = np.full((M, Kl), np.nan)
+    IT = np.zeros((M, Kl), dtype=int)
+    alive = tstatus[item_ct] == CONVERGED
+    Q[:, 0] = q[item_ct]
+    S[:, 0] = np.where(alive, CONVERGED, tstatus[item_ct])
+    RES[:, 0] = t_resid[item_ct]
+    # the lean-0 state is the travel solution; check it also meets the held springs
+    for k in range(1, Kl):
+        ok = np.flatnonzero(alive)
+        if len(ok) == 0:
+            break
+        phi = paths[item_branch[ok], k]
+        phi_prev = paths[item_branch[ok], k - 1]
+        if k >= 2:
+            dphi_old = phi_prev - paths[item_branch[ok], k - 2]
+            ratio = np.divide(phi - phi_prev, dphi_old, out=np.zeros_like(phi), where=dphi_old != 0)
+            guess = Q[ok, k - 1] + (Q[ok, k - 1] - Q[ok, k - 2]) * ratio[:, None]
+        else:
+            sub0 = bl.take(ok)
+            h = 1e-6
+            Fp, Jp = residual(model, sub0, Q[ok, 0], phi_prev + h, held[ok], "lean")
+            Fm = residual(model, sub0, Q[ok, 0], phi_prev - h, held[ok], "lean", jac=False)[0]
+            dq = tangent(model, Jp, (Fp - Fm) / (2 * h), sub0.col_scale)
+            guess = Q[ok, 0] + dq * (phi - phi_prev)[:, None]
+        qs, st, res, it, _ = newton(model, bl.take(ok), guess, phi, held[ok], "lean", settings.solve)
+        Q[ok, k], S[ok, k], RES[ok, k], IT[ok, k] = qs, st, res, it
+        alive[ok] = st == CONVERGED
+
+    # ----------------------------------------------------- gather requested
+    sel_b = np.array([w[0] for w in index])
+    sel_k = np.array([w[1] for w in index])
+    # item of (n, branch) is n * nb + branch
+    rows = (np.arange(N)[:, None] * nb + sel_b[None, :])           # (N, L)
+    q_out = Q[rows, sel_k[None, :]]                                  # (N, L, nq)
+    st_out = S[rows, sel_k[None, :]]
+    res_out = RES[rows, sel_k[None, :]]
+    it_out = IT[rows, sel_k[None, :]]
+    # lean-0 reference of the same travel (always node 0)
+    q_ref = Q[np.arange(N) * nb, 0]
+
+    # ------------------------------------------------------------ metrics
+    NL = N * L
+    flat_q = q_out.reshape(NL, nq)
+    flat_lean = np.broadcast_to(lean_rad, (N, L)).reshape(NL)
+    cand_all = np.repeat(cand_t, L)
+    Vall, Uall = model.design_vectors(geom, model._all)
+    x_all, _, ang = model.positions(flat_q, flat_lean, Vall[cand_all], Uall[cand_all], model._all)
+    body_angle = model.body_angles(ang)
+    bL = bt.take(np.repeat(np.arange(N), L))
+    gamma = bL.gamma0 + body_angle[:, model.wheel_upright]
+    Rr = bL.R - bL.r
+    wc = x_all[:, model.wheel_centre]                                # (NL, 2, 2)
+    contact = np.stack([wc[..., 0] - Rr * np.sin(gamma), wc[..., 1] - Rr * np.cos(gamma) - bL.r], -1)
+    if ns:
+        sl = x_all[:, [model.point_index[s.a] for s in model.mech.springs]] - \
+            x_all[:, [model.point_index[s.b] for s in model.mech.springs]]
+        spring_len = np.linalg.norm(sl, axis=-1)
+    else:
+        spring_len = np.zeros((NL, 0))
+
+    # references at lean 0 of the same travel
+    x0, _, ang0 = model.positions(q_ref, np.zeros(N), Vall[cand_t], Uall[cand_t], model._all)
+    g0 = bt.gamma0 + model.body_angles(ang0)[:, model.wheel_upright]
+    Rr0 = bt.R - bt.r
+    c0 = x0[:, model.wheel_centre, 0] - Rr0 * np.sin(g0)
+    track0 = c0[:, 1] - c0[:, 0]
+    zO0 = q_ref[:, 1]
+
+    shape = (C, T, L)
+    track = (contact[:, 1, 0] - contact[:, 0, 0]).reshape(shape)
+    gam = gamma.reshape(shape + (2,))
+    track_change = track - track0.reshape(C, T, 1)
+    dg = gam - g0.reshape(C, T, 1, 2)
+    r_mean = bt.r.mean(axis=1).reshape(C, T, 1)
+    scrub = track_change - r_mean * (dg[..., 1] - dg[..., 0])
+    phi = lean_rad.reshape(1, 1, L)
+    zO = flat_q[:, 1].reshape(shape)
+    yO = flat_q[:, 0].reshape(shape)
+    heave = zO - zO0.reshape(C, T, 1) - r_mean * (1.0 - np.cos(phi))
+    mid = 0.5 * (contact[:, 0, 0] + contact[:, 1, 0]).reshape(shape)
+    lean_point = yO - zO * np.tan(phi) - mid
+    camber_error = gam - phi[..., None]
+
+    # bump metrics at lean 0 against the design position
+    design_track = (geom.points[:, model.wheel_centre[1], 0] - (geom.outer_radius[:, 1] - geom.crown_radius[:, 1])
+                    * np.sin(geom.static_camber[:, 1])) - \
+        (geom.points[:, model.wheel_centre[0], 0] - (geom.outer_radius[:, 0] - geom.crown_radius[:, 0])
+         * np.sin(geom.static_camber[:, 0]))
+    t_ok = (tstatus == CONVERGED).reshape(C, T)
+    bump_track = np.where(t_ok, track0.reshape(C, T) - design_track[:, None], np.nan)
+    bump_camber = np.where(t_ok[..., None], (g0 - bt.gamma0).reshape(C, T, 2), np.nan)
+    motion_ratio = np.where(t_ok[..., None], motion_ratio.reshape(C, T, -1), np.nan)
+
+    conv = (st_out == CONVERGED).reshape(shape)
+
+    def mask(a):
+        m = conv.reshape(conv.shape + (1,) * (a.ndim - 3))
+        return np.where(m, a, np.nan)
+
+    return SweepResult(
+        model=model, lean_deg=lean_deg, travel_mm=travel,
+        status=st_out.reshape(shape), residual_mm=res_out.reshape(shape), iterations=it_out.reshape(shape),
+        q=q_out.reshape(shape + (nq,)),
+        points=mask(x_all.reshape(shape + x_all.shape[1:])),
+        body_angle=mask(body_angle.reshape(shape + (-1,))),
+        camber=mask(gam), contact=mask(contact.reshape(shape + (2, 2))),
+        spring_length=mask(spring_len.reshape(shape + (-1,))),
+        track=mask(track), track_change=mask(track_change), scrub=mask(scrub), heave=mask(heave),
+        camber_error=mask(camber_error), lean_point_offset=mask(lean_point),
+        bump_track_change=bump_track, bump_camber_change=bump_camber, motion_ratio=motion_ratio,
+        travel_status=tstatus.reshape(C, T),
+    )

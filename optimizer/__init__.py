@@ -1,0 +1,1 @@
+"""Optimisation runs, batches and result files (built on :mod:`problems`)."""

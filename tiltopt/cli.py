@@ -1,0 +1,50 @@
+"""The ``tiltopt`` command line.
+
+Each command lives in a module of :mod:`tiltopt.commands` and is added here.
+User errors (:class:`kinematics.InputError`, click usage errors) print one
+message and exit with status 2, without a traceback.
+"""
+from __future__ import annotations
+
+import sys
+
+import click
+
+from kinematics.errors import InputError
+
+from . import __version__
+
+
+class _Group(click.Group):
+    def invoke(self, ctx):
+        try:
+            return super().invoke(ctx)
+        except InputError as exc:
+            click.echo(f"error: {exc}", err=True)
+            sys.exit(2)
+
+
+@click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
+@click.version_option(__version__, prog_name="tiltopt")
+def main():
+    """Design the twin-wheel linkage of a narrow tilting vehicle.
+
+    Lengths are mm and angles degrees everywhere a person reads or writes them.
+    """
+
+
+def _register():
+    from .commands import kin  # noqa: F401  (each module adds its commands to main)
+
+    for name in ("clearance", "loads", "runs", "reports"):
+        try:
+            __import__(f"tiltopt.commands.{name}")
+        except ModuleNotFoundError as exc:  # a part that has not landed yet
+            if exc.name != f"tiltopt.commands.{name}":
+                raise
+
+
+_register()
+
+if __name__ == "__main__":
+    main()

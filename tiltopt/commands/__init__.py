@@ -1,0 +1,1 @@
+"""CLI command modules; each adds its commands to :data:`tiltopt.cli.main`."""
