@@ -47,7 +47,7 @@ class SolveSettings:
     max_angle_step_rad : largest change of any angle in one iteration.
     """
 
-    tol_mm: float = 1e-9
+    tol_mm: float = 1e-10
     max_iter: int = 30
     max_angle_step_rad: float = 0.25
 
@@ -192,8 +192,29 @@ def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np
     return F, J
 
 
+def _ls_step(model: Model, Js: np.ndarray, F: np.ndarray, minnorm: bool) -> np.ndarray:
+    """Least-squares step ``-J^+ F`` on scaled columns, batched.
+
+    ``minnorm``: the exact pseudo-inverse (SVD), which leaves a free direction
+    of the equations untouched (used at lean 0, where springs are free and a
+    lean mode compensated by the springs may have no equation); otherwise the
+    normal equations with a vanishing Tikhonov term (faster).
+    """
+    if minnorm:
+        return -np.einsum("nij,nj->ni", np.linalg.pinv(Js, rcond=1e-10), F)
+    JT = Js.transpose(0, 2, 1)
+    A = JT @ Js
+    diag = np.einsum("nii->ni", A)
+    A[:, np.arange(model.n_q), np.arange(model.n_q)] += 1e-13 * np.maximum(diag.max(1, keepdims=True), 1.0)
+    g = JT @ F[..., None]
+    try:
+        return -np.linalg.solve(A, g)[..., 0]
+    except np.linalg.LinAlgError:
+        return -np.einsum("nij,nj->ni", np.linalg.pinv(A), g[..., 0])
+
+
 def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.ndarray, stage: str,
-           settings: SolveSettings = SolveSettings()):
+           settings: SolveSettings = SolveSettings(), minnorm: bool | None = None):
     """Solve a batch of states from the start guesses ``q0``.
 
     Returns
@@ -206,6 +227,7 @@ def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.
     J : ndarray of shape (N, m, n_q)
         Jacobian at the returned q (used for tangents).
     """
+    minnorm = (stage == "travel") if minnorm is None else minnorm
     N = q0.shape[0]
     q = q0.copy()
     status = np.full(N, MAX_ITER, dtype=np.int8)
@@ -241,16 +263,7 @@ def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.
             F, J, qs = F[keep], J[keep], qs[keep]
             sub, ls, ts = b.take(active), lean[active], target[active]
         iters[active] += 1
-        Js = J * sub.col_scale[:, None, :]
-        JT = Js.transpose(0, 2, 1)
-        A = JT @ Js
-        g = JT @ F[..., None]
-        diag = np.einsum("nii->ni", A)
-        A[:, np.arange(model.n_q), np.arange(model.n_q)] += 1e-13 * np.maximum(diag.max(1, keepdims=True), 1.0)
-        try:
-            dq = -np.linalg.solve(A, g)[..., 0]
-        except np.linalg.LinAlgError:
-            dq = -np.einsum("nij,nj->ni", np.linalg.pinv(A), g[..., 0])
+        dq = _ls_step(model, J * sub.col_scale[:, None, :], F, minnorm)
         dq *= sub.col_scale
         big = np.max(np.abs(np.where(angle_cols, dq, 0.0)), axis=1)
         f = np.minimum(1.0, settings.max_angle_step_rad / np.maximum(big, 1e-300))
@@ -258,7 +271,8 @@ def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.
     return q, status, resid, iters, Jout
 
 
-def tangent(model: Model, J: np.ndarray, dF: np.ndarray, col_scale: np.ndarray) -> np.ndarray:
+def tangent(model: Model, J: np.ndarray, dF: np.ndarray, col_scale: np.ndarray,
+            minnorm: bool = False) -> np.ndarray:
     """Least-squares solution of ``J dq = -dF`` (batched), e.g. dq/d(lean) or dq/d(travel).
 
     Parameters
@@ -267,14 +281,4 @@ def tangent(model: Model, J: np.ndarray, dF: np.ndarray, col_scale: np.ndarray) 
     dF : ndarray of shape (N, m)
         Partial derivative of the residual with respect to the parameter.
     """
-    Js = J * col_scale[:, None, :]
-    JT = Js.transpose(0, 2, 1)
-    A = JT @ Js
-    diag = np.einsum("nii->ni", A)
-    A[:, np.arange(model.n_q), np.arange(model.n_q)] += 1e-13 * np.maximum(diag.max(1, keepdims=True), 1.0)
-    g = JT @ dF[..., None]
-    try:
-        dq = -np.linalg.solve(A, g)[..., 0]
-    except np.linalg.LinAlgError:
-        dq = -np.einsum("nij,nj->ni", np.linalg.pinv(A), g[..., 0])
-    return dq * col_scale
+    return _ls_step(model, J * col_scale[:, None, :], dF, minnorm) * col_scale

@@ -210,7 +210,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
         if J is not None:
             dF = np.zeros((len(ok), J.shape[1]))
             dF[:, model.n_loop_rows + len(model.eq_link):model.n_loop_rows + len(model.eq_link) + 2] = -1.0
-            q_guess = q_guess + tangent(model, J[ok], dF, sub.col_scale) * (s_k - s_prev)[ok, None]
+            q_guess = q_guess + tangent(model, J[ok], dF, sub.col_scale, minnorm=True) * (s_k - s_prev)[ok, None]
         qs, st, res, it, Js = newton(model, sub, q_guess, zero[ok], s_k[ok], "travel", settings.solve)
         q[ok] = qs
         tstatus[ok] = st
@@ -227,7 +227,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
         dF = np.zeros((N, J.shape[1]))
         off = model.n_loop_rows + len(model.eq_link)
         dF[:, off:off + 2] = -1.0
-        dq_ds = tangent(model, J, dF, bt.col_scale)
+        dq_ds = tangent(model, J, dF, bt.col_scale, minnorm=True)
         motion_ratio = -np.einsum("nkq,nq->nk", dLs, dq_ds)
     else:
         Ls = np.zeros((N, 0))
