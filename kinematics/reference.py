@@ -258,7 +258,7 @@ class StateSolution:
 
 def reference_solve_state(ref: ReferenceMechanism, x0: np.ndarray, lean_deg: float, *,
                           travel_mm: float | None = None, spring_lengths_mm=None,
-                          tol_mm: float = REFERENCE_TOL_MM) -> StateSolution:
+                          hold_modes: tuple | None = None, tol_mm: float = REFERENCE_TOL_MM) -> StateSolution:
     """Solve one state from a starting guess with scipy's least_squares.
 
     Parameters
@@ -272,6 +272,9 @@ def reference_solve_state(ref: ReferenceMechanism, x0: np.ndarray, lean_deg: flo
         Give it for the travel stage (springs free); leave None for the lean stage.
     spring_lengths_mm : array-like of shape (n_springs,), optional
         Held spring lengths of the lean stage.
+    hold_modes : (ndarray of shape (k, 3 * n_bodies), ndarray of shape (3 * n_bodies,)), optional
+        ``(N, x_ref)``: extra equations ``N (x - x_ref) = 0`` that hold free
+        modes (see :func:`free_modes`) at their reference values.
 
     Returns
     -------
@@ -284,7 +287,12 @@ def reference_solve_state(ref: ReferenceMechanism, x0: np.ndarray, lean_deg: flo
         key = x.tobytes()
         if key not in cache:
             cache.clear()
-            cache[key] = residuals(ref, x, lean, travel_mm=travel_mm, spring_lengths_mm=spring_lengths_mm)
+            f, J = residuals(ref, x, lean, travel_mm=travel_mm, spring_lengths_mm=spring_lengths_mm)
+            if hold_modes is not None:
+                N, x_ref = hold_modes
+                f = np.concatenate([f, N @ (x - x_ref)])
+                J = np.vstack([J, N])
+            cache[key] = (f, J)
         return cache[key]
 
     f0, _ = both(np.asarray(x0, float))
@@ -296,6 +304,28 @@ def reference_solve_state(ref: ReferenceMechanism, x0: np.ndarray, lean_deg: flo
     ok = bool(np.isfinite(res) and res <= tol_mm)
     msg = "converged" if ok else f"not converged: residual {res:.3g} mm ({sol.message})"
     return StateSolution(sol.x, ok, res, int(sol.nfev), msg)
+
+
+def free_modes(ref: ReferenceMechanism, x: np.ndarray, rel_tol: float = 1e-9) -> np.ndarray | None:
+    """Directions the travel-stage equations leave free at ``x``.
+
+    At lean 0 the springs are free, so a lean mode that only the springs hold
+    (beams of a sprung twin beam, a tilt rocker) has no equation there.
+    DOMAIN.md leaves that mode open; this solver holds it at its value in the
+    design position to first order: the returned rows span the null space of
+    the travel-stage Jacobian at ``x`` (orthonormal, shape (k, 3 * n_bodies)),
+    or None when there is none. On a mirror-symmetric mechanism that picks the
+    symmetric solution.
+    """
+    _, J = residuals(ref, x, 0.0, travel_mm=0.0)
+    col = np.ones(ref.n_unknowns)
+    col[2::3] = ref.char_length_mm          # angles in mm-sized units
+    _, sv, Vt = np.linalg.svd(J * col, full_matrices=True)
+    rank = int(np.sum(sv > rel_tol * sv[0]))
+    if rank >= ref.n_unknowns:
+        return None
+    N = Vt[rank:] * col                     # back to unscaled unknowns
+    return N / np.linalg.norm(N, axis=1, keepdims=True)
 
 
 # --------------------------------------------------------------------- metrics
@@ -355,10 +385,12 @@ def reference_sweep(mech: Mechanism, lean_deg, travel_mm, *, max_lean_step_deg: 
     for s in travels:
         # ---- travel at lean 0
         x = ref.design_x()
+        modes = free_modes(ref, x)
+        hold = None if modes is None else (modes, x.copy())
         n = max(1, math.ceil(abs(s) / max_travel_step_mm - 1e-9))
         t_sol = None
         for k in range(1, n + 1):
-            t_sol = reference_solve_state(ref, x, 0.0, travel_mm=s * k / n)
+            t_sol = reference_solve_state(ref, x, 0.0, travel_mm=s * k / n, hold_modes=hold)
             if not t_sol.converged:
                 break
             x = t_sol.x
