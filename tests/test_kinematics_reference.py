@@ -7,6 +7,8 @@ reader with the batched code.
 """
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pytest
 
@@ -112,3 +114,133 @@ def test_reference_reports_unreachable_travel():
     assert [r["converged"] for r in recs] == [False, False]
     assert all(r["track_mm"] is None and r["heave_mm"] is None for r in recs)
     assert all("not converged" in r["status"] for r in recs)
+
+
+# ------------------------------------------------------------ more topologies
+def with_static_camber(d: dict, camber_deg: float) -> dict:
+    """Left wheel top out by camber_deg (negative camber in the lean sense), right mirrored."""
+    from conftest import hub_height
+    for w in d["wheels"]:
+        c = -camber_deg if w["name"] == "left" else camber_deg
+        w["static_camber_deg"] = c
+        body, pt = w["centre"].split(".")
+        d["bodies"][body][pt][1] = hub_height(w["outer_radius_mm"], w["crown_radius_mm"], c)
+    return d
+
+
+def with_inclined_legs(d: dict, slope: float) -> dict:
+    """Tilt the slider guides of a sprung twin beam: the legs run dy/dz = -+slope (top inboard)."""
+    b = d["bodies"]
+    for side, s in (("left", -1.0), ("right", 1.0)):
+        up, leg = b[f"upright_{side}"], b[f"leg_{side}"]
+        y0, z0 = up["bottom"]
+        on = (lambda z: [y0 - s * slope * (z - z0), z])
+        up["guide_top"] = on(up["guide_top"][1])
+        up["guide_bottom"] = on(up["guide_bottom"][1])
+        leg["runner"] = on(leg["runner"][1])
+    return d
+
+
+def with_upper_links(d: dict) -> dict:
+    """Replace the upper beam by one two-force link per side (chassis pivot -> upright top)."""
+    d["bodies"].pop("upper_beam")
+    d["pins"] = [p for p in d["pins"] if "upper_beam" not in p["a"] + p["b"]]
+    d["links"] = [{"name": "upper_link_left", "a": "chassis.upper_pivot", "b": "upright_left.top"},
+                  {"name": "upper_link_right", "a": "chassis.upper_pivot", "b": "upright_right.top"}]
+    return d
+
+
+@pytest.mark.parametrize("build", [
+    lambda: with_static_camber(twin_beam(), 3.0),
+    lambda: with_static_camber(sprung_twin_beam(), -2.0),
+    lambda: with_inclined_legs(sprung_twin_beam(), 0.15),
+    lambda: with_upper_links(twin_beam()),
+    lambda: with_upper_links(twin_beam(e_left=40.0, e_right=40.0, z_upper=480.0)),
+], ids=["static_camber", "sprung_static_camber", "inclined_legs", "upper_links", "upper_links_inboard"])
+def test_more_topologies_match_reference(build):
+    assert compare(mech_of(build()), LEANS, [-20.0, 0.0, 20.0]) > 0
+
+
+def test_upper_links_parallelogram_is_ideal():
+    """Links parallel to the lower beam make the same parallelogram: zero scrub and heave (DOMAIN.md)."""
+    res = sweep(Model(mech_of(with_upper_links(twin_beam()))), lean_deg=LEANS, travel_mm=[0.0])
+    assert res.converged.all()
+    np.testing.assert_allclose(res.scrub, 0.0, atol=1e-9)
+    np.testing.assert_allclose(res.heave, 0.0, atol=1e-9)
+
+
+def test_static_camber_error_is_camber_minus_lean():
+    """DOMAIN.md: camber error = gamma - phi, with gamma including the static camber."""
+    mech = mech_of(with_static_camber(twin_beam(), 3.0))
+    recs = reference_sweep(mech, [0.0, 20.0], [0.0])
+    res = sweep(Model(mech), lean_deg=[0.0, 20.0], travel_mm=[0.0]).records()
+    # a parallelogram keeps the uprights parallel to the chassis: camber error = static camber
+    for r in recs + res:
+        assert r["camber_error_left_deg"] == pytest.approx(-3.0, abs=1e-9)
+        assert r["camber_error_right_deg"] == pytest.approx(3.0, abs=1e-9)
+
+
+def test_batch_of_candidates_matches_reference_per_candidate():
+    """Many geometries of one topology in one batched call, each against its own scalar solve."""
+    variants = [dict(), dict(w_left=280.0, w_right=280.0, e_left=30.0, e_right=30.0),
+                dict(z_upper=560.0, z_lower=300.0, w_left=350.0, w_right=350.0, e_left=60.0, e_right=60.0)]
+    mechs = [mech_of(sprung_twin_beam(**v)) for v in variants]
+    model = Model(mechs[0])
+    pts = np.concatenate([model.geometry_from(m).points for m in mechs])
+    geom = model.batch_geometry(pts)
+    leans, travels = [-10.0, 0.0, 10.0, 25.0], [-15.0, 0.0, 15.0]
+    res = sweep(model, geom, lean_deg=leans, travel_mm=travels)
+    assert res.converged.all()
+    for c, mech in enumerate(mechs):
+        ref = reference_sweep(mech, leans, travels)
+        got = res.records(c)
+        for a, b in zip(ref, got):
+            for k in LENGTH_KEYS + ANGLE_KEYS:      # kinematics.reference
+                assert b[k] == pytest.approx(a[k], abs=1e-6), (c, k, a["lean_deg"], a["travel_mm"])
+
+
+@pytest.mark.parametrize("leans", [[10.0, -5.0, 0.0, 10.0, 3.0], [25.0, 5.0], [-7.5]])
+def test_lean_order_and_repeats_do_not_change_states(leans):
+    mech = load_mechanism(CONFIGS / "wishbone_rocker.toml")
+    model = Model(mech)
+    got = sweep(model, lean_deg=leans, travel_mm=[10.0]).records()
+    ref = reference_sweep(mech, sorted(set(leans)), [10.0])
+    by_lean = {r["lean_deg"]: r for r in ref}
+    assert [r["lean_deg"] for r in got] == leans
+    for b in got:
+        a = by_lean[b["lean_deg"]]
+        for k in LENGTH_KEYS + ANGLE_KEYS:          # kinematics.reference
+            assert b[k] == pytest.approx(a[k], abs=1e-6), k
+
+
+def _own_mobility(mech):
+    """Degrees of freedom relative to the chassis from the rank of the joint equations
+    (reference Jacobian, chassis held), springs held and springs free."""
+    ref = prepare(mech)
+    x = ref.design_x()
+    n_joint = 2 * len(mech.pins) + len(mech.links) + len(mech.springs) + 2 * len(mech.sliders)
+    lengths = [math.dist(mech.point(s.a), mech.point(s.b)) for s in mech.springs]
+    J_held = residuals(ref, x, 0.0, spring_lengths_mm=lengths)[1][:n_joint, 3:]
+    J_free = residuals(ref, x, 0.0, travel_mm=0.0)[1][:n_joint - len(mech.springs), 3:]
+    col = np.ones(J_held.shape[1])
+    col[2::3] = ref.char_length_mm
+    n = J_held.shape[1]
+    return (n - np.linalg.matrix_rank(J_held * col, tol=1e-9 * np.abs(J_held * col).max()),
+            n - np.linalg.matrix_rank(J_free * col, tol=1e-9 * np.abs(J_free * col).max()))
+
+
+@pytest.mark.parametrize("name", ["twin_beam", "twin_beam_sprung", "wishbone_rocker"])
+def test_check_mobility_matches_own_rank_and_count(name):
+    from click.testing import CliRunner
+    from tiltopt.cli import main
+    mech = load_mechanism(CONFIGS / f"{name}.toml")
+    held, free = _own_mobility(mech)
+    nb = len(mech.bodies)
+    # Gruebler-Kutzbach for planar linkages relative to a fixed body: 3 (n - 1) - 2 j1 - j_links
+    # (standard textbook count, e.g. Norton, Design of Machinery, ch. 2; sliders are full joints)
+    gk_held = 3 * (nb - 1) - 2 * (len(mech.pins) + len(mech.sliders)) - len(mech.links) - len(mech.springs)
+    text = CliRunner().invoke(main, ["check", str(CONFIGS / f"{name}.toml")]).output
+    assert f"springs held: Gruebler-Kutzbach {gk_held}, Jacobian rank {held}" in text
+    assert f"springs free:  Gruebler-Kutzbach {gk_held + len(mech.springs)}, Jacobian rank {free}" in text
+    # own count: one lean freedom (with springs held), plus one travel freedom per spring when free
+    assert (held, free) == {"twin_beam": (1, 1), "twin_beam_sprung": (1, 3), "wishbone_rocker": (1, 3)}[name]
