@@ -244,3 +244,27 @@ def test_check_mobility_matches_own_rank_and_count(name):
     assert f"springs free:  Gruebler-Kutzbach {gk_held + len(mech.springs)}, Jacobian rank {free}" in text
     # own count: one lean freedom (with springs held), plus one travel freedom per spring when free
     assert (held, free) == {"twin_beam": (1, 1), "twin_beam_sprung": (1, 3), "wishbone_rocker": (1, 3)}[name]
+
+
+@pytest.mark.parametrize("name", ["twin_beam_sprung", "wishbone_rocker"])
+def test_bump_metrics_match_reference(name):
+    """Bump track change, camber change (against the design position) and motion ratio
+    (spring shortening per mm of bump), against the reference solver and its central differences."""
+    mech = load_mechanism(CONFIGS / f"{name}.toml")
+    travels = [-20.0, 0.0, 20.0]
+    bump = sweep(Model(mech), lean_deg=[0.0], travel_mm=travels).bump_records()
+    h = 0.01
+    ref = reference_sweep(mech, [0.0], [0.0] + travels + [s + h for s in travels] + [s - h for s in travels])
+    design, at, up, down = ref[0], ref[1:4], ref[4:7], ref[7:10]
+    for b, a, p, m in zip(bump, at, up, down):
+        assert b["converged"] and a["converged"]
+        # kinematics.reference: lean-0 states against the design position
+        assert b["track_change_mm"] == pytest.approx(a["track_mm"] - design["track_mm"], abs=1e-6)
+        assert b["camber_change_left_deg"] == pytest.approx(a["camber_left_deg"] - design["camber_left_deg"],
+                                                            abs=1e-6)
+        assert b["camber_change_right_deg"] == pytest.approx(a["camber_right_deg"] - design["camber_right_deg"],
+                                                             abs=1e-6)
+        for n, mr in b["motion_ratio"].items():
+            # central difference of the reference spring lengths, O(h^2)
+            fd = -(p["spring_lengths_mm"][n] - m["spring_lengths_mm"][n]) / (2 * h)
+            assert mr == pytest.approx(fd, abs=1e-5), n
