@@ -268,3 +268,39 @@ def test_bump_metrics_match_reference(name):
             # central difference of the reference spring lengths, O(h^2)
             fd = -(p["spring_lengths_mm"][n] - m["spring_lengths_mm"][n]) / (2 * h)
             assert mr == pytest.approx(fd, abs=1e-5), n
+
+
+def swing_arms() -> dict:
+    """One swing arm per side pinned to the chassis, a spring from the chassis to each arm.
+
+    Own count: 2 arms x 3 - 2 pins x 2 - 2 springs = 0 with springs held (cannot lean),
+    2 with springs free (one travel freedom per side)."""
+    return {"name": "swing_arms", "chassis": "chassis",
+            "bodies": {"chassis": {"datum": [0.0, 0.0], "pl": [-100.0, 300.0], "pr": [100.0, 300.0],
+                                   "sl": [-150.0, 500.0], "sr": [150.0, 500.0]},
+                       "arm_left": {"pivot": [-100.0, 300.0], "hub": [-350.0, 250.0], "mount": [-250.0, 280.0]},
+                       "arm_right": {"pivot": [100.0, 300.0], "hub": [350.0, 250.0], "mount": [250.0, 280.0]}},
+            "pins": [{"a": "chassis.pl", "b": "arm_left.pivot"}, {"a": "chassis.pr", "b": "arm_right.pivot"}],
+            "springs": [{"name": "left_spring", "a": "chassis.sl", "b": "arm_left.mount"},
+                        {"name": "right_spring", "a": "chassis.sr", "b": "arm_right.mount"}],
+            "wheels": [{"name": "left", "upright": "arm_left", "centre": "arm_left.hub", "outer_radius_mm": 250.0,
+                        "crown_radius_mm": 23.0},
+                       {"name": "right", "upright": "arm_right", "centre": "arm_right.hub",
+                        "outer_radius_mm": 250.0, "crown_radius_mm": 23.0}]}
+
+
+def test_swing_arms_travel_but_do_not_lean(write_mech):
+    from click.testing import CliRunner
+    from tiltopt.cli import main
+    mech = mech_of(swing_arms())
+    # both solvers: every travel reached at lean 0, no lean reached with the springs held
+    assert compare(mech, [-5.0, 0.0, 5.0], [-20.0, 0.0, 20.0]) == 3
+    text = CliRunner().invoke(main, ["check", str(write_mech(swing_arms()))]).output
+    assert "leans: NO" in text and "suspension travel: yes, 2 degree(s)" in text
+
+
+@pytest.mark.parametrize("name", ["twin_beam_sprung", "wishbone_rocker"])
+def test_long_travel_and_lean_match_reference(name):
+    """Several continuation steps in travel (+-60 mm) and lean (to 40 deg)."""
+    mech = load_mechanism(CONFIGS / f"{name}.toml")
+    assert compare(mech, [-30.0, 0.0, 15.0, 30.0, 40.0], [-60.0, -35.0, 0.0, 35.0, 60.0]) >= 24
