@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from conftest import mech_of, sprung_twin_beam, twin_beam, wishbone_rocker
+from conftest import hub_height, mech_of, sprung_twin_beam, twin_beam, wishbone_rocker
 from kinematics.mechanism import mechanism_to_toml, mirror, parse_mechanism
 from kinematics.model import Model
 from kinematics.sweep import sweep
@@ -37,9 +37,13 @@ def twin_beams(draw, sprung=False):
         r_left=draw(length(0.0, 40.0)), r_right=draw(length(0.0, 40.0)),
     )
     kw["z_upper"] = kw["z_lower"] + draw(length(120.0, 260.0))
-    if sprung:
-        return sprung_twin_beam(leg_drop=draw(length(0.0, 15.0)), **kw)
-    return twin_beam(**kw)
+    d = sprung_twin_beam(leg_drop=draw(length(0.0, 15.0)), **kw) if sprung else twin_beam(**kw)
+    for w in d["wheels"]:                      # a static camber of its own on each wheel
+        c = draw(st.one_of(st.just(0.0), length(-6.0, 6.0)))
+        w["static_camber_deg"] = c
+        body, pt = w["centre"].split(".")
+        d["bodies"][body][pt][1] = hub_height(w["outer_radius_mm"], w["crown_radius_mm"], c)
+    return d
 
 
 @st.composite
@@ -191,3 +195,19 @@ def test_round_trip_of_descriptions_with_control_characters(description):
     # TOML 1.0 (toml.io, "Basic strings"): control characters other than tab must be escaped
     back = parse_mechanism(tomllib.loads(mechanism_to_toml(mech)), "<round trip>")
     assert back == mech
+
+
+@FAST
+@given(st.one_of(twin_beams(), twin_beams(sprung=True)))
+def test_random_twin_beams_match_reference_solver(data):
+    """Random (asymmetric) twin beams at ride height against the independent scalar solver."""
+    from test_kinematics_reference import compare
+    assert compare(mech_of(data), [-20.0, 0.0, 15.0, 30.0], [0.0]) >= 1
+
+
+@FAST
+@given(wishbones())
+def test_random_wishbones_match_reference_solver(data):
+    """Random symmetric wishbone-rocker linkages with travel against the independent scalar solver."""
+    from test_kinematics_reference import compare
+    assert compare(mech_of(data), [-15.0, 0.0, 10.0, 25.0], [-10.0, 0.0, 10.0]) >= 1
