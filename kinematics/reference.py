@@ -328,6 +328,35 @@ def free_modes(ref: ReferenceMechanism, x: np.ndarray, rel_tol: float = 1e-9) ->
     return N / np.linalg.norm(N, axis=1, keepdims=True)
 
 
+def path_tangent(ref: ReferenceMechanism, x: np.ndarray, lean_rad: float, spring_lengths_mm) -> np.ndarray | None:
+    """Unit tangent of the lean path at a solved state, in (x, lean) space.
+
+    The lean-stage equations F(x, phi) = 0 of a one-freedom linkage define a
+    curve; its tangent is the null vector of the augmented Jacobian
+    [dF/dx, dF/dphi] (Keller's pseudo-arclength continuation). Its last
+    component, dphi, changes sign where the curve turns back in lean: a fold,
+    where the linkage toggles and cannot lean further on this branch.
+
+    Returns
+    -------
+    ndarray of shape (3 * n_bodies + 1,) or None
+        Scaled coordinates (angles times ``char_length_mm``); None when the
+        path is not a simple curve here (no or several free directions).
+    """
+    _, J = residuals(ref, x, lean_rad, spring_lengths_mm=spring_lengths_mm)
+    dphi = np.zeros((J.shape[0], 1))
+    dphi[-1, 0] = -ref.char_length_mm          # the last row is the lean equation
+    col = np.ones(ref.n_unknowns + 1)
+    col[2::3] = ref.char_length_mm
+    col[-1] = ref.char_length_mm
+    A = np.hstack([J, dphi]) * col
+    _, sv, Vt = np.linalg.svd(A, full_matrices=True)
+    sv = np.concatenate([sv, np.zeros(A.shape[1] - len(sv))])
+    if not (sv[-1] <= 1e-9 * sv[0] < sv[-2]):
+        return None
+    return Vt[-1]
+
+
 # --------------------------------------------------------------------- metrics
 def _state_geometry(ref: ReferenceMechanism, x: np.ndarray) -> dict:
     m = ref.mech
@@ -353,7 +382,7 @@ def _lean_nodes(leans: list[float], max_step: float) -> list[float]:
     return nodes
 
 
-def reference_sweep(mech: Mechanism, lean_deg, travel_mm, *, max_lean_step_deg: float = 2.5,
+def reference_sweep(mech: Mechanism, lean_deg, travel_mm, *, max_lean_step_deg: float = 1.0,
                     max_travel_step_mm: float = 5.0, with_body_angles: bool = False) -> list[dict]:
     """The sweep of DOMAIN.md, one state at a time.
 
@@ -361,7 +390,10 @@ def reference_sweep(mech: Mechanism, lean_deg, travel_mm, *, max_lean_step_deg: 
     the spring lengths there are held, and the mechanism is leaned from 0 to
     each requested lean (positive and negative leans on their own paths),
     each step warm-started from a secant prediction of the two previous ones.
-    Once a path fails, its later states are reported as not converged.
+    Once a path fails, its later states are reported as not converged. A
+    path that passes a fold of the lean (the tangent of the solution curve
+    turns back in lean, see :func:`path_tangent`) fails there: the state the
+    solver found lies on another assembly branch.
 
     Parameters
     ----------
@@ -405,6 +437,10 @@ def reference_sweep(mech: Mechanism, lean_deg, travel_mm, *, max_lean_step_deg: 
                     nodes = _lean_nodes(branch, max_lean_step_deg)
                     xs = [base.x]
                     alive = True
+                    direction = 1.0 if branch and branch[0] > 0 else -1.0
+                    t_prev = path_tangent(ref, base.x, 0.0, held)
+                    if t_prev is not None and t_prev[-1] * direction < 0:
+                        t_prev = -t_prev
                     for k in range(1, len(nodes)):
                         if alive:
                             guess = xs[-1]
@@ -412,10 +448,21 @@ def reference_sweep(mech: Mechanism, lean_deg, travel_mm, *, max_lean_step_deg: 
                                 ratio = (nodes[k] - nodes[k - 1]) / (nodes[k - 1] - nodes[k - 2])
                                 guess = xs[-1] + (xs[-1] - xs[-2]) * ratio
                             sol = reference_solve_state(ref, guess, nodes[k], spring_lengths_mm=held)
+                            if sol.converged:
+                                t = path_tangent(ref, sol.x, math.radians(nodes[k]), held)
+                                if t is not None and t_prev is not None:
+                                    t = t if t @ t_prev >= 0 else -t
+                                    if t[-1] * direction <= 0:
+                                        sol = StateSolution(sol.x, False, sol.residual_mm, sol.nfev,
+                                                            "not reached: the lean path passed a fold (the "
+                                                            "linkage toggles before this lean)")
+                                t_prev = t if t is not None else t_prev
                             alive = sol.converged
                             xs.append(sol.x)
                         else:
-                            sol = StateSolution(xs[-1], False, math.nan, 0, "not attempted: an earlier lean failed")
+                            why = "passed a fold" if "fold" in sol.message else "failed"
+                            sol = StateSolution(xs[-1], False, math.nan, 0, f"not attempted: the lean path {why} "
+                                                "at a smaller lean")
                         if nodes[k] in branch:
                             solved.setdefault(nodes[k], sol)
         zero = solved.get(0.0)

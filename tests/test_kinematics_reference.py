@@ -16,20 +16,28 @@ from conftest import CONFIGS, mech_of, sprung_twin_beam, twin_beam, wishbone_roc
 from kinematics.mechanism import load_mechanism
 from kinematics.model import Model
 from kinematics.reference import free_modes, prepare, reference_solve_state, reference_sweep, residuals
-from kinematics.sweep import sweep
+from kinematics.sweep import SweepSettings, sweep
 
 LENGTH_KEYS = ["track_mm", "track_change_mm", "scrub_mm", "heave_mm", "lean_point_offset_mm"]
 ANGLE_KEYS = ["camber_error_left_deg", "camber_error_right_deg"]
 LEANS = [-20.0, -5.0, 0.0, 5.0, 10.0, 20.0, 30.0]
 
 
-def compare(mech, leans, travels, atol=1e-6):
+def compare(mech, leans, travels, atol=1e-6, tolerate_fold_jumps=False):
+    """Compare every state; returns the number of states both solvers reached.
+
+    ``tolerate_fold_jumps``: skip states past a fold of the lean path where the
+    batched solver jumped to another branch (the known bug of
+    test_lean_path_past_a_fold_is_not_reached); only for random geometries.
+    """
     ref = reference_sweep(mech, leans, travels)
     got = sweep(Model(mech), lean_deg=leans, travel_mm=travels).records()
     assert len(ref) == len(got)
     n_ok = 0
     for a, b in zip(ref, got):
         assert (a["travel_mm"], a["lean_deg"]) == (b["travel_mm"], b["lean_deg"])
+        if tolerate_fold_jumps and "fold" in a["status"] and b["converged"]:
+            continue
         # both solvers agree on which states can be reached
         assert a["converged"] == b["converged"], (a["lean_deg"], a["travel_mm"], a["status"], b["status"])
         if not a["converged"]:
@@ -304,3 +312,41 @@ def test_long_travel_and_lean_match_reference(name):
     """Several continuation steps in travel (+-60 mm) and lean (to 40 deg)."""
     mech = load_mechanism(CONFIGS / f"{name}.toml")
     assert compare(mech, [-30.0, 0.0, 15.0, 30.0, 40.0], [-60.0, -35.0, 0.0, 35.0, 60.0]) >= 24
+
+
+FOLD_CASE = dict(upper_inner=(63.0, 460.0), upper_outer=(279.0, 414.0), lower_inner=(30.0, 180.0),
+                 lower_outer=(316.0, 190.0), hub_y=344.0, rocker_z=544.0, rocker_half=118.0,
+                 mount_frac=0.69140625, R=200.0, r=5.0)
+
+
+def test_fold_of_the_lean_path_is_found_by_the_reference():
+    """A wishbone-rocker linkage (found by the random tests) whose lean path folds near 21.45 deg at
+    travel 10 mm: the rocker turns ever faster (dtheta/dphi 2.6, 3.2, 4.5 from 18 to 21 deg) and,
+    in steps of 0.01 deg, the equations have no solution on this branch past 21.45 deg.
+    Reference: the tangent of the solution curve of F(x, phi) = 0, the null vector of
+    [dF/dx, dF/dphi], turns back in phi at a fold (Keller's pseudo-arclength continuation)."""
+    mech = mech_of(wishbone_rocker(**FOLD_CASE))
+    fine = reference_sweep(mech, [21.4, 21.45, 21.5], [10.0], max_lean_step_deg=0.01)
+    assert [r["converged"] for r in fine] == [True, True, False]
+    coarse = reference_sweep(mech, np.arange(0.0, 26.0, 1.0), [10.0])
+    assert [r["converged"] for r in coarse] == [True] * 22 + [False] * 4
+    assert "fold" in coarse[22]["status"]
+    # the batched solver in fine steps stops there too
+    fine_b = sweep(Model(mech), lean_deg=np.arange(0.0, 26.0, 1.0), travel_mm=[10.0],
+                   settings=SweepSettings(max_lean_step_deg=0.25))
+    assert fine_b.converged[0, 0].tolist() == [True] * 22 + [False] * 4
+
+
+@pytest.mark.xfail(strict=True, reason=(
+    "kinematics/sweep.py lean continuation (the loop over k in sweep()) accepts any converged Newton "
+    "solution, so a step across a fold of the lean path lands on another assembly branch and is "
+    "reported as converged (here 22-25 deg, while the linkage toggles at 21.45 deg). Proposed fix: "
+    "after each step, compute the path tangent (null vector of [dF/dq, dF/dphi], already available from "
+    "solver.tangent), orient it by the previous one and fail the item when its dphi component changes "
+    "sign or the corrector moved much further than the predictor; optionally halve the step before "
+    "failing."))
+def test_lean_path_past_a_fold_is_not_reached():
+    mech = mech_of(wishbone_rocker(**FOLD_CASE))
+    res = sweep(Model(mech), lean_deg=np.arange(0.0, 26.0, 1.0), travel_mm=[10.0])
+    # reference: test_fold_of_the_lean_path_is_found_by_the_reference
+    assert res.converged[0, 0].tolist() == [True] * 22 + [False] * 4

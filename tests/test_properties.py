@@ -202,7 +202,7 @@ def test_round_trip_of_descriptions_with_control_characters(description):
 def test_random_twin_beams_match_reference_solver(data):
     """Random (asymmetric) twin beams at ride height against the independent scalar solver."""
     from test_kinematics_reference import compare
-    assert compare(mech_of(data), [-20.0, 0.0, 15.0, 30.0], [0.0]) >= 1
+    assert compare(mech_of(data), [-20.0, 0.0, 15.0, 30.0], [0.0], tolerate_fold_jumps=True) >= 1
 
 
 @FAST
@@ -210,4 +210,4 @@ def test_random_twin_beams_match_reference_solver(data):
 def test_random_wishbones_match_reference_solver(data):
     """Random symmetric wishbone-rocker linkages with travel against the independent scalar solver."""
     from test_kinematics_reference import compare
-    assert compare(mech_of(data), [-15.0, 0.0, 10.0, 25.0], [-10.0, 0.0, 10.0]) >= 1
+    assert compare(mech_of(data), [-15.0, 0.0, 10.0, 25.0], [-10.0, 0.0, 10.0], tolerate_fold_jumps=True) >= 1
