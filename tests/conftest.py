@@ -178,3 +178,10 @@ def wishbone_rocker(*, upper_inner=(60.0, 420.0), upper_outer=(300.0, 410.0), lo
         springs.append({"name": f"{side}_spring", "a": f"rocker.{side}_end", "b": f"lower_arm_{side}.mount"})
     return {"name": name, "chassis": "chassis", "bodies": bodies, "pins": pins, "springs": springs,
             "wheels": [_wheel("left", "upright_left", R, r), _wheel("right", "upright_right", R, r)]}
+
+
+# a profile for hunting failures fast: `pytest --hypothesis-profile=noshrink` reports the first
+# failing example without the (sometimes minutes-long) shrinking
+from hypothesis import Phase, settings as _hsettings  # noqa: E402
+
+_hsettings.register_profile("noshrink", phases=[Phase.explicit, Phase.reuse, Phase.generate])
