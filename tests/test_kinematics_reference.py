@@ -327,11 +327,11 @@ FOLD_CASE = dict(upper_inner=(63.0, 460.0), upper_outer=(279.0, 414.0), lower_in
 def test_fold_of_the_lean_path_is_found_by_the_reference():
     """A wishbone-rocker linkage (found by the random tests) whose lean path folds near 21.45 deg at
     travel 10 mm: the rocker turns ever faster (dtheta/dphi 2.6, 3.2, 4.5 from 18 to 21 deg) and,
-    in steps of 0.01 deg, the equations have no solution on this branch past 21.45 deg.
+    in steps of 0.05 deg, the equations have no solution on this branch past 21.45 deg.
     Reference: the tangent of the solution curve of F(x, phi) = 0, the null vector of
     [dF/dx, dF/dphi], turns back in phi at a fold (Keller's pseudo-arclength continuation)."""
     mech = mech_of(wishbone_rocker(**FOLD_CASE))
-    fine = reference_sweep(mech, [21.4, 21.45, 21.5], [10.0], max_lean_step_deg=0.01)
+    fine = reference_sweep(mech, [21.4, 21.45, 21.5], [10.0], max_lean_step_deg=0.05)
     assert [r["converged"] for r in fine] == [True, True, False]
     coarse = reference_sweep(mech, np.arange(0.0, 26.0, 1.0), [10.0])
     assert [r["converged"] for r in coarse] == [True] * 22 + [False] * 4
