@@ -85,6 +85,8 @@ class Batch:
         self.zc0 = pts[:, m.needed[m.eq_wheel], 1]
         # scaling of angle columns: an angle step of 1 rad moves points by ~Lc mm
         self.col_scale = np.where(m.coord_kind[None, :] == ANGLE, 1.0 / self.Lc[:, None], 1.0)
+        # extra lean-0 rows holding directions no travel equation fixes (see hold_free_directions)
+        self.hold = np.zeros((len(self.cand), 0, m.n_q))
 
     def take(self, idx) -> "Batch":
         new = object.__new__(Batch)
@@ -93,9 +95,9 @@ class Batch:
         return new
 
 
-def n_rows(model: Model, stage: str) -> int:
+def n_rows(model: Model, stage: str, n_hold: int = 0) -> int:
     base = model.n_loop_rows + len(model.eq_link) + 3
-    return base + (2 if stage == "travel" else len(model.eq_spring))
+    return base + (2 + n_hold if stage == "travel" else len(model.eq_spring))
 
 
 def row_names(model: Model, stage: str) -> list[str]:
@@ -116,7 +118,8 @@ def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np
     m = model
     x, Jx, ang = m.positions(q, lean, b.V, b.U, m._np, jac=jac)
     N = q.shape[0]
-    rows = n_rows(m, stage)
+    n_hold = b.hold.shape[1] if stage == "travel" else 0
+    rows = n_rows(m, stage, n_hold)
     F = np.empty((N, rows))
     J = np.zeros((N, rows, m.n_q)) if jac else None
     r0 = 0
@@ -172,6 +175,12 @@ def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np
             J[:, r0:r0 + 2] = Jx[:, wc, 1]
             J[:, r0:r0 + 2, 1] -= 1.0
         r0 += 2
+        if n_hold:
+            # hold: v^T (q / col_scale) = 0 for each free direction v (scaled coordinates, mm)
+            F[:, r0:r0 + n_hold] = np.einsum("nkq,nq->nk", b.hold, q / b.col_scale)
+            if jac:
+                J[:, r0:r0 + n_hold] = b.hold / b.col_scale[:, None, :]
+            r0 += n_hold
     elif len(m.eq_spring):
         r0 = lengths(m.eq_spring, target, r0)
     # ground and lateral reference
@@ -213,6 +222,33 @@ def _ls_step(model: Model, Js: np.ndarray, F: np.ndarray, minnorm: bool) -> np.n
         return -np.einsum("nij,nj->ni", np.linalg.pinv(A), g[..., 0])
 
 
+def hold_free_directions(model: Model, b: Batch) -> None:
+    """Find the directions the lean-0 travel equations leave free, and hold them.
+
+    At lean 0 the springs are free, so a lean mode that only the springs hold
+    (the beams of a sprung twin beam, a tilt rocker) has no equation. One SVD
+    per candidate at the design position finds those directions; holding them
+    (zero change along them, to first order) keeps the solve well posed and
+    leaves a symmetric linkage exactly symmetric. Sets ``b.hold``.
+    """
+    N = len(b.cand)
+    _, J = residual(model, b, model.design_q(N), np.zeros(N), np.zeros(N), "travel")
+    Js = J * b.col_scale[:, None, :]
+    _, sv, vt = np.linalg.svd(Js)
+    tol = 1e-9 * np.maximum(sv[:, :1], 1.0)
+    n = model.n_q
+    svp = np.zeros((N, n))
+    svp[:, :sv.shape[1]] = sv
+    free = svp <= tol                                  # (N, n_q) per right-singular vector
+    k = int(free.sum(axis=1).max()) if N else 0
+    hold = np.zeros((N, k, n))
+    if k:
+        order = np.argsort(~free, axis=1, kind="stable")[:, :k]     # free vectors first
+        picked = np.take_along_axis(vt, order[..., None], axis=1)
+        hold = np.where(np.take_along_axis(free, order, axis=1)[..., None], picked, 0.0)
+    b.hold = hold
+
+
 def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.ndarray, stage: str,
            settings: SolveSettings = SolveSettings(), minnorm: bool | None = None):
     """Solve a batch of states from the start guesses ``q0``.
@@ -227,14 +263,14 @@ def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.
     J : ndarray of shape (N, m, n_q)
         Jacobian at the returned q (used for tangents).
     """
-    minnorm = (stage == "travel") if minnorm is None else minnorm
+    minnorm = False if minnorm is None else minnorm
     N = q0.shape[0]
     q = q0.copy()
     status = np.full(N, MAX_ITER, dtype=np.int8)
     resid = np.full(N, np.inf)
     iters = np.zeros(N, dtype=int)
     active = np.arange(N)
-    rows = n_rows(model, stage)
+    rows = n_rows(model, stage, b.hold.shape[1] if stage == "travel" else 0)
     Jout = np.zeros((N, rows, model.n_q))
     prev = np.full(N, np.inf)
     angle_cols = model.coord_kind == ANGLE

@@ -20,7 +20,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .model import Geometry, Model
-from .solver import (CONVERGED, SKIPPED, STATUS_TEXT, Batch, SolveSettings, newton, residual, tangent)
+from .solver import (CONVERGED, SKIPPED, STATUS_TEXT, Batch, SolveSettings, hold_free_directions, newton,
+                     residual, tangent)
 
 
 @dataclass
@@ -193,6 +194,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     cand_t = np.repeat(np.arange(C), T)
     s_item = np.tile(travel, C)
     bt = Batch(model, geom, cand_t)
+    hold_free_directions(model, bt)
     N = C * T
     q = model.design_q(N)
     zero = np.zeros(N)
@@ -210,7 +212,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
         if J is not None:
             dF = np.zeros((len(ok), J.shape[1]))
             dF[:, model.n_loop_rows + len(model.eq_link):model.n_loop_rows + len(model.eq_link) + 2] = -1.0
-            q_guess = q_guess + tangent(model, J[ok], dF, sub.col_scale, minnorm=True) * (s_k - s_prev)[ok, None]
+            q_guess = q_guess + tangent(model, J[ok], dF, sub.col_scale) * (s_k - s_prev)[ok, None]
         qs, st, res, it, Js = newton(model, sub, q_guess, zero[ok], s_k[ok], "travel", settings.solve)
         q[ok] = qs
         tstatus[ok] = st
@@ -227,7 +229,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
         dF = np.zeros((N, J.shape[1]))
         off = model.n_loop_rows + len(model.eq_link)
         dF[:, off:off + 2] = -1.0
-        dq_ds = tangent(model, J, dF, bt.col_scale, minnorm=True)
+        dq_ds = tangent(model, J, dF, bt.col_scale)
         motion_ratio = -np.einsum("nkq,nq->nk", dLs, dq_ds)
     else:
         Ls = np.zeros((N, 0))
@@ -241,6 +243,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     item_ct = np.repeat(np.arange(N), nb)
     item_branch = np.tile(np.arange(nb), N)
     bl = bt.take(item_ct)
+    bl.hold = bl.hold[:, :0]
     M = len(item_ct)
     held = Ls[item_ct]
     Q = np.zeros((M, Kl, nq))
