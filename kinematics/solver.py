@@ -144,7 +144,8 @@ def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np
         F[:, r0:r0 + 2 * ns:2] = np.sum(n * d, -1)
         F[:, r0 + 1:r0 + 2 * ns:2] = (th_b - th_a) * b.Lc[:, None]
         if jac:
-            J[:, r0:r0 + 2 * ns:2] = np.einsum("nsd,nsdq->nsq", n, Jx[:, p] - Jx[:, f])
+            Jd = Jx[:, p] - Jx[:, f]
+            J[:, r0:r0 + 2 * ns:2] = n[..., 0, None] * Jd[:, :, 0] + n[..., 1, None] * Jd[:, :, 1]
             dn = np.stack([n[..., 1], -n[..., 0]], -1)
             for j in range(ns):  # few sliders; loop over joints, not items
                 if srca[j] > 0:
@@ -162,7 +163,9 @@ def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np
         k = len(a)
         F[:, r0:r0 + k] = L - L0
         if jac:
-            J[:, r0:r0 + k] = np.einsum("nkd,nkdq->nkq", d / L[..., None], Jx[:, a] - Jx[:, bb])
+            Jd = Jx[:, a] - Jx[:, bb]
+            u = d / L[..., None]
+            J[:, r0:r0 + k] = u[..., 0, None] * Jd[:, :, 0] + u[..., 1, None] * Jd[:, :, 1]
         return r0 + k
 
     if len(m.eq_link):
