@@ -269,8 +269,11 @@ class Model:
                 comb[k, i] += 1.0
             for i in pk_minus[k]:
                 comb[k, i if i >= 0 else npts] -= 1.0
+        summ = np.zeros((n_pk, len(points)))
+        summ[np.arange(n_pk), pk_point] = 1.0
         tab = dict(
             n=len(points),
+            sum=summ,
             pk_point=np.array(pk_point, dtype=int),
             pk_src=np.array(pk_src, dtype=int),
             comb=comb[:, :npts],
@@ -376,14 +379,20 @@ class Model:
         c, s = np.cos(ang), np.sin(ang)
         src = tab["pk_src"]
         cs, ss = c[:, src], s[:, src]
-        w = V.copy()
-        for layer in tab["sl_layers"]:
-            k = tab["sl_pk"][layer]
-            w[:, k] += U[:, layer] * q[:, tab["sl_coord"][layer], None]
-        rw = np.empty_like(w)
-        rw[..., 0] = cs * w[..., 0] + ss * w[..., 1]
-        rw[..., 1] = -ss * w[..., 0] + cs * w[..., 1]
-        x = np.add.reduceat(rw, tab["starts"], axis=1)
+        wy, wz = V[..., 0], V[..., 1]
+        if tab["sl_layers"]:
+            wy, wz = wy.copy(), wz.copy()
+            for layer in tab["sl_layers"]:
+                k = tab["sl_pk"][layer]
+                sq = q[:, tab["sl_coord"][layer]]
+                wy[:, k] += U[:, layer, 0] * sq
+                wz[:, k] += U[:, layer, 1] * sq
+        rwy = cs * wy + ss * wz
+        rwz = cs * wz - ss * wy
+        S = tab["sum"]                                   # (n_pk, n_points) 0/1
+        x = np.empty((N, tab["n"], 2))
+        x[..., 0] = rwy @ S
+        x[..., 1] = rwz @ S
         x[..., 0] += q[:, tab["ty"]]
         x[..., 1] += q[:, tab["tz"]]
         if not jac:
@@ -395,8 +404,8 @@ class Model:
         Jx[:, ar, 1, tab["tz"]] = 1.0
         jk = tab["jac_pk"]
         jp = tab["pk_point"][jk]
-        Jx[:, jp, 0, tab["jac_col"]] = rw[:, jk, 1]
-        Jx[:, jp, 1, tab["jac_col"]] = -rw[:, jk, 0]
+        Jx[:, jp, 0, tab["jac_col"]] = rwz[:, jk]
+        Jx[:, jp, 1, tab["jac_col"]] = -rwy[:, jk]
         if len(tab["sl_pk"]):
             sk = tab["sl_pk"]
             sp = tab["pk_point"][sk]

@@ -20,7 +20,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .model import Geometry, Model
-from .solver import (CONVERGED, SKIPPED, STATUS_TEXT, Batch, SolveSettings, newton, residual, tangent)
+from .solver import (CONVERGED, SKIPPED, STATUS_TEXT, Batch, SolveSettings, hold_free_directions, newton,
+                     residual, tangent)
 
 
 @dataclass
@@ -193,6 +194,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     cand_t = np.repeat(np.arange(C), T)
     s_item = np.tile(travel, C)
     bt = Batch(model, geom, cand_t)
+    hold_free_directions(model, bt)
     N = C * T
     q = model.design_q(N)
     zero = np.zeros(N)
@@ -241,6 +243,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     item_ct = np.repeat(np.arange(N), nb)
     item_branch = np.tile(np.arange(nb), N)
     bl = bt.take(item_ct)
+    bl.hold = bl.hold[:, :0]
     M = len(item_ct)
     held = Ls[item_ct]
     Q = np.zeros((M, Kl, nq))
