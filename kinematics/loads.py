@@ -80,6 +80,8 @@ DEFAULT_PIVOT_ALLOWANCE_G = 60.0
 DEFAULT_PIVOT_BASE_MM = 50.0
 DEFAULT_BUMP_G = 3.0       # De Lorenzo & Hull (see module docs)
 DEFAULT_BRAKE_G = 0.7      # common practice, no source
+SAFETY_CAUTION = ("Caution: these figures are geometric and quasi-static estimates. Prototypes must be tested; "
+                  "structural sign-off, brakes, tilt locks and road use follow local rules and qualified engineers.")
 
 
 @dataclass(frozen=True)
@@ -439,3 +441,26 @@ def parse_loads(data: dict, src: str = "<memory>", base_dir: str | Path | None =
         cases = tuple(cases)
     spec.cases = cases
     return spec
+
+
+def check_loads_for(spec: LoadsSpec, mech) -> None:
+    """Check the names a loads file uses against a mechanism (members, tilt-lock body).
+
+    Raises
+    ------
+    InputError
+        Naming the loads file and the key.
+    """
+    bodies = [b for b in mech.bodies if b != mech.chassis]
+    members = bodies + [l.name for l in mech.links]
+    for name in spec.member_material:
+        if name not in members:
+            raise InputError(f"no member {name!r} in mechanism '{mech.name}'. Members (bodies other than the "
+                             f"chassis, and links): {', '.join(members)}.", spec.source, f"members.{name}")
+    lock = spec.tilt_lock_body
+    if lock is not None:
+        pinned = [b for p in mech.pins for b in (p.a.split(".")[0], p.b.split(".")[0])
+                  if mech.chassis in (p.a.split(".")[0], p.b.split(".")[0]) and b != mech.chassis]
+        if lock not in pinned:
+            raise InputError(f"the tilt lock must hold a body pinned to the chassis. Got {lock!r}; bodies pinned "
+                             f"to '{mech.chassis}': {', '.join(pinned) or 'none'}.", spec.source, "tilt_lock.body")
