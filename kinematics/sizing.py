@@ -155,6 +155,9 @@ class SizingResult:
         Row of the catalogue, -1 where no tube passes (then the largest tube's figures are shown).
     worst_case : ndarray of shape (C, M), int
         Index into ``states`` of the state that governs the chosen tube.
+    min_wheel_load_n : ndarray of shape (C,)
+        Smallest tyre vertical load over all states; negative means a wheel lifts (the
+        vehicle would tip over in that state; the forces then assume the tyre holds down).
     """
 
     members: list[Member]
@@ -173,6 +176,7 @@ class SizingResult:
     member_passes: np.ndarray
     n_pivots: int
     pivot_mass_kg: float
+    min_wheel_load_n: np.ndarray | None = None
     forces: ForceResult | None = None
     state_status: np.ndarray | None = None
     safety_factor: float = 2.0
@@ -357,4 +361,6 @@ def size_linkage(model: Model, geom: Geometry | None, loads: LoadsSpec, sweep_re
         members=members, states=states, catalogue=cat, linkage_mass_kg=linkage, max_utilisation=maxu,
         feasible=feasible, reason=reasons, tilt_lock_torque_nm=lock, length_mm=length, tube_index=tube,
         mass_kg=mass, worst_case=worst, utilisation=util, member_passes=passes, n_pivots=n_piv,
-        pivot_mass_kg=piv_kg, forces=forces, state_status=status, safety_factor=sf, notes=notes)
+        pivot_mass_kg=piv_kg, min_wheel_load_n=np.where(
+            reached, np.min(np.where(ok[..., None], forces.wheel_load.reshape(C, S, 2), np.inf), axis=(1, 2)), np.nan),
+        forces=forces, state_status=status, safety_factor=sf, notes=notes)

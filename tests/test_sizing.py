@@ -170,3 +170,18 @@ def test_batched_matches_one_by_one_and_reuses_sweep():
     again = size_linkage(model, geom, spec, sweep_result=sw)
     assert np.allclose(again.linkage_mass_kg, allr.linkage_mass_kg, rtol=1e-9)
     assert allr.feasible.all()
+
+
+def test_wheel_lift_reported():
+    # Hand statics of the tilt-locked ideal parallelogram with the whole vehicle on it: the wheel
+    # loads are W/2 -+ T / track with T = W (h - r) sin phi, so the inner wheel lifts once
+    # (h - r) sin phi > track / 2. Track 660 mm, h = 900 mm: sin phi > 330 / 877, phi > 22.1 deg.
+    model = Model(mech_of(twin_beam()))
+    for phi, lifts in ((20.0, False), (25.0, True)):
+        spec = parse_loads({"vehicle": dict(VEHICLE, com_height_mm=900.0),
+                            "cases": [{"name": "p", "kind": "parked", "lean_deg": phi}]}, "<test>")
+        res = size_linkage(model, None, spec)
+        W = 120.0 * 9.80665
+        T = W * (900.0 - 23.0) * math.sin(math.radians(phi))
+        assert res.min_wheel_load_n[0] == pytest.approx(W / 2 - T / 660.0, rel=1e-6)
+        assert (res.min_wheel_load_n[0] < 0) == lifts
