@@ -234,6 +234,10 @@ class ForceModel:
     def _lock_body(self, name: str | None) -> int:
         m = self.model
         if name is not None:
+            if name not in m.body_names or name == m.mech.chassis:
+                from .errors import InputError
+                raise InputError(f"the tilt lock body {name!r} is not a body of mechanism '{m.mech.name}' other "
+                                 f"than the chassis. Bodies: {', '.join(m.body_names)}.", key="tilt_lock.body")
             return m.body_names.index(name)
         for p in self.pins:
             if p[1] == self.chassis and p[3] != self.chassis:
