@@ -268,8 +268,8 @@ class ForceModel:
 
         Returns
         -------
-        J : ndarray of shape (N, m, n), angle-row and lean-row included
-        (the lean row is filled by :meth:`solve` per item).
+        J : ndarray of shape (N, m, n)
+            Every row except the lean row, which :meth:`solve` fills per item.
         """
         N = x.shape[0]
         J = np.zeros((N, self.m, self.n))
@@ -525,6 +525,8 @@ def analyse_forces(model: Model, geom: Geometry, loads, sweep_result=None, force
         Items in candidate-major order: item ``c * S + s``.
     status : ndarray of shape (C, S)
         Solver status of each state (kinematics.solver.STATUS_TEXT).
+    force_model : ForceModel
+        The tables used (pass it back in to skip rebuilding them).
     """
     states = loads.states()
     fm = force_model or ForceModel(model, loads.tilt_lock_body, loads.default_pivot_base_mm)
