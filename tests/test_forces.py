@@ -185,3 +185,43 @@ def test_unreached_state_is_not_a_number():
     states, f, status, fm = analyse_forces(model, model.default_geometry, spec)
     assert f.ok[0] and not f.ok[1]
     assert np.all(np.isnan(f.wheel_load[1])) and np.isnan(f.lean_moment[1])
+
+
+def test_braking_pivot_moment_hand_model():
+    # The documented out-of-plane model by hand (twin beam, both chassis pivots reached from each
+    # upright): each tyre's brake force 0.7 N_i is shared equally by the two chassis pivots; pivot k
+    # carries sum_i (0.7 N_i / 2) |c_i - p_k|, and its bearings the couple force M / base.
+    d = twin_beam()
+    d["pins"][0]["base_mm"] = 80.0
+    model = Model(mech_of(d))
+    spec = _spec_cases([{"name": "b", "kind": "braking", "brake_g": 0.7}], front_share=0.5)
+    states, f, status, fm = analyse_forces(model, model.default_geometry, spec)
+    N = f.wheel_load[0]
+    c = f.contact[0]
+    # pin 0 has base_mm = 80; pin 1 none, so the default pivot base of 50 mm applies
+    for k, (p, base) in enumerate((((0.0, 520.0), 80.0), ((0.0, 320.0), 50.0))):
+        lever = np.linalg.norm(c - np.array(p), axis=-1)
+        M = np.sum(0.7 * N / 2 * lever)
+        assert f.brake_pivot_moment[0, k] == pytest.approx(M, rel=1e-12)
+        assert f.brake_bearing_force[0, k] == pytest.approx(M / base, rel=1e-12)
+
+
+def test_equilibrium_holds_per_candidate_in_a_batch():
+    # Newton's first law again, over a batch of 12 random wishbone-rocker candidates: no mixing of
+    # candidates inside the batched solve (each candidate's tyre loads carry its own front load).
+    import sys
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "benchmarks"))
+    from loads import candidates
+
+    model = Model(load_mechanism(CONFIGS / "wishbone_rocker.toml"))
+    spec = load_loads(DEMO_LOADS)
+    geom = candidates(model, 12, 8.0, seed=3)
+    states, f, status, fm = analyse_forces(model, geom, spec)
+    assert f.ok.all()
+    S = len(states)
+    for i in range(12 * S):
+        s = states[i % S]
+        tyre = np.stack([f.tyre_side_force[i], f.wheel_load[i]], -1).sum(0)
+        assert np.all(np.abs(tyre + f.applied_force[i]) <= 1e-9 * s.front_load_n)
