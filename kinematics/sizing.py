@@ -265,11 +265,10 @@ def size_linkage(model: Model, geom: Geometry | None, loads: LoadsSpec, sweep_re
     cat = catalogue or loads.catalogue
     states, forces, status, fm = analyse_forces(model, geom, loads, sweep_result, force_model)
     C, S = status.shape
-    N = C * S
     members = build_members(fm, loads)
     M = len(members)
     sf = loads.safety_factor
-    A_all, I_all, Z_all, r_all = tube_section(cat.outer_diameter_mm, cat.wall_mm)
+    A_all, _, Z_all, r_all = tube_section(cat.outer_diameter_mm, cat.wall_mm)
     mats = np.array(cat.material)
     ok = forces.ok.reshape(C, S)
 
@@ -284,8 +283,13 @@ def size_linkage(model: Model, geom: Geometry | None, loads: LoadsSpec, sweep_re
     for j, mb in enumerate(members):
         mat = loads.materials[mb.material]
         rows = np.flatnonzero(mats == mb.material)
+        if not len(rows):
+            from .errors import InputError
+            raise InputError(f"the tube catalogue {cat.source} has no tubes of {mb.material!r} (member "
+                             f"'{mb.name}'). Add rows for it or choose another material.", loads.source,
+                             f"members.{mb.name}.material")
         rows = rows[np.argsort(A_all[rows], kind="stable")]
-        A, I, Z, rg = A_all[rows], I_all[rows], Z_all[rows], r_all[rows]
+        A, Z, rg = A_all[rows], Z_all[rows], r_all[rows]
         ends = np.array([[mb.nodes[a], mb.nodes[b]] for a, b in mb.edges])
         seg = np.linalg.norm(P[:, ends[:, 1]] - P[:, ends[:, 0]], axis=-1)    # (C, ne)
         length[:, j] = seg.sum(1)

@@ -8,10 +8,10 @@ import tomllib
 import pytest
 from click.testing import CliRunner
 
-from conftest import CONFIGS, mech_of, toml_text, twin_beam
+from conftest import CONFIGS, mech_of, twin_beam
 from kinematics.errors import InputError
 from kinematics.loads import G, load_catalogue, load_loads, load_materials, parse_loads
-from kinematics.mechanism import load_mechanism, mechanism_to_toml, mirror, parse_mechanism
+from kinematics.mechanism import mechanism_to_toml, mirror, parse_mechanism
 from tiltopt.cli import main
 
 DEMO_LOADS = CONFIGS / "loads_demo.toml"
