@@ -223,7 +223,7 @@ class ClearanceResult:
             val = np.where(ok, val, np.nan)
             t, l = np.unravel_index(idx, self.converged.shape[1:])
             out[key] = val
-            out[key + "_state"] = np.where(ok[:, None], np.stack([t, l], -1), -1)
+            out[key + "_state"] = np.where((ok & np.isfinite(val))[:, None], np.stack([t, l], -1), -1)
             if err is not None:
                 e = err.reshape(flat.shape)
                 w = np.argmin(np.where(np.isnan(flat), np.inf, flat), axis=2)[np.arange(C), idx]

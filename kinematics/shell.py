@@ -13,7 +13,7 @@ Two file forms:
 
       name = "..."                 # optional
       description = "..."          # optional
-      [[stations]]                 # at least two, x_mm strictly ascending
+      [[stations]]                 # at least two, distinct x_mm (any order)
       x_mm = -300.0
       half_width_mm = 280.0        # a
       half_height_mm = 320.0       # b
@@ -177,10 +177,10 @@ def parse_shell(data: dict, src: str = "<memory>") -> Shell:
         if rows[-1][4] > 50:
             raise InputError(f"exponent must be at most 50 (a box-like section). Got {rows[-1][4]}.", src,
                              w + ".exponent")
-        if i and rows[-1][0] <= rows[-2][0]:
-            raise InputError(f"stations must have strictly ascending x_mm. Got {rows[-1][0]} after "
-                             f"{rows[-2][0]}.", src, w + ".x_mm")
-    a = np.array(rows)
+        if any(r[0] == rows[-1][0] for r in rows[:-1]):
+            raise InputError(f"two stations have x_mm = {rows[-1][0]}; each station needs its own x.", src,
+                             w + ".x_mm")
+    a = np.array(sorted(rows))
     return Shell("superellipse", a[:, 0], a[:, 1], a[:, 2], a[:, 3], a[:, 4], name=name, description=desc,
                  source=src)
 
