@@ -441,6 +441,13 @@ def _search(W: _Wheels, pfun, coarse_pfun, st: ClearanceSettings):
         semi = np.where((D > 0) & (D * D > A), np.sqrt(np.maximum(D * D - A, 0.0)), -np.inf)
         return np.maximum(semi, D - s_lip)
 
+    with np.errstate(invalid="ignore"):
+        return _estimate(W, fb, db, tb, flat, si, ki, S, K, hth0, hd0, st, lower)
+
+
+def _estimate(W, fb, db, tb, flat, si, ki, S, K, hth0, hd0, st, lower):
+    n = len(fb)
+    r = W.r
     Dc = flat + r[:, None]
     near_k = (np.abs(((np.arange(K)[None, :] - ki[:, None]) + K // 2) % K - K // 2) <= 1)      # (n, K)
     near_s = np.abs(np.arange(S)[None, :] - si[:, None]) <= 1                                    # (n, S)
