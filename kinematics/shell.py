@@ -342,13 +342,13 @@ def superellipse_distance_lower_bound(y, z, a, b, n):
     """
     u, v = np.abs(y) / a, np.abs(z) / b
     pu, pv = u ** n, v ** n
-    S = np.maximum(pu + pv, 1e-300)
+    S = np.maximum(pu + pv, 1e-30)
     G = S ** (1.0 / n)
     # dG/dy = G^(1-n) u^(n-1) / a
-    gy = pu / np.maximum(u, 1e-300) / a
-    gz = pv / np.maximum(v, 1e-300) / b
+    gy = pu / np.maximum(u, 1e-30) / a
+    gz = pv / np.maximum(v, 1e-30) / b
     grad = (G / S) * np.sqrt(gy * gy + gz * gz)
-    return (G - 1.0) / np.maximum(grad, 1e-300)
+    return (G - 1.0) / np.maximum(grad, 1e-30)
 
 
 def _polygon_at(shell: Shell, x: np.ndarray):
@@ -429,10 +429,12 @@ def shell_signed_distance(shell: Shell, yz, x_mm, *, lower_bound: bool = False) 
 
 def signed_distance_yz(shell: Shell, y, z, x_mm, *, lower_bound: bool = False) -> np.ndarray:
     """:func:`shell_signed_distance` with y and z as separate arrays (no stacking, for hot loops)."""
-    y = np.asarray(y, float)
-    x = np.broadcast_to(np.asarray(x_mm, float), y.shape)
+    y = np.asarray(y)
+    if y.dtype not in (np.float32, np.float64):
+        y = y.astype(float)
+    x = np.broadcast_to(np.asarray(x_mm, y.dtype), y.shape)
     if shell.kind == "superellipse":
-        a, b, zc, n = superellipse_params(shell, x)
+        a, b, zc, n = (p.astype(y.dtype) for p in superellipse_params(shell, x))
         f = superellipse_distance_lower_bound if lower_bound else superellipse_distance
         d = f(y, z - zc, a, b, n)
     else:
