@@ -60,6 +60,7 @@ from .model import Geometry, Model
 from .shell import (Shell, inside_level, outline_position, section_distance, shell_signed_distance,
                     signed_distance_yz, support, to_chassis_frame)
 
+_REACH = 4            # initial local-search step, in coarse half-spacings (covers +-2 cells)
 _NEAREST_MEMBERS = 3   # members searched per (state, wheel); the rest only enter through their bound
 
 __all__ = ["ClearanceSettings", "ClearanceResult", "Members", "members_of", "evaluate_clearance",
@@ -79,7 +80,7 @@ class ClearanceSettings:
 
     crown_samples: int = 24
     steer_samples: int = 3
-    refine_iterations: int = 5
+    refine_iterations: int = 7
     tube_samples: int = 9
     root_iterations: int = 30
 
@@ -413,7 +414,9 @@ def _search(W: _Wheels, pfun, coarse_pfun, st: ClearanceSettings):
     db = W.delta_max * sg[si]
     tb = theta[ki]
     fb = fun(idx, db[:, None], tb[:, None])[:, 0]
-    hth, hd = hth0, hd0.copy()
+    # the local search starts with steps of _REACH half-spacings, so it reaches about _REACH coarse
+    # cells either way: the coarse cells within that neighbourhood are covered by the search
+    hth, hd = _REACH * hth0, _REACH * hd0
     for _ in range(st.refine_iterations):
         # theta then steer: three-point moves, steps halving each round
         tc = tb[:, None] + np.array([-hth, hth])
@@ -453,14 +456,15 @@ def _estimate(W, fb, db, tb, flat, si, ki, S, K, hth0, hd0, st, lower):
     n = len(fb)
     r = W.r
     Dc = flat + r[:, None]
-    near_k = (np.abs(((np.arange(K)[None, :] - ki[:, None]) + K // 2) % K - K // 2) <= 1)      # (n, K)
-    near_s = np.abs(np.arange(S)[None, :] - si[:, None]) <= 1                                    # (n, S)
+    cells = _REACH // 2
+    near_k = (np.abs(((np.arange(K)[None, :] - ki[:, None]) + K // 2) % K - K // 2) <= cells)  # (n, K)
+    near_s = np.abs(np.arange(S)[None, :] - si[:, None]) <= cells                                # (n, S)
     near = (near_s[:, :, None] & near_k[:, None, :]).reshape(n, -1)
     lb_coarse = lower(Dc, hth0, hd0[:, None])
     lb_coarse = np.where(near | ~np.isfinite(Dc), np.inf, lb_coarse)
     Db = fb + r
     nfin = max(st.refine_iterations - 1, 0)
-    lb_fine = lower(Db, hth0 / 2 ** nfin, hd0 / 2 ** nfin)
+    lb_fine = lower(Db, _REACH * hth0 / 2 ** nfin, _REACH * hd0 / 2 ** nfin)
     lb = np.minimum(np.min(lb_coarse, axis=1), lb_fine)
     err = np.where(np.isfinite(fb), np.maximum(Db - lb, 0.0), np.nan)
     return fb, db, tb, err

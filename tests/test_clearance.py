@@ -261,3 +261,18 @@ def test_cli_bad_inputs_exit_2_and_name_file_and_key(demo_files, tmp_path):
     assert r.exit_code == 2 and "none.toml" in r.output
     r = CliRunner().invoke(main, ["clearance", str(mech), "--shell", str(shell), "--crown-samples", "2"])
     assert r.exit_code == 2 and "crown_samples" in r.output
+
+
+def test_polygon_shell_from_csv_gives_the_circle_result(tmp_path):
+    # a 720-gon inscribed in a circle of radius 150 (chord sag 150 (1 - cos(0.25 deg)) < 0.002 mm) as a CAD
+    # polygon CSV; exact as in the unsteered case: clearance = w cos(phi) - r - 150
+    t = np.radians(np.arange(0.0, 360.0, 0.5))
+    rows = ["x_mm,y_mm,z_mm"] + [f"{x},{150 * math.cos(a)!r},{300 + 150 * math.sin(a)!r}"
+                                 for x in (-1500.0, 1500.0) for a in t]
+    p = tmp_path / "round.csv"
+    p.write_text("\n".join(rows) + "\n")
+    lean = np.array([0.0, 20.0])
+    _, _, res = _run(twin_beam(), load_shell(p), lean)
+    exact = 330.0 * np.cos(np.radians(lean)) - R_CROWN - 150.0
+    np.testing.assert_allclose(res.wheel_shell_mm[0, 0, :, 1], exact, atol=0.5)
+    assert res.ground_mm[0, 0, 0, 0] == pytest.approx(150.0, abs=0.01)
