@@ -276,3 +276,26 @@ def test_polygon_shell_from_csv_gives_the_circle_result(tmp_path):
     exact = 330.0 * np.cos(np.radians(lean)) - R_CROWN - 150.0
     np.testing.assert_allclose(res.wheel_shell_mm[0, 0, :, 1], exact, atol=0.5)
     assert res.ground_mm[0, 0, 0, 0] == pytest.approx(150.0, abs=0.01)
+
+
+@pytest.mark.parametrize("kpi,caster", [(10.0, 0.0), (0.0, 12.0), (8.0, 5.0)])
+def test_steer_axis_rotation_closed_form(kpi, caster):
+    # Exact rotation (Rodrigues) of the front crown point c + rho f about the steering axis through the
+    # hub, for a quarter turn: f' = (e x f) + e (e . f), e the design axis of the right wheel
+    # (top inboard by the kingpin inclination, rearward by the caster), unit.
+    from kinematics.clearance import _Wheels
+
+    d = twin_beam()
+    d["wheels"][1].update(kingpin_inclination_deg=kpi, caster_deg=caster)
+    model = Model(parse_mechanism(d, "<t>"))
+    sr = sweep(model, lean_deg=[0.0])
+    W = _Wheels(model, model.default_geometry, sr, np.array([1]), (1, 1, 1))   # item 1: the right wheel
+    e = np.array([-math.tan(math.radians(caster)), -math.tan(math.radians(kpi)), 1.0])
+    e /= np.linalg.norm(e)
+    f = np.array([1.0, 0.0, 0.0])
+    fq = np.cross(e, f) + e * e.dot(f)
+    x, y, z = W.crown(np.array([0]), np.array([[math.pi / 2]]), np.array([[0.0]]))
+    np.testing.assert_allclose([x[0, 0], y[0, 0], z[0, 0]], np.array([0.0, 330.0, 250.0]) + RHO * fq, atol=1e-9)
+    # steer > 0 turns the front of the wheel toward +y (the sign stated in kinematics/clearance.py)
+    x, y, z = W.crown(np.array([0]), np.array([[0.1]]), np.array([[0.0]]))
+    assert y[0, 0] > 330.0
