@@ -382,30 +382,36 @@ class _Wheels:
                      for i in range(3))
 
 
-def _search(W: _Wheels, pfun, coarse_pfun, st: ClearanceSettings):
+def _coarse_grid(W: _Wheels, st: ClearanceSettings):
+    """The coarse (steer x crown angle) grid of every item and its world points in single precision.
+
+    The coarse grid only picks the basin and feeds the error estimate: single precision (about
+    1e-4 mm here) suffices and halves its memory traffic.
+    """
+    n = len(W.rho)
+    K = st.crown_samples
+    S = st.steer_samples if (W.delta_max > 0).any() else 1
+    theta = 2 * math.pi * np.arange(K) / K
+    sg = np.linspace(-1.0, 1.0, S) if S > 1 else np.zeros(1)
+    pts = tuple(g.reshape(n, -1).astype(np.float32) for g in W.crown_grid(W.delta_max[:, None] * sg[None, :], theta))
+    return S, K, theta, sg, pts
+
+
+def _search(W: _Wheels, pfun, coarse_pfun, st: ClearanceSettings, grid, early_pfun=None):
     """Minimise pfun(idx, x, y, z) over the crown circle x steer range of every item.
 
     ``pfun`` maps world crown points (arrays (n, m)) to clearances (distance minus
     the crown radius); ``coarse_pfun`` may return lower bounds of it (used on the
-    coarse grid only). Returns the reached minimum, its steer and crown angle
-    (rad) and the error estimate (see module docs).
+    coarse grid only); ``early_pfun`` (default ``pfun``) is used in all but the
+    last three refinement rounds, which always use ``pfun``. Returns the reached
+    minimum, its steer and crown angle (rad) and the error estimate (see module docs).
     """
-    def fun(idx, delta, theta):
-        return pfun(idx, *W.crown(idx, delta, theta))
-
+    early_pfun = early_pfun or pfun
     n = len(W.rho)
     idx = np.arange(n)
-    K = st.crown_samples
     steer = W.delta_max > 0
-    S = st.steer_samples if steer.any() else 1
-    theta = 2 * math.pi * np.arange(K) / K
-    sg = np.linspace(-1.0, 1.0, S) if S > 1 else np.zeros(1)
-    gx, gy, gz = W.crown_grid(W.delta_max[:, None] * sg[None, :], theta)      # (n, S, K)
-    # the coarse grid only picks the basin and feeds the error estimate: single precision suffices
-    # (about 1e-4 mm here), and halves its memory traffic
-    f32 = np.float32
-    F = coarse_pfun(idx, gx.reshape(n, -1).astype(f32), gy.reshape(n, -1).astype(f32),
-                    gz.reshape(n, -1).astype(f32)).reshape(n, S, K).astype(float)
+    S, K, theta, sg, (gx, gy, gz) = grid
+    F = coarse_pfun(idx, gx, gy, gz).reshape(n, S, K).astype(float)
     flat = np.where(np.isnan(F), np.inf, F).reshape(n, -1)
     k = np.argmin(flat, axis=1)
     si, ki = np.unravel_index(k, (S, K))
@@ -413,11 +419,20 @@ def _search(W: _Wheels, pfun, coarse_pfun, st: ClearanceSettings):
     hd0 = np.where(steer, W.delta_max / max(S - 1, 1), 0.0)
     db = W.delta_max * sg[si]
     tb = theta[ki]
+    n_exact = min(3, st.refine_iterations)
+    use = early_pfun if st.refine_iterations > n_exact else pfun
+
+    def fun(idx, delta, theta):
+        return use(idx, *W.crown(idx, delta, theta))
+
     fb = fun(idx, db[:, None], tb[:, None])[:, 0]
     # the local search starts with steps of _REACH half-spacings, so it reaches about _REACH coarse
     # cells either way: the coarse cells within that neighbourhood are covered by the search
     hth, hd = _REACH * hth0, _REACH * hd0
-    for _ in range(st.refine_iterations):
+    for it in range(st.refine_iterations):
+        if it == st.refine_iterations - n_exact and use is not pfun:
+            use = pfun                                   # the last rounds: exact distances
+            fb = fun(idx, db[:, None], tb[:, None])[:, 0]
         # theta then steer: three-point moves, steps halving each round
         tc = tb[:, None] + np.array([-hth, hth])
         fc = fun(idx, np.repeat(db[:, None], 2, 1), tc)
@@ -437,35 +452,44 @@ def _search(W: _Wheels, pfun, coarse_pfun, st: ClearanceSettings):
 
     # error estimate: lower bounds of the true minimum from the coarse samples outside the refined
     # neighbourhood and from the final steps (semiconcavity of the squared distance)
-    r = W.r
-
-    def lower(D, h_t, h_d):
-        s_lip = W.rho[..., None] * h_t + W.arm[..., None] * h_d if np.ndim(D) > 1 else W.rho * h_t + W.arm * h_d
-        rho = W.rho[..., None] if np.ndim(D) > 1 else W.rho
-        arm = W.arm[..., None] if np.ndim(D) > 1 else W.arm
-        Dm = np.maximum(D + s_lip, 0.0)
-        A = 2 * (rho * h_t) ** 2 + 2 * (arm * h_d) ** 2 + Dm * (rho * h_t ** 2 + arm * h_d ** 2)
-        semi = np.where((D > 0) & (D * D > A), np.sqrt(np.maximum(D * D - A, 0.0)), -np.inf)
-        return np.maximum(semi, D - s_lip)
-
     with np.errstate(invalid="ignore"):
-        return _estimate(W, fb, db, tb, flat, si, ki, S, K, hth0, hd0, st, lower)
+        return _estimate(W, fb, db, tb, flat, si, ki, S, K, hth0, hd0, st)
 
 
-def _estimate(W, fb, db, tb, flat, si, ki, S, K, hth0, hd0, st, lower):
+def _lower(D, rho, arm, h_t, h_d):
+    """Lower bound of the true minimum distance near a sample at crown distance D (cell half-sizes h_t, h_d).
+
+    Semiconcavity of the squared distance to any set, Hess(d^2/2) <= I, along the crown path, whose
+    displacement is at most rho h_t + arm h_d and curvature at most 1/rho (theta) and 1/(distance
+    from the axis) (steer); the Lipschitz bound D - displacement always holds.
+    """
+    s_lip = rho * h_t + arm * h_d
+    Dm = np.maximum(D + s_lip, 0.0)
+    A = 2 * (rho * h_t) ** 2 + 2 * (arm * h_d) ** 2 + Dm * (rho * h_t ** 2 + arm * h_d ** 2)
+    semi = np.where((D > 0) & (D * D > A), np.sqrt(np.maximum(D * D - A, 0.0)), -np.inf)
+    return np.maximum(semi, D - s_lip)
+
+
+def _estimate(W, fb, db, tb, flat, si, ki, S, K, hth0, hd0, st):
     n = len(fb)
     r = W.r
+    Db = fb + r
     Dc = flat + r[:, None]
     cells = _REACH // 2
     near_k = (np.abs(((np.arange(K)[None, :] - ki[:, None]) + K // 2) % K - K // 2) <= cells)  # (n, K)
     near_s = np.abs(np.arange(S)[None, :] - si[:, None]) <= cells                                # (n, S)
     near = (near_s[:, :, None] & near_k[:, None, :]).reshape(n, -1)
-    lb_coarse = lower(Dc, hth0, hd0[:, None])
-    lb_coarse = np.where(near | ~np.isfinite(Dc), np.inf, lb_coarse)
-    Db = fb + r
+    # only samples whose Lipschitz bound falls below the reached value can lower the bound
+    s_lip = (W.rho * hth0 + W.arm * hd0)[:, None]
+    cand = ~near & np.isfinite(Dc) & (Dc - s_lip < Db[:, None])
+    ii, kk = np.nonzero(cand)
+    lb_c = np.full(n, np.inf)
+    if len(ii):
+        vals = _lower(Dc[ii, kk], W.rho[ii], W.arm[ii], hth0, hd0[ii])
+        np.minimum.at(lb_c, ii, vals)
     nfin = max(st.refine_iterations - 1, 0)
-    lb_fine = lower(Db, _REACH * hth0 / 2 ** nfin, _REACH * hd0 / 2 ** nfin)
-    lb = np.minimum(np.min(lb_coarse, axis=1), lb_fine)
+    lb_fine = _lower(Db, W.rho, W.arm, _REACH * hth0 / 2 ** nfin, _REACH * hd0 / 2 ** nfin)
+    lb = np.minimum(lb_c, lb_fine)
     err = np.where(np.isfinite(fb), np.maximum(Db - lb, 0.0), np.nan)
     return fb, db, tb, err
 
@@ -546,7 +570,9 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
                                       lower_bound=lower_bound) - W.r[idx][:, None].astype(dt)
         return f
 
-    ws_val, ws_steer, _, ws_err = _search(W, shell_fun(False), shell_fun(shell.kind == "superellipse"), st)
+    grid = _coarse_grid(W, st)
+    cheap = shell_fun(shell.kind == "superellipse")
+    ws_val, ws_steer, _, ws_err = _search(W, shell_fun(False), cheap, st, grid, early_pfun=cheap)
 
     if M:
         n = len(W.r)
@@ -573,7 +599,7 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
             d = np.where(kex[idx][:, None, :], np.inf, d - krad[idx][:, None, :].astype(dt))
             return np.min(d, axis=-1) - W.r[idx][:, None].astype(dt)
 
-        wl_val, wl_steer, wl_theta, wl_err = _search(W, link_fun, link_fun, st)
+        wl_val, wl_steer, wl_theta, wl_err = _search(W, link_fun, link_fun, st, grid)
         # members left out of the search can only lower the minimum down to their bound
         if drop.shape[1]:
             lb_drop = np.min(np.take_along_axis(lb, drop, 1), axis=1)

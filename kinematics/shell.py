@@ -280,9 +280,20 @@ def _segment_of(shell: Shell, x: np.ndarray):
 
 def superellipse_params(shell: Shell, x: np.ndarray):
     """(a, b, zc, n) of the section at each x (clamped to the station range)."""
-    xc = np.clip(x, shell.x[0], shell.x[-1])
-    return tuple(np.interp(xc, shell.x, p) for p in
-                 (shell.half_width, shell.half_height, shell.centre_z, shell.exponent))
+    xs = shell.x
+    x = np.asarray(x)
+    if len(xs) == 2:
+        t = np.clip((x - xs[0]) / (xs[1] - xs[0]), 0.0, 1.0)
+        i = 0
+    else:
+        xc = np.clip(x, xs[0], xs[-1])
+        i = np.clip(np.searchsorted(xs, xc, side="right") - 1, 0, len(xs) - 2)
+        t = (xc - xs[i]) / (xs[i + 1] - xs[i])
+    out = []
+    for p in (shell.half_width, shell.half_height, shell.centre_z, shell.exponent):
+        p0 = p[i]
+        out.append(p0 + (p[i + 1] - p0) * t)
+    return tuple(out)
 
 
 def _chart(u, v, a, b, n, inv_n):
