@@ -82,7 +82,7 @@ class ClearanceSettings:
     steer_samples: int = 3
     refine_iterations: int = 7
     tube_samples: int = 9
-    root_iterations: int = 30
+    root_iterations: int = 20
 
     def __post_init__(self):
         for k in ("crown_samples", "steer_samples", "refine_iterations", "tube_samples", "root_iterations"):
