@@ -15,7 +15,7 @@ from scipy.optimize import minimize_scalar
 
 from kinematics.errors import InputError
 from kinematics.mechanism import load_mechanism, mechanism_to_toml, mirror, parse_mechanism
-from kinematics.shell import (load_shell, outline_position, parse_polygon_csv, parse_shell, shell_signed_distance,
+from kinematics.shell import (load_shell, outline_position, parse_polygon_csv, shell_signed_distance,
                               superellipse_distance, superellipse_distance_lower_bound, superellipse_shell, support,
                               to_chassis_frame)
 
