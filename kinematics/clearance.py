@@ -571,7 +571,7 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
         return f
 
     grid = _coarse_grid(W, st)
-    cheap = shell_fun(shell.kind == "superellipse")
+    cheap = shell_fun(True)
     ws_val, ws_steer, _, ws_err = _search(W, shell_fun(False), cheap, st, grid, early_pfun=cheap)
 
     if M:

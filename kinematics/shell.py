@@ -76,6 +76,8 @@ class Shell:
     centre_z: np.ndarray | None = None
     exponent: np.ndarray | None = None
     outlines: np.ndarray | None = None
+    coarse_outlines: np.ndarray | None = None   # polygon: every m-th vertex, for cheap lower bounds
+    coarse_error_mm: float = 0.0                # polygon: bound of |distance to outline - to coarse outline|
     name: str = "shell"
     description: str = ""
     notes: str = ""
@@ -238,8 +240,40 @@ def parse_polygon_csv(text: str, src: str = "<memory>") -> Shell:
         outlines = [_resample(o, m) for o in outlines]
         notes = (f"sections have different vertex counts ({sorted(counts)}); each was resampled by arc length "
                  f"to {m} vertices from its topmost vertex before interpolating along x")
-    return Shell("polygon", np.array([b[0] for b in blocks]), outlines=np.array(outlines),
-                 name=Path(src).stem if src != "<memory>" else "shell", notes=notes, source=src)
+    outlines = np.array(outlines)
+    coarse, err = _decimate(outlines)
+    return Shell("polygon", np.array([b[0] for b in blocks]), outlines=outlines, coarse_outlines=coarse,
+                 coarse_error_mm=err, name=Path(src).stem if src != "<memory>" else "shell", notes=notes, source=src)
+
+
+_COARSE_VERTICES = 48
+
+
+def _decimate(outlines: np.ndarray):
+    """Every m-th vertex of each section (about 48 left) and a bound of the change in distance.
+
+    Each dropped chain of vertices is replaced by the chord between its kept ends; the largest
+    distance of a dropped vertex from its chord (at the stations and at quarter points between
+    them, where sections are interpolated) bounds the Hausdorff distance h of the two outlines, so
+    unsigned distances differ by at most h and signed ones by at most 2 h (returned).
+    """
+    S, K, _ = outlines.shape
+    m = max(1, K // _COARSE_VERTICES)
+    if m == 1:
+        return outlines, 0.0
+    keep = np.arange(0, K, m)
+    t = np.array([0.0, 0.25, 0.5, 0.75])
+    secs = (outlines[:-1, None] * (1 - t)[None, :, None, None] + outlines[1:, None] * t[None, :, None, None])
+    secs = np.concatenate([secs.reshape(-1, K, 2), outlines[-1:]], 0)
+    v = np.arange(K)
+    j = np.searchsorted(keep, v, side="right") - 1
+    a = secs[:, keep[j]]
+    b = secs[:, keep[(j + 1) % len(keep)]]
+    e = b - a
+    w = secs - a
+    tt = np.clip(np.sum(w * e, -1) / np.maximum(np.sum(e * e, -1), 1e-30), 0.0, 1.0)
+    h = float(np.max(np.linalg.norm(w - tt[..., None] * e, axis=-1)))
+    return outlines[:, keep].copy(), 2.0 * h
 
 
 def _resample(v: np.ndarray, m: int) -> np.ndarray:
@@ -362,9 +396,9 @@ def superellipse_distance_lower_bound(y, z, a, b, n):
     return (G - 1.0) / np.maximum(grad, 1e-30)
 
 
-def _polygon_at(shell: Shell, x: np.ndarray):
+def _polygon_at(shell: Shell, x: np.ndarray, coarse: bool = False):
     _, i, t = _segment_of(shell, x)
-    O = shell.outlines
+    O = shell.coarse_outlines if coarse else shell.outlines
     return O[i] * (1.0 - t)[..., None, None] + O[i + 1] * t[..., None, None]
 
 
@@ -395,8 +429,9 @@ def polygon_distance(y, z, verts):
 def section_distance(shell: Shell, yz: np.ndarray, x_mm, *, lower_bound: bool = False) -> np.ndarray:
     """Signed distance within the cross-section at x (no end caps; x clamped to the stations).
 
-    ``lower_bound=True`` returns the cheap lower bound for superellipse shells
-    (exact values for polygon shells).
+    ``lower_bound=True`` returns a cheap lower bound: the gauge bound for
+    superellipse sections, the distance to the thinned polygon minus its error
+    bound for polygon sections.
     """
     yz = np.asarray(yz, float)
     x = np.broadcast_to(np.asarray(x_mm, float), yz.shape[:-1])
@@ -407,12 +442,17 @@ def section_distance(shell: Shell, yz: np.ndarray, x_mm, *, lower_bound: bool = 
     shape = yz.shape[:-1]
     yf, zf, xf = yz[..., 0].ravel(), yz[..., 1].ravel(), x.ravel()
     out = np.empty(yf.shape)
-    k = shell.outlines.shape[1]
+    coarse = lower_bound and shell.coarse_outlines is not None
+    k = (shell.coarse_outlines if coarse else shell.outlines).shape[1]
     chunk = max(1, 2_000_000 // k)
+    one = len(xf) > 0 and bool(np.all(xf == xf[0]))     # one section for all points (tubes in the linkage plane)
+    poly = _polygon_at(shell, xf[:1], coarse)[0] if one else None
     for s0 in range(0, len(yf), chunk):   # chunks bound the memory, not a loop over states
         sl = slice(s0, s0 + chunk)
-        out[sl] = polygon_distance(yf[sl], zf[sl], _polygon_at(shell, xf[sl]))
-    return out.reshape(shape)
+        out[sl] = polygon_distance(yf[sl], zf[sl], poly if one else _polygon_at(shell, xf[sl], coarse))
+    if coarse:
+        out -= shell.coarse_error_mm
+    return out.reshape(shape).astype(yz.dtype, copy=False)
 
 
 def shell_signed_distance(shell: Shell, yz, x_mm, *, lower_bound: bool = False) -> np.ndarray:
@@ -449,7 +489,7 @@ def signed_distance_yz(shell: Shell, y, z, x_mm, *, lower_bound: bool = False) -
         f = superellipse_distance_lower_bound if lower_bound else superellipse_distance
         d = f(y, z - zc, a, b, n)
     else:
-        d = section_distance(shell, np.stack([y, z], -1), x)
+        d = section_distance(shell, np.stack([y, z], -1), x, lower_bound=lower_bound)
     x0, x1 = shell.x_range
     beyond = np.maximum(x0 - x, x - x1)          # > 0 outside the station range
     to_cap = np.minimum(x - x0, x1 - x)          # >= 0 inside the range

@@ -244,3 +244,21 @@ def test_bad_clearance_keys(edit, key):
     with pytest.raises(InputError) as e:
         parse_mechanism(d, "m.toml")
     assert e.value.key == key
+
+
+def test_thinned_polygon_bound_is_below_the_shapely_distance():
+    pytest.importorskip("shapely")
+    from shapely.geometry import Point, Polygon
+
+    rng = np.random.default_rng(5)
+    t = np.linspace(0.0, 2 * math.pi, 240, endpoint=False)
+    r = 200.0 + 15.0 * np.sin(5 * t) + rng.uniform(-2.0, 2.0, t.size)     # a wavy CAD-like outline
+    verts = list(zip(r * np.cos(t), 450.0 + r * np.sin(t)))
+    shell = parse_polygon_csv(_csv([(-900.0, verts), (-300.0, verts), (300.0, verts), (900.0, verts)]))
+    assert shell.coarse_outlines.shape[1] < 60 and shell.coarse_error_mm > 0
+    pts = rng.uniform([-400, 50], [400, 850], (400, 2))
+    lb = shell_signed_distance(shell, pts, 0.0, lower_bound=True)
+    poly = Polygon(verts)
+    ref = np.array([poly.exterior.distance(Point(p)) * (-1 if poly.contains(Point(p)) else 1) for p in pts])
+    assert np.all(lb <= ref + 1e-9)                                    # a true lower bound (shapely reference)
+    assert np.all(ref - lb <= 2 * shell.coarse_error_mm + 1e-9)        # and no looser than stated
