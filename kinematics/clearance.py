@@ -60,7 +60,7 @@ from .model import Geometry, Model
 from .shell import (Shell, inside_level, outline_position, section_distance, shell_signed_distance,
                     signed_distance_yz, support, to_chassis_frame)
 
-_REACH = 4            # initial local-search step, in coarse half-spacings (covers +-2 cells)
+_REACH = 6            # initial local-search step, in coarse half-spacings (covers +-3 cells)
 _NEAREST_MEMBERS = 3   # members searched per (state, wheel); the rest only enter through their bound
 
 __all__ = ["ClearanceSettings", "ClearanceResult", "Members", "members_of", "evaluate_clearance",
@@ -80,7 +80,7 @@ class ClearanceSettings:
 
     crown_samples: int = 24
     steer_samples: int = 3
-    refine_iterations: int = 7
+    refine_iterations: int = 8
     tube_samples: int = 9
     root_iterations: int = 20
 
