@@ -367,6 +367,19 @@ class _Wheels:
         x, y, z = _rotate(vx, vy, vz, self.ex[sl], self.ey[sl], self.ez[sl], np.cos(delta), np.sin(delta))
         return x + self.px[sl], y + self.py[sl], z + self.pz[sl]
 
+    def crown_fixed_steer(self, idx, delta, theta):
+        """World crown points at one steer per item: delta (n,), theta (n, m) -> three arrays (n, m)."""
+        cd, sd = np.cos(delta), np.sin(delta)
+        e = (self.ex[idx], self.ey[idx], self.ez[idx])
+        px, py, pz = self.px[idx], self.py[idx], self.pz[idx]
+        c = _rotate(self.cx[idx] - px, self.cy[idx] - py, self.cz[idx] - pz, *e, cd, sd)
+        f = _rotate(1.0, 0.0, 0.0, *e, cd, sd)
+        u = _rotate(0.0, self.sg[idx], self.cg[idx], *e, cd, sd)
+        rc = self.rho[idx][:, None] * np.cos(theta)
+        rs = self.rho[idx][:, None] * np.sin(theta)
+        base = (px, py, pz)
+        return tuple((c[i] + base[i])[:, None] + f[i][:, None] * rc + u[i][:, None] * rs for i in range(3))
+
     def crown_grid(self, delta, theta):
         """World crown points on a grid: delta (n, S), theta (K,) -> three arrays (n, S, K)."""
         cd, sd = np.cos(delta), np.sin(delta)
@@ -435,7 +448,7 @@ def _search(W: _Wheels, pfun, coarse_pfun, st: ClearanceSettings, grid, early_pf
             fb = fun(idx, db[:, None], tb[:, None])[:, 0]
         # theta then steer: three-point moves, steps halving each round
         tc = tb[:, None] + np.array([-hth, hth])
-        fc = fun(idx, np.repeat(db[:, None], 2, 1), tc)
+        fc = use(idx, *W.crown_fixed_steer(idx, db, tc))
         j = np.argmin(fc, axis=1)
         better = fc[idx, j] < fb
         tb = np.where(better, tc[idx, j], tb)
