@@ -34,7 +34,7 @@ from typing import Callable
 import numpy as np
 from pymoo.core.problem import Problem
 
-from kinematics.solver import STATUS_TEXT
+from kinematics.solver import SKIPPED, STATUS_TEXT
 from kinematics.sweep import SweepSettings, sweep
 
 from .registry import CONSTRAINTS, OBJECTIVES
@@ -224,7 +224,9 @@ class TiltProblem(Problem):
                 metrics["motion_ratio"][idx] = np.where(ok, np.mean(sr.motion_ratio[:, t0], axis=-1), np.nan)
             # first failed state of each non-converged candidate
             for j in np.flatnonzero(~ok):
-                t, l = np.argwhere(~conv[j])[0]
+                bad_tl = np.argwhere(~conv[j])
+                tried = bad_tl[sr.status[j][~conv[j]] != SKIPPED]   # prefer a state that was tried
+                t, l = (tried if len(tried) else bad_tl)[0]
                 k = int((~conv[j]).sum())
                 reasons[idx[j]].append(
                     f"not converged: {k} of {conv[j].size} envelope states failed (first: lean "
