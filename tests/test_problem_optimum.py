@@ -15,9 +15,14 @@ from problems.spec import parse_problem
 
 
 def _non_dominated(F: np.ndarray) -> np.ndarray:
-    """Plain numpy non-dominated filter (minimisation): keep rows no other row dominates."""
-    dominated = np.any(np.all(F[:, None, :] <= F[None, :, :], -1) & np.any(F[:, None, :] < F[None, :, :], -1), 0)
-    return F[~dominated]
+    """Plain numpy non-dominated filter for two minimised objectives.
+
+    Sorted by (f1, f2), a point is non-dominated exactly when its f2 is below the smallest f2 of
+    every point before it (duplicates are kept once).
+    """
+    F = np.unique(F, axis=0)                       # unique also sorts rows lexicographically
+    prev_min = np.minimum.accumulate(np.r_[np.inf, F[:-1, 1]])
+    return F[F[:, 1] < prev_min]
 
 
 def test_nsga2_front_reaches_grid_hypervolume():
