@@ -133,3 +133,14 @@ def test_linkage_mass_objective_and_stress_constraint():
     assert np.all(ev.F[ok, 0] > 0.0)
     stress_ok = ev.G[:, 1] <= 0
     np.testing.assert_array_equal(stress_ok[ok], np.asarray(sz.feasible)[ok])
+
+
+@pytest.mark.skipif(not HAS_CLEARANCE, reason="kinematics.clearance is not on this branch yet (lands from "
+                    "branch 'clearance' with the steer envelope keys of the mechanism format)")
+def test_steer_envelope_override_survives_the_template_record():
+    from problems.templates import Template
+    spec = parse_problem({"template": {"name": "twin_beam"}, "objectives": ["max_scrub"],
+                          "envelope": {"steer": {"lean_deg": [0.0, 20.0], "max_steer_deg": [30.0, 8.0]}}}, "c")
+    assert tuple(spec.template.mechanism.steer_envelope) == ((0.0, 30.0), (20.0, 8.0))
+    again = Template.from_dict(spec.template.to_dict())
+    assert tuple(again.mechanism.steer_envelope) == ((0.0, 30.0), (20.0, 8.0))
