@@ -77,7 +77,9 @@ class Evaluation:
         "" where feasible, else why not.
     metrics : dict of str -> ndarray of shape (n,)
         Names end in their unit (see :data:`METRIC_UNITS`); NaN where unknown
-        (a failed design's figures are never reported as numbers).
+        (a failed design's figures are never reported as numbers) or where
+        there is nothing to measure (``min_wheel_link_mm`` of a linkage
+        without links).
     """
 
     X: np.ndarray
@@ -237,8 +239,9 @@ class TiltProblem(Problem):
                 from kinematics.shell import shell_signed_distance
                 summ = evaluate_clearance(model, g, sr, spec.shell).summary()
                 for k in CLEARANCE_KEYS:
-                    if k in summ:
-                        metrics[k][idx] = np.where(ok, np.asarray(summ[k], float), np.nan)
+                    if k in summ:   # +-inf (nothing to measure, e.g. no links) is reported as NaN
+                        v = np.asarray(summ[k], float)
+                        metrics[k][idx] = np.where(ok & np.isfinite(v), v, np.nan)
                 shell_w = metrics["max_overall_width_mm"][idx]
                 metrics["overall_width_mm"][idx] = np.where(np.isfinite(shell_w), np.fmax(tw, shell_w), np.nan)
                 if len(self._chassis_joints):
