@@ -429,7 +429,7 @@ class Template:
                                  f"Variables: {', '.join(known)}.", src, f"template.fixed.{name}")
             if isinstance(val, bool) or not isinstance(val, (int, float)) or not math.isfinite(val):
                 raise InputError(f"expected a finite number. Got {val!r} instead.", src, f"template.fixed.{name}")
-        active = list(known if active is None else active)
+        active = [n for n in known if n not in fixed] if active is None else list(active)
         for name in active:
             if name not in known:
                 raise InputError(f"unknown design variable '{name}' of template '{self.name}'. "
@@ -648,8 +648,8 @@ def get_template(name: str, bounds: Mapping[str, Sequence[float]] | None = None,
     bounds : dict of str -> (lower, upper), optional
         Bound overrides.
     variables : list of str, optional
-        The active variables (default: the template's default set; every
-        variable but ``wheel_radius``).
+        The active variables (default: the template's default set, every
+        variable but ``wheel_radius``, less those in ``fixed``).
     fixed : dict of str -> float, optional
         Values for held variables (default: their defaults).
     """
@@ -659,4 +659,6 @@ def get_template(name: str, bounds: Mapping[str, Sequence[float]] | None = None,
     full = template_from_entry(e)
     # bounds first (they may name held variables too), then the subset
     t = full.with_bounds(bounds, src)
-    return t.subset(list(e.default_active) if variables is None else list(variables), fixed, src)
+    if variables is None:   # the default set, less any variable the caller holds
+        variables = [v for v in e.default_active if v not in (fixed or {})]
+    return t.subset(list(variables), fixed, src)

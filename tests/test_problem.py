@@ -76,6 +76,18 @@ def test_template_from_mechanism_in_config(tmp_path):
         "objectives": ["max_scrub"]}
     s = parse_problem(data, str(tmp_path / "run.toml"), tmp_path)
     assert s.template.names == ["hub_y"] and s.template.xl.tolist() == [280.0]
+    data["template"]["variables"].append({"name": "pivot_y", "points": ["upper_beam.right_end"], "axis": "y",
+                                          "lower": 250.0, "upper": 350.0})
+    data["template"]["fixed"] = {"hub_y": 330.0}
+    s = parse_problem(data, str(tmp_path / "run.toml"), tmp_path)
+    assert s.template.names == ["pivot_y"]
+    assert s.template.mechanism.point("upright_left.hub") == (-330.0, 250.0)   # held value, mirrored
+
+
+def test_fixing_a_default_variable_removes_it_from_the_search():
+    s = parse_problem(_cfg(template={"name": "twin_beam", "fixed": {"wheel_offset": 0.0}}), "c.toml")
+    assert s.template.names == ["outer_pivot_y", "lower_pivot_z", "beam_spacing"]
+    assert s.template.mechanism.point("upright_right.hub") == (300.0, 250.0)
 
 
 # ------------------------------------------------------------------ closed form
