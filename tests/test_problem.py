@@ -33,6 +33,13 @@ def test_envelope_defaults():
     np.testing.assert_array_equal(s.envelope.travel_mm, [-30.0, 0.0, 30.0])  # sprung template
     assert s.constraints == ("converged",)
     np.testing.assert_array_equal(lean_grid(32.0, 5.0), [0, 5, 10, 15, 20, 25, 30, 32])
+    s = parse_problem(_cfg(envelope={"lean_limit_deg": 20.0, "lean_step_deg": 10.0, "both_sides": True}), "c")
+    np.testing.assert_array_equal(s.envelope.lean_deg, [-20, -10, 0, 10, 20])
+    # mirror symmetry (exact): a symmetric design's worst scrub over both sides equals one side's
+    ev2 = TiltProblem(s).evaluate_designs(np.array([[300.0, 50.0, 220.0, 200.0]]))
+    s1 = parse_problem(_cfg(envelope={"lean_limit_deg": 20.0, "lean_step_deg": 10.0}), "c")
+    ev1 = TiltProblem(s1).evaluate_designs(np.array([[300.0, 50.0, 220.0, 200.0]]))
+    np.testing.assert_allclose(ev2.F, ev1.F, rtol=1e-9)
 
 
 @pytest.mark.parametrize("data,key", [
