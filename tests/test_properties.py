@@ -184,10 +184,6 @@ def test_file_order_does_not_change_metrics(data, seed):
     _same_metrics(a, b)
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "kinematics/mechanism.py _q() writes control characters (newline, U+0007, DEL) raw inside a TOML "
-    "basic string, which TOML forbids: a description read from a multi-line TOML string cannot be "
-    "written back. Fix: escape \\n, \\r, \\b, \\f and other characters < U+0020 or U+007F as \\uXXXX."))
 @pytest.mark.parametrize("description", ["first line\nsecond line", "bell\x07", "del\x7f"],
                          ids=["newline", "bell", "del"])
 def test_round_trip_of_descriptions_with_control_characters(description):
