@@ -18,11 +18,16 @@ written from DOMAIN.md alone, with a different formulation:
   changed by the travel ``s`` (2);
 * one state at a time with :func:`scipy.optimize.least_squares`
   (Levenberg-Marquardt with an analytic Jacobian, tight tolerances),
-  warm-started along the sweep procedure of DOMAIN.md.
+  warm-started along the sweep procedure of DOMAIN.md;
+* two choices DOMAIN.md leaves open, made here on their own grounds: at
+  lean 0 a lean mode that only the springs hold is kept at its design value
+  to first order (:func:`free_modes`), and a lean path that passes a fold
+  (the linkage toggles) fails there (:func:`path_tangent`).
 
-It is slow by design (a Python loop per state): the tests compare it with the
-batched solver, and ``benchmarks/kinematics.py`` times
-:func:`reference_solve_state` as the scalar per-state baseline.
+It is a plain Python loop per state (about 400-600 states/s on one core):
+the tests compare it with the batched solver, and ``benchmarks/kinematics.py``
+times it (:func:`reference_sweep`, i.e. :func:`reference_solve_state` per
+state) as the scalar per-state baseline.
 
 Units: mm and degrees at the public functions, mm and radians inside.
 """

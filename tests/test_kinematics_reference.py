@@ -380,3 +380,11 @@ def test_second_fold_case_batched_coarse_step():
     res = sweep(Model(mech), lean_deg=[0.0, 20.0, 25.0], travel_mm=[10.0])
     # reference: test_second_fold_case_reference
     assert res.converged[0, 0].tolist() == [True, True, False]
+
+
+def test_reference_records_have_the_sweep_record_keys():
+    mech = load_mechanism(CONFIGS / "twin_beam_sprung.toml")
+    ref = reference_sweep(mech, [0.0, 10.0], [0.0, 10.0])
+    got = sweep(Model(mech), lean_deg=[0.0, 10.0], travel_mm=[0.0, 10.0]).records()
+    assert [set(r) for r in ref] == [set(r) for r in got]
+    assert [set(r["spring_lengths_mm"]) for r in ref] == [set(r["spring_lengths_mm"]) for r in got]
