@@ -388,3 +388,21 @@ def test_reference_records_have_the_sweep_record_keys():
     got = sweep(Model(mech), lean_deg=[0.0, 10.0], travel_mm=[0.0, 10.0]).records()
     assert [set(r) for r in ref] == [set(r) for r in got]
     assert [set(r["spring_lengths_mm"]) for r in ref] == [set(r["spring_lengths_mm"]) for r in got]
+
+
+def test_failing_candidate_in_a_batch_does_not_touch_the_others():
+    """A locked geometry (unequal beams) among parallelograms of the same topology: it is reported
+    as not reaching any lean > 0, and the other candidates equal their own reference sweeps."""
+    variants = [dict(), dict(w_left_lower=300.0, w_right_lower=300.0), dict(e_left=50.0, e_right=50.0)]
+    mechs = [mech_of(twin_beam(**v)) for v in variants]
+    model = Model(mechs[0])
+    geom = model.batch_geometry(np.concatenate([model.geometry_from(m).points for m in mechs]))
+    leans = [-10.0, 0.0, 10.0, 30.0]
+    res = sweep(model, geom, lean_deg=leans, travel_mm=[0.0])
+    assert res.converged[1, 0].tolist() == [False, True, False, False]
+    assert res.converged[[0, 2]].all()
+    for c in (0, 2):
+        ref = reference_sweep(mechs[c], leans, [0.0])
+        for a, b in zip(ref, res.records(c)):
+            for k in LENGTH_KEYS + ANGLE_KEYS:      # kinematics.reference
+                assert b[k] == pytest.approx(a[k], abs=1e-6), (c, k)
