@@ -325,7 +325,9 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
         mismatch = np.linalg.norm((secant - 0.5 * (hist_t + t_new)) * scale, axis=1)
         size = np.linalg.norm(secant * scale, axis=1) + np.linalg.norm(0.5 * (hist_t + t_new) * scale, axis=1)
         ratio = np.where(dphi[:, 0] != 0, mismatch / np.maximum(size, 1e-12), 0.0)
-        suspect = (st == CONVERGED) & (ratio > BRANCH_JUMP_RATIO)
+        # ... and the tangent may not turn by more than a right angle within one step
+        turned = np.sum(hist_t * t_new * scale * scale, axis=1) < 0
+        suspect = (st == CONVERGED) & ((ratio > BRANCH_JUMP_RATIO) | turned)
         if square:
             suspect |= (st == CONVERGED) & (np.linalg.slogdet(Jk[..., :nq])[0] != sign0[idx])
         return qs, st, res, it, suspect, t_new

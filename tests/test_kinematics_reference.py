@@ -368,13 +368,6 @@ def test_second_fold_case_reference():
     assert [r["converged"] for r in coarse] == [True, True, False] and "fold" in coarse[2]["status"]
 
 
-@pytest.mark.xfail(strict=True, reason=(
-    "kinematics/sweep.py branch guard (advance() in sweep(): trapezoid ratio test, BRANCH_JUMP_RATIO "
-    "= 0.5) misses this jump: one 5 deg step from 20 to 25 deg at travel 10 mm lands on another branch "
-    "past the fold at ~21.5 deg and is reported converged. Proposed fix: also test the orientation of "
-    "the path tangent in (q, phi): with t = (dq/dphi, 1) scaled by col_scale, a step whose end tangent "
-    "has t_prev . t_new < 0 (dq/dphi flips, as on the far side of a fold) is suspect; or cap the "
-    "corrector step against the predictor step (|q - guess| > c |guess - q_prev|)."))
 def test_second_fold_case_batched_coarse_step():
     mech = mech_of(wishbone_rocker(**FOLD_CASE_2))
     res = sweep(Model(mech), lean_deg=[0.0, 20.0, 25.0], travel_mm=[10.0])
