@@ -233,7 +233,7 @@ def execute_item(item: dict) -> dict:
     try:
         cfg = parse_config(item["data"], item["config"], item["base_dir"])
         problem = cfg.make_problem()
-        runner = Runner(problem, cfg.run, d, item["run_id"], config_record(cfg), progress=False)
+        runner = Runner(problem, cfg.run, d, item["run_id"], config_record(cfg), progress=False, notices=False)
         runner.run(resume=(d / R.CHECKPOINT).is_file())
     except Exception as exc:
         return summary_row(item, status="failed", error=f"{type(exc).__name__}: {exc}")

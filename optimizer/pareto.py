@@ -68,7 +68,7 @@ HV_REFERENCE = 1.1   # reference point in normalised objectives (each objective)
 _MC_SAMPLES = 20000
 
 
-def hypervolume(F, reference) -> float:
+def hypervolume(F, reference, nondominated: bool = False) -> float:
     """Hypervolume dominated by the rows of ``F`` up to ``reference`` (minimisation).
 
     Exact (pymoo's indicator) for up to 4 objectives; above that a
@@ -78,6 +78,8 @@ def hypervolume(F, reference) -> float:
     ----------
     F : ndarray of shape (n, n_obj)
     reference : ndarray of shape (n_obj,)
+    nondominated : bool
+        The rows are known to be mutually non-dominated (skips a filter).
     """
     F = np.asarray(F, dtype=float)
     ref = np.asarray(reference, dtype=float)
@@ -86,7 +88,8 @@ def hypervolume(F, reference) -> float:
     F = F[(F < ref).all(axis=1)]
     if F.shape[0] == 0:
         return 0.0
-    F = F[nondominated_mask(F)]
+    if not nondominated:
+        F = F[nondominated_mask(F)]
     m = F.shape[1]
     if m == 1:
         return float(ref[0] - F[:, 0].min())

@@ -28,13 +28,18 @@ class Progress:
     label : str
     stream : file, default sys.stderr
     enabled : bool
+        Print the progress line.
+    notices : bool
+        Print notices (:meth:`message`) even without the progress line.
     """
 
-    def __init__(self, total: int, label: str = "", stream=None, enabled: bool = True, every_s: float = 5.0):
+    def __init__(self, total: int, label: str = "", stream=None, enabled: bool = True, every_s: float = 5.0,
+                 notices: bool = True):
         self.total = total
         self.label = label
         self.stream = stream if stream is not None else sys.stderr
         self.enabled = enabled
+        self.notices = notices
         self.every_s = every_s
         self.tty = bool(getattr(self.stream, "isatty", lambda: False)())
         self._last = -math.inf
@@ -63,7 +68,8 @@ class Progress:
         self.stream.flush()
 
     def message(self, text: str) -> None:
-        if not self.enabled:
+        """A notice (stop requested, where to resume): printed unless notices are off."""
+        if not self.notices:
             return
         self.close()
         self.stream.write(text + "\n")

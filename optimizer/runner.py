@@ -25,6 +25,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
+import cloudpickle
 import numpy as np
 import pandas as pd
 from pymoo.core.evaluator import Evaluator
@@ -119,7 +120,7 @@ class RunState:
     generation: int = 0
     n_evals: int = 0
     generations: list = field(default_factory=list)
-    archive: pd.DataFrame | None = None
+    archive: dict | None = None  # column -> ndarray, the non-dominated feasible designs so far
     normaliser: Normaliser | None = None
     elapsed_s: float = 0.0
     evaluation_s: float = 0.0
@@ -191,17 +192,19 @@ class Runner:
         Print a progress line on stderr.
     stop_after : int, optional
         Stop (as after Ctrl-C, with a checkpoint) once this many generations are done.
+    notices : bool
+        Print notices (stop requested, how to resume) on stderr.
     """
 
     def __init__(self, problem, settings: RunSettings, run_dir: Path, run_id: str, config: dict | None = None,
-                 progress: bool = True, stop_after: int | None = None):
+                 progress: bool = True, stop_after: int | None = None, notices: bool = True):
         self.problem = problem
         self.settings = settings
         self.run_dir = Path(run_dir)
         self.run_id = run_id
         self.config = config or {}
         self.info = describe_problem(problem)
-        self.progress = Progress(settings.generations, run_id, enabled=progress)
+        self.progress = Progress(settings.generations, run_id, enabled=progress, notices=notices)
         self.stop_after = stop_after
         self.width = max(3, len(str(settings.generations)))
         self.algorithm = None
@@ -240,7 +243,8 @@ class Runner:
     # -------------------------------------------------------------- checkpoint
     def _write_checkpoint(self):
         s = self.state
-        blob = pickle.dumps({"format": CHECKPOINT_FORMAT, "algorithm": self.algorithm, "state": s,
+        # cloudpickle (a dask dependency): NSGA-III's operators hold local functions plain pickle refuses
+        blob = cloudpickle.dumps({"format": CHECKPOINT_FORMAT, "algorithm": self.algorithm, "state": s,
                              "problem": self.info.to_dict(), "settings": self.settings.to_dict()},
                             protocol=pickle.HIGHEST_PROTOCOL)
         R.write_bytes(self.run_dir / R.CHECKPOINT, blob)
@@ -270,14 +274,15 @@ class Runner:
         return True
 
     # -------------------------------------------------------------- records
-    def _records(self, gen: int, X: np.ndarray, ev) -> pd.DataFrame:
+    def _records(self, gen: int, X: np.ndarray, ev) -> dict:
+        """Columns (name -> ndarray of shape (n,)) of one generation's evaluations."""
         n = X.shape[0]
         cols: dict[str, Any] = {
-            "candidate_id": [f"g{gen:0{self.width}d}-{i:04d}" for i in range(n)],
+            "candidate_id": np.array([f"g{gen:0{self.width}d}-{i:04d}" for i in range(n)], dtype=object),
             "generation": np.full(n, gen, dtype=np.int64),
             "feasible": np.asarray(ev.feasible, dtype=bool),
             "violation": np.asarray(ev.violation, dtype=float),
-            "reason": [str(r) for r in ev.reason],
+            "reason": np.array([str(r) for r in ev.reason], dtype=object),
         }
         for j, v in enumerate(self.info.variables):
             cols[f"var.{v}"] = X[:, j].astype(float)
@@ -294,38 +299,37 @@ class Runner:
             elif a.ndim == 2:
                 for k in range(a.shape[1]):
                     cols[f"{name}.{k}"] = a[:, k]
-        return pd.DataFrame(cols)
+        return cols
 
     def _obj_cols(self):
         return [f"obj.{o}" for o in self.info.objectives]
 
-    def _update_archive(self, rec: pd.DataFrame):
+    def _update_archive(self, rec: dict):
         """Keep the non-dominated feasible designs of every generation so far (first of equal designs)."""
         s = self.state
-        new = rec[rec["feasible"].to_numpy()]
-        if len(new) == 0:
+        feas = rec["feasible"]
+        if not feas.any():
             return
+        new = {k: v[feas] for k, v in rec.items()}
         oc, vc = self._obj_cols(), [f"var.{v}" for v in self.info.variables]
-        if s.archive is None or len(s.archive) == 0:
-            F, X, n_old = new[oc].to_numpy(float), new[vc].to_numpy(float), 0
-        else:
-            n_old = len(s.archive)
-            F = np.vstack([s.archive[oc].to_numpy(float), new[oc].to_numpy(float)])
-            X = np.vstack([s.archive[vc].to_numpy(float), new[vc].to_numpy(float)])
-        keep = nondominated_mask(F)
-        idx = np.flatnonzero(keep)
+        both = new if not s.archive else _concat_cols([s.archive, new])
+        n_old = 0 if not s.archive else len(s.archive["candidate_id"])
+        F = np.column_stack([both[c] for c in oc])
+        X = np.column_stack([both[c] for c in vc])
+        idx = np.flatnonzero(nondominated_mask(F))
         _, first = np.unique(X[idx], axis=0, return_index=True)
         idx = np.sort(idx[first])
-        old_idx, new_idx = idx[idx < n_old], idx[idx >= n_old] - n_old
-        if len(new_idx) == 0 and len(old_idx) == n_old:
+        if n_old and len(idx) == n_old and idx[-1] == n_old - 1:
             return
-        parts = ([s.archive.iloc[old_idx]] if n_old else []) + [new.iloc[new_idx]]
-        s.archive = pd.concat(parts, ignore_index=True) if len(parts) > 1 else parts[0].reset_index(drop=True)
+        s.archive = {k: v[idx] for k, v in both.items()}
+
+    def _front_size(self) -> int:
+        return 0 if not self.state.archive else int(len(self.state.archive["candidate_id"]))
 
     # -------------------------------------------------------------- files
     def _write_front_and_generations(self):
         meta = self._meta()
-        front = self.state.archive if self.state.archive is not None else self._empty_records()
+        front = pd.DataFrame(self.state.archive) if self.state.archive else self._empty_records()
         R.write_parquet(self.run_dir / R.FRONT, front, self.units, meta)
         gens = pd.DataFrame(self.state.generations, columns=list(R.GENERATION_UNITS))
         R.write_parquet(self.run_dir / R.GENERATIONS, gens, R.GENERATION_UNITS, meta)
@@ -342,7 +346,7 @@ class Runner:
         s = self.state
         if not s.pending:
             return
-        df = pd.concat(s.pending, ignore_index=True)
+        df = pd.DataFrame(_concat_cols(s.pending))
         name = f"evaluations-g{s.part_start:06d}-g{s.generation:06d}.parquet"
         R.write_parquet(self.run_dir / R.PARTS_DIR / name, df, self.units, self._meta())
         s.pending = []
@@ -351,7 +355,9 @@ class Runner:
     def _write_evaluations(self):
         parts = sorted((self.run_dir / R.PARTS_DIR).glob("evaluations-*.parquet")) \
             if (self.run_dir / R.PARTS_DIR).is_dir() else []
-        frames = [R.read_parquet(p)[0] for p in parts] + list(self.state.pending)
+        frames = [R.read_parquet(p)[0] for p in parts]
+        if self.state.pending:
+            frames.append(pd.DataFrame(_concat_cols(self.state.pending)))
         df = pd.concat(frames, ignore_index=True) if frames else self._empty_records()
         R.write_parquet(self.run_dir / R.EVALUATIONS, df, self.units, self._meta())
 
@@ -378,7 +384,7 @@ class Runner:
                         "elapsed_s": s.elapsed_s, "evaluation_s": s.evaluation_s, "outside_evaluation_s": outside,
                         "outside_evaluation_share": outside / s.elapsed_s if s.elapsed_s > 0 else None,
                         "generations_done": s.generation, "evaluations": s.n_evals},
-            "front_size": 0 if s.archive is None else int(len(s.archive)),
+            "front_size": self._front_size(),
             "caution": R.CAUTION,
         }
         if error:
@@ -437,19 +443,19 @@ class Runner:
                     rec = self._records(s.generation, X, ev)
                     s.pending.append(rec)
                     self._update_archive(rec)
-                    feas = rec["feasible"].to_numpy()
+                    feas = rec["feasible"]
                     if s.normaliser is None and feas.any():
                         s.normaliser = Normaliser.from_points(F[feas])
                     hv = float("nan")
-                    if s.normaliser is not None and s.archive is not None and len(s.archive):
-                        hv = hypervolume(s.normaliser(s.archive[self._obj_cols()].to_numpy(float)),
-                                         np.full(p.n_obj, HV_REFERENCE))
+                    if s.normaliser is not None and s.archive:
+                        hv = hypervolume(s.normaliser(np.column_stack([s.archive[c] for c in self._obj_cols()])),
+                                         np.full(p.n_obj, HV_REFERENCE), nondominated=True)
                     now = time.perf_counter()
                     s.elapsed_s = base_elapsed + (now - session_t0)
                     s.evaluation_s += eval_dt
                     s.generations.append({
                         "generation": s.generation, "evaluations": s.n_evals, "feasible": int(feas.sum()),
-                        "feasible_share": float(feas.mean()), "front_size": 0 if s.archive is None else len(s.archive),
+                        "feasible_share": float(feas.mean()), "front_size": self._front_size(),
                         "hypervolume": hv, "elapsed_s": s.elapsed_s, "generation_s": now - t0,
                         "evaluation_s": eval_dt})
                     session_gens += 1
@@ -479,8 +485,22 @@ class Runner:
         if status == "interrupted":
             self.progress.message(f"stopped at generation {s.generation}; continue with: "
                                   f"tiltopt run --resume {self.run_dir}")
-        return RunOutcome(self.run_dir, self.run_id, status, s.generation,
-                          0 if s.archive is None else int(len(s.archive)), s.elapsed_s)
+        return RunOutcome(self.run_dir, self.run_id, status, s.generation, self._front_size(), s.elapsed_s)
+
+
+def _concat_cols(blocks: list) -> dict:
+    """Concatenate column dicts (a column missing from a block is NaN there)."""
+    keys: dict[str, None] = {}
+    for b in blocks:
+        keys.update(dict.fromkeys(b))
+    out = {}
+    for k in keys:
+        parts = []
+        for b in blocks:
+            n = len(next(iter(b.values())))
+            parts.append(b[k] if k in b else np.full(n, np.nan))
+        out[k] = np.concatenate(parts)
+    return out
 
 
 # ------------------------------------------------------------------ entry points
