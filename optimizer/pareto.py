@@ -33,6 +33,31 @@ def nondominated_mask(F) -> np.ndarray:
     return keep
 
 
+def dominated_by(P, Q) -> np.ndarray:
+    """Which rows of ``P`` some row of ``Q`` dominates.
+
+    Parameters
+    ----------
+    P : ndarray of shape (n, n_obj)
+    Q : ndarray of shape (k, n_obj)
+
+    Returns
+    -------
+    mask : ndarray of shape (n,), bool
+    """
+    P = np.asarray(P, dtype=float)
+    Q = np.asarray(Q, dtype=float)
+    out = np.zeros(P.shape[0], dtype=bool)
+    if P.shape[0] == 0 or Q.shape[0] == 0:
+        return out
+    for s in range(0, P.shape[0], _CHUNK):
+        B = P[s:s + _CHUNK]
+        le = (Q[:, None, :] <= B[None, :, :]).all(axis=2)
+        lt = (Q[:, None, :] < B[None, :, :]).any(axis=2)
+        out[s:s + _CHUNK] = (le & lt).any(axis=0)
+    return out
+
+
 class Normaliser:
     """Fixed affine map of objectives to [0, 1] from a reference set of rows.
 

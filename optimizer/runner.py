@@ -36,7 +36,7 @@ from kinematics.errors import InputError
 
 from . import results as R
 from .config import RunConfig, RunSettings, parse_config
-from .pareto import HV_REFERENCE, Normaliser, hypervolume, nondominated_mask
+from .pareto import HV_REFERENCE, Normaliser, dominated_by, hypervolume, nondominated_mask
 from .progress import Progress
 
 CHECKPOINT_FORMAT = "tiltopt-checkpoint-1"
@@ -305,23 +305,39 @@ class Runner:
         return [f"obj.{o}" for o in self.info.objectives]
 
     def _update_archive(self, rec: dict):
-        """Keep the non-dominated feasible designs of every generation so far (first of equal designs)."""
+        """Keep the non-dominated feasible designs of every generation so far (first of equal designs).
+
+        Incremental: the new designs are compared with each other and with the archive, never the
+        archive with itself, so a generation costs O(archive x population).
+        """
         s = self.state
         feas = rec["feasible"]
         if not feas.any():
             return
-        new = {k: v[feas] for k, v in rec.items()}
         oc, vc = self._obj_cols(), [f"var.{v}" for v in self.info.variables]
-        both = new if not s.archive else _concat_cols([s.archive, new])
-        n_old = 0 if not s.archive else len(s.archive["candidate_id"])
-        F = np.column_stack([both[c] for c in oc])
-        X = np.column_stack([both[c] for c in vc])
-        idx = np.flatnonzero(nondominated_mask(F))
-        _, first = np.unique(X[idx], axis=0, return_index=True)
-        idx = np.sort(idx[first])
-        if n_old and len(idx) == n_old and idx[-1] == n_old - 1:
+        new = {k: v[feas] for k, v in rec.items()}
+        Fn = np.column_stack([new[c] for c in oc])
+        Xn = np.column_stack([new[c] for c in vc])
+        keep = nondominated_mask(Fn)
+        _, first = np.unique(Xn, axis=0, return_index=True)     # equal designs in one generation: the first
+        uniq = np.zeros(len(Fn), dtype=bool)
+        uniq[first] = True
+        keep &= uniq
+        if not s.archive:
+            s.archive = {k: v[keep] for k, v in new.items()}
             return
-        s.archive = {k: v[idx] for k, v in both.items()}
+        Fa = np.column_stack([s.archive[c] for c in oc])
+        Xa = np.column_stack([s.archive[c] for c in vc])
+        idx_new = np.flatnonzero(keep)
+        idx_new = idx_new[~dominated_by(Fn[idx_new], Fa)]
+        if len(idx_new):   # a design already in the archive stays there once
+            same = (Xn[idx_new][:, None, :] == Xa[None, :, :]).all(axis=2).any(axis=1)
+            idx_new = idx_new[~same]
+        if len(idx_new) == 0:
+            return
+        keep_old = ~dominated_by(Fa, Fn[idx_new])
+        s.archive = _concat_cols([{k: v[keep_old] for k, v in s.archive.items()},
+                                  {k: v[idx_new] for k, v in new.items()}])
 
     def _front_size(self) -> int:
         return 0 if not self.state.archive else int(len(self.state.archive["candidate_id"]))
