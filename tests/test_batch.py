@@ -182,3 +182,19 @@ lean_step_deg = 15.0
     t = start_run(load_config(tmp_path / "t.toml"), progress=False)
     with pytest.raises(InputError, match="same objectives"):
         merge_fronts([dirs[0], t.run_dir], tmp_path / "m2")
+
+
+def test_cli_batch_and_merge(tmp_path):
+    from click.testing import CliRunner
+
+    from tiltopt.cli import main
+
+    b = _write(tmp_path)
+    r = CliRunner().invoke(main, ["batch", str(tmp_path / "batch.toml"), "--workers", "2"])
+    assert r.exit_code == 0, r.output
+    assert "status: finished 2" in r.output and str(b.batch_dir / "summary.parquet") in r.output
+    dirs = [it.run_dir for it in b.items]
+    r = CliRunner().invoke(main, ["merge", *dirs, "-o", str(tmp_path / "m")])
+    assert r.exit_code == 0 and "non-dominated designs" in r.output and "Caution" in r.output
+    r = CliRunner().invoke(main, ["merge", dirs[0], str(tmp_path / "nothing"), "-o", str(tmp_path / "m3")])
+    assert r.exit_code == 2 and "does not exist" in r.output
