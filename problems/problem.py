@@ -34,7 +34,7 @@ from typing import Callable
 import numpy as np
 from pymoo.core.problem import Problem
 
-from kinematics.solver import STATUS_TEXT
+from kinematics.solver import SKIPPED, STATUS_TEXT
 from kinematics.sweep import SweepSettings, sweep
 
 from .registry import CONSTRAINTS, OBJECTIVES
@@ -77,7 +77,9 @@ class Evaluation:
         "" where feasible, else why not.
     metrics : dict of str -> ndarray of shape (n,)
         Names end in their unit (see :data:`METRIC_UNITS`); NaN where unknown
-        (a failed design's figures are never reported as numbers).
+        (a failed design's figures are never reported as numbers) or where
+        there is nothing to measure (``min_wheel_link_mm`` of a linkage
+        without links).
     """
 
     X: np.ndarray
@@ -224,7 +226,9 @@ class TiltProblem(Problem):
                 metrics["motion_ratio"][idx] = np.where(ok, np.mean(sr.motion_ratio[:, t0], axis=-1), np.nan)
             # first failed state of each non-converged candidate
             for j in np.flatnonzero(~ok):
-                t, l = np.argwhere(~conv[j])[0]
+                bad_tl = np.argwhere(~conv[j])
+                tried = bad_tl[sr.status[j][~conv[j]] != SKIPPED]   # prefer a state that was tried
+                t, l = (tried if len(tried) else bad_tl)[0]
                 k = int((~conv[j]).sum())
                 reasons[idx[j]].append(
                     f"not converged: {k} of {conv[j].size} envelope states failed (first: lean "
@@ -235,8 +239,9 @@ class TiltProblem(Problem):
                 from kinematics.shell import shell_signed_distance
                 summ = evaluate_clearance(model, g, sr, spec.shell).summary()
                 for k in CLEARANCE_KEYS:
-                    if k in summ:
-                        metrics[k][idx] = np.where(ok, np.asarray(summ[k], float), np.nan)
+                    if k in summ:   # +-inf (nothing to measure, e.g. no links) is reported as NaN
+                        v = np.asarray(summ[k], float)
+                        metrics[k][idx] = np.where(ok & np.isfinite(v), v, np.nan)
                 shell_w = metrics["max_overall_width_mm"][idx]
                 metrics["overall_width_mm"][idx] = np.where(np.isfinite(shell_w), np.fmax(tw, shell_w), np.nan)
                 if len(self._chassis_joints):

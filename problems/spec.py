@@ -25,6 +25,8 @@ Tables (TOML, our own format; lengths mm, angles degrees)::
     lean_limit_deg = 30.0           # default: [vehicle] lean_limit_deg, else 30
     lean_step_deg = 5.0             # leans 0, step, ..., limit (limit always included)
     travel_mm = [-30.0, 0.0, 30.0]  # default: this for templates with springs, [0.0] for rigid ones
+    both_sides = false              # true: also lean to -limit (a template is symmetric, so the left
+                                    # side mirrors the right; set it for an asymmetric shell)
     [envelope.steer]                # optional: replaces the mechanism's [steer_envelope]
     lean_deg = [0.0, 20.0]
     max_steer_deg = [30.0, 10.0]
@@ -232,7 +234,10 @@ def _parse_template(t: Any, src: str, base_dir: Path) -> Template:
 
 def _parse_envelope(e: Any, src: str, template: Template, default_limit: float) -> Envelope:
     e = {} if e is None else e
-    _keys(e, {"lean_limit_deg", "lean_step_deg", "travel_mm", "steer"}, src, "envelope")
+    _keys(e, {"lean_limit_deg", "lean_step_deg", "travel_mm", "steer", "both_sides"}, src, "envelope")
+    both = e.get("both_sides", False)
+    if not isinstance(both, bool):
+        raise InputError(f"expected true or false. Got {both!r} instead.", src, "envelope.both_sides")
     limit = _num(e.get("lean_limit_deg", default_limit), src, "envelope.lean_limit_deg", lo=0.0, lo_open=True,
                  hi=60.0)
     step = _num(e.get("lean_step_deg", DEFAULT_LEAN_STEP_DEG), src, "envelope.lean_step_deg", lo=0.0, lo_open=True)
@@ -266,7 +271,10 @@ def _parse_envelope(e: Any, src: str, template: Template, default_limit: float) 
         if any(b <= a for a, b in zip(ld, ld[1:])):
             raise InputError(f"lean_deg rows must be strictly ascending. Got {ld}.", src, "envelope.steer.lean_deg")
         steer = tuple(zip(ld, ms))
-    return Envelope(limit, step, lean_grid(limit, step), travel, steer)
+    leans = lean_grid(limit, step)
+    if both:
+        leans = np.concatenate([-leans[:0:-1], leans])
+    return Envelope(limit, step, leans, travel, steer)
 
 
 def _parse_constraints(c: Any, src: str, has_shell: bool, has_loads: bool) -> Limits:

@@ -13,8 +13,11 @@ Rules (the same for the built-in templates and for
 
 - A point variable names one or more points and an axis (``y`` or ``z``).
   Its value is the coordinate of the first named point (mm, global frame,
-  design position); changing it by ``d`` moves every named point by
-  ``factor * d`` along the axis (factor 1 unless given).
+  design position), unless its definition gives a ``default``: then the
+  value is a quantity of its own whose base-mechanism value is that default
+  (``wheel_offset = 50`` : the hub 50 mm outboard of the pivots). Changing
+  the value by ``d`` moves every named point by ``factor * d`` along the
+  axis (factor 1 unless given).
 - Symmetric by construction: each moved point's mirror partner (the point
   whose name swaps ``left``/``right``, at ``(-y, z)``) moves by the mirrored
   amount (``-d`` in y, ``+d`` in z). A point on the centre plane (its own
@@ -426,7 +429,7 @@ class Template:
                                  f"Variables: {', '.join(known)}.", src, f"template.fixed.{name}")
             if isinstance(val, bool) or not isinstance(val, (int, float)) or not math.isfinite(val):
                 raise InputError(f"expected a finite number. Got {val!r} instead.", src, f"template.fixed.{name}")
-        active = list(known if active is None else active)
+        active = [n for n in known if n not in fixed] if active is None else list(active)
         for name in active:
             if name not in known:
                 raise InputError(f"unknown design variable '{name}' of template '{self.name}'. "
@@ -482,8 +485,8 @@ def template_from_mechanism(mech: Mechanism, variables: Sequence[Mapping | Desig
     variables : sequence of dict or DesignVariable
         Each dict: ``name``, ``points`` (list of ``"body.point"``), ``axis``
         (``"y"`` or ``"z"``), ``lower``, ``upper``; optional ``factors`` (one
-        per point, default 1), ``default`` (default: the first point's
-        coordinate), ``unit`` (default ``"mm"``), ``description``. Or
+        per point, default 1), ``default`` (the variable's value in the
+        base mechanism; default: the first point's coordinate), ``unit`` (default ``"mm"``), ``description``. Or
         ``kind = "outer_radius"`` (a wheel size variable; no points, default
         the tyre outer radius). Pin partners and mirror partners follow (see
         module docs).
@@ -562,108 +565,76 @@ def template_from_mechanism(mech: Mechanism, variables: Sequence[Mapping | Desig
 
 
 # ---------------------------------------------------------------- built-ins
-def _mv(axis: str, *refs: str, factor: float = 1.0) -> tuple[Move, ...]:
-    return tuple(Move(r, axis, factor) for r in refs)
-
-
-WHEEL_RADIUS = DesignVariable(
-    "wheel_radius", "mm", 150.0, 350.0, 250.0,
-    "tyre outer radius R of both wheels (hub heights follow); held at the mechanism's value unless listed",
-    OUTER_RADIUS)
-
-
-def _twin_beam_variables(sprung: bool) -> list[DesignVariable]:
-    lower_z = 240.0 if sprung else 220.0
-    upright = ("upright_right.guide_top", "upright_right.guide_bottom", "upright_right.spring_cap") if sprung else ()
-    leg = ("leg_right.runner", "leg_right.seat", "leg_right.hub") if sprung else ("upright_right.hub",)
-    hub = "leg_right.hub" if sprung else "upright_right.hub"
-    upper = ("chassis.upper_pivot", "upper_beam.right_end")
-    lower = ("chassis.lower_pivot", "lower_beam.right_end")
-    return [
-        DesignVariable(
-            "outer_pivot_y", "mm", 200.0, 420.0, 300.0,
-            "y of the outer beam pivots (beam half-length); the upright"
-            + (", its guide and the leg follow" if sprung else " and the hub follow"),
-            POINT, _mv("y", "upper_beam.right_end", "lower_beam.right_end", *upright, *leg)),
-        DesignVariable(
-            "wheel_offset", "mm", -60.0, 120.0, 50.0,
-            "hub y minus outer pivot y (stub axle length, + outboard); 0 puts the pivots on the wheel plane",
-            POINT, _mv("y", hub)),
-        DesignVariable(
-            "lower_pivot_z", "mm", 120.0 if sprung else 100.0, 340.0 if sprung else 320.0, lower_z,
-            "height of the lower beam (chassis pivot and outer pivots); the upper beam keeps its spacing",
-            POINT, _mv("z", *lower, *upper)),
-        DesignVariable(
-            "beam_spacing", "mm", 100.0, 400.0, 200.0,
-            "height of the upper beam above the lower beam (parallelogram side length)",
-            POINT, _mv("z", *upper)),
-        WHEEL_RADIUS,
-    ]
-
-
-def _wishbone_variables() -> list[DesignVariable]:
-    V = DesignVariable
-    return [
-        V("upper_inner_y", "mm", 20.0, 160.0, 60.0, "y of the upper wishbone's chassis pivot", POINT,
-          _mv("y", "chassis.upper_right_pivot")),
-        V("upper_inner_z", "mm", 330.0, 520.0, 420.0, "z of the upper wishbone's chassis pivot", POINT,
-          _mv("z", "chassis.upper_right_pivot")),
-        V("lower_inner_y", "mm", 20.0, 160.0, 50.0, "y of the lower wishbone's chassis pivot", POINT,
-          _mv("y", "chassis.lower_right_pivot")),
-        V("lower_inner_z", "mm", 120.0, 300.0, 200.0, "z of the lower wishbone's chassis pivot", POINT,
-          _mv("z", "chassis.lower_right_pivot")),
-        V("upper_outer_y", "mm", 220.0, 400.0, 300.0, "y of the upper ball joint (upright top)", POINT,
-          _mv("y", "upper_arm_right.outer")),
-        V("upper_outer_z", "mm", 330.0, 520.0, 410.0, "z of the upper ball joint", POINT,
-          _mv("z", "upper_arm_right.outer")),
-        V("lower_outer_y", "mm", 220.0, 400.0, 310.0, "y of the lower ball joint (upright bottom)", POINT,
-          _mv("y", "lower_arm_right.outer")),
-        V("lower_outer_z", "mm", 90.0, 260.0, 170.0, "z of the lower ball joint", POINT,
-          _mv("z", "lower_arm_right.outer")),
-        V("hub_y", "mm", 260.0, 450.0, 350.0, "y of the wheel centre (half the design track)", POINT,
-          _mv("y", "upright_right.hub")),
-        V("rocker_half_length", "mm", 60.0, 260.0, 150.0, "y of the rocker ends (rocker size)", POINT,
-          _mv("y", "rocker.right_end")),
-        V("rocker_pivot_z", "mm", 460.0, 700.0, 560.0, "height of the rocker pivot (the rocker moves with it)",
-          POINT, _mv("z", "chassis.rocker_pivot", "rocker.right_end")),
-        V("spring_mount_y", "mm", 100.0, 300.0, 206.0, "y of the spring mount on the lower wishbone (a bracket)",
-          POINT, _mv("y", "lower_arm_right.spring_mount")),
-        V("spring_mount_z", "mm", 140.0, 260.0, 194.0, "z of the spring mount on the lower wishbone", POINT,
-          _mv("z", "lower_arm_right.spring_mount")),
-        WHEEL_RADIUS,
-    ]
+BUILTIN_NAMES = ("twin_beam", "twin_beam_sprung", "wishbone_rocker")
+_ENTRY_KEYS = {"template", "mechanism", "description", "default_active", "variables"}
 
 
 @dataclass(frozen=True)
 class TemplateEntry:
-    """A built-in template: its mechanism file, variables and the ones active by default."""
+    """A built-in template: its variable file (``configs/<name>_template.toml``), mechanism file,
+    variable definitions (the dict form of :func:`template_from_mechanism`) and default active set."""
 
     name: str
-    mechanism_file: str
+    path: Path
+    mechanism_file: Path
     description: str
-    variables: Callable[[], list[DesignVariable]]
+    variables: tuple
     default_active: tuple[str, ...]
 
 
-TEMPLATES: dict[str, TemplateEntry] = {
-    "twin_beam": TemplateEntry(
-        "twin_beam", "twin_beam.toml",
-        "rigid twin-beam parallelogram (no suspension): beam half-length, stub axle, beam heights",
-        lambda: _twin_beam_variables(False),
-        ("outer_pivot_y", "wheel_offset", "lower_pivot_z", "beam_spacing")),
-    "twin_beam_sprung": TemplateEntry(
-        "twin_beam_sprung", "twin_beam_sprung.toml",
-        "twin-beam parallelogram with telescopic sprung legs: beam half-length, stub axle, beam heights",
-        lambda: _twin_beam_variables(True),
-        ("outer_pivot_y", "wheel_offset", "lower_pivot_z", "beam_spacing")),
-    "wishbone_rocker": TemplateEntry(
-        "wishbone_rocker", "wishbone_rocker.toml",
-        "double wishbones with a tilt rocker and springs: pivot positions, ball joints, hub, rocker, spring mounts",
-        _wishbone_variables,
-        ("upper_inner_y", "upper_inner_z", "lower_inner_y", "lower_inner_z", "upper_outer_y", "upper_outer_z",
-         "lower_outer_y", "lower_outer_z", "hub_y", "rocker_half_length", "rocker_pivot_z", "spring_mount_y",
-         "spring_mount_z")),
-}
+def load_template_entry(path: str | Path) -> TemplateEntry:
+    """Read a template variable file (see ``configs/twin_beam_template.toml``).
+
+    Keys: ``template`` (name), ``mechanism`` (file, relative to this one), ``description``,
+    ``default_active`` (list of names, optional: all), ``[[variables]]`` (as
+    :func:`template_from_mechanism`).
+    """
+    path = Path(path)
+    src = str(path)
+    try:
+        data = tomllib.loads(path.read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        raise InputError("file not found. Give the path of a template variable file.", src) from None
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML ({exc}).", src) from None
+    for k in data:
+        if k not in _ENTRY_KEYS:
+            raise InputError(f"unknown key '{k}'. Expected one of: {', '.join(sorted(_ENTRY_KEYS))}.", src, k)
+    for k in ("template", "mechanism", "variables"):
+        if k not in data:
+            raise InputError("this key is required but missing.", src, k)
+    variables = data["variables"]
+    if not isinstance(variables, list) or not all(isinstance(v, dict) for v in variables):
+        raise InputError("expected [[variables]] tables.", src, "variables")
+    names = [v.get("name") for v in variables]
+    active = data.get("default_active", names)
+    if not isinstance(active, list) or any(a not in names for a in active):
+        raise InputError(f"default_active must list variable names ({', '.join(map(str, names))}).", src,
+                         "default_active")
+    return TemplateEntry(str(data["template"]), path, path.parent / str(data["mechanism"]),
+                         str(data.get("description", "")), tuple(variables), tuple(active))
+
+
+def _builtin_entries() -> dict[str, TemplateEntry]:
+    out = {}
+    for name in BUILTIN_NAMES:
+        e = load_template_entry(CONFIGS / f"{name}_template.toml")
+        if e.name != name:
+            raise InputError(f"expected template = {name!r}. Got {e.name!r}.", str(e.path), "template")
+        out[name] = e
+    return out
+
+
+#: the built-in templates, from configs/<name>_template.toml
+TEMPLATES: dict[str, TemplateEntry] = _builtin_entries()
+
+
+def template_from_entry(e: TemplateEntry) -> Template:
+    """The full template (every variable) of a template variable file."""
+    mech = load_mechanism(e.mechanism_file)
+    t = template_from_mechanism(mech, list(e.variables), name=e.name, src=str(e.path), key="variables")
+    t.description = e.description or t.description
+    return t
 
 
 def get_template(name: str, bounds: Mapping[str, Sequence[float]] | None = None,
@@ -677,16 +648,17 @@ def get_template(name: str, bounds: Mapping[str, Sequence[float]] | None = None,
     bounds : dict of str -> (lower, upper), optional
         Bound overrides.
     variables : list of str, optional
-        The active variables (default: the template's default set; every
-        variable but ``wheel_radius``).
+        The active variables (default: the template's default set, every
+        variable but ``wheel_radius``, less those in ``fixed``).
     fixed : dict of str -> float, optional
         Values for held variables (default: their defaults).
     """
     if name not in TEMPLATES:
         raise InputError(f"unknown template {name!r}. Templates: {', '.join(TEMPLATES)}.", src, "template.name")
     e = TEMPLATES[name]
-    mech = load_mechanism(CONFIGS / e.mechanism_file)
-    full = Template(name, mech, e.variables(), e.description, str(CONFIGS / e.mechanism_file))
+    full = template_from_entry(e)
     # bounds first (they may name held variables too), then the subset
     t = full.with_bounds(bounds, src)
-    return t.subset(list(e.default_active) if variables is None else list(variables), fixed, src)
+    if variables is None:   # the default set, less any variable the caller holds
+        variables = [v for v in e.default_active if v not in (fixed or {})]
+    return t.subset(list(variables), fixed, src)

@@ -33,6 +33,13 @@ def test_envelope_defaults():
     np.testing.assert_array_equal(s.envelope.travel_mm, [-30.0, 0.0, 30.0])  # sprung template
     assert s.constraints == ("converged",)
     np.testing.assert_array_equal(lean_grid(32.0, 5.0), [0, 5, 10, 15, 20, 25, 30, 32])
+    s = parse_problem(_cfg(envelope={"lean_limit_deg": 20.0, "lean_step_deg": 10.0, "both_sides": True}), "c")
+    np.testing.assert_array_equal(s.envelope.lean_deg, [-20, -10, 0, 10, 20])
+    # mirror symmetry (exact): a symmetric design's worst scrub over both sides equals one side's
+    ev2 = TiltProblem(s).evaluate_designs(np.array([[300.0, 50.0, 220.0, 200.0]]))
+    s1 = parse_problem(_cfg(envelope={"lean_limit_deg": 20.0, "lean_step_deg": 10.0}), "c")
+    ev1 = TiltProblem(s1).evaluate_designs(np.array([[300.0, 50.0, 220.0, 200.0]]))
+    np.testing.assert_allclose(ev2.F, ev1.F, rtol=1e-9)
 
 
 @pytest.mark.parametrize("data,key", [
@@ -76,6 +83,18 @@ def test_template_from_mechanism_in_config(tmp_path):
         "objectives": ["max_scrub"]}
     s = parse_problem(data, str(tmp_path / "run.toml"), tmp_path)
     assert s.template.names == ["hub_y"] and s.template.xl.tolist() == [280.0]
+    data["template"]["variables"].append({"name": "pivot_y", "points": ["upper_beam.right_end"], "axis": "y",
+                                          "lower": 250.0, "upper": 350.0})
+    data["template"]["fixed"] = {"hub_y": 330.0}
+    s = parse_problem(data, str(tmp_path / "run.toml"), tmp_path)
+    assert s.template.names == ["pivot_y"]
+    assert s.template.mechanism.point("upright_left.hub") == (-330.0, 250.0)   # held value, mirrored
+
+
+def test_fixing_a_default_variable_removes_it_from_the_search():
+    s = parse_problem(_cfg(template={"name": "twin_beam", "fixed": {"wheel_offset": 0.0}}), "c.toml")
+    assert s.template.names == ["outer_pivot_y", "lower_pivot_z", "beam_spacing"]
+    assert s.template.mechanism.point("upright_right.hub") == (300.0, 250.0)
 
 
 # ------------------------------------------------------------------ closed form

@@ -180,3 +180,20 @@ def test_check_geometry_flags_broken_slider():
     ok, why = t.check_geometry(t.geometry(np.array([[300.0], [310.0]])))
     assert ok.tolist() == [True, False]
     assert why[0] == "" and "slider leg_right_guide" in why[1] and "10.00 mm off" in why[1]
+
+
+def test_builtin_defaults_describe_the_base_mechanisms():
+    # The variable files' defaults must be the base mechanisms' own figures (read off the files).
+    for name in ("twin_beam", "twin_beam_sprung"):
+        m = load_mechanism(CONFIGS / f"{name}.toml")
+        t = get_template(name)
+        d = dict(zip(t.names, t.defaults))
+        hub = "leg_right.hub" if name.endswith("sprung") else "upright_right.hub"
+        assert d["outer_pivot_y"] == m.point("upper_beam.right_end")[0]
+        assert d["wheel_offset"] == m.point(hub)[0] - m.point("upper_beam.right_end")[0]
+        assert d["lower_pivot_z"] == m.point("chassis.lower_pivot")[1]
+        assert d["beam_spacing"] == m.point("chassis.upper_pivot")[1] - m.point("chassis.lower_pivot")[1]
+    t = get_template("wishbone_rocker")
+    for v in t.variables:
+        ax = 0 if v.moves[0].axis == "y" else 1
+        assert v.default == t.mechanism.point(v.moves[0].ref)[ax], v.name
