@@ -99,6 +99,29 @@ def _largest_partitions(n_obj: int, population: int) -> int:
     return p
 
 
+def cv_then_random(pop, P, random_state=None, **kwargs):
+    """Binary tournament for NSGA-III: smaller constraint violation wins, ties by the algorithm's generator.
+
+    pymoo 0.6.2's own NSGA-III tournament breaks ties of equal, positive
+    violation with an unseeded generator, so the same seed could give
+    different fronts; this one draws every tie from ``random_state``.
+
+    Parameters
+    ----------
+    P : ndarray of shape (n_tournaments, 2)
+        Indices into ``pop``.
+
+    Returns
+    -------
+    S : ndarray of shape (n_tournaments, 1)
+    """
+    cv = np.asarray(pop.get("CV"), dtype=float).reshape(len(pop), -1)[:, 0]
+    a, b = P[:, 0], P[:, 1]
+    coin = random_state.random(len(P)) < 0.5
+    S = np.where(cv[a] < cv[b], a, np.where(cv[b] < cv[a], b, np.where(coin, a, b)))
+    return S[:, None].astype(int)
+
+
 def make_algorithm(settings: RunSettings, n_obj: int):
     """The pymoo algorithm of a run: NSGA-II, or NSGA-III with Das-Dennis reference directions."""
     if settings.algorithm == "nsga2":
@@ -110,7 +133,10 @@ def make_algorithm(settings: RunSettings, n_obj: int):
 
     parts = settings.nsga3_partitions or _largest_partitions(n_obj, settings.population)
     ref_dirs = get_reference_directions("das-dennis", n_obj, n_partitions=parts)
-    return NSGA3(pop_size=settings.population, ref_dirs=ref_dirs, eliminate_duplicates=True)
+    from pymoo.operators.selection.tournament import TournamentSelection
+
+    return NSGA3(pop_size=settings.population, ref_dirs=ref_dirs, eliminate_duplicates=True,
+                 selection=TournamentSelection(func_comp=cv_then_random))
 
 
 @dataclass
