@@ -6,6 +6,18 @@ import numpy as np
 _CHUNK = 256
 
 
+def _dominates_any(Q: np.ndarray, B: np.ndarray) -> np.ndarray:
+    """For each row of B, whether some row of Q dominates it; Q (k, m), B (b, m)."""
+    le = Q[:, None, 0] <= B[None, :, 0]                       # (k, b), narrowed one objective at a time
+    for j in range(1, Q.shape[1]):
+        le &= Q[:, None, j] <= B[None, :, j]
+    qi, bi = np.nonzero(le)                                   # few pairs: check strictness only there
+    strict = (Q[qi] < B[bi]).any(axis=1)
+    out = np.zeros(B.shape[0], dtype=bool)
+    out[bi[strict]] = True
+    return out
+
+
 def nondominated_mask(F) -> np.ndarray:
     """Rows of ``F`` that no other row dominates.
 
@@ -23,13 +35,8 @@ def nondominated_mask(F) -> np.ndarray:
     F = np.asarray(F, dtype=float)
     n = F.shape[0]
     keep = np.ones(n, dtype=bool)
-    if n == 0:
-        return keep
     for s in range(0, n, _CHUNK):
-        B = F[s:s + _CHUNK]                                    # (b, m) candidates to test
-        le = (F[:, None, :] <= B[None, :, :]).all(axis=2)      # (n, b): row i <= row j everywhere
-        lt = (F[:, None, :] < B[None, :, :]).any(axis=2)       # (n, b): and better somewhere
-        keep[s:s + _CHUNK] = ~(le & lt).any(axis=0)
+        keep[s:s + _CHUNK] = ~_dominates_any(F, F[s:s + _CHUNK])
     return keep
 
 
@@ -51,10 +58,7 @@ def dominated_by(P, Q) -> np.ndarray:
     if P.shape[0] == 0 or Q.shape[0] == 0:
         return out
     for s in range(0, P.shape[0], _CHUNK):
-        B = P[s:s + _CHUNK]
-        le = (Q[:, None, :] <= B[None, :, :]).all(axis=2)
-        lt = (Q[:, None, :] < B[None, :, :]).any(axis=2)
-        out[s:s + _CHUNK] = (le & lt).any(axis=0)
+        out[s:s + _CHUNK] = _dominates_any(Q, P[s:s + _CHUNK])
     return out
 
 

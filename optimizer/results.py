@@ -47,7 +47,7 @@ CAUTION = ("Caution: these figures are geometric and quasi-static estimates; pro
            "structural sign-off, brakes, tilt locks and road use follow local rules and qualified engineers.")
 
 GENERATION_UNITS = {"generation": "1", "evaluations": "1", "feasible": "1", "feasible_share": "1",
-                    "front_size": "1", "hypervolume": "1 (normalised objectives, reference 1.1 each)",
+                    "front_size": "1", "hypervolume": "1 (population front, normalised objectives, reference 1.1 each)",
                     "elapsed_s": "s", "generation_s": "s", "evaluation_s": "s"}
 BASE_UNITS = {"candidate_id": "", "generation": "1", "feasible": "", "violation": "sum of positive constraint "
               "values (units of each constraint)", "reason": ""}

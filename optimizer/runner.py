@@ -356,14 +356,37 @@ class Runner:
         Xa = np.column_stack([s.archive[c] for c in vc])
         idx_new = np.flatnonzero(keep)
         idx_new = idx_new[~dominated_by(Fn[idx_new], Fa)]
-        if len(idx_new):   # a design already in the archive stays there once
-            same = (Xn[idx_new][:, None, :] == Xa[None, :, :]).all(axis=2).any(axis=1)
-            idx_new = idx_new[~same]
+        if len(idx_new):   # a design already in the archive stays there once (equal X: equal F)
+            cand = np.flatnonzero(np.isin(Fn[idx_new, 0], Fa[:, 0]))
+            if len(cand):
+                rows = idx_new[cand]
+                same = np.array([(Xa[Fa[:, 0] == Fn[r, 0]] == Xn[r]).all(axis=1).any() for r in rows])
+                idx_new = np.setdiff1d(idx_new, rows[same])
         if len(idx_new) == 0:
             return
         keep_old = ~dominated_by(Fa, Fn[idx_new])
         s.archive = _concat_cols([{k: v[keep_old] for k, v in s.archive.items()},
                                   {k: v[idx_new] for k, v in new.items()}])
+
+    def _population_hypervolume(self, F_new, feas_new) -> float:
+        """Hypervolume of the population's non-dominated feasible designs, normalised objectives.
+
+        The bounds are fixed once, from the feasible designs of the first generation that has at
+        least max(n_obj + 1, population / 4) of them (so a lone early design does not set the
+        scale); until then NaN. Later designs better than those bounds give values above
+        1.1 ** n_obj: the figure measures progress within one run, not across runs.
+        """
+        s = self.state
+        if s.normaliser is None:
+            if feas_new.sum() < max(self.problem.n_obj + 1, self.settings.population // 4):
+                return float("nan")
+            s.normaliser = Normaliser.from_points(F_new[feas_new])
+        pop = self.algorithm.pop
+        feas = np.asarray(pop.get("feas"), dtype=bool).reshape(-1)
+        if not feas.any():
+            return 0.0
+        Fp = np.asarray(pop.get("F"), dtype=float)[feas]
+        return hypervolume(s.normaliser(Fp), np.full(self.problem.n_obj, HV_REFERENCE))
 
     def _front_size(self) -> int:
         return 0 if not self.state.archive else int(len(self.state.archive["candidate_id"]))
@@ -419,8 +442,10 @@ class Runner:
             "template": self.info.template,
             "hypervolume": {"normalisation": s.normaliser.to_dict() if s.normaliser else None,
                             "reference": HV_REFERENCE,
-                            "note": "objectives mapped to [0, 1] by the feasible range of the first generation "
-                                    "with a feasible design; reference point 1.1 in each"},
+                            "note": "hypervolume of each generation's population front (non-dominated feasible "
+                                    "designs); objectives mapped to [0, 1] by the feasible range of the first "
+                                    "generation with max(n_obj + 1, population / 4) feasible designs; reference "
+                                    "point 1.1 in each"},
             "versions": self.versions,
             "timings": {"started_utc": s.started_utc, "updated_utc": datetime.now(timezone.utc).isoformat(),
                         "elapsed_s": s.elapsed_s, "evaluation_s": s.evaluation_s, "outside_evaluation_s": outside,
@@ -486,12 +511,7 @@ class Runner:
                     s.pending.append(rec)
                     self._update_archive(rec)
                     feas = rec["feasible"]
-                    if s.normaliser is None and feas.any():
-                        s.normaliser = Normaliser.from_points(F[feas])
-                    hv = float("nan")
-                    if s.normaliser is not None and s.archive:
-                        hv = hypervolume(s.normaliser(np.column_stack([s.archive[c] for c in self._obj_cols()])),
-                                         np.full(p.n_obj, HV_REFERENCE), nondominated=True)
+                    hv = self._population_hypervolume(F, feas)
                     now = time.perf_counter()
                     s.elapsed_s = base_elapsed + (now - session_t0)
                     s.evaluation_s += eval_dt
