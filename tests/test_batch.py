@@ -1,0 +1,200 @@
+"""Batches and merge: grid expansion, local worker processes vs a real Dask LocalCluster (same
+fronts), a killed worker retried from its checkpoint, finished runs kept on restart, the merged front
+against a brute-force numpy dominance filter. Problems: ZDT1 and ZDT2 (Zitzler, Deb and Thiele,
+Evolutionary Computation 8(2), 2000)."""
+from __future__ import annotations
+
+import os
+import signal
+import threading
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pyarrow.parquet as pq
+import pytest
+
+from kinematics.errors import InputError
+from optimizer.batch import load_batch, run_dask, run_local
+from optimizer.merge import merge_fronts
+
+CONFIG = """
+[run]
+name = "z"
+seed = 1
+population = 12
+generations = 8
+output = "unused"
+checkpoint_every = 2
+
+[benchmark]
+name = "zdt1"
+n_var = 6
+"""
+
+
+def _write(tmp_path, out="res", extra=""):
+    tmp_path.mkdir(parents=True, exist_ok=True)
+    (tmp_path / "z.toml").write_text(CONFIG)
+    (tmp_path / "batch.toml").write_text(f"""
+[batch]
+name = "b"
+output = "{out}"
+retries = 2
+
+[[runs]]
+config = "z.toml"
+seeds = [1, 2]
+{extra}
+""")
+    return load_batch(tmp_path / "batch.toml")
+
+
+def _fronts(batch):
+    return {it.run_id: pq.read_table(Path(it.run_dir) / "front.parquet").to_pandas() for it in batch.items}
+
+
+def test_grid_expansion_and_errors(tmp_path):
+    (tmp_path / "z.toml").write_text(CONFIG)
+    (tmp_path / "g.toml").write_text("""
+[batch]
+name = "g"
+[[grid]]
+config = "z.toml"
+seeds = [1, 2, 3]
+set = { "run.generations" = 3 }
+[grid.values]
+"benchmark.n_var" = [4, 8]
+"benchmark.name" = ["zdt1", "zdt2"]
+""")
+    b = load_batch(tmp_path / "g.toml")
+    assert len(b.items) == 2 * 2 * 3 and len({it.run_id for it in b.items}) == 12
+    assert {it.data["run"]["generations"] for it in b.items} == {3}
+    assert {(it.data["benchmark"]["n_var"], it.data["benchmark"]["name"]) for it in b.items} == {
+        (4, "zdt1"), (4, "zdt2"), (8, "zdt1"), (8, "zdt2")}
+    assert "z-n_var4_namezdt2-s3" in {it.run_id for it in b.items}
+    (tmp_path / "bad.toml").write_text('[batch]\nname = "x"\n[[runs]]\nconfig = "z.toml"\nseed = [1]\n')
+    with pytest.raises(InputError) as e:
+        load_batch(tmp_path / "bad.toml")
+    assert e.value.key == "runs[0].seed"
+    (tmp_path / "bad2.toml").write_text('[batch]\nname = "x"\n[[runs]]\nconfig = "z.toml"\n'
+                                        'set = { "run.colour" = 1 }\n')
+    with pytest.raises(InputError) as e:     # every expanded config is validated before anything runs
+        load_batch(tmp_path / "bad2.toml")
+    assert e.value.key == "run.colour"
+
+
+def test_local_and_dask_batches_give_the_same_fronts(tmp_path):
+    from distributed import LocalCluster
+
+    local = _write(tmp_path / "l")
+    df = run_local(local, workers=2)
+    assert list(df["status"]) == ["finished", "finished"]
+    summary = pq.read_table(local.batch_dir / "summary.parquet").to_pandas()
+    fl = _fronts(local)
+    assert list(summary["front_size"]) == [len(fl[r]) for r in summary["run_id"]]
+    remote = _write(tmp_path / "d")
+    # a real scheduler on loopback (tcp), reached by its address as `tiltopt batch --scheduler` does
+    with LocalCluster(n_workers=1, threads_per_worker=2, processes=False, protocol="tcp://", host="127.0.0.1",
+                      dashboard_address=None) as cluster:
+        dd = run_dask(remote, cluster.scheduler_address)
+    assert list(dd["status"]) == ["finished", "finished"]
+    fd = _fronts(remote)
+    assert set(fl) == set(fd)
+    for rid in fl:
+        cols = ["candidate_id", "obj.f1", "obj.f2"]
+        pd.testing.assert_frame_equal(fl[rid][cols], fd[rid][cols])
+    assert not fl["z-s1"]["obj.f1"].equals(fl["z-s2"]["obj.f1"])     # the seeds differ
+    # restart: finished runs are not redone
+    mtimes = {it.run_id: os.stat(Path(it.run_dir) / "front.parquet").st_mtime_ns for it in local.items}
+    msgs = []
+    run_local(local, workers=2, echo=msgs.append)
+    assert all("finished earlier" in m for m in msgs) and len(msgs) == 2
+    assert mtimes == {it.run_id: os.stat(Path(it.run_dir) / "front.parquet").st_mtime_ns for it in local.items}
+
+
+def test_killed_worker_is_retried_and_resumes(tmp_path):
+    (tmp_path / "z.toml").write_text(CONFIG.replace("generations = 8", "generations = 30")
+                                     .replace('n_var = 6', 'n_var = 6\neval_delay_s = 0.03'))
+    (tmp_path / "batch.toml").write_text('[batch]\nname = "k"\noutput = "res"\n[[runs]]\nconfig = "z.toml"\n'
+                                         'seeds = [4]\n')
+    b = load_batch(tmp_path / "batch.toml")
+    run_dir = Path(b.items[0].run_dir)
+    killed = []
+
+    def echo(msg):
+        if "attempt 1, pid" in msg:
+            pid = int(msg.rsplit("pid ", 1)[1].rstrip(")"))
+
+            def kill_later():
+                t0 = time.time()
+                while not (run_dir / "checkpoint.pkl").exists() and time.time() - t0 < 60:
+                    time.sleep(0.02)
+                os.kill(pid, signal.SIGKILL)
+                killed.append(pid)
+
+            threading.Thread(target=kill_later, daemon=True).start()
+
+    df = run_local(b, workers=1, echo=echo)
+    assert killed and df["status"].iloc[0] == "finished" and df["attempts"].iloc[0] == 2
+    # the retried run continued from its checkpoint to the same front as a straight run
+    b2 = load_batch(tmp_path / "batch.toml")
+    b2.batch_dir = tmp_path / "straight"
+    for it in b2.items:
+        it.run_dir = str(b2.batch_dir / it.run_id)
+        it.data["benchmark"]["eval_delay_s"] = 0.0
+    run_local(b2, workers=1)
+    a = pq.read_table(run_dir / "front.parquet").to_pandas()
+    c = pq.read_table(Path(b2.items[0].run_dir) / "front.parquet").to_pandas()
+    pd.testing.assert_frame_equal(a[["candidate_id", "obj.f1", "obj.f2"]], c[["candidate_id", "obj.f1", "obj.f2"]])
+
+
+def test_merge_is_the_nondominated_union(tmp_path):
+    b = _write(tmp_path)
+    run_local(b, workers=2)
+    dirs = [it.run_dir for it in b.items]
+    out, merged = merge_fronts(dirs, tmp_path / "merged")
+    union = pd.concat([pq.read_table(Path(d) / "front.parquet").to_pandas() for d in dirs], ignore_index=True)
+    F = union[["obj.f1", "obj.f2"]].to_numpy()
+    # brute force: keep a point unless another is <= everywhere and < somewhere
+    keep = [not np.any(np.all(F <= f, axis=1) & np.any(F < f, axis=1)) for f in F]
+    assert sorted(map(tuple, F[keep])) == sorted(map(tuple, merged[["obj.f1", "obj.f2"]].to_numpy()))
+    assert set(merged["source_run"]) <= {"z-s1", "z-s2"} and merged["candidate_id"].is_unique
+    assert (out / "front.parquet").is_file() and (out / "run.json").is_file()
+    # different objectives: a clear error
+    (tmp_path / "t.toml").write_text("""
+objectives = ["overall_width", "max_scrub"]
+[run]
+name = "t"
+seed = 1
+population = 8
+generations = 2
+output = "res"
+[template]
+name = "twin_beam"
+[envelope]
+lean_step_deg = 15.0
+""")
+    from optimizer.config import load_config
+    from optimizer.runner import start_run
+
+    t = start_run(load_config(tmp_path / "t.toml"), progress=False)
+    with pytest.raises(InputError, match="same objectives"):
+        merge_fronts([dirs[0], t.run_dir], tmp_path / "m2")
+
+
+def test_cli_batch_and_merge(tmp_path):
+    from click.testing import CliRunner
+
+    from tiltopt.cli import main
+
+    b = _write(tmp_path)
+    r = CliRunner().invoke(main, ["batch", str(tmp_path / "batch.toml"), "--workers", "2"])
+    assert r.exit_code == 0, r.output
+    assert "status: finished 2" in r.output and str(b.batch_dir / "summary.parquet") in r.output
+    dirs = [it.run_dir for it in b.items]
+    r = CliRunner().invoke(main, ["merge", *dirs, "-o", str(tmp_path / "m")])
+    assert r.exit_code == 0 and "non-dominated designs" in r.output and "Caution" in r.output
+    r = CliRunner().invoke(main, ["merge", dirs[0], str(tmp_path / "nothing"), "-o", str(tmp_path / "m3")])
+    assert r.exit_code == 2 and "does not exist" in r.output
