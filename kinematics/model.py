@@ -269,8 +269,12 @@ class Model:
                 comb[k, i] += 1.0
             for i in pk_minus[k]:
                 comb[k, i if i >= 0 else npts] -= 1.0
+        summ = np.zeros((2 * n_pk, 2 * len(points)))    # interleaved (y, z) sums per point
+        summ[2 * np.arange(n_pk), 2 * np.array(pk_point, dtype=int)] = 1.0
+        summ[2 * np.arange(n_pk) + 1, 2 * np.array(pk_point, dtype=int) + 1] = 1.0
         tab = dict(
             n=len(points),
+            sum2=summ,
             pk_point=np.array(pk_point, dtype=int),
             pk_src=np.array(pk_src, dtype=int),
             comb=comb[:, :npts],
@@ -330,18 +334,20 @@ class Model:
                         fill(static_camber, d.static_camber))
 
     def design_vectors(self, geom: Geometry, tab: dict) -> tuple[np.ndarray, np.ndarray]:
-        """Per-candidate design vectors of a point table.
+        """Per-candidate design vectors of a point table, as complex numbers ``y + i z``.
 
         Returns
         -------
-        V : ndarray of shape (n_candidates, n_pk, 2)
-        U : ndarray of shape (n_candidates, n_sl, 2)
+        V : ndarray of shape (n_candidates, n_pk), complex
+            Design vector of each (point, angle source) pair.
+        U : ndarray of shape (n_candidates, n_sl), complex
             Unit guide directions of the slide terms, times their sign.
         """
-        V = np.einsum("kp,cpd->ckd", tab["comb"], geom.points)
+        V2 = np.einsum("kp,cpd->ckd", tab["comb"], geom.points)
+        V = V2[..., 0] + 1j * V2[..., 1]
         d = geom.points[:, tab["sl_to"]] - geom.points[:, tab["sl_from"]]
         U = d / np.linalg.norm(d, axis=-1, keepdims=True) * tab["sl_sign"][None, :, None]
-        return V, U
+        return V, U[..., 0] + 1j * U[..., 1]
 
     def design_q(self, n: int) -> np.ndarray:
         """Coordinates of the design position: all zero (the chassis datum at the origin)."""
@@ -354,56 +360,94 @@ class Model:
 
     # ------------------------------------------------------------- positions
     def positions(self, q, lean, V, U, tab, jac: bool = False):
-        """Positions (and Jacobians) of the points of a table.
+        """Positions (and elementary Jacobian entries) of the points of a table.
+
+        A rotation ``R(a)`` of ``(y, z)`` is the complex product ``exp(-i a) (y + i z)``;
+        its derivative is ``-i`` times the rotated vector, so the Jacobian entries
+        of every (point, angle) pair are the rotated vectors themselves.
 
         Parameters
         ----------
         q : ndarray of shape (N, n_q)
         lean : ndarray of shape (N,)
             Chassis angle, radians.
-        V, U : per-item design vectors, shapes (N, n_pk, 2) and (N, n_sl, 2).
+        V, U : complex per-item design vectors, shapes (N, n_pk) and (N, n_sl).
 
         Returns
         -------
         x : ndarray of shape (N, n_points_in_table, 2)
-        Jx : ndarray of shape (N, n_points_in_table, 2, n_q), if ``jac``
+        E : tuple of two ndarrays or None
+            With ``jac``: the rotated pair vectors as interleaved (y, z) floats,
+            shape (N, 2 n_pk), and the rotated slide directions, shape (N, 2 n_sl);
+            :meth:`functional_map` turns them into Jacobian rows.
         ang : ndarray of shape (N, n_ang)
         """
         N = q.shape[0]
         ang = np.empty((N, self.n_ang))
         ang[:, 0] = lean
         ang[:, 1:] = q[:, self.ang_coord]
-        c, s = np.cos(ang), np.sin(ang)
+        e = np.exp(-1j * ang)
         src = tab["pk_src"]
-        cs, ss = c[:, src], s[:, src]
-        w = V.copy()
-        for layer in tab["sl_layers"]:
-            k = tab["sl_pk"][layer]
-            w[:, k] += U[:, layer] * q[:, tab["sl_coord"][layer], None]
-        rw = np.empty_like(w)
-        rw[..., 0] = cs * w[..., 0] + ss * w[..., 1]
-        rw[..., 1] = -ss * w[..., 0] + cs * w[..., 1]
-        x = np.add.reduceat(rw, tab["starts"], axis=1)
+        w = V
+        if tab["sl_layers"]:
+            w = V.copy()
+            for layer in tab["sl_layers"]:
+                w[:, tab["sl_pk"][layer]] += U[:, layer] * q[:, tab["sl_coord"][layer]]
+        rw = e[:, src] * w
+        rwf = rw.view(np.float64)                           # (N, 2 n_pk) interleaved y, z
+        x = (rwf @ tab["sum2"]).reshape(N, tab["n"], 2)
         x[..., 0] += q[:, tab["ty"]]
         x[..., 1] += q[:, tab["tz"]]
         if not jac:
             return x, None, ang
-        npt = tab["n"]
-        Jx = np.zeros((N, npt, 2, self.n_q))
-        ar = np.arange(npt)
-        Jx[:, ar, 0, tab["ty"]] = 1.0
-        Jx[:, ar, 1, tab["tz"]] = 1.0
-        jk = tab["jac_pk"]
-        jp = tab["pk_point"][jk]
-        Jx[:, jp, 0, tab["jac_col"]] = rw[:, jk, 1]
-        Jx[:, jp, 1, tab["jac_col"]] = -rw[:, jk, 0]
         if len(tab["sl_pk"]):
-            sk = tab["sl_pk"]
-            sp = tab["pk_point"][sk]
-            cu, su = cs[:, sk], ss[:, sk]
-            Jx[:, sp, 0, tab["sl_coord"]] += cu * U[..., 0] + su * U[..., 1]
-            Jx[:, sp, 1, tab["sl_coord"]] += -su * U[..., 0] + cu * U[..., 1]
-        return x, Jx, ang
+            ru = (e[:, src[tab["sl_pk"]]] * U).view(np.float64)
+        else:
+            ru = np.zeros((N, 0))
+        return x, (rwf, ru), ang
+
+    def functional_map(self, rows: list[list[tuple]], tab: dict | None = None):
+        """Constant maps from elementary Jacobian entries to rows of linear functionals.
+
+        A functional is a list of terms ``(j, d, coef)`` (coordinate ``d`` of
+        point ``j`` of the table) or ``("q", col, coef)`` (a coordinate itself).
+        Its Jacobian row is ``rwf @ W1 + ru @ W2 + Jc`` with ``(rwf, ru)`` from
+        ``positions(..., jac=True)``: the fixed sparsity is built here, once, so
+        a residual call assembles every linear row with two small matmuls.
+        A pair vector ``w = (wy, wz)`` of angle column c contributes
+        ``dy/dc = wz`` and ``dz/dc = -wy``; a slide direction ``(uy, uz)`` of
+        slide column c contributes ``dy/dc = uy`` and ``dz/dc = uz``.
+
+        Returns
+        -------
+        W1 : ndarray of shape (2 n_pk, n_rows * n_q)
+        W2 : ndarray of shape (2 n_sl, n_rows * n_q)
+        Jc : ndarray of shape (n_rows, n_q)
+        """
+        tab = tab or self._np
+        nq = self.n_q
+        n_pk, n_sl = len(tab["pk_point"]), len(tab["sl_pk"])
+        pk_col = np.full(n_pk, -1)
+        pk_col[tab["jac_pk"]] = tab["jac_col"]
+        W1 = np.zeros((2 * n_pk, len(rows) * nq))
+        W2 = np.zeros((2 * n_sl, len(rows) * nq))
+        Jc = np.zeros((len(rows), nq))
+        for r, terms in enumerate(rows):
+            for j, d, coef in terms:
+                if j == "q":
+                    Jc[r, d] += coef
+                    continue
+                for k in np.flatnonzero(tab["pk_point"] == j):
+                    if pk_col[k] < 0:
+                        continue
+                    if d == 0:   # dy/dc = wz (odd slot)
+                        W1[2 * k + 1, r * nq + pk_col[k]] += coef
+                    else:        # dz/dc = -wy (even slot)
+                        W1[2 * k, r * nq + pk_col[k]] -= coef
+                for i in np.flatnonzero(tab["pk_point"][tab["sl_pk"]] == j):
+                    W2[2 * i + d, r * nq + tab["sl_coord"][i]] += coef
+                Jc[r, (tab["ty"] if d == 0 else tab["tz"])[j]] += coef
+        return W1, W2, Jc
 
     def mech_idx(self, eq: np.ndarray, col: int) -> np.ndarray:
         """Global point indices of one column of an equation table (rows of needed points)."""

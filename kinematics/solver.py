@@ -47,7 +47,7 @@ class SolveSettings:
     max_angle_step_rad : largest change of any angle in one iteration.
     """
 
-    tol_mm: float = 1e-9
+    tol_mm: float = 1e-10
     max_iter: int = 30
     max_angle_step_rad: float = 0.25
 
@@ -85,6 +85,8 @@ class Batch:
         self.zc0 = pts[:, m.needed[m.eq_wheel], 1]
         # scaling of angle columns: an angle step of 1 rad moves points by ~Lc mm
         self.col_scale = np.where(m.coord_kind[None, :] == ANGLE, 1.0 / self.Lc[:, None], 1.0)
+        # extra lean-0 rows holding directions no travel equation fixes (see hold_free_directions)
+        self.hold = np.zeros((len(self.cand), 0, m.n_q))
 
     def take(self, idx) -> "Batch":
         new = object.__new__(Batch)
@@ -93,9 +95,9 @@ class Batch:
         return new
 
 
-def n_rows(model: Model, stage: str) -> int:
+def n_rows(model: Model, stage: str, n_hold: int = 0) -> int:
     base = model.n_loop_rows + len(model.eq_link) + 3
-    return base + (2 if stage == "travel" else len(model.eq_spring))
+    return base + (2 + n_hold if stage == "travel" else len(model.eq_spring))
 
 
 def row_names(model: Model, stage: str) -> list[str]:
@@ -103,9 +105,49 @@ def row_names(model: Model, stage: str) -> list[str]:
     return model.row_names_kin + tail + ["ground left", "ground right", "lateral reference"]
 
 
+def _layout(model: Model, stage: str) -> dict:
+    """The linear functionals of a stage and their constant Jacobian maps (cached on the model)."""
+    cache = model.__dict__.setdefault("_layouts", {})
+    if stage in cache:
+        return cache[stage]
+    m = model
+    rows: list[list[tuple]] = []
+    blocks = {}
+
+    def block(name, funcs):
+        blocks[name] = slice(len(rows), len(rows) + len(funcs))
+        rows.extend(funcs)
+
+    def diffs(eq):
+        return [[(a, d, 1.0), (b_, d, -1.0)] for a, b_ in eq for d in (0, 1)]
+
+    block("pin", diffs(m.eq_pin))
+    block("slider", diffs([(p, f) for f, _, p in m.eq_slider]))
+    block("link", diffs(m.eq_link))
+    if stage == "travel":
+        block("travel", [[(int(w), 1, 1.0), ("q", 1, -1.0)] for w in m.eq_wheel])
+    else:
+        block("spring", diffs(m.eq_spring))
+    block("ground", [[(int(w), 1, 1.0)] for w in m.eq_wheel])
+    block("lateral", [[(int(m.eq_wheel[0]), 0, 0.5), (int(m.eq_wheel[1]), 0, 0.5)]])
+    W1, W2, Jc = m.functional_map(rows)
+    lay = dict(W1=W1, W2=W2, Jc=Jc, blocks=blocks, n_func=len(rows),
+               usrc=np.array(m.tree.ang_src)[m.wheel_upright],
+               slider_src=(np.array(m.tree.ang_src)[m.eq_slider_bodies[:, 0]],
+                           np.array(m.tree.ang_src)[m.eq_slider_bodies[:, 1]]))
+    cache[stage] = lay
+    return lay
+
+
 def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np.ndarray, stage: str,
              jac: bool = True):
     """Residual (N, m) and Jacobian (N, m, n_q) of a stage.
+
+    Every row is a function of a few point coordinates; the Jacobian rows of
+    the linear parts (pins, coordinate differences, ground heights, lateral
+    reference, travel) come from one matmul of the elementary entries with a
+    constant map of fixed sparsity (:meth:`Model.functional_map`), then the
+    nonlinear rows combine them with per-item unit vectors.
 
     Parameters
     ----------
@@ -114,11 +156,23 @@ def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np
         stage ``"lean"``: held spring lengths, shape (N, n_springs), mm.
     """
     m = model
-    x, Jx, ang = m.positions(q, lean, b.V, b.U, m._np, jac=jac)
+    lay = _layout(m, stage)
+    x, E, ang = m.positions(q, lean, b.V, b.U, m._np, jac=jac)
     N = q.shape[0]
-    rows = n_rows(m, stage)
+    nq = m.n_q
+    n_hold = b.hold.shape[1] if stage == "travel" else 0
+    rows = n_rows(m, stage, n_hold)
     F = np.empty((N, rows))
-    J = np.zeros((N, rows, m.n_q)) if jac else None
+    if jac:
+        J = np.empty((N, rows, nq))
+        Jf = E[0] @ lay["W1"]
+        if E[1].shape[1]:
+            Jf += E[1] @ lay["W2"]
+        Jf = Jf.reshape(N, lay["n_func"], nq)
+        Jf += lay["Jc"]
+    else:
+        J = Jf = None
+    B = lay["blocks"]
     r0 = 0
     # loop pins
     if len(m.eq_pin):
@@ -126,13 +180,12 @@ def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np
         k = 2 * len(a)
         F[:, r0:r0 + k] = (x[:, a] - x[:, bb]).reshape(N, k)
         if jac:
-            J[:, r0:r0 + k] = (Jx[:, a] - Jx[:, bb]).reshape(N, k, m.n_q)
+            J[:, r0:r0 + k] = Jf[:, B["pin"]]
         r0 += k
     # loop sliders
     if len(m.eq_slider):
-        f, t, p = m.eq_slider[:, 0], m.eq_slider[:, 1], m.eq_slider[:, 2]
-        ga, gb = m.eq_slider_bodies[:, 0], m.eq_slider_bodies[:, 1]
-        srca, srcb = np.array(m.tree.ang_src)[ga], np.array(m.tree.ang_src)[gb]
+        f, p = m.eq_slider[:, 0], m.eq_slider[:, 2]
+        srca, srcb = lay["slider_src"]
         th_a, th_b = ang[:, srca], ang[:, srcb]
         c, s = np.cos(th_a), np.sin(th_a)
         n = np.stack([c * b.n0[..., 0] + s * b.n0[..., 1], -s * b.n0[..., 0] + c * b.n0[..., 1]], -1)
@@ -141,7 +194,9 @@ def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np
         F[:, r0:r0 + 2 * ns:2] = np.sum(n * d, -1)
         F[:, r0 + 1:r0 + 2 * ns:2] = (th_b - th_a) * b.Lc[:, None]
         if jac:
-            J[:, r0:r0 + 2 * ns:2] = np.einsum("nsd,nsdq->nsq", n, Jx[:, p] - Jx[:, f])
+            Jd = Jf[:, B["slider"]].reshape(N, ns, 2, nq)
+            J[:, r0:r0 + 2 * ns:2] = n[..., 0, None] * Jd[:, :, 0] + n[..., 1, None] * Jd[:, :, 1]
+            J[:, r0 + 1:r0 + 2 * ns:2] = 0.0
             dn = np.stack([n[..., 1], -n[..., 0]], -1)
             for j in range(ns):  # few sliders; loop over joints, not items
                 if srca[j] > 0:
@@ -152,38 +207,45 @@ def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np
                     J[:, r0 + 2 * j + 1, m.ang_coord[srcb[j] - 1]] += b.Lc
         r0 += 2 * ns
 
-    def lengths(eq, L0, r0):
+    def lengths(eq, L0, r0, blk):
         a, bb = eq[:, 0], eq[:, 1]
         d = x[:, a] - x[:, bb]
         L = np.sqrt(np.sum(d * d, -1))
         k = len(a)
         F[:, r0:r0 + k] = L - L0
         if jac:
-            J[:, r0:r0 + k] = np.einsum("nkd,nkdq->nkq", d / L[..., None], Jx[:, a] - Jx[:, bb])
+            Jd = Jf[:, B[blk]].reshape(N, k, 2, nq)
+            u = d / L[..., None]
+            J[:, r0:r0 + k] = u[..., 0, None] * Jd[:, :, 0] + u[..., 1, None] * Jd[:, :, 1]
         return r0 + k
 
     if len(m.eq_link):
-        r0 = lengths(m.eq_link, b.L_link, r0)
+        r0 = lengths(m.eq_link, b.L_link, r0, "link")
     wc = m.eq_wheel
     if stage == "travel":
         # wheel centres move s relative to the chassis datum (lean 0: chassis frame = global)
         F[:, r0:r0 + 2] = x[:, wc, 1] - q[:, 1, None] - b.zc0 - target[:, None]
         if jac:
-            J[:, r0:r0 + 2] = Jx[:, wc, 1]
-            J[:, r0:r0 + 2, 1] -= 1.0
+            J[:, r0:r0 + 2] = Jf[:, B["travel"]]
         r0 += 2
+        if n_hold:
+            # hold: v^T (q / col_scale) = 0 for each free direction v (scaled coordinates, mm)
+            F[:, r0:r0 + n_hold] = np.einsum("nkq,nq->nk", b.hold, q / b.col_scale)
+            if jac:
+                J[:, r0:r0 + n_hold] = b.hold / b.col_scale[:, None, :]
+            r0 += n_hold
     elif len(m.eq_spring):
-        r0 = lengths(m.eq_spring, target, r0)
+        r0 = lengths(m.eq_spring, target, r0, "spring")
     # ground and lateral reference
-    usrc = np.array(m.tree.ang_src)[m.wheel_upright]
+    usrc = lay["usrc"]
     gamma = b.gamma0 + ang[:, usrc]
     Rr = b.R - b.r
     sg, cg = np.sin(gamma), np.cos(gamma)
     F[:, r0:r0 + 2] = x[:, wc, 1] - Rr * cg - b.r
-    F[:, r0 + 2] = 0.5 * np.sum(x[:, wc, 0] - Rr * sg, -1)
+    F[:, r0 + 2] = 0.5 * (x[:, wc[0], 0] + x[:, wc[1], 0] - Rr[:, 0] * sg[:, 0] - Rr[:, 1] * sg[:, 1])
     if jac:
-        J[:, r0:r0 + 2] = Jx[:, wc, 1]
-        J[:, r0 + 2] = 0.5 * (Jx[:, wc[0], 0] + Jx[:, wc[1], 0])
+        J[:, r0:r0 + 2] = Jf[:, B["ground"]]
+        J[:, r0 + 2] = Jf[:, B["lateral"].start]
         for w in range(2):
             if usrc[w] > 0:
                 col = m.ang_coord[usrc[w] - 1]
@@ -192,8 +254,62 @@ def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np
     return F, J
 
 
+def _ls_step(model: Model, Js: np.ndarray, F: np.ndarray, minnorm: bool) -> np.ndarray:
+    """Least-squares step ``-J^+ F`` on scaled columns, batched.
+
+    ``minnorm``: the exact pseudo-inverse (SVD), which leaves a free direction
+    of the equations untouched (used at lean 0, where springs are free and a
+    lean mode compensated by the springs may have no equation); otherwise the
+    normal equations with a vanishing Tikhonov term (faster).
+    """
+    if minnorm:
+        return -np.einsum("nij,nj->ni", np.linalg.pinv(Js, rcond=1e-10), F)
+    if Js.shape[1] == Js.shape[2]:
+        # square: the plain Newton step (LU with partial pivoting)
+        try:
+            return -np.linalg.solve(Js, F[..., None])[..., 0]
+        except np.linalg.LinAlgError:
+            pass  # an exactly singular item: fall back to the damped normal equations
+    JT = Js.transpose(0, 2, 1)
+    A = JT @ Js
+    diag = np.einsum("nii->ni", A)
+    A[:, np.arange(model.n_q), np.arange(model.n_q)] += 1e-13 * np.maximum(diag.max(1, keepdims=True), 1.0)
+    g = JT @ F[..., None]
+    try:
+        return -np.linalg.solve(A, g)[..., 0]
+    except np.linalg.LinAlgError:
+        return -np.einsum("nij,nj->ni", np.linalg.pinv(A), g[..., 0])
+
+
+def hold_free_directions(model: Model, b: Batch) -> None:
+    """Find the directions the lean-0 travel equations leave free, and hold them.
+
+    At lean 0 the springs are free, so a lean mode that only the springs hold
+    (the beams of a sprung twin beam, a tilt rocker) has no equation. One SVD
+    per candidate at the design position finds those directions; holding them
+    (zero change along them, to first order) keeps the solve well posed and
+    leaves a symmetric linkage exactly symmetric. Sets ``b.hold``.
+    """
+    N = len(b.cand)
+    _, J = residual(model, b, model.design_q(N), np.zeros(N), np.zeros(N), "travel")
+    Js = J * b.col_scale[:, None, :]
+    _, sv, vt = np.linalg.svd(Js)
+    tol = 1e-9 * np.maximum(sv[:, :1], 1.0)
+    n = model.n_q
+    svp = np.zeros((N, n))
+    svp[:, :sv.shape[1]] = sv
+    free = svp <= tol                                  # (N, n_q) per right-singular vector
+    k = int(free.sum(axis=1).max()) if N else 0
+    hold = np.zeros((N, k, n))
+    if k:
+        order = np.argsort(~free, axis=1, kind="stable")[:, :k]     # free vectors first
+        picked = np.take_along_axis(vt, order[..., None], axis=1)
+        hold = np.where(np.take_along_axis(free, order, axis=1)[..., None], picked, 0.0)
+    b.hold = hold
+
+
 def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.ndarray, stage: str,
-           settings: SolveSettings = SolveSettings()):
+           settings: SolveSettings = SolveSettings(), minnorm: bool | None = None):
     """Solve a batch of states from the start guesses ``q0``.
 
     Returns
@@ -206,13 +322,14 @@ def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.
     J : ndarray of shape (N, m, n_q)
         Jacobian at the returned q (used for tangents).
     """
+    minnorm = False if minnorm is None else minnorm
     N = q0.shape[0]
     q = q0.copy()
     status = np.full(N, MAX_ITER, dtype=np.int8)
     resid = np.full(N, np.inf)
     iters = np.zeros(N, dtype=int)
     active = np.arange(N)
-    rows = n_rows(model, stage)
+    rows = n_rows(model, stage, b.hold.shape[1] if stage == "travel" else 0)
     Jout = np.zeros((N, rows, model.n_q))
     prev = np.full(N, np.inf)
     angle_cols = model.coord_kind == ANGLE
@@ -220,7 +337,7 @@ def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.
     for it in range(settings.max_iter + 1):
         F, J = residual(model, sub, qs, ls, ts, stage)
         rmax = np.max(np.abs(F), axis=1)
-        finite = np.isfinite(rmax) & np.all(np.isfinite(J), axis=(1, 2))
+        finite = np.isfinite(rmax)
         resid[active] = rmax
         Jout[active] = J
         q[active] = qs
@@ -241,24 +358,17 @@ def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.
             F, J, qs = F[keep], J[keep], qs[keep]
             sub, ls, ts = b.take(active), lean[active], target[active]
         iters[active] += 1
-        Js = J * sub.col_scale[:, None, :]
-        JT = Js.transpose(0, 2, 1)
-        A = JT @ Js
-        g = JT @ F[..., None]
-        diag = np.einsum("nii->ni", A)
-        A[:, np.arange(model.n_q), np.arange(model.n_q)] += 1e-13 * np.maximum(diag.max(1, keepdims=True), 1.0)
-        try:
-            dq = -np.linalg.solve(A, g)[..., 0]
-        except np.linalg.LinAlgError:
-            dq = -np.einsum("nij,nj->ni", np.linalg.pinv(A), g[..., 0])
+        dq = _ls_step(model, J * sub.col_scale[:, None, :], F, minnorm)
         dq *= sub.col_scale
+        dq[~np.isfinite(dq)] = np.inf  # a singular step fails the item at the next check
         big = np.max(np.abs(np.where(angle_cols, dq, 0.0)), axis=1)
         f = np.minimum(1.0, settings.max_angle_step_rad / np.maximum(big, 1e-300))
         qs = qs + dq * f[:, None]
     return q, status, resid, iters, Jout
 
 
-def tangent(model: Model, J: np.ndarray, dF: np.ndarray, col_scale: np.ndarray) -> np.ndarray:
+def tangent(model: Model, J: np.ndarray, dF: np.ndarray, col_scale: np.ndarray,
+            minnorm: bool = False) -> np.ndarray:
     """Least-squares solution of ``J dq = -dF`` (batched), e.g. dq/d(lean) or dq/d(travel).
 
     Parameters
@@ -267,14 +377,4 @@ def tangent(model: Model, J: np.ndarray, dF: np.ndarray, col_scale: np.ndarray) 
     dF : ndarray of shape (N, m)
         Partial derivative of the residual with respect to the parameter.
     """
-    Js = J * col_scale[:, None, :]
-    JT = Js.transpose(0, 2, 1)
-    A = JT @ Js
-    diag = np.einsum("nii->ni", A)
-    A[:, np.arange(model.n_q), np.arange(model.n_q)] += 1e-13 * np.maximum(diag.max(1, keepdims=True), 1.0)
-    g = JT @ dF[..., None]
-    try:
-        dq = -np.linalg.solve(A, g)[..., 0]
-    except np.linalg.LinAlgError:
-        dq = -np.einsum("nij,nj->ni", np.linalg.pinv(A), g[..., 0])
-    return dq * col_scale
+    return _ls_step(model, J * col_scale[:, None, :], dF, minnorm) * col_scale

@@ -20,7 +20,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from .model import Geometry, Model
-from .solver import (CONVERGED, SKIPPED, STATUS_TEXT, Batch, SolveSettings, newton, residual, tangent)
+from .solver import (CONVERGED, SKIPPED, STATUS_TEXT, Batch, SolveSettings, hold_free_directions, newton,
+                     residual, tangent)
 
 
 @dataclass
@@ -33,7 +34,7 @@ class SweepSettings:
     """
 
     max_lean_step_deg: float = 5.0
-    max_travel_step_mm: float = 15.0
+    max_travel_step_mm: float = 30.0
     solve: SolveSettings = field(default_factory=SolveSettings)
 
 
@@ -155,14 +156,13 @@ def _lean_paths(lean_rad: np.ndarray, max_step: float):
     return paths, index
 
 
-def _lengths(model: Model, b: Batch, q, lean, eq, jac=False):
-    x, Jx, _ = model.positions(q, lean, b.V, b.U, model._np, jac=jac)
-    d = x[:, eq[:, 0]] - x[:, eq[:, 1]]
-    L = np.linalg.norm(d, axis=-1)
-    if not jac:
-        return L, None
-    dL = np.einsum("nkd,nkdq->nkq", d / L[..., None], Jx[:, eq[:, 0]] - Jx[:, eq[:, 1]])
-    return L, dL
+def _spring_lengths(model: Model, b: Batch, q):
+    """Spring lengths (N, n_springs) and their Jacobian (N, n_springs, n_q) at lean 0."""
+    N = q.shape[0]
+    ns = len(model.eq_spring)
+    F, J = residual(model, b, q, np.zeros(N), np.zeros((N, ns)), "lean")
+    off = model.n_loop_rows + len(model.eq_link)
+    return F[:, off:off + ns], J[:, off:off + ns]
 
 
 def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm=(0.0,),
@@ -193,6 +193,9 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     cand_t = np.repeat(np.arange(C), T)
     s_item = np.tile(travel, C)
     bt = Batch(model, geom, cand_t)
+    bc = Batch(model, geom, np.arange(C))          # one item per candidate: the design Jacobian
+    hold_free_directions(model, bc)
+    bt.hold = bc.hold[cand_t]
     N = C * T
     q = model.design_q(N)
     zero = np.zeros(N)
@@ -223,7 +226,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
 
     # held spring lengths and motion ratios at lean 0
     if ns:
-        Ls, dLs = _lengths(model, bt, q, zero, model.eq_spring, jac=True)
+        Ls, dLs = _spring_lengths(model, bt, q)
         dF = np.zeros((N, J.shape[1]))
         off = model.n_loop_rows + len(model.eq_link)
         dF[:, off:off + 2] = -1.0
@@ -241,6 +244,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     item_ct = np.repeat(np.arange(N), nb)
     item_branch = np.tile(np.arange(nb), N)
     bl = bt.take(item_ct)
+    bl.hold = bl.hold[:, :0]
     M = len(item_ct)
     held = Ls[item_ct]
     Q = np.zeros((M, Kl, nq))
@@ -258,7 +262,17 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
             break
         phi = paths[item_branch[ok], k]
         phi_prev = paths[item_branch[ok], k - 1]
-        if k >= 2:
+        if k >= 3:
+            # quadratic extrapolation through the last three states (Lagrange)
+            p0, p1, p2 = (paths[item_branch[ok], k - j] for j in (3, 2, 1))
+            with np.errstate(divide="ignore", invalid="ignore"):
+                l0 = (phi - p1) * (phi - p2) / ((p0 - p1) * (p0 - p2))
+                l1 = (phi - p0) * (phi - p2) / ((p1 - p0) * (p1 - p2))
+                l2 = (phi - p0) * (phi - p1) / ((p2 - p0) * (p2 - p1))
+            same = ~np.isfinite(l0) | ~np.isfinite(l1) | ~np.isfinite(l2)   # padded (repeated) nodes
+            l0, l1, l2 = (np.where(same, v, l) for v, l in ((0.0, l0), (0.0, l1), (1.0, l2)))
+            guess = (Q[ok, k - 3] * l0[:, None] + Q[ok, k - 2] * l1[:, None] + Q[ok, k - 1] * l2[:, None])
+        elif k >= 2:
             dphi_old = phi_prev - paths[item_branch[ok], k - 2]
             ratio = np.divide(phi - phi_prev, dphi_old, out=np.zeros_like(phi), where=dphi_old != 0)
             guess = Q[ok, k - 1] + (Q[ok, k - 1] - Q[ok, k - 2]) * ratio[:, None]
