@@ -343,7 +343,7 @@ def front_view_svg(spec: dict, points, camber, pose=(0.0, 0.0, 0.0), shell_poly=
     pad_l = pad + (0.14 * span if dimensions else 0.0)
     vb = (ymin - pad_l, -(zmax + pad), (ymax - ymin) + pad_l + pad, (zmax - zmin) + pad + pad_b)
     lw = span / 260.0
-    fs = span / 48.0
+    fs = span / (40.0 if dimensions else 48.0)
     parts.append(f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="{_f(vb[0])} {_f(vb[1])} {_f(vb[2])} {_f(vb[3])}" '
                  f'width="{width}" class="frontview" font-family="Helvetica, Arial, sans-serif">')
     if title:

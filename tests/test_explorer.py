@@ -1,0 +1,142 @@
+"""The explorer page: data, offline plotly, non-dominated front; and the shared fixture run.
+
+The fixture (``fixture_run``) builds a run in the CONTRACTS.md column layout from
+perturbed copies of configs/wishbone_rocker.toml, with metrics computed by the
+kinematics sweep, so the report writers can be tested without the optimiser.
+"""
+from __future__ import annotations
+
+import json
+import re
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from kinematics.mechanism import load_mechanism
+from kinematics.model import Model
+from kinematics.sweep import sweep
+
+CONFIGS = Path(__file__).resolve().parents[1] / "configs"
+LEAN_LIMIT = 25.0
+TRAVEL = (-30.0, 0.0, 30.0)
+
+
+# ----------------------------------------------------------------- fixture run
+def _moved(mech, dz_upper: float, dz_lower: float, dy_outer: float):
+    """A symmetric variant: inner pivots raised, outer joints (and hubs) moved out."""
+    pts = {}
+    for side, sgn in (("left", -1.0), ("right", 1.0)):
+        for ref in (f"chassis.upper_{side}_pivot", f"upper_arm_{side}.inner"):
+            y, z = mech.point(ref)
+            pts[ref] = (y, z + dz_upper)
+        for ref in (f"chassis.lower_{side}_pivot", f"lower_arm_{side}.inner"):
+            y, z = mech.point(ref)
+            pts[ref] = (y, z + dz_lower)
+        for ref in (f"upper_arm_{side}.outer", f"upright_{side}.upper_joint", f"lower_arm_{side}.outer",
+                    f"upright_{side}.lower_joint", f"upright_{side}.hub"):
+            y, z = mech.point(ref)
+            pts[ref] = (y + sgn * dy_outer, z)
+    return mech.with_points(pts)
+
+
+def fixture_run(n: int = 8, n_bad: int = 3, seed: int = 3):
+    """(ExplorerRun, dict of candidate_id -> Mechanism, front DataFrame) from a seeded set of variants."""
+    from tiltopt.reports.explorer import ExplorerRun
+
+    base = load_mechanism(CONFIGS / "wishbone_rocker.toml")
+    model = Model(base)
+    rng = np.random.default_rng(seed)
+    X = np.column_stack([rng.uniform(-40, 40, n + n_bad), rng.uniform(-30, 30, n + n_bad),
+                         rng.uniform(-20, 40, n + n_bad)])
+    mechs = {}
+    ids = [f"g{1 + k // 4:03d}-{k:04d}" for k in range(n + n_bad)]
+    for cid, x in zip(ids, X):
+        mechs[cid] = _moved(base, *x)
+    geom = model.batch_geometry(np.stack([model.geometry_from(mechs[c]).points[0] for c in ids]))
+    lean = np.linspace(0.0, LEAN_LIMIT, 11)
+    res = sweep(model, geom, lean, TRAVEL)
+    ok = res.converged.all(axis=(1, 2))
+    max_scrub = np.nanmax(np.abs(res.scrub), axis=(1, 2))
+    max_heave = np.nanmax(np.abs(res.heave), axis=(1, 2))
+    cam = np.degrees(np.nanmax(np.abs(res.camber_error), axis=(1, 2, 3)))
+    width = np.nanmax(res.contact[:, 1, :, 1, 0] - res.contact[:, 1, :, 0, 0], axis=1) + 2 * 23.0
+    df = pd.DataFrame({
+        "candidate_id": ids, "generation": [1 + k // 4 for k in range(n + n_bad)],
+        "feasible": [bool(o) for o in ok[:n]] + [False] * n_bad,
+        "violation": [0.0] * n + [5.0 + k for k in range(n_bad)],
+        "reason": [""] * n + ["min_ground_mm below margin"] * n_bad,
+        "var.upper_pivot_dz": X[:, 0], "var.lower_pivot_dz": X[:, 1], "var.outer_dy": X[:, 2],
+        "obj.max_scrub": max_scrub, "obj.max_heave": max_heave, "obj.max_camber_error": cam,
+        "max_scrub_mm": max_scrub, "max_heave_mm": max_heave, "max_camber_error_deg": cam,
+        "overall_width_mm": width,
+    })
+    units = {"var.upper_pivot_dz": "mm", "var.lower_pivot_dz": "mm", "var.outer_dy": "mm",
+             "obj.max_scrub": "mm", "obj.max_heave": "mm", "obj.max_camber_error": "deg"}
+    front = df.iloc[:n].reset_index(drop=True)
+
+    def geometry_for(rows):
+        return model.batch_geometry(np.stack([model.geometry_from(mechs[c]).points[0] for c in rows["candidate_id"]]))
+
+    run = ExplorerRun(run_id="fixture-a", front=front, model=model, geometry_for=geometry_for,
+                      lean_limit_deg=LEAN_LIMIT, travel_mm=TRAVEL, lean_step_deg=2.5, evaluations=df,
+                      template="wishbone_rocker", units=units, run_dir="results/fixture-a",
+                      meta={"seed": seed, "config": "tests/fixture"})
+    return run, mechs, front, res
+
+
+# ----------------------------------------------------------------- tests
+def test_non_dominated_matches_brute_force():
+    from tiltopt.reports.explorer import non_dominated
+
+    rng = np.random.default_rng(0)
+    F = rng.normal(size=(300, 3))
+    # brute force from the definition of Pareto dominance (textbook: a dominates b when a <= b in every
+    # objective and a < b in one), one pair at a time
+    expect = np.array([not any(np.all(F[j] <= F[i]) and np.any(F[j] < F[i]) for j in range(len(F)))
+                       for i in range(len(F))])
+    assert np.array_equal(non_dominated(F), expect)
+
+
+def test_page_is_offline_and_embeds_data(tmp_path):
+    from plotly.offline import get_plotlyjs
+
+    from tiltopt.reports.explorer import write_explorer
+
+    run, mechs, front, res = fixture_run()
+    path = write_explorer(tmp_path / "explorer.html", [run])
+    text = path.read_text(encoding="utf-8")
+    # plotly.js is in the page (the package's own bundle), and nothing is loaded from a network address
+    assert get_plotlyjs()[:2000] in text
+    assert not re.search(r"<script[^>]+src=[\"']https?://", text)
+    assert not re.search(r"<link[^>]+href=[\"']https?://", text)
+    data = json.loads(re.search(r'<script type="application/json" id="tiltopt-data">(.*?)</script>', text,
+                                re.S).group(1))
+    assert data["n"] == len(front) + 3
+    assert sum(data["feasible"]) == int(front["feasible"].sum())
+    # every objective axis carries a unit
+    for c in data["columns"]:
+        if c["group"] == "objective":
+            assert c["unit"] in ("mm", "deg")
+    # the precomputed drawing of the first candidate is the sweep's point positions (0.1 mm grid)
+    det = data["detail"]["0"]
+    P = np.array(det["s"][1][4]["p"]).reshape(-1, 2) / 10.0
+    assert np.allclose(P, res.points[0, 1, 4], atol=0.051)
+    assert "Caution" in data["safety"]
+
+
+def test_merged_front_of_two_runs():
+    from dataclasses import replace
+
+    from tiltopt.reports.explorer import build_data
+
+    run, mechs, front, res = fixture_run()
+    a = replace(run, front=front.iloc[:4].reset_index(drop=True), evaluations=None, run_id="a")
+    b = replace(run, front=front.iloc[4:].reset_index(drop=True), evaluations=None, run_id="b")
+    data = build_data([a, b], detail_limit=2)
+    assert data["n"] == len(front)
+    assert sorted(set(data["run"])) == [0, 1]
+    F = front[["obj.max_scrub", "obj.max_heave", "obj.max_camber_error"]].to_numpy()
+    expect = [not any(np.all(F[j] <= F[i]) and np.any(F[j] < F[i]) for j in range(len(F))) for i in range(len(F))]
+    assert data["merged"] == [bool(e and f) for e, f in zip(expect, front["feasible"])]
