@@ -86,7 +86,8 @@ def analyse(model: Model, geom: Geometry, lean_deg, travel_mm, *, shell=None, lo
             notes.append("3-D clearances not computed: the clearance part (kinematics.clearance) is not installed.")
         else:
             clearance_result = evaluate_clearance(model, geom, res, shell)
-            clearance = {k: np.asarray(v, float) for k, v in clearance_result.summary().items()}
+            clearance = {k: np.asarray(v, float) for k, v in clearance_result.summary().items()
+                         if not k.endswith("_state")}
     sizing = None
     if want_sizing:
         if loads is None:
@@ -97,7 +98,7 @@ def analyse(model: Model, geom: Geometry, lean_deg, travel_mm, *, shell=None, lo
             except ModuleNotFoundError:
                 notes.append("Member sizing not computed: the sizing part (kinematics.sizing) is not installed.")
             else:
-                sizing = size_linkage(model, geom, loads, sweep_result=res)
+                sizing = size_linkage(model, geom, loads)
     return Analysis(model=model, geom=geom, sweep=res, spec=spec, pose=pose, gaps=gaps, shell_poly=shell_poly,
                     clearance=clearance, clearance_result=clearance_result, sizing=sizing, notes=notes)
 
@@ -108,3 +109,19 @@ def min_gap(gaps: dict) -> np.ndarray:
     with np.errstate(all="ignore"):
         out = np.nanmin(np.where(np.isnan(a), np.inf, a), axis=0)
     return np.where(np.isfinite(out), out, np.nan)
+
+
+def state_clearance(an: Analysis) -> tuple[np.ndarray, str]:
+    """Smallest clearance of each state (C, T, L) and what it is.
+
+    The 3-D wheel-to-shell / wheel-to-link clearance over the steer range when
+    the clearance part ran; otherwise the front-view gap of the drawing.
+    """
+    cr = an.clearance_result
+    if cr is not None:
+        a = np.concatenate([np.asarray(cr.wheel_shell_mm, float), np.asarray(cr.wheel_link_mm, float)], axis=-1)
+        with np.errstate(all="ignore"):
+            m = np.min(np.where(np.isnan(a), np.inf, a), axis=-1)
+        bad = np.any(np.isnan(a), axis=-1) | ~np.isfinite(m)
+        return np.where(bad, np.nan, m), "min clearance, 3-D with steer"
+    return min_gap(an.gaps), "min front-view gap"

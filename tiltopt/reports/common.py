@@ -30,6 +30,9 @@ def atomic_write_bytes(path: str | Path, data: bytes) -> Path:
     try:
         with os.fdopen(fd, "wb") as fh:
             fh.write(data)
+        umask = os.umask(0)
+        os.umask(umask)
+        os.chmod(tmp, 0o666 & ~umask)   # mkstemp makes 0600; give the file the usual permissions
         os.replace(tmp, path)
     except BaseException:
         try:

@@ -217,6 +217,32 @@ def _seg_dist(p, a, b):
     return np.linalg.norm(p - q, axis=-1), q
 
 
+def _poly_seg_gap(poly, a, b):
+    """Smallest distance between closed polylines ``poly`` (..., k, 2) and segments a-b (..., s, 2), both ways.
+
+    Returns (..., ) distances. Two polylines that do not cross are nearest at a vertex of one of them.
+    """
+    d1, _ = _seg_dist(poly[..., :, None, :], a[..., None, :, :], b[..., None, :, :])
+    pa, pb = poly, np.roll(poly, -1, axis=-2)
+    ends = np.concatenate([a, b], axis=-2)
+    d2, _ = _seg_dist(ends[..., :, None, :], pa[..., None, :, :], pb[..., None, :, :])
+    return np.minimum(np.min(d1, axis=(-1, -2)), np.min(d2, axis=(-1, -2)))
+
+
+def _closest_pair(poly, A, B):
+    """Closest pair (distance, point on poly, point on segments) for one state; poly (k, 2), A/B (s, 2)."""
+    d1, q1 = _seg_dist(poly[:, None, :], A[None], B[None])
+    k1 = np.unravel_index(np.argmin(d1), d1.shape)
+    best = (float(d1[k1]), poly[k1[0]], q1[k1])
+    ends = np.concatenate([A, B])
+    pa, pb = poly, np.roll(poly, -1, axis=0)
+    d2, q2 = _seg_dist(ends[:, None, :], pa[None], pb[None])
+    k2 = np.unravel_index(np.argmin(d2), d2.shape)
+    if d2[k2] < best[0]:
+        best = (float(d2[k2]), q2[k2], ends[k2[0]])
+    return best
+
+
 def front_view_gaps(spec: dict, points, camber, pose=None, shell_poly=None) -> dict:
     """Front-view (2-D, in the linkage plane) gaps of every state, batched.
 
@@ -260,8 +286,7 @@ def front_view_gaps(spec: dict, points, camber, pose=None, shell_poly=None) -> d
             continue
         a = P[..., [s[0] for s in sel], :]
         b = P[..., [s[1] for s in sel], :]
-        d, _ = _seg_dist(tyres[w_i][..., :, None, :], a[..., None, :, :], b[..., None, :, :])
-        gaps.append(np.min(d, axis=(-1, -2)))
+        gaps.append(_poly_seg_gap(tyres[w_i], a, b))
     out["wheel_link_mm"] = np.min(np.stack(gaps), 0) if gaps else np.full(lead, np.nan)
     if shell_poly is not None and pose is not None:
         pose = np.asarray(pose, float)
@@ -274,8 +299,7 @@ def front_view_gaps(spec: dict, points, camber, pose=None, shell_poly=None) -> d
         A, B = G, np.roll(G, -1, axis=-2)
         best = np.full(lead, np.inf)
         for tyre in tyres:
-            d, _ = _seg_dist(tyre[..., :, None, :], A[..., None, :, :], B[..., None, :, :])
-            dmin = np.min(d, axis=(-1, -2))
+            dmin = _poly_seg_gap(tyre, A, B)
             inside = _inside(tyre, G)
             best = np.minimum(best, np.where(np.any(inside, -1), -dmin, dmin))
         out["wheel_shell_mm"] = best
@@ -432,14 +456,9 @@ def _gap_marks(spec, P, tyres, shell_g, lw, fs):
         if sel:
             A = np.array([s[0] for s in sel])
             B = np.array([s[1] for s in sel])
-            d, q = _seg_dist(t[:, None, :], A[None], B[None])
-            k = np.unravel_index(np.argmin(d), d.shape)
-            cands.append((float(d[k]), t[k[0]], q[k]))
+            cands.append(_closest_pair(t, A, B))
         if shell_g is not None:
-            A, B = shell_g, np.roll(shell_g, -1, axis=0)
-            d, q = _seg_dist(t[:, None, :], A[None], B[None])
-            k = np.unravel_index(np.argmin(d), d.shape)
-            cands.append((float(d[k]), t[k[0]], q[k]))
+            cands.append(_closest_pair(t, shell_g, np.roll(shell_g, -1, axis=0)))
         for dist, p, q in cands:
             if not np.all(np.isfinite([dist, *p, *q])):
                 continue

@@ -29,7 +29,7 @@ import pandas as pd
 
 from kinematics.model import Geometry, Model
 
-from .analysis import analyse, lean_grid, min_gap
+from .analysis import analyse, lean_grid, state_clearance
 from .common import SAFETY, atomic_write_text, column_label, column_unit, versions
 
 # Our own colour scheme: categorical colours for runs/templates, and a
@@ -149,7 +149,8 @@ def _detail(an, k: int) -> dict:
                               round(float(an.pose[k, t, l, 2]), 6)]})
         states.append(row)
     deg = 180.0 / math.pi
-    gap = min_gap(an.gaps)[k]
+    gap_all, gap_label = state_clearance(an)
+    gap = gap_all[k]
     curves = {
         "scrub_mm": [_round_list(r.scrub[k, t], 3) for t in range(T)],
         "heave_mm": [_round_list(r.heave[k, t], 3) for t in range(T)],
@@ -159,7 +160,7 @@ def _detail(an, k: int) -> dict:
     }
     status = [[None if ok[t, l] else r.status_text(k, t, l) for l in range(L)] for t in range(T)]
     wheels = [[float(an.geom.outer_radius[k, i]), float(an.geom.crown_radius[k, i])] for i in range(2)]
-    return {"s": states, "curves": curves, "status": status, "wheels": wheels}
+    return {"s": states, "curves": curves, "status": status, "wheels": wheels, "gap_label": gap_label}
 
 
 def _rows_of(run: ExplorerRun, infeasible_limit: int) -> pd.DataFrame:

@@ -275,14 +275,23 @@ def _clearance_section(an: Analysis) -> str:
     for ti, li, label in _corners(r):
         ok = bool(r.converged[0, ti, li])
         g = an.gaps
-        rows.append([_num(label[0], 1), _num(label[1], 0), "yes" if ok else f'<span class="bad">{_e(r.status_text(0, ti, li))}</span>',
-                     _num(g["wheel_link_mm"][0, ti, li], 1), _num(g["wheel_shell_mm"][0, ti, li], 1),
-                     _num(g["ground_mm"][0, ti, li], 1)])
-    s = _table(["lean [deg]", "travel [mm]", "reached", "tyre to links [mm]", "tyre to shell section [mm]",
-                "lowest link point above ground [mm]"], rows, num_from=0)
+        row = [_num(label[0], 1), _num(label[1], 0), "yes" if ok else f'<span class="bad">{_e(r.status_text(0, ti, li))}</span>',
+               _num(g["wheel_link_mm"][0, ti, li], 1), _num(g["wheel_shell_mm"][0, ti, li], 1),
+               _num(g["ground_mm"][0, ti, li], 1)]
+        cr = an.clearance_result
+        if cr is not None:
+            row += [_num(np.min(cr.wheel_link_mm[0, ti, li]), 1), _num(np.min(cr.wheel_shell_mm[0, ti, li]), 1),
+                    _num(np.min(cr.ground_mm[0, ti, li]), 1), _num(cr.max_steer_deg[0, ti, li], 0)]
+        rows.append(row)
+    heads = ["lean [deg]", "travel [mm]", "reached", "tyre to links, front view [mm]",
+             "tyre to shell section, front view [mm]", "lowest link point [mm]"]
+    if an.clearance_result is not None:
+        heads += ["tyre to links, 3-D [mm]", "tyre to shell, 3-D [mm]", "ground, 3-D [mm]", "steer range ± [deg]"]
+    s = _table(heads, rows, num_from=0)
     s += ('<p class="note">Front-view gaps, measured in the linkage plane on the drawing (tyre outline to the '
           'links and bodies not carrying it; tyre outline to the shell section at the linkage station, negative '
-          'inside). Steer is not included here.</p>')
+          'inside). Steer is not included in the front-view figures' + ('; the 3-D figures include the steer range '
+          'given for that state.' if an.clearance_result is not None else '.') + '</p>')
     if an.clearance:
         labels = {"min_wheel_shell_mm": "tyre to shell, 3-D", "min_wheel_link_mm": "tyre to links, 3-D",
                   "min_clearance_mm": "smallest clearance, 3-D", "min_ground_mm": "ground clearance",
@@ -355,8 +364,9 @@ def _curves(an: Analysis) -> str:
              ("camber error (L solid, R dashed)", "camber error [deg]",
               [r.camber_error[0, ..., 0] * deg, r.camber_error[0, ..., 1] * deg]),
              ("track change", "track change [mm]", [r.track_change[0]])]
-    from .analysis import min_gap
-    specs.append(("smallest front-view gap", "gap [mm]", [min_gap(an.gaps)[0]]))
+    from .analysis import state_clearance
+    gap, gap_label = state_clearance(an)
+    specs.append((gap_label, "clearance [mm]", [gap[0]]))
     for title, ylabel, arrays in specs:
         series = []
         for ti, tr in enumerate(r.travel_mm):

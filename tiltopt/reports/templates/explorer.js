@@ -205,7 +205,7 @@
     state.lean = 0;
     fillTables(i);
     $("detail-notes").innerHTML = run.notes.map((n) => `<li>${esc(n)}</li>`).join("") +
-      `<li>Gaps drawn in red and the last curve are front-view gaps in the linkage plane (tyre outline to links, bodies and shell section), not the 3-D clearance metric.</li>`;
+      `<li>Gaps drawn in red are front-view gaps in the linkage plane (tyre outline to links, bodies and shell section), not the 3-D clearance metric` + (det && det.gap_label.indexOf("3-D") >= 0 ? "; the last curve is the 3-D clearance over the steer range." : "; so is the last curve (the clearance part did not run for this page).") + `</li>`;
     redrawMatrix();
     requestAnimationFrame(() => { Plotly.Plots.resize(matrixDiv); drawState(); drawCurves(); });
   }
@@ -309,7 +309,11 @@
       const own = segs.filter((q) => q[2] !== w.body);
       const test = (list, kind) => {
         let best = [Infinity, null, null];
-        tyres[wi].forEach((p) => list.forEach(([a, c]) => { const [d, q] = segDist(p, a, c); if (d < best[0]) best = [d, p, q]; }));
+        const ty = tyres[wi];
+        ty.forEach((p) => list.forEach(([a, c]) => { const [d, q] = segDist(p, a, c); if (d < best[0]) best = [d, p, q]; }));
+        // segment ends against the tyre's edges (its straight sides have no vertex in the middle)
+        list.forEach(([a, c]) => [a, c].forEach((e) => ty.forEach((p, k) => {
+          const [d, q] = segDist(e, p, ty[(k + 1) % ty.length]); if (d < best[0]) best = [d, q, e]; })));
         if (best[1]) cands.push([best[0], best[1], best[2], kind]);
       };
       test(own, "links");
@@ -326,7 +330,7 @@
     box.innerHTML = s.join("");
     const c = det.curves, t = state.travel, l = state.lean;
     $("state-readout").innerHTML =
-      `scrub ${fmt(c.scrub_mm[t][l], 2)} mm · heave ${fmt(c.heave_mm[t][l], 2)} mm · camber error L ${fmt(c.camber_error_left_deg[t][l], 2)} / R ${fmt(c.camber_error_right_deg[t][l], 2)} deg · min gap ${fmt(c.gap_mm[t][l], 0)} mm`;
+      `scrub ${fmt(c.scrub_mm[t][l], 2)} mm · heave ${fmt(c.heave_mm[t][l], 2)} mm · camber error L ${fmt(c.camber_error_left_deg[t][l], 2)} / R ${fmt(c.camber_error_right_deg[t][l], 2)} deg · ${esc(det.gap_label)} ${fmt(c.gap_mm[t][l], 0)} mm`;
   }
   function coil(a, b, amp) {
     const d = [b[0] - a[0], b[1] - a[1]], L = Math.hypot(d[0], d[1]) || 1, u = [d[0] / L, d[1] / L], nrm = [-u[1], u[0]];
@@ -341,7 +345,7 @@
     ["curve-scrub", "scrub [mm]", ["scrub_mm"]],
     ["curve-heave", "heave [mm]", ["heave_mm"]],
     ["curve-camber", "camber error [deg] (L solid, R dashed)", ["camber_error_left_deg", "camber_error_right_deg"]],
-    ["curve-gap", "min front-view gap [mm]", ["gap_mm"]],
+    ["curve-gap", null, ["gap_mm"]],
   ];
   function drawCurves() {
     if (!cur) return;
@@ -357,7 +361,7 @@
         hovertemplate: `lean %{x:.1f} deg<br>%{y:.3f}<extra>travel ${fmt(tr, 0)} mm</extra>` })));
       const lean = run.lean_deg[state.lean];
       Plotly.react(el, traces, {
-        title: { text: title, font: { size: 12 }, x: 0.02, xanchor: "left" },
+        title: { text: title || `${det.gap_label} [mm]`, font: { size: 12 }, x: 0.02, xanchor: "left" },
         margin: { l: 48, r: 8, t: 28, b: 34 }, xaxis: { title: { text: "lean [deg]", font: { size: 11 } }, zeroline: false, gridcolor: "#eef1f3" },
         yaxis: { zeroline: true, zerolinecolor: "#c9d1d8", gridcolor: "#eef1f3" }, paper_bgcolor: "#fff", plot_bgcolor: "#fff",
         legend: { orientation: "h", y: 1.25, x: 1, xanchor: "right", font: { size: 10 } }, font: { size: 11 },
