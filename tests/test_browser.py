@@ -1,0 +1,136 @@
+"""The explorer page in a real browser: headless Chromium (system package) driven by Playwright.
+
+Skips, saying why, only where no browser can be had (no playwright package or no Chromium binary).
+"""
+from __future__ import annotations
+
+import os
+import shutil
+
+import pytest
+
+from test_explorer import fixture_run
+
+ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+        "--disable-background-networking", "--disable-component-update", "--disable-sync"]
+
+
+def _chromium() -> str | None:
+    for p in (os.environ.get("TILTOPT_CHROMIUM"), "/usr/bin/chromium", shutil.which("chromium"),
+              shutil.which("chromium-browser")):
+        if p and os.path.exists(p):
+            return p
+    return None
+
+
+@pytest.fixture(scope="module")
+def page(tmp_path_factory):
+    sync_api = pytest.importorskip("playwright.sync_api", reason="the playwright package is not installed")
+    exe = _chromium()
+    if exe is None:
+        pytest.skip("no Chromium binary (install the Debian package 'chromium'); browser tests skipped")
+    from tiltopt.reports.explorer import write_explorer
+
+    run, mechs, front, res = fixture_run()
+    path = write_explorer(tmp_path_factory.mktemp("page") / "explorer.html", [run])
+    with sync_api.sync_playwright() as p:
+        try:
+            browser = p.chromium.launch(executable_path=exe, args=ARGS)
+        except Exception as exc:  # a browser that cannot start here is "no browser to be had"
+            pytest.skip(f"Chromium at {exe} does not start: {exc}")
+        pg = browser.new_page(viewport={"width": 1400, "height": 900})
+        errors = []
+        pg.on("console", lambda m: errors.append(m.text) if m.type == "error" else None)
+        pg.on("pageerror", lambda e: errors.append(str(e)))
+        requests = []
+        pg.on("request", lambda r: requests.append(r.url))
+        pg.goto(path.as_uri())
+        pg.wait_for_function("window.tiltoptExplorer !== undefined")
+        pg.wait_for_selector("#matrix .main-svg")
+        yield pg, errors, requests, front
+        browser.close()
+
+
+def test_loads_without_errors_or_network(page):
+    pg, errors, requests, front = page
+    assert errors == []
+    # offline: the page asks for nothing but itself (file: and data: URLs)
+    assert all(u.startswith(("file:", "data:", "blob:")) for u in requests), requests
+    assert pg.locator("#safety").inner_text().startswith("Caution")
+
+
+def _point_xy(pg, row):
+    """Page pixel of candidate ``row`` in the first panel (x = objective 0, y = objective 1)."""
+    return pg.evaluate("""(row) => {
+        const gd = document.getElementById('matrix');
+        const E = window.tiltoptExplorer, D = E.data;
+        const t = gd._fullData[0];
+        const k = E.traceRows[0].indexOf(row);
+        const xa = gd._fullLayout[t.xaxes[0].replace('x', 'xaxis')];
+        const ya = gd._fullLayout[t.yaxes[1].replace('y', 'yaxis')];
+        const r = gd.getBoundingClientRect();
+        const vx = t.dimensions[0].values[k], vy = t.dimensions[1].values[k];
+        return [r.left + xa._offset + xa.l2p(vx), r.top + ya._offset + ya.l2p(vy)];
+    }""", row)
+
+
+def test_click_opens_the_candidate_detail(page):
+    pg, errors, requests, front = page
+    # pick a front design that no other design hides in the first panel
+    F = front[["obj.max_scrub", "obj.max_heave"]].to_numpy()
+    import numpy as np
+
+    d = np.hypot(*(F[:, None, :] - F[None, :, :]).transpose(2, 0, 1) / np.ptp(F, axis=0)[:, None, None])
+    np.fill_diagonal(d, np.inf)
+    row = int(np.argmax(d.min(axis=1)))
+    x, y = _point_xy(pg, row)
+    pg.mouse.move(x, y)
+    pg.wait_for_timeout(200)
+    pg.mouse.click(x, y)
+    pg.wait_for_selector("#detail:not([hidden])", timeout=5000)
+    assert pg.locator("#detail-id").inner_text() == front["candidate_id"].iloc[row]
+    assert pg.locator("#sheet-cmd").inner_text() == \
+        f"tiltopt sheet results/fixture-a --candidate {front['candidate_id'].iloc[row]}"
+    assert pg.locator("#drawing svg .tyre").count() == 2
+    assert errors == []
+
+
+def test_slider_changes_the_drawing(page):
+    pg, errors, requests, front = page
+    if pg.locator("#detail").get_attribute("hidden") is not None:
+        pg.evaluate("window.tiltoptExplorer.openDetail(0)")
+    pg.wait_for_selector("#drawing svg .tyre")
+    before = pg.locator("#drawing svg .tyre").first.get_attribute("points")
+    lean0 = pg.locator("#drawing svg").get_attribute("data-lean")
+    pg.locator("#lean-slider").fill("8")
+    after = pg.locator("#drawing svg .tyre").first.get_attribute("points")
+    assert pg.locator("#drawing svg").get_attribute("data-lean") != lean0
+    assert float(pg.locator("#drawing svg").get_attribute("data-lean")) == pytest.approx(20.0)
+    assert after != before
+    assert "20.0 deg" in pg.locator("#lean-value").inner_text()
+    # the travel selector draws another state
+    pg.locator("#travel-select").select_option("2")
+    assert float(pg.locator("#drawing svg").get_attribute("data-travel")) == pytest.approx(30.0)
+    assert errors == []
+
+
+def test_colour_by_selector(page):
+    pg, errors, requests, front = page
+    pg.locator("#colour-by").select_option("var.outer_dy")
+    colours = pg.evaluate("document.getElementById('matrix')._fullData[0].marker.color")
+    want = front["var.outer_dy"].tolist()
+    assert colours == pytest.approx(want)
+    title = pg.evaluate("document.getElementById('matrix')._fullData[0].marker.colorbar.title.text")
+    assert title == "outer dy [mm]"
+    pg.locator("#colour-by").select_option("__run")
+    assert pg.evaluate("document.getElementById('matrix')._fullData[0].marker.color") == [0] * len(front)
+    # infeasible designs on demand, grey
+    pg.locator("#show-infeasible").check()
+    assert pg.evaluate("document.getElementById('matrix')._fullData[1].visible") is True
+    assert pg.evaluate("document.getElementById('matrix')._fullData[1].marker.color") == "#b4b9be"
+    # the parallel-coordinates view draws with the same colouring
+    pg.locator("#view-parallel").click()
+    pg.wait_for_selector("#parallel .main-svg")
+    n_dims = pg.evaluate("document.getElementById('parallel')._fullData[0].dimensions.length")
+    assert n_dims == 3
+    assert errors == []
