@@ -70,15 +70,34 @@ def explore_cmd(run_dirs, output, do_serve, port, detail_limit, plotly_beside):
 @click.option("--sag-mm", type=float, default=None, help="Static sag for the suggested spring rate [default: 30% of the bump travel].")
 @click.option("--corner-load-n", type=float, default=None,
               help="Static vertical load per front wheel, N, for the suggested spring rate [default: from the loads].")
+@click.option("--loads", "loads_file", type=click.Path(dir_okay=False), default=None,
+              help="Loads file (vehicle, load cases) for member sizing and tilt-lock torque [default: the run's].")
+@click.option("--shell", "shell_file", type=click.Path(dir_okay=False), default=None,
+              help="Body shell file for the shell section and clearances [default: the run's].")
 @click.option("--lean-limit", type=float, default=30.0, show_default=True, help="Mechanism file only: lean limit, deg.")
 @click.option("--travel", default="-30,0,30", show_default=True, help="Mechanism file only: travels, mm.")
-def sheet_cmd(source, candidate, output, jig_datum, sag_mm, corner_load_n, lean_limit, travel):
+def sheet_cmd(source, candidate, output, jig_datum, sag_mm, corner_load_n, loads_file, shell_file, lean_limit, travel):
     """Write the build sheet of a design: sheet.html, pivots.csv, candidate.toml, linkage.dxf.
 
     SOURCE is a results folder (with --candidate ID) or a mechanism .toml file.
     """
     jig = _pair(jig_datum, "--jig-datum")
     src = Path(source)
+    extra = {}
+    if loads_file:
+        try:
+            from kinematics.loads import load_loads
+        except ModuleNotFoundError:
+            raise InputError("--loads needs the sizing part (kinematics.loads), which is not installed.",
+                             key="--loads") from None
+        extra["loads"] = load_loads(loads_file)
+    if shell_file:
+        try:
+            from kinematics.shell import load_shell
+        except ModuleNotFoundError:
+            raise InputError("--shell needs the clearance part (kinematics.shell), which is not installed.",
+                             key="--shell") from None
+        extra["shell"] = load_shell(shell_file)
     if src.is_file():
         from kinematics.mechanism import load_mechanism
         from kinematics.units import parse_values
@@ -90,7 +109,7 @@ def sheet_cmd(source, candidate, output, jig_datum, sag_mm, corner_load_n, lean_
         paths = write_sheet(out, SheetInputs(
             mech=mech, candidate_id=mech.name, lean_limit_deg=lean_limit,
             travel_mm=[float(t) for t in parse_values(travel, "--travel", "mm")], jig_datum=jig, sag_mm=sag_mm,
-            corner_load_n=corner_load_n, provenance={"config": str(src)},
+            corner_load_n=corner_load_n, provenance={"config": str(src)}, **extra,
             command=f"tiltopt sheet {src} --lean-limit {lean_limit:g} --travel {travel}"))
     else:
         if not src.is_dir():
@@ -100,6 +119,7 @@ def sheet_cmd(source, candidate, output, jig_datum, sag_mm, corner_load_n, lean_
                              "exact command).", source, "--candidate")
         from ..reports.runs import sheet_from_run
 
-        paths = sheet_from_run(src, candidate, output, jig_datum=jig, sag_mm=sag_mm, corner_load_n=corner_load_n)
+        paths = sheet_from_run(src, candidate, output, jig_datum=jig, sag_mm=sag_mm, corner_load_n=corner_load_n,
+                               **extra)
     for key in ("sheet", "pivots", "candidate", "dxf"):
         click.echo(f"{key}: {paths[key]}")

@@ -332,7 +332,7 @@ def _pts(a) -> str:
 
 def front_view_svg(spec: dict, points, camber, pose=(0.0, 0.0, 0.0), shell_poly=None, *,
                    dimensions: bool = False, labels: Sequence[str] | None = None, title: str = "",
-                   width: str = "100%", show_gaps: bool = True) -> str:
+                   width: str = "100%", show_gaps: bool = True, jig_datum=None) -> str:
     """SVG of one state.
 
     Parameters
@@ -373,9 +373,10 @@ def front_view_svg(spec: dict, points, camber, pose=(0.0, 0.0, 0.0), shell_poly=
     if title:
         parts.append(f"<title>{html.escape(title)}</title>")
     # ground
-    parts.append(f'<rect x="{_f(vb[0])}" y="0" width="{_f(vb[2])}" height="{_f(vb[3] + vb[1])}" fill="#efe9e1"/>')
-    parts.append(f'<line x1="{_f(vb[0])}" y1="0" x2="{_f(vb[0] + vb[2])}" y2="0" stroke="{GROUND_COLOUR}" '
-                 f'stroke-width="{_f(lw * 1.2)}"/>')
+    parts.append(f'<rect x="{_f(vb[0] - 2 * span)}" y="0" width="{_f(vb[2] + 4 * span)}" height="{_f(vb[3] + vb[1])}" '
+                 f'fill="#efe9e1"/>')
+    parts.append(f'<line x1="{_f(vb[0] - 2 * span)}" y1="0" x2="{_f(vb[0] + vb[2] + 2 * span)}" y2="0" '
+                 f'stroke="{GROUND_COLOUR}" stroke-width="{_f(lw * 1.2)}"/>')
     if shell_g is not None:
         parts.append(f'<polygon points="{_pts(shell_g)}" fill="{SHELL_COLOUR}" fill-opacity="0.12" '
                      f'stroke="{SHELL_COLOUR}" stroke-width="{_f(lw)}" stroke-dasharray="{_f(lw * 6)},{_f(lw * 3)}"/>')
@@ -416,6 +417,13 @@ def front_view_svg(spec: dict, points, camber, pose=(0.0, 0.0, 0.0), shell_poly=
         d = lw * 6
         parts.append(f'<path d="M{_f(c[0] - d)},{_f(-c[1])}H{_f(c[0] + d)}M{_f(c[0])},{_f(-c[1] + d)}V{_f(-c[1] - d)}" '
                      f'stroke="#111" stroke-width="{_f(lw)}"/>')
+    if jig_datum is not None:
+        jy, jz = float(jig_datum[0]), float(jig_datum[1])
+        d = lw * 7
+        parts.append(f'<g stroke="#c8553d" stroke-width="{_f(lw)}" fill="none"><circle cx="{_f(jy)}" cy="{_f(-jz)}" '
+                     f'r="{_f(d * 0.6)}"/><path d="M{_f(jy - d)},{_f(-jz)}H{_f(jy + d)}M{_f(jy)},{_f(-jz + d)}'
+                     f'V{_f(-jz - d)}"/></g><text x="{_f(jy + d)}" y="{_f(-jz + fs)}" font-size="{_f(fs)}" '
+                     f'fill="#c8553d">J</text>')
     if show_gaps:
         parts += _gap_marks(spec, P, tyres, shell_g, lw, fs)
     if dimensions:

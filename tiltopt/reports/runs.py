@@ -57,7 +57,8 @@ def _row_of(run, candidate_id: str) -> tuple[dict, bool]:
 
 
 def sheet_from_run(run_dir, candidate_id: str, out_dir=None, *, run=None, jig_datum=(0.0, 0.0),
-                   sag_mm: float | None = None, corner_load_n: float | None = None) -> dict[str, Path]:
+                   sag_mm: float | None = None, corner_load_n: float | None = None, loads=None,
+                   shell=None) -> dict[str, Path]:
     """Write the build sheet of one candidate of a run (default folder ``RUN_DIR/sheets/ID``)."""
     from .sheet import SheetInputs, write_sheet
 
@@ -87,7 +88,8 @@ def sheet_from_run(run_dir, candidate_id: str, out_dir=None, *, run=None, jig_da
     inp = SheetInputs(
         mech=mech, candidate_id=str(candidate_id), run_id=str(getattr(run, "run_id", "")),
         lean_limit_deg=env["lean_limit_deg"], travel_mm=env["travel_mm"], lean_step_deg=env.get("lean_step_deg"),
-        row=row, units=run_units(run), shell=run_shell(run), loads=run_loads(run), jig_datum=tuple(jig_datum),
+        row=row, units=run_units(run), shell=shell if shell is not None else run_shell(run),
+        loads=loads if loads is not None else run_loads(run), jig_datum=tuple(jig_datum),
         sag_mm=sag_mm, corner_load_n=corner_load_n,
         provenance={"config": meta.get("config"), "seed": meta.get("seed"),
                     "versions": meta.get("versions") or versions()},

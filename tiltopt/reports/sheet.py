@@ -224,8 +224,11 @@ def _spring_data(model: Model, an: Analysis, inp: SheetInputs) -> tuple[list[lis
     if corner is None and inp.loads is not None:
         corner = _corner_load_from(inp.loads)
     sag = inp.sag_mm
-    if sag is None and len(travel) and travel.max() > 0:
-        sag = round(0.3 * float(travel.max()), 1)
+    sag_note = ""
+    if sag is None and len(travel) and travel.max() > travel.min():
+        # common practice, no source: static sag about 30 % of the total wheel travel
+        sag = round(0.3 * float(travel.max() - travel.min()), 1)
+        sag_note = " (30 % of the total travel, a common starting point; set --sag-mm)"
     rows = []
     P = np.asarray(an.geom.points[0])
     for k, s in enumerate(mech.springs):
@@ -244,7 +247,7 @@ def _spring_data(model: Model, an: Analysis, inp: SheetInputs) -> tuple[list[lis
         notes.append("No suggested rate: give the static vertical load per front wheel (--corner-load-n) "
                      "or a loads file with the vehicle.")
     else:
-        notes.append(f"Suggested rate: each spring alike, for a static sag of {_num(sag, 1)} mm under "
+        notes.append(f"Suggested rate: each spring alike, for a static sag of {_num(sag, 1)} mm{sag_note} under "
                      f"{_num(corner, 0)} N per front wheel: k = 2 F / (sag x sum of MR^2), MR at travel "
                      f"{_num(travel[t0], 0)} mm; preload and geometric stiffness ignored.")
     return rows, notes
@@ -252,7 +255,9 @@ def _spring_data(model: Model, an: Analysis, inp: SheetInputs) -> tuple[list[lis
 
 def _corner_load_from(loads) -> float | None:
     veh = getattr(loads, "vehicle", None)
-    mass = getattr(veh, "mass_kg", None) if veh is not None else getattr(loads, "mass_kg", None)
+    mass = None
+    for name in ("total_mass_kg", "mass_kg"):
+        mass = mass if mass is not None else getattr(veh if veh is not None else loads, name, None)
     share = getattr(veh, "front_share", None) if veh is not None else getattr(loads, "front_share", None)
     if mass is None or share is None:
         return None
@@ -280,8 +285,8 @@ def _clearance_section(an: Analysis) -> str:
                _num(g["ground_mm"][0, ti, li], 1)]
         cr = an.clearance_result
         if cr is not None:
-            row += [_num(np.min(cr.wheel_link_mm[0, ti, li]), 1), _num(np.min(cr.wheel_shell_mm[0, ti, li]), 1),
-                    _num(np.min(cr.ground_mm[0, ti, li]), 1), _num(cr.max_steer_deg[0, ti, li], 0)]
+            row += [_clr(np.min(cr.wheel_link_mm[0, ti, li])), _clr(np.min(cr.wheel_shell_mm[0, ti, li])),
+                    _clr(np.min(cr.ground_mm[0, ti, li])), _num(cr.max_steer_deg[0, ti, li], 0)]
         rows.append(row)
     heads = ["lean [deg]", "travel [mm]", "reached", "tyre to links, front view [mm]",
              "tyre to shell section, front view [mm]", "lowest link point [mm]"]
@@ -297,9 +302,17 @@ def _clearance_section(an: Analysis) -> str:
                   "min_clearance_mm": "smallest clearance, 3-D", "min_ground_mm": "ground clearance",
                   "max_overall_width_mm": "overall width", "total_slot_length_mm": "total slot length",
                   "inside_violation_mm": "pivots outside their zone", "outside_violation_mm": "wheels inside the shell"}
-        rows = [[_e(labels.get(k, k)), _num(v[0], 1), "mm"] for k, v in an.clearance.items()]
+        rows = []
+        for k, v in an.clearance.items():
+            if k.endswith("_error_mm"):
+                continue
+            err = an.clearance.get(k.replace("_mm", "_error_mm"))
+            extra = f" (± {_num(err[0], 1)})" if err is not None and np.isfinite(err[0]) and err[0] > 0 else ""
+            rows.append([_e(labels.get(k, k)), _clr(v[0]) + extra, "mm"])
         s += "<h3>3-D clearance over the whole envelope (lean, travel and steer)</h3>"
         s += _table(["figure", "value", "unit"], rows)
+        s += ('<p class="note">"nothing near": no member or shell within reach of the tyre; ± is the '
+              'estimate\'s error bound given by the clearance part.</p>')
     return s
 
 
@@ -332,12 +345,23 @@ def _sizing_sections(an: Analysis, members: list[dict]) -> tuple[str, str]:
     if states:
         srow = []
         for s in states:
-            srow.append([_e(getattr(s, "name", "")), _num(getattr(s, "lean_deg", None), 1),
-                         _num(getattr(s, "travel_mm", None), 0), "yes" if getattr(s, "locked", False) else "no",
-                         _e(getattr(s, "description", ""))])
-        loads.append(_table(["load case", "lean [deg]", "travel [mm]", "tilt locked", "description"], srow,
-                            num_from=1))
+            srow.append([_e(getattr(s, "name", "")), _e(getattr(s, "kind", "")), _num(getattr(s, "lean_deg", None), 1),
+                         _num(getattr(s, "travel_mm", None), 0), _num(getattr(s, "front_load_n", None), 0),
+                         _num(getattr(s, "brake_g", None), 2), "yes" if getattr(s, "locked", False) else "no"])
+        loads.append(_table(["load state", "kind", "lean [deg]", "travel [mm]", "front load [N]", "brake [g]",
+                             "tilt locked"], srow, num_from=2))
     return t, "".join(loads)
+
+
+def _clr(v) -> str:
+    """A clearance figure: NaN = state not reached, +inf = nothing within reach."""
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        return "–"
+    if v == float("inf"):
+        return "nothing near"
+    return _num(v, 1)
 
 
 def _same(a, b) -> bool:
@@ -452,6 +476,7 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
     ti0 = int(np.argmin(np.abs(np.asarray(r.travel_mm))))
     pose0 = an.pose[0, ti0, 0] if r.converged[0, ti0, 0] else (0.0, 0.0, 0.0)
     drawing = front_view_svg(spec, P, geom.static_camber[0], (0.0, 0.0, 0.0), an.shell_poly, dimensions=True,
+                             jig_datum=jig if any(abs(v) > 1e-9 for v in jig) else None,
                              labels=labels, title=f"{inp.candidate_id}: front view at the design position",
                              show_gaps=False)
     lean_draw = front_view_svg(spec, r.points[0, ti0, -1], r.camber[0, ti0, -1], an.pose[0, ti0, -1],

@@ -279,8 +279,8 @@
     const poly = (a) => a.map(X).join(" ");
     const s = [];
     s.push(`<svg xmlns="http://www.w3.org/2000/svg" viewBox="${b.y0} ${-b.z1} ${b.y1 - b.y0} ${b.z1 - b.z0}" preserveAspectRatio="xMidYMid meet" data-lean="${lean}" data-travel="${run.travel_mm[state.travel]}">`);
-    s.push(`<rect x="${b.y0}" y="0" width="${b.y1 - b.y0}" height="${-b.z0}" fill="#efe9e1"/>`);
-    s.push(`<line x1="${b.y0}" y1="0" x2="${b.y1}" y2="0" stroke="#6b5b4b" stroke-width="${lw * 1.2}"/>`);
+    s.push(`<rect x="${b.y0 - 2 * b.span}" y="0" width="${b.y1 - b.y0 + 4 * b.span}" height="${-b.z0}" fill="#efe9e1"/>`);
+    s.push(`<line x1="${b.y0 - 2 * b.span}" y1="0" x2="${b.y1 + 2 * b.span}" y2="0" stroke="#6b5b4b" stroke-width="${lw * 1.2}"/>`);
     let shellG = null;
     if (run.shell) {
       shellG = run.shell.map((q) => toGlobal(q, st.o));
