@@ -140,3 +140,24 @@ def test_merged_front_of_two_runs():
     F = front[["obj.max_scrub", "obj.max_heave", "obj.max_camber_error"]].to_numpy()
     expect = [not any(np.all(F[j] <= F[i]) and np.any(F[j] < F[i]) for j in range(len(F))) for i in range(len(F))]
     assert data["merged"] == [bool(e and f) for e, f in zip(expect, front["feasible"])]
+
+
+def test_serve_binds_to_loopback_only(tmp_path):
+    import threading
+    import urllib.request
+
+    from tiltopt.commands.reports import make_server
+
+    page = tmp_path / "explorer.html"
+    page.write_text("<html>ok</html>", encoding="utf-8")
+    httpd = make_server(page, 0)
+    try:
+        host, port = httpd.server_address[:2]
+        assert host == "127.0.0.1"
+        t = threading.Thread(target=httpd.handle_request, daemon=True)
+        t.start()
+        with urllib.request.urlopen(f"http://127.0.0.1:{port}/explorer.html", timeout=5) as resp:
+            assert resp.read() == b"<html>ok</html>"
+        t.join(5)
+    finally:
+        httpd.server_close()

@@ -24,10 +24,20 @@ def _pair(text: str, option: str) -> tuple[float, float]:
         raise InputError(f"expected two numbers 'Y,Z' in mm (for example 0,150). Got {text!r}.", key=option) from None
 
 
+class _QuietHandler(http.server.SimpleHTTPRequestHandler):
+    def log_message(self, format, *args):  # noqa: A002 (the base class's name)
+        pass
+
+
+def make_server(path: Path, port: int = 0) -> http.server.ThreadingHTTPServer:
+    """An HTTP server for the page's folder, bound to 127.0.0.1 only (never all interfaces)."""
+    handler = functools.partial(_QuietHandler, directory=str(Path(path).parent))
+    return http.server.ThreadingHTTPServer(("127.0.0.1", port), handler)
+
+
 def serve(path: Path, port: int = 0, open_browser: bool = True):
     """Serve the page's folder on 127.0.0.1 only, until Ctrl-C."""
-    handler = functools.partial(http.server.SimpleHTTPRequestHandler, directory=str(path.parent))
-    httpd = http.server.ThreadingHTTPServer(("127.0.0.1", port), handler)
+    httpd = make_server(path, port)
     url = f"http://127.0.0.1:{httpd.server_address[1]}/{path.name}"
     click.echo(f"serving {url} (127.0.0.1 only; Ctrl-C stops)")
     if open_browser:

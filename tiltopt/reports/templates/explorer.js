@@ -134,7 +134,7 @@
   const parDiv = $("parallel");
   let parDrawn = false;
   function drawParallel() {
-    const idx = $("show-infeasible").checked ? feasIdx.concat(infIdx) : feasIdx;
+    const idx = feasIdx;   // infeasible designs are greyed in the scatter matrix only
     const col = colourOf(idx);
     const pdims = D.objectives.filter((k) => colLookup[k]).map((k) => ({ label: withUnit(colLookup[k]), values: idx.map((i) => D.values[k][i]) }));
     const trace = { type: "parcoords", dimensions: pdims,
@@ -151,6 +151,9 @@
     $("view-parallel").classList.toggle("active", v === "parallel");
     matrixDiv.hidden = v !== "matrix";
     parDiv.hidden = v !== "parallel";
+    $("view-hint").textContent = v === "parallel"
+      ? "Drag along an axis to filter designs; drag an axis title to reorder. Feasible front designs only; click a point in the scatter matrix to open a design."
+      : "Hover a point for its values; click a point to open its design. Objectives are shown as minimised.";
     if (v === "parallel") drawParallel(); else Plotly.Plots.resize(matrixDiv);
   }
   $("view-matrix").addEventListener("click", () => setView("matrix"));
@@ -214,7 +217,8 @@
     const rowsOf = (g) => D.columns.filter((c) => c.group === g).map((c) =>
       `<tr><td>${esc(c.label)}</td><td class="num">${fmt(D.values[c.key][i], 3)}</td><td class="unit">${esc(c.unit === "-" ? "" : c.unit)}</td></tr>`).join("");
     $("var-table").innerHTML = rowsOf("variable") || "<tr><td>none</td></tr>";
-    $("metric-table").innerHTML = rowsOf("objective") + rowsOf("metric");
+    $("metric-table").innerHTML = `<tr><th colspan="3">objectives, as minimised</th></tr>` + rowsOf("objective") +
+      `<tr><th colspan="3">metrics</th></tr>` + rowsOf("metric");
   }
 
   $("lean-slider").addEventListener("input", (e) => { state.lean = Number(e.target.value); drawState(); markCurves(); });
@@ -274,7 +278,7 @@
       return;
     }
     const b = cur.bounds, spec = run.spec, P = pointsOf(st);
-    const lw = b.span / 260, fs = b.span / 40;
+    const hz = b.z1 - b.z0, lw = hz / 300, fs = hz / 26;
     const X = (p) => `${p[0].toFixed(1)},${(-p[1]).toFixed(1)}`;
     const poly = (a) => a.map(X).join(" ");
     const s = [];
