@@ -3,6 +3,8 @@ provenance, and reading what the pages need out of a results run."""
 from __future__ import annotations
 
 import os
+
+import numpy as np
 import re
 import tempfile
 from pathlib import Path
@@ -125,12 +127,15 @@ def run_envelope(run) -> dict:
     spec = _get(run, "config.spec")
     env = _get(spec, "envelope")
     meta = getattr(run, "meta", {}) or {}
-    lean = _get(env, "lean_limit_deg") or _get(meta, "envelope.lean_limit_deg", "config_data.envelope.lean_limit_deg")
-    step = _get(env, "lean_step_deg") or _get(meta, "envelope.lean_step_deg")
-    travel = _get(env, "travel_mm") or _get(meta, "envelope.travel_mm")
+
+    def pick(key):
+        v = _get(env, key)
+        return v if v is not None else _get(meta, f"envelope.{key}", f"problem.envelope.{key}")
+
+    lean, step, travel = pick("lean_limit_deg"), pick("lean_step_deg"), pick("travel_mm")
     return {"lean_limit_deg": float(lean if lean is not None else 30.0),
-            "lean_step_deg": float(step) if step else None,
-            "travel_mm": [float(t) for t in (travel if travel is not None else [0.0])]}
+            "lean_step_deg": float(step) if step is not None else None,
+            "travel_mm": [float(t) for t in (np.atleast_1d(travel) if travel is not None else [0.0])]}
 
 
 def run_shell(run):

@@ -24,7 +24,7 @@ import numpy as np
 from kinematics.mechanism import Mechanism, mechanism_to_toml, split_ref
 from kinematics.model import Model
 
-from .analysis import Analysis, analyse, lean_grid
+from .analysis import Analysis, analyse, envelope_mask, lean_grid
 from .common import SAFETY, atomic_write_text, column_label, column_unit, versions
 from .drawing import BODY_COLOURS, front_view_svg
 from .dxf import write_dxf
@@ -506,11 +506,13 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
     var_rows = [[_e(column_label(c)), _num(v, 2), _e(column_unit(c, inp.units))]
                 for c, v in inp.row.items() if c.startswith("var.")]
     conv_all = bool(r.converged[0].all())
+    em = envelope_mask(r.lean_deg, inp.lean_limit_deg, inp.lean_step_deg)
     kin_rows = [
         ["track at the design position", _num(float(r.track[0, ti0, 0]), 1), "mm"],
-        ["max |scrub| over the envelope", _num(np.nanmax(np.abs(r.scrub[0])), 2), "mm"],
-        ["max |heave| over the envelope", _num(np.nanmax(np.abs(r.heave[0])), 2), "mm"],
-        ["max |camber error| over the envelope", _num(np.degrees(np.nanmax(np.abs(r.camber_error[0]))), 2), "deg"],
+        ["max |scrub| over the envelope", _num(np.nanmax(np.abs(r.scrub[0][:, em])), 2), "mm"],
+        ["max |heave| over the envelope", _num(np.nanmax(np.abs(r.heave[0][:, em])), 2), "mm"],
+        ["max |camber error| over the envelope", _num(np.degrees(np.nanmax(np.abs(r.camber_error[0][:, em]))), 2),
+         "deg"],
         ["every envelope state reached", "yes" if conv_all else '<span class="bad">NO</span>', ""],
     ]
     scen = [[_e(k), _e(v)] for k, v in inp.scenario.items()]
