@@ -161,3 +161,14 @@ def test_serve_binds_to_loopback_only(tmp_path):
         t.join(5)
     finally:
         httpd.server_close()
+
+
+def test_best_compromise_is_nearest_the_ideal_point():
+    """Min-max scaled objectives, Euclidean distance to the ideal point (the textbook compromise
+    programming choice, e.g. Deb, Multi-Objective Optimization using Evolutionary Algorithms, 2001, sec. 8.x,
+    from memory); worked by hand: scaled rows (0,1), (0.5,0.4), (1,0) -> distances 1, 0.64, 1."""
+    from tiltopt.reports.runs import best_compromise
+
+    front = pd.DataFrame({"candidate_id": ["a", "b", "c", "d"], "feasible": [True, True, True, False],
+                          "obj.max_scrub": [10.0, 15.0, 20.0, 0.0], "obj.max_heave": [5.0, 3.0, 0.0, 0.0]})
+    assert best_compromise(front) == "b"
