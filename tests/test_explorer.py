@@ -172,3 +172,104 @@ def test_best_compromise_is_nearest_the_ideal_point():
     front = pd.DataFrame({"candidate_id": ["a", "b", "c", "d"], "feasible": [True, True, True, False],
                           "obj.max_scrub": [10.0, 15.0, 20.0, 0.0], "obj.max_heave": [5.0, 3.0, 0.0, 0.0]})
     assert best_compromise(front) == "b"
+
+
+class _FakeTemplate:
+    """Stands in for problems.templates.Template (CONTRACTS.md) until the real one lands."""
+
+    def __init__(self, model, mechs, ids, X):
+        self.name, self.model = "wishbone_rocker", model
+        self._by_x = {tuple(np.round(x, 9)): mechs[c] for c, x in zip(ids, X)}
+
+        class V:
+            def __init__(self, n):
+                self.name, self.unit = n, "mm"
+        self.variables = [V("upper_pivot_dz"), V("lower_pivot_dz"), V("outer_dy")]
+
+    def mechanism_for(self, x):
+        return self._by_x[tuple(np.round(np.asarray(x, float), 9))]
+
+    def geometry(self, X):
+        return self.model.batch_geometry(np.stack([self.model.geometry_from(self.mechanism_for(x)).points[0]
+                                                   for x in X]))
+
+
+class _FakeRun:
+    """Stands in for optimizer.results.Run (CONTRACTS.md) until the real one lands."""
+
+    def __init__(self):
+        run, mechs, front, res = fixture_run()
+        self._run = run
+        self.run_id = "fixture-a"
+        self.front = front
+        self.evaluations = run.evaluations
+        var = [c for c in front.columns if c.startswith("var.")]
+        ev = run.evaluations
+        self.template = _FakeTemplate(run.model, mechs, list(ev["candidate_id"]), ev[var].to_numpy(float))
+        self.meta = {"seed": 3, "config": "configs/fixture.toml", "versions": {"tiltopt": "test"},
+                     "units": run.units}
+
+        class Env:
+            lean_limit_deg, lean_step_deg, travel_mm = LEAN_LIMIT, 2.5, np.array(TRAVEL)
+
+        class Spec:
+            envelope, shell, loads = Env, None, None
+
+        class Config:
+            spec = Spec
+
+        self.config = Config
+        self._mechs = mechs
+
+    def candidate_x(self, cid):
+        row = self.evaluations[self.evaluations["candidate_id"] == cid].iloc[0]
+        return np.array([row[f"var.{v.name}"] for v in self.template.variables])
+
+    def candidate_mechanism(self, cid):
+        return self.template.mechanism_for(self.candidate_x(cid))
+
+
+def test_demo_outputs_from_a_run(tmp_path, monkeypatch):
+    import tiltopt.reports.runs as runs_mod
+    from tiltopt.reports import demo_outputs
+
+    fake = _FakeRun()
+    monkeypatch.setattr(runs_mod, "load", lambda d: fake)
+    out = demo_outputs(tmp_path)
+    assert out["explorer"].exists() and out["sheet"].exists()
+    best = runs_mod.best_compromise(fake.front)
+    assert out["sheet"].parent.name == best
+    html = out["sheet"].read_text(encoding="utf-8")
+    assert f"tiltopt sheet {tmp_path} --candidate {best}" in html
+    assert "configs/fixture.toml" in html and "seed 3" in html
+    with pytest.raises(Exception, match="no candidate 'nope'"):
+        runs_mod.sheet_from_run(tmp_path, "nope", run=fake)
+
+
+def test_cli_explore_and_sheet(tmp_path, monkeypatch):
+    from click.testing import CliRunner
+
+    import tiltopt.reports.runs as runs_mod
+    from tiltopt.cli import main
+
+    fake = _FakeRun()
+    monkeypatch.setattr(runs_mod, "load", lambda d: fake)
+    run_dir = tmp_path / "run"
+    run_dir.mkdir()
+    r = CliRunner().invoke(main, ["explore", str(run_dir), "-o", str(tmp_path / "x.html"), "--plotly-beside"])
+    assert r.exit_code == 0, r.output
+    assert (tmp_path / "x.html").exists() and (tmp_path / "plotly.min.js").exists()
+    assert '<script src="plotly.min.js"></script>' in (tmp_path / "x.html").read_text(encoding="utf-8")
+    cid = str(fake.front["candidate_id"].iloc[0])
+    r = CliRunner().invoke(main, ["sheet", str(run_dir), "--candidate", cid, "--jig-datum", "0,120"])
+    assert r.exit_code == 0, r.output
+    assert (run_dir / "sheets" / cid / "linkage.dxf").exists()
+    r = CliRunner().invoke(main, ["sheet", str(run_dir)])
+    assert r.exit_code == 2 and "--candidate" in r.output
+    r = CliRunner().invoke(main, ["sheet", str(run_dir), "--candidate", cid, "--jig-datum", "abc"])
+    assert r.exit_code == 2 and "Y,Z" in r.output
+    # a mechanism file works as well
+    r = CliRunner().invoke(main, ["sheet", str(CONFIGS / "twin_beam.toml"), "-o", str(tmp_path / "tb"),
+                                  "--travel", "0"])
+    assert r.exit_code == 0, r.output
+    assert (tmp_path / "tb" / "candidate.toml").exists()
