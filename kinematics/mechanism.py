@@ -14,6 +14,8 @@ File format (all lengths mm, angles degrees)::
     [bodies.chassis]
     datum = [0.0, 0.0]
     [[pins]]    a = "body.point"  b = "body.point"  name = "..." (optional)
+                base_mm (optional): bearing spacing of the pivot along x, for
+                the out-of-plane (braking) load model of kinematics.forces
     [[links]]   a, b, name (optional)
     [[springs]] name, a, b, rate_n_per_mm, free_length_mm, preload_n (optional)
     [[sliders]] name (optional), a_from, a_to (a line on one body), b (a point
@@ -44,6 +46,7 @@ class Pin:
     a: str
     b: str
     name: str
+    base_mm: float | None = None   # bearing spacing along x (out-of-plane loads); optional
 
 
 @dataclass(frozen=True)
@@ -268,8 +271,9 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
     pins = []
     for i, t in enumerate(_list_of_tables(data, "pins", src)):
         w = f"pins[{i}]"
-        _check_keys(t, ["a", "b", "name"], ["a", "b"], src, w)
+        _check_keys(t, ["a", "b", "name", "base_mm"], ["a", "b"], src, w)
         a, b = ref(t["a"], w + ".a"), ref(t["b"], w + ".b")
+        base = _number(t["base_mm"], src, w + ".base_mm", positive=True) if "base_mm" in t else None
         if split_ref(a)[0] == split_ref(b)[0]:
             raise InputError("a pin must join two different bodies.", src, w)
         pa, pb = bodies[split_ref(a)[0]][split_ref(a)[1]], bodies[split_ref(b)[0]][split_ref(b)[1]]
@@ -278,7 +282,7 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
             raise InputError(
                 f"the points {a} {list(pa)} and {b} {list(pb)} of a pin must coincide in the design "
                 f"position (within {PIN_TOLERANCE_MM} mm). They are {gap:.3f} mm apart.", src, w)
-        pins.append(Pin(a, b, unique(_string(t.get("name", f"{a}~{b}"), src, w + ".name"), w + ".name")))
+        pins.append(Pin(a, b, unique(_string(t.get("name", f"{a}~{b}"), src, w + ".name"), w + ".name"), base))
 
     links = []
     for i, t in enumerate(_list_of_tables(data, "links", src)):
@@ -401,6 +405,8 @@ def mechanism_to_toml(mech: Mechanism, header: str = "") -> str:
         out += [f"{p} = [{_fmt(y)}, {_fmt(z)}]" for p, (y, z) in pts.items()]
     for p in mech.pins:
         out += ["", "[[pins]]", f"name = {_q(p.name)}", f"a = {_q(p.a)}", f"b = {_q(p.b)}"]
+        if p.base_mm is not None:
+            out.append(f"base_mm = {_fmt(p.base_mm)}")
     for l in mech.links:
         out += ["", "[[links]]", f"name = {_q(l.name)}", f"a = {_q(l.a)}", f"b = {_q(l.b)}"]
     for s in mech.springs:
@@ -431,7 +437,7 @@ def mirror(mech: Mechanism) -> Mechanism:
         name=mech.name + "_mirrored",
         chassis=_swap_lr(mech.chassis),
         bodies=bodies,
-        pins=tuple(Pin(_swap_lr(p.a), _swap_lr(p.b), _swap_lr(p.name)) for p in mech.pins),
+        pins=tuple(Pin(_swap_lr(p.a), _swap_lr(p.b), _swap_lr(p.name), p.base_mm) for p in mech.pins),
         links=tuple(Link(_swap_lr(l.a), _swap_lr(l.b), _swap_lr(l.name)) for l in mech.links),
         springs=tuple(replace(s, name=_swap_lr(s.name), a=_swap_lr(s.a), b=_swap_lr(s.b)) for s in mech.springs),
         sliders=tuple(Slider(_swap_lr(s.name), _swap_lr(s.a_from), _swap_lr(s.a_to), _swap_lr(s.b))

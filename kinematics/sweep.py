@@ -53,7 +53,7 @@ class SweepResult:
     residual_mm: np.ndarray
     iterations: np.ndarray
     q: np.ndarray
-    points: np.ndarray            # (C, T, L, n_points, 2) mm
+    geometry: Geometry            # the candidates swept
     body_angle: np.ndarray        # (C, T, L, n_bodies) rad
     camber: np.ndarray            # (C, T, L, 2) rad
     contact: np.ndarray           # (C, T, L, 2, 2) mm, [left, right] x [y, z]
@@ -68,6 +68,26 @@ class SweepResult:
     bump_camber_change: np.ndarray  # (C, T, 2) rad
     motion_ratio: np.ndarray        # (C, T, n_springs): spring shortening per mm of bump
     travel_status: np.ndarray       # (C, T)
+
+    _points: np.ndarray | None = None
+
+    @property
+    def points(self) -> np.ndarray:
+        """Every point of every state, shape (C, T, L, n_points, 2), mm (NaN where not converged).
+
+        Computed on first use (the kinematic metrics do not need it).
+        """
+        if self._points is None:
+            m = self.model
+            C, T, L = self.status.shape
+            q = self.q.reshape(C * T * L, -1)
+            lean = np.broadcast_to(np.radians(self.lean_deg), (C * T, L)).reshape(-1)
+            V, U = m.design_vectors(self.geometry, m._all)
+            cand = np.repeat(np.arange(C), T * L)
+            x, _, _ = m.positions(q, lean, V[cand], U[cand], m._all)
+            x = x.reshape(C, T, L, -1, 2)
+            self._points = np.where(self.converged[..., None, None], x, np.nan)
+        return self._points
 
     @property
     def converged(self) -> np.ndarray:
@@ -304,26 +324,24 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     flat_q = q_out.reshape(NL, nq)
     flat_lean = np.broadcast_to(lean_rad, (N, L)).reshape(NL)
     cand_all = np.repeat(cand_t, L)
-    Vall, Uall = model.design_vectors(geom, model._all)
-    x_all, _, ang = model.positions(flat_q, flat_lean, Vall[cand_all], Uall[cand_all], model._all)
+    item_nl = np.repeat(np.arange(N), L)
+    x_np, _, ang = model.positions(flat_q, flat_lean, bt.V[item_nl], bt.U[item_nl], model._np)
     body_angle = model.body_angles(ang)
-    bL = bt.take(np.repeat(np.arange(N), L))
-    gamma = bL.gamma0 + body_angle[:, model.wheel_upright]
-    Rr = bL.R - bL.r
-    wc = x_all[:, model.wheel_centre]                                # (NL, 2, 2)
-    contact = np.stack([wc[..., 0] - Rr * np.sin(gamma), wc[..., 1] - Rr * np.cos(gamma) - bL.r], -1)
+    gamma = bt.gamma0[item_nl] + body_angle[:, model.wheel_upright]
+    Rr = (bt.R - bt.r)[item_nl]
+    wc = x_np[:, model.eq_wheel]                                     # (NL, 2, 2)
+    contact = np.stack([wc[..., 0] - Rr * np.sin(gamma), wc[..., 1] - Rr * np.cos(gamma) - bt.r[item_nl]], -1)
     if ns:
-        sl = x_all[:, [model.point_index[s.a] for s in model.mech.springs]] - \
-            x_all[:, [model.point_index[s.b] for s in model.mech.springs]]
+        sl = x_np[:, model.eq_spring[:, 0]] - x_np[:, model.eq_spring[:, 1]]
         spring_len = np.linalg.norm(sl, axis=-1)
     else:
         spring_len = np.zeros((NL, 0))
 
     # references at lean 0 of the same travel
-    x0, _, ang0 = model.positions(q_ref, np.zeros(N), Vall[cand_t], Uall[cand_t], model._all)
+    x0, _, ang0 = model.positions(q_ref, np.zeros(N), bt.V, bt.U, model._np)
     g0 = bt.gamma0 + model.body_angles(ang0)[:, model.wheel_upright]
     Rr0 = bt.R - bt.r
-    c0 = x0[:, model.wheel_centre, 0] - Rr0 * np.sin(g0)
+    c0 = x0[:, model.eq_wheel, 0] - Rr0 * np.sin(g0)
     track0 = c0[:, 1] - c0[:, 0]
     zO0 = q_ref[:, 1]
 
@@ -362,7 +380,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
         model=model, lean_deg=lean_deg, travel_mm=travel,
         status=st_out.reshape(shape), residual_mm=res_out.reshape(shape), iterations=it_out.reshape(shape),
         q=q_out.reshape(shape + (nq,)),
-        points=mask(x_all.reshape(shape + x_all.shape[1:])),
+        geometry=geom,
         body_angle=mask(body_angle.reshape(shape + (-1,))),
         camber=mask(gam), contact=mask(contact.reshape(shape + (2, 2))),
         spring_length=mask(spring_len.reshape(shape + (-1,))),
