@@ -170,22 +170,40 @@ def test_front_view_gaps_against_shapely():
     assert g["wheel_link_mm"][0, 0, 1] == pytest.approx(best, abs=0.5)
 
 
-def test_sizing_and_clearance_sections_when_the_parts_are_present(tmp_path):
-    """With the sizing and clearance parts installed, the sheet shows their figures (not the notes)."""
+def test_sizing_section_when_the_part_is_present(tmp_path):
+    """With the sizing part installed and a loads file, the sheet shows its member sizes and tilt-lock torque."""
     loads_mod = pytest.importorskip("kinematics.loads", reason="sizing part not installed on this branch")
     sizing_mod = pytest.importorskip("kinematics.sizing", reason="sizing part not installed on this branch")
-    shell_mod = pytest.importorskip("kinematics.shell", reason="clearance part not installed on this branch")
     from tiltopt.reports.sheet import SheetInputs, write_sheet
 
     root = Path(__file__).resolve().parents[1]
     mech = load_mechanism(root / "configs" / "wishbone_rocker.toml")
     loads = loads_mod.load_loads(root / "configs" / "loads_demo.toml")
-    shell = shell_mod.superellipse_shell([-400.0, 400.0], 290.0, 430.0, 540.0, 2.6)
     paths = write_sheet(tmp_path, SheetInputs(mech=mech, lean_limit_deg=30.0, travel_mm=(-30.0, 0.0, 30.0),
-                                              loads=loads, shell=shell))
+                                              loads=loads))
     html = paths["sheet"].read_text(encoding="utf-8")
     sz = sizing_mod.size_linkage(Model(mech), None, loads)
     assert f"{sz.tilt_lock_torque_nm[0]:.1f} N·m" in html
     assert f"{sz.linkage_mass_kg[0]:.2f} kg" in html
+    assert sz.tube_label(0, 0) in html
+    assert "No loads given" not in html
+    # the corner load for the suggested rate comes from the vehicle: m * front share * g / 2
+    v = loads.vehicle
+    assert f"under {v.total_mass_kg * v.front_share * 9.80665 / 2:.0f} N per front wheel" in html
+
+
+def test_clearance_section_when_the_part_is_present(tmp_path):
+    """With the clearance part installed and a shell, the sheet shows the 3-D clearance figures."""
+    shell_mod = pytest.importorskip("kinematics.shell", reason="clearance part not installed on this branch")
+    pytest.importorskip("kinematics.clearance", reason="clearance part not installed on this branch")
+    from tiltopt.reports.sheet import SheetInputs, write_sheet
+
+    root = Path(__file__).resolve().parents[1]
+    mech = load_mechanism(root / "configs" / "wishbone_rocker.toml")
+    shell = shell_mod.superellipse_shell([-400.0, 400.0], 290.0, 430.0, 540.0, 2.6)
+    paths = write_sheet(tmp_path, SheetInputs(mech=mech, lean_limit_deg=30.0, travel_mm=(-30.0, 0.0, 30.0),
+                                              shell=shell))
+    html = paths["sheet"].read_text(encoding="utf-8")
     assert "tyre to shell, 3-D [mm]" in html
-    assert "No loads given" not in html and "No body shell given" not in html
+    assert "No body shell given" not in html
+    assert "<polygon" in html and 'stroke-dasharray' in html   # the shell section is drawn
