@@ -114,11 +114,30 @@
                   paper_bgcolor: "#fbfaf7", plot_bgcolor: "#ffffff", font: { size: 12, color: "#1d2733" } };
     const n = dims.length;
     for (let k = 1; k <= n; k++) {
-      lay[`xaxis${k === 1 ? "" : k}`] = { gridcolor: "#e6eaee", zeroline: false, automargin: true };
-      lay[`yaxis${k === 1 ? "" : k}`] = { gridcolor: "#e6eaee", zeroline: false, automargin: true };
+      const ax = { gridcolor: "#e6eaee", zeroline: false, automargin: true };
+      const r = axisRange(dims[k - 1]);
+      if (r) { ax.range = r; ax.autorange = false; }
+      lay[`xaxis${k === 1 ? "" : k}`] = Object.assign({}, ax);
+      lay[`yaxis${k === 1 ? "" : k}`] = Object.assign({}, ax);
     }
     return lay;
   }
+  // Axis ranges follow the feasible designs (infeasible ones often carry far-off values); infeasible designs
+  // inside the range are shown, the rest are counted as off the axes.
+  function axisRange(key) {
+    const base = feasIdx.length ? feasIdx : all;
+    const v = base.map((i) => D.values[key][i]).filter((x) => x !== null && isFinite(x));
+    if (!v.length) return null;
+    let lo = Math.min(...v), hi = Math.max(...v);
+    const pad = (hi - lo) * 0.25 || Math.abs(hi) * 0.1 || 1;
+    return [lo - pad, hi + pad];
+  }
+  function offAxes() {
+    let n = 0;
+    infIdx.forEach((i) => { if (dims.some((k) => { const r = axisRange(k), x = D.values[k][i]; return r && x !== null && (x < r[0] || x > r[1]); })) n++; });
+    return n;
+  }
+  const nOff = offAxes();
   const matrixDiv = $("matrix");
   Plotly.newPlot(matrixDiv, matrixTraces(), matrixLayout(), { responsive: true, displaylogo: false });
   matrixDiv.on("plotly_click", (ev) => {
@@ -161,7 +180,7 @@
 
   function updateCount() {
     $("count").textContent = `${feasIdx.length} feasible on the fronts · ${mergedIdx.length} on the merged front` +
-      (infIdx.length ? ` · ${infIdx.length} infeasible ${$("show-infeasible").checked ? "shown" : "hidden"}` : "");
+      (infIdx.length ? ` · ${infIdx.length} infeasible ${$("show-infeasible").checked ? "shown" + (nOff ? ` (${nOff} off the axes)` : "") : "hidden"}` : "");
   }
   sel.addEventListener("change", () => {
     state.colour = sel.value;
