@@ -513,18 +513,19 @@ def _dimensions(spec, P, tyres, lw, fs, span, vb):
     chassis_pts = set(ch["hull"])
     heights = sorted({round(float(P[i, 1]), 1) for i, _ in spec["pivots"] if i in chassis_pts} |
                      {round(float(P[wl["centre"], 1]), 1)})
-    x = vb[0] + 0.05 * span
+    x = vb[0] + 0.09 * span
     a = lw * 4
     prev = 0.0
     for k, h in enumerate(heights):
-        xk = x + (k % 2) * 0.045 * span
+        xk = x + (k % 2) * 0.035 * span
         out.append(f'<g class="dim" stroke="#222" stroke-width="{_f(lw * 0.7)}" fill="none">'
                    f'<line x1="{_f(xk)}" y1="0" x2="{_f(xk)}" y2="{_f(-h)}"/>'
                    f'<path d="M{_f(xk - a / 2)},{_f(-h + a)}L{_f(xk)},{_f(-h)}L{_f(xk + a / 2)},{_f(-h + a)}"/>'
                    f'<line x1="{_f(xk - a)}" y1="{_f(-h)}" x2="{_f(xk + 0.03 * span)}" y2="{_f(-h)}" '
                    f'stroke-dasharray="{_f(lw * 2)},{_f(lw * 2)}"/></g>')
-        out.append(f'<text x="{_f(xk + lw * 2)}" y="{_f(-h - lw * 2)}" font-size="{_f(fs * 0.85)}" '
-                   f'text-anchor="start" fill="#222">{h:.1f}</text>')
+        tx, anchor = (xk + lw * 2, "start") if k % 2 else (xk - lw * 2, "end")
+        out.append(f'<text x="{_f(tx)}" y="{_f(-h - lw * 2)}" font-size="{_f(fs * 0.85)}" '
+                   f'text-anchor="{anchor}" fill="#222">{h:.1f}</text>')
         prev = h
     out.append(f'<text x="{_f(x)}" y="{_f(fs * 1.4)}" font-size="{_f(fs * 0.8)}" fill="#222" text-anchor="middle">'
                f'z, mm</text>')

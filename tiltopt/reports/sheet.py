@@ -72,6 +72,8 @@ def _num(v, d=1):
         v = float(v)
     except (TypeError, ValueError):
         return html.escape(str(v))
+    if v == float("inf"):
+        return "∞"
     if not math.isfinite(v):
         return "–"
     s = f"{v:.{d}f}"
@@ -353,6 +355,23 @@ def _sizing_sections(an: Analysis, members: list[dict]) -> tuple[str, str]:
     return t, "".join(loads)
 
 
+def _short(text: str, n: int = 160) -> str:
+    """A description without a template's generated variable list, cut to about n characters."""
+    text = text.split(" [template ")[0].strip()
+    return text if len(text) <= n else text[: n - 1].rsplit(" ", 1)[0] + " …"
+
+
+def _split_tables(title: str, headers: list[str], rows: list[list]) -> str:
+    """A full-width section with the rows in two side-by-side tables."""
+    if not rows:
+        return ""
+    half = (len(rows) + 1) // 2
+    return (f'<section class="avoid-break"><h3>{_e(title)}</h3><div class="grid2">'
+            f'<div>{_table(headers, rows[:half])}</div><div>{_table(headers, rows[half:])}</div></div>'
+            + ('<p class="note">∞: nothing within reach to clear.</p>' if any("∞" in str(c) for r in rows for c in r)
+               else "") + '</section>')
+
+
 def _clr(v) -> str:
     """A clearance figure: NaN = state not reached, +inf = nothing within reach."""
     try:
@@ -518,7 +537,7 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
     scen = [[_e(k), _e(v)] for k, v in inp.scenario.items()]
     scen += [["lean envelope", _e(f"0 to {inp.lean_limit_deg:g} deg (symmetric)")],
              ["travel envelope", _e(", ".join(f"{t:g}" for t in inp.travel_mm) + " mm (bump positive)")],
-             ["template / mechanism", _e(mech.name + (f" – {mech.description}" if mech.description else ""))],
+             ["template / mechanism", _e(mech.name + (f" – {_short(mech.description)}" if mech.description else ""))],
              ["linkage station", _e(f"x = {mech.station_x_mm:g} mm")]]
     piv_table = _table(["tag", "body", "point", "y [mm]", "z [mm]", "y from jig [mm]", "z from jig [mm]"],
                        [[_e(p["tag"]), _e(p["body"]), _e(p["point"]), _num(p["y_mm"], 2), _num(p["z_mm"], 2),
@@ -540,11 +559,11 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
 </header>
 <section class="grid2">
   <div><h2>Summary</h2>{_table(["figure", "value", "unit"], kin_rows)}
-  {('<h3>Objectives and metrics from the run</h3>' + _table(["figure", "value", "unit"], metric_rows)) if metric_rows else ''}
   {('<h3>Design variables</h3>' + _table(["variable", "value", "unit"], var_rows)) if var_rows else ''}</div>
   <div><h2>Scenario</h2>{_table(["", ""], scen, num_from=9)}
   {('<p class="note">Re-create: <code>' + _e(inp.command) + '</code></p>') if inp.command else ''}</div>
 </section>
+{_split_tables("Objectives and metrics from the run", ["figure", "value", "unit"], metric_rows)}
 <section class="avoid-break">
   <h2>Front view at the design position</h2>
   <div class="figure">{drawing}</div>
