@@ -112,11 +112,12 @@ def _get(obj, *names, default=None):
                     ok = False
                     break
                 cur = cur[part]
-            elif hasattr(cur, part):
-                cur = getattr(cur, part)
             else:
-                ok = False
-                break
+                try:   # a property that cannot answer (e.g. a merged run without a config) counts as absent
+                    cur = getattr(cur, part)
+                except Exception:
+                    ok = False
+                    break
         if ok and cur is not None:
             return cur
     return default
