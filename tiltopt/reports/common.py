@@ -69,6 +69,8 @@ def column_label(col: str) -> str:
         if name == "min_clearance":
             return "min clearance, negated"
         return name.replace("_", " ")
+    if col.startswith("con."):
+        return "constraint " + col[4:].replace("_", " ") + " (feasible at or below 0)"
     name = col[4:] if col.startswith("var.") else col
     for suf, _ in sorted(_UNIT_SUFFIX, key=lambda s: -len(s[0])):
         if name.endswith(suf):

@@ -195,7 +195,8 @@ def build_data(runs: Sequence[ExplorerRun], *, detail_limit: int = 400, infeasib
     obj_cols = [c for c in rows.columns if c.startswith("obj.")]
     common_obj = [c for c in obj_cols if all(c in r.front.columns for r in runs)]
     var_cols = [c for c in rows.columns if c.startswith("var.")]
-    metric_cols = [c for c in rows.columns if not c.startswith(("obj.", "var.", "__")) and c not in _META_COLUMNS
+    con_cols = [c for c in rows.columns if c.startswith("con.") and pd.api.types.is_numeric_dtype(rows[c])]
+    metric_cols = [c for c in rows.columns if not c.startswith(("obj.", "var.", "con.", "__")) and c not in _META_COLUMNS
                    and pd.api.types.is_numeric_dtype(rows[c]) and not pd.api.types.is_bool_dtype(rows[c])]
     feasible = rows["feasible"].astype(bool).to_numpy()
     merged = np.zeros(len(rows), bool)
@@ -205,7 +206,8 @@ def build_data(runs: Sequence[ExplorerRun], *, detail_limit: int = 400, infeasib
 
     columns = []
     for c, group in [(c, "objective") for c in obj_cols] + [(c, "variable") for c in var_cols] + \
-            [(c, "metric") for c in metric_cols] + [("generation", "meta"), ("violation", "meta")]:
+            [(c, "metric") for c in metric_cols] + [(c, "constraint") for c in con_cols] + \
+            [("generation", "meta"), ("violation", "meta")]:
         if c not in rows.columns:
             continue
         columns.append({"key": c, "label": column_label(c), "unit": column_unit(c, units), "group": group})

@@ -509,7 +509,7 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
     metric_rows = []
     metric_names = {c for c in inp.row if not c.startswith(("obj.", "var.", "__"))}
     for c, v in inp.row.items():
-        if c in ("candidate_id", "reason", "generation", "violation", "feasible") or c.startswith(("__", "var.")):
+        if c in ("candidate_id", "reason", "generation", "violation", "feasible") or c.startswith(("__", "var.", "con.")):
             continue
         if isinstance(v, (bool, np.bool_)) or isinstance(v, str):
             continue

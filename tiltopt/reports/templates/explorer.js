@@ -45,6 +45,7 @@
   addGroup("Objectives (as minimised)", byGroup("objective"));
   addGroup("Design variables", byGroup("variable"));
   addGroup("Metrics", byGroup("metric"));
+  addGroup("Constraints", byGroup("constraint"));
   addGroup("Search", byGroup("meta"));
   sel.value = state.colour;
 
