@@ -426,8 +426,12 @@ def mechanism_to_toml(mech: Mechanism, header: str = "") -> str:
 
 
 # ---------------------------------------------------------------------- mirror
+_LR = re.compile(r"(?<![A-Za-z])(left|right)(?![A-Za-z])")
+
+
 def _swap_lr(s: str) -> str:
-    return s.replace("left", "\0").replace("right", "left").replace("\0", "right")
+    """Swap the words left and right (not inside other words: 'upright' stays)."""
+    return _LR.sub(lambda m: "right" if m.group(1) == "left" else "left", s)
 
 
 def mirror(mech: Mechanism) -> Mechanism:

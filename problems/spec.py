@@ -1,0 +1,414 @@
+"""The problem part of a run config: template, envelope, objectives, constraints, shell, loads.
+
+Tables (TOML, our own format; lengths mm, angles degrees)::
+
+    objectives = ["overall_width", "max_scrub", "max_heave"]   # problems.registry.OBJECTIVES
+    shell = "shell.toml"            # optional body shell (relative to the config)
+    loads = "loads.toml"            # optional loads file, or embed [vehicle], [sizing],
+                                    # [members.*], [tilt_lock], [[load_cases]] (kinematics.loads)
+
+    [template]
+    name = "twin_beam"              # a built-in (problems.registry.TEMPLATES), or
+    mechanism = "my_linkage.toml"   # any symmetric mechanism file, with [[template.variables]]
+    variables = ["outer_pivot_y", "wheel_offset"]   # built-in: the active subset (optional)
+    bounds = { outer_pivot_y = [250.0, 400.0] }     # optional bound overrides
+    fixed = { wheel_radius = 230.0 }                # optional values of held variables
+
+    [[template.variables]]          # only with `mechanism`: see template_from_mechanism
+    name = "pivot_y"
+    points = ["upper_beam.right_end", "lower_beam.right_end"]
+    axis = "y"
+    lower = 250.0
+    upper = 400.0
+
+    [envelope]
+    lean_limit_deg = 30.0           # default: [vehicle] lean_limit_deg, else 30
+    lean_step_deg = 5.0             # leans 0, step, ..., limit (limit always included)
+    travel_mm = [-30.0, 0.0, 30.0]  # default: this for templates with springs, [0.0] for rigid ones
+    both_sides = false              # true: also lean to -limit (a template is symmetric, so the left
+                                    # side mirrors the right; set it for an asymmetric shell)
+    [envelope.steer]                # optional: replaces the mechanism's [steer_envelope]
+    lean_deg = [0.0, 20.0]
+    max_steer_deg = [30.0, 10.0]
+
+    [constraints]                   # every key optional
+    max_width_mm = 1000.0           # overall width limit
+    max_scrub_mm = 5.0              # caps on kinematic figures
+    max_heave_mm = 5.0
+    max_camber_error_deg = 2.0
+    clearance_margin_mm = 10.0      # with a shell: min clearance >= margin (default 10)
+    wheel_shell_margin_mm = 15.0    # with a shell: wheels outside the shell by >= margin
+    ground_clearance_mm = 60.0      # with a shell: lowest shell/link point >= this
+    pivot_margin_mm = 0.0           # with a shell: chassis joint points inside by >= margin (default 0)
+    stress = true                   # with loads: members within allowables (default true)
+
+A ``[run]`` table is the optimiser's and is skipped here.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from kinematics.errors import InputError
+from kinematics.mechanism import load_mechanism
+
+from .registry import CLEARANCE, CONSTRAINTS, OBJECTIVES, SIZING, TEMPLATES
+from .templates import Template, get_template, template_from_mechanism
+
+PROBLEM_KEYS = ("template", "envelope", "objectives", "constraints", "shell", "loads", "vehicle", "sizing",
+                "members", "tilt_lock", "load_cases")
+SKIPPED_KEYS = ("run",)
+DEFAULT_LEAN_LIMIT_DEG = 30.0
+DEFAULT_LEAN_STEP_DEG = 5.0
+DEFAULT_SPRUNG_TRAVEL_MM = (-30.0, 0.0, 30.0)
+DEFAULT_CLEARANCE_MARGIN_MM = 10.0   # our own default (a working gap for tyre growth and fixings)
+_CONSTRAINT_KEYS = ("max_width_mm", "max_scrub_mm", "max_heave_mm", "max_camber_error_deg", "clearance_margin_mm",
+                    "wheel_shell_margin_mm", "ground_clearance_mm", "pivot_margin_mm", "stress")
+
+
+@dataclass(frozen=True)
+class Envelope:
+    """States every candidate is swept through.
+
+    Attributes
+    ----------
+    lean_deg : ndarray of shape (n_lean,)
+    travel_mm : ndarray of shape (n_travel,)
+    steer : tuple of (lean_deg, max_steer_deg) rows, or None (the mechanism's own)
+    """
+
+    lean_limit_deg: float
+    lean_step_deg: float
+    lean_deg: np.ndarray
+    travel_mm: np.ndarray
+    steer: tuple[tuple[float, float], ...] | None = None
+
+    @property
+    def n_states(self) -> int:
+        return len(self.lean_deg) * len(self.travel_mm)
+
+
+@dataclass(frozen=True)
+class Limits:
+    """Margins and limits of the ``[constraints]`` table (None = off)."""
+
+    max_width_mm: float | None = None
+    max_scrub_mm: float | None = None
+    max_heave_mm: float | None = None
+    max_camber_error_deg: float | None = None
+    clearance_margin_mm: float | None = None
+    wheel_shell_margin_mm: float | None = None
+    ground_clearance_mm: float | None = None
+    pivot_margin_mm: float | None = None
+    stress: bool = False
+
+
+@dataclass
+class ProblemSpec:
+    """A validated problem (see module docs).
+
+    Attributes
+    ----------
+    template : Template
+        With bounds, active subset, fixed values and steer envelope applied.
+    envelope : Envelope
+    objectives : tuple of str
+        Names from :data:`problems.registry.OBJECTIVES`.
+    constraints : tuple of str
+        Names from :data:`problems.registry.CONSTRAINTS`, in G column order.
+    limits : Limits
+    shell_path, loads_path : Path or None
+    shell : kinematics.shell.Shell or None
+    loads : kinematics.loads.LoadsSpec or None
+    source : str
+    """
+
+    template: Template
+    envelope: Envelope
+    objectives: tuple[str, ...]
+    constraints: tuple[str, ...]
+    limits: Limits
+    shell_path: Path | None = None
+    shell: Any = None
+    loads_path: Path | None = None
+    loads: Any = None
+    source: str = "<memory>"
+    raw: dict = field(default_factory=dict, repr=False)
+
+    @property
+    def needs_clearance(self) -> bool:
+        return self.shell is not None
+
+    @property
+    def needs_sizing(self) -> bool:
+        return self.loads is not None and ("linkage_mass" in self.objectives or "stress" in self.constraints)
+
+    def size(self) -> dict:
+        """Problem size for ``tiltopt check``: variables, objectives, constraints, states per candidate."""
+        return {"template": self.template.name, "n_var": self.template.n_var, "n_obj": len(self.objectives),
+                "n_constr": len(self.constraints), "n_lean": len(self.envelope.lean_deg),
+                "n_travel": len(self.envelope.travel_mm), "states_per_candidate": self.envelope.n_states,
+                "clearance": self.needs_clearance, "sizing": self.needs_sizing}
+
+
+# ------------------------------------------------------------------ helpers
+def _keys(table: Any, allowed, src: str, where: str, required=()):
+    if not isinstance(table, dict):
+        raise InputError(f"expected a table. Got {table!r} instead.", src, where)
+    for k in table:
+        if k not in allowed:
+            raise InputError(f"unknown key '{k}'. Expected one of: {', '.join(sorted(allowed))}.", src,
+                             f"{where}.{k}" if where else k)
+    for k in required:
+        if k not in table:
+            raise InputError("this key is required but missing.", src, f"{where}.{k}" if where else k)
+
+
+def _num(v: Any, src: str, key: str, *, lo: float | None = None, lo_open: bool = False,
+         hi: float | None = None) -> float:
+    if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+        raise InputError(f"expected a finite number. Got {v!r} instead.", src, key)
+    v = float(v)
+    if lo is not None and (v < lo or (lo_open and v == lo)):
+        raise InputError(f"must be {'greater than' if lo_open else 'at least'} {lo:g}. Got {v:g} instead.", src, key)
+    if hi is not None and v > hi:
+        raise InputError(f"must be at most {hi:g}. Got {v:g} instead.", src, key)
+    return v
+
+
+def _path(v: Any, src: str, key: str, base_dir: Path) -> Path:
+    if not isinstance(v, str) or not v:
+        raise InputError(f"expected a file path (a string, relative to the config). Got {v!r} instead.", src, key)
+    p = Path(v)
+    p = p if p.is_absolute() else base_dir / p
+    if not p.is_file():
+        raise InputError(f"file not found: {p}. Give a path relative to the config's folder.", src, key)
+    return p
+
+
+def lean_grid(limit_deg: float, step_deg: float) -> np.ndarray:
+    """Leans 0, step, 2 step, ... up to the limit, the limit always included (degrees)."""
+    n = int(math.floor(limit_deg / step_deg + 1e-9))
+    vals = list(step_deg * np.arange(n + 1))
+    if limit_deg - vals[-1] > 1e-9:
+        vals.append(limit_deg)
+    return np.array(vals, dtype=float)
+
+
+# ------------------------------------------------------------------ parts
+def _parse_template(t: Any, src: str, base_dir: Path) -> Template:
+    _keys(t, {"name", "mechanism", "variables", "bounds", "fixed"}, src, "template")
+    bounds = t.get("bounds")
+    fixed = t.get("fixed")
+    for k, v in (("bounds", bounds), ("fixed", fixed)):
+        if v is not None and not isinstance(v, dict):
+            raise InputError(f"expected a table of variable name = value. Got {v!r} instead.", src, f"template.{k}")
+    variables = t.get("variables")
+    if "mechanism" in t:
+        mpath = _path(t["mechanism"], src, "template.mechanism", base_dir)
+        mech = load_mechanism(mpath)
+        if not isinstance(variables, list) or not variables or not all(isinstance(v, dict) for v in variables):
+            raise InputError("a template from a mechanism file needs [[template.variables]] tables (name, points, "
+                             "axis, lower, upper).", src, "template.variables")
+        name = t.get("name", mech.name)
+        if not isinstance(name, str):
+            raise InputError(f"expected a string. Got {name!r} instead.", src, "template.name")
+        tpl = template_from_mechanism(mech, variables, name=name, src=src)
+        return tpl.with_bounds(bounds, src).subset(None, fixed, src) if fixed else tpl.with_bounds(bounds, src)
+    if "name" not in t:
+        raise InputError(f"expected a built-in template name ({', '.join(TEMPLATES)}) or a mechanism file "
+                         f"(template.mechanism).", src, "template.name")
+    name = t["name"]
+    if not isinstance(name, str) or name not in TEMPLATES:
+        raise InputError(f"unknown template {name!r}. Built-in templates: {', '.join(TEMPLATES)}; or give "
+                         f"template.mechanism with [[template.variables]].", src, "template.name")
+    if variables is not None and (not isinstance(variables, list) or not all(isinstance(v, str) for v in variables)):
+        raise InputError("with a built-in template, variables is a list of the active variable names.", src,
+                         "template.variables")
+    return get_template(name, bounds=bounds, variables=variables, fixed=fixed, src=src)
+
+
+def _parse_envelope(e: Any, src: str, template: Template, default_limit: float) -> Envelope:
+    e = {} if e is None else e
+    _keys(e, {"lean_limit_deg", "lean_step_deg", "travel_mm", "steer", "both_sides"}, src, "envelope")
+    both = e.get("both_sides", False)
+    if not isinstance(both, bool):
+        raise InputError(f"expected true or false. Got {both!r} instead.", src, "envelope.both_sides")
+    limit = _num(e.get("lean_limit_deg", default_limit), src, "envelope.lean_limit_deg", lo=0.0, lo_open=True,
+                 hi=60.0)
+    step = _num(e.get("lean_step_deg", DEFAULT_LEAN_STEP_DEG), src, "envelope.lean_step_deg", lo=0.0, lo_open=True)
+    if step > limit:
+        raise InputError(f"lean_step_deg ({step:g}) must not exceed lean_limit_deg ({limit:g}).", src,
+                         "envelope.lean_step_deg")
+    sprung = bool(template.mechanism.springs)
+    if "travel_mm" in e:
+        tr = e["travel_mm"]
+        if not isinstance(tr, list) or not tr:
+            raise InputError(f"expected a list of travels in mm, e.g. [-30.0, 0.0, 30.0]. Got {tr!r}.", src,
+                             "envelope.travel_mm")
+        travel = np.array([_num(v, src, f"envelope.travel_mm[{i}]", lo=-200.0, hi=200.0) for i, v in enumerate(tr)])
+        if len(set(travel.tolist())) != len(travel):
+            raise InputError("travel values must be distinct.", src, "envelope.travel_mm")
+        if not sprung and np.any(travel != 0.0):
+            raise InputError(f"template '{template.name}' has no springs, so it cannot move in travel. Use "
+                             f"travel_mm = [0.0].", src, "envelope.travel_mm")
+    else:
+        travel = np.array(DEFAULT_SPRUNG_TRAVEL_MM if sprung else (0.0,))
+    steer = None
+    if "steer" in e:
+        s = e["steer"]
+        _keys(s, {"lean_deg", "max_steer_deg"}, src, "envelope.steer", ("lean_deg", "max_steer_deg"))
+        ld, ms = s["lean_deg"], s["max_steer_deg"]
+        if not (isinstance(ld, list) and isinstance(ms, list) and ld and len(ld) == len(ms)):
+            raise InputError("lean_deg and max_steer_deg must be lists of the same, non-zero length.", src,
+                             "envelope.steer")
+        ld = [_num(v, src, f"envelope.steer.lean_deg[{i}]", lo=0.0) for i, v in enumerate(ld)]
+        ms = [_num(v, src, f"envelope.steer.max_steer_deg[{i}]", lo=0.0, hi=80.0) for i, v in enumerate(ms)]
+        if any(b <= a for a, b in zip(ld, ld[1:])):
+            raise InputError(f"lean_deg rows must be strictly ascending. Got {ld}.", src, "envelope.steer.lean_deg")
+        steer = tuple(zip(ld, ms))
+    leans = lean_grid(limit, step)
+    if both:
+        leans = np.concatenate([-leans[:0:-1], leans])
+    return Envelope(limit, step, leans, travel, steer)
+
+
+def _parse_constraints(c: Any, src: str, has_shell: bool, has_loads: bool) -> Limits:
+    c = {} if c is None else c
+    _keys(c, set(_CONSTRAINT_KEYS), src, "constraints")
+    vals: dict[str, Any] = {}
+    for k in _CONSTRAINT_KEYS:
+        if k == "stress" or k not in c:
+            continue
+        lo = None if k in ("pivot_margin_mm", "clearance_margin_mm", "wheel_shell_margin_mm") else 0.0
+        vals[k] = _num(c[k], src, f"constraints.{k}", lo=lo, lo_open=k.startswith("max_"))
+    needs_shell = [k for k in ("clearance_margin_mm", "wheel_shell_margin_mm", "ground_clearance_mm",
+                               "pivot_margin_mm") if k in vals]
+    if needs_shell and not has_shell:
+        raise InputError(f"{needs_shell[0]} needs a body shell. Add shell = \"shell.toml\" to the config, or remove "
+                         f"the key.", src, f"constraints.{needs_shell[0]}")
+    if has_shell:
+        vals.setdefault("clearance_margin_mm", DEFAULT_CLEARANCE_MARGIN_MM)
+        vals.setdefault("pivot_margin_mm", 0.0)
+    stress = c.get("stress", has_loads)
+    if not isinstance(stress, bool):
+        raise InputError(f"expected true or false. Got {stress!r} instead.", src, "constraints.stress")
+    if stress and not has_loads:
+        raise InputError("the stress constraint needs loads. Add loads = \"loads.toml\" or a [vehicle] table, or "
+                         "set stress = false.", src, "constraints.stress")
+    return Limits(stress=stress, **vals)
+
+
+def _constraint_names(limits: Limits, has_shell: bool) -> tuple[str, ...]:
+    out = ["converged"]
+    for name, spec in CONSTRAINTS.items():
+        if name == "converged":
+            continue
+        if spec.key == "stress":
+            if limits.stress:
+                out.append(name)
+        elif spec.key is not None:
+            if getattr(limits, spec.key) is not None:
+                out.append(name)
+        elif spec.needs == CLEARANCE and has_shell:
+            out.append(name)
+    return tuple(out)
+
+
+def _load_shell(path: Path, src: str):
+    try:
+        from kinematics.shell import load_shell
+    except ImportError:
+        raise InputError("a body shell needs kinematics.shell, which this installation does not have.", src,
+                         "shell") from None
+    return load_shell(path)
+
+
+def _load_loads(data: dict, src: str, base_dir: Path):
+    embedded = [k for k in ("vehicle", "sizing", "members", "tilt_lock", "load_cases") if k in data]
+    if "loads" in data and embedded:
+        raise InputError(f"give either loads = \"file\" or embedded loads tables, not both (found [{embedded[0]}]).",
+                         src, embedded[0])
+    if "loads" not in data and not embedded:
+        return None, None
+    try:
+        from kinematics.loads import load_loads, parse_loads
+    except ImportError:
+        raise InputError("loads need kinematics.loads, which this installation does not have.", src,
+                         "loads" if "loads" in data else embedded[0]) from None
+    if "loads" in data:
+        p = _path(data["loads"], src, "loads", base_dir)
+        return load_loads(p), p
+    sub = {k: data[k] for k in ("vehicle", "sizing", "members", "tilt_lock") if k in data}
+    if "load_cases" in data:
+        sub["cases"] = data["load_cases"]
+    if "vehicle" not in sub:
+        raise InputError("embedded loads need a [vehicle] table.", src, "vehicle")
+    return parse_loads(sub, src, base_dir), None
+
+
+def parse_problem(data: dict, src: str = "<memory>", base_dir: str | Path | None = None) -> ProblemSpec:
+    """Validate the problem tables of a run config (see module docs).
+
+    Parameters
+    ----------
+    data : dict
+        The config as read from TOML (a ``[run]`` table, if any, is skipped).
+    src : str
+        The config file, for messages.
+    base_dir : path, optional
+        Folder that relative paths (shell, loads, template mechanism) start
+        from; default: the current folder.
+
+    Raises
+    ------
+    InputError
+        Naming the file and the key, for unknown keys, bad values, bounds with
+        lower >= upper, unknown objectives, or parts a key needs that are missing.
+    """
+    base = Path(base_dir) if base_dir is not None else Path(".")
+    if not isinstance(data, dict):
+        raise InputError("expected the tables of a run config.", src)
+    _keys(data, set(PROBLEM_KEYS) | set(SKIPPED_KEYS), src, "", ("template", "objectives"))
+    template = _parse_template(data["template"], src, base)
+
+    shell_path = _path(data["shell"], src, "shell", base) if "shell" in data else None
+    shell = _load_shell(shell_path, src) if shell_path is not None else None
+    loads, loads_path = _load_loads(data, src, base)
+
+    default_limit = float(loads.vehicle.lean_limit_deg) if loads is not None else DEFAULT_LEAN_LIMIT_DEG
+    envelope = _parse_envelope(data.get("envelope"), src, template, default_limit)
+    if envelope.steer is not None:
+        mech = template.mechanism
+        if not hasattr(mech, "steer_envelope"):
+            raise InputError("a steer envelope needs the clearance keys of the mechanism format, which this "
+                             "installation does not have.", src, "envelope.steer")
+        template = Template(template.name, replace(mech, steer_envelope=envelope.steer), template.variables,
+                            template.description, template.source)
+
+    obj = data["objectives"]
+    if not isinstance(obj, list) or not obj or not all(isinstance(o, str) for o in obj):
+        raise InputError(f"expected a list of objective names ({', '.join(OBJECTIVES)}). Got {obj!r}.", src,
+                         "objectives")
+    for i, o in enumerate(obj):
+        if o not in OBJECTIVES:
+            raise InputError(f"unknown objective {o!r}. Objectives: {', '.join(OBJECTIVES)}.", src, f"objectives[{i}]")
+        need = OBJECTIVES[o].needs
+        if need == CLEARANCE and shell is None:
+            raise InputError(f"objective {o!r} needs a body shell. Add shell = \"shell.toml\" to the config.", src,
+                             f"objectives[{i}]")
+        if need == SIZING and loads is None:
+            raise InputError(f"objective {o!r} needs loads. Add loads = \"loads.toml\" or a [vehicle] table.", src,
+                             f"objectives[{i}]")
+    if len(set(obj)) != len(obj):
+        raise InputError(f"each objective may appear once. Got {obj}.", src, "objectives")
+
+    limits = _parse_constraints(data.get("constraints"), src, shell is not None, loads is not None)
+    return ProblemSpec(template=template, envelope=envelope, objectives=tuple(obj),
+                       constraints=_constraint_names(limits, shell is not None), limits=limits,
+                       shell_path=shell_path, shell=shell, loads_path=loads_path, loads=loads, source=src,
+                       raw={k: v for k, v in data.items() if k not in SKIPPED_KEYS})
