@@ -1,0 +1,243 @@
+"""Result files of a run (``results/<run-id>/``) and :func:`load_run`.
+
+Files (every one written atomically: a temp file in the same folder, then
+``os.replace``, so a killed run never leaves a half-written file):
+
+- ``front.parquet``: the non-dominated feasible designs over every evaluation.
+- ``evaluations.parquet``: every evaluated design with its generation
+  (while a run is under way, ``evaluations.parts/`` holds one file per
+  checkpoint interval; :func:`load_run` reads those when the whole file is
+  not written yet).
+- ``generations.parquet``: per generation: evaluations, feasible count and
+  share, front size, hypervolume on normalised objectives, times.
+- ``run.json``: config as run, seed, problem description, template,
+  package versions, timings, status.
+- ``checkpoint.pkl``: the algorithm state for ``tiltopt run --resume``.
+
+Columns of front/evaluations: ``candidate_id``, ``generation``, ``feasible``,
+``violation``, ``reason``, ``var.<name>``, ``obj.<name>`` (as minimised),
+``con.<name>`` (constraint values, feasible where <= 0) and the metric
+columns (names end in their unit). The Parquet schema metadata key
+``tiltopt`` holds JSON ``{"units": {column: unit}, "run_id", "seed",
+"config", "versions", "caution"}``.
+"""
+from __future__ import annotations
+
+import json
+import os
+import platform
+import tempfile
+from dataclasses import dataclass, field
+from functools import cached_property
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+from kinematics.errors import InputError
+
+FRONT, EVALUATIONS, GENERATIONS, RUN_JSON, CHECKPOINT = (
+    "front.parquet", "evaluations.parquet", "generations.parquet", "run.json", "checkpoint.pkl")
+PARTS_DIR = "evaluations.parts"
+META_KEY = b"tiltopt"
+CAUTION = ("Caution: these figures are geometric and quasi-static estimates; prototypes must be tested; "
+           "structural sign-off, brakes, tilt locks and road use follow local rules and qualified engineers.")
+
+GENERATION_UNITS = {"generation": "1", "evaluations": "1", "feasible": "1", "feasible_share": "1",
+                    "front_size": "1", "hypervolume": "1 (normalised objectives, reference 1.1 each)",
+                    "elapsed_s": "s", "generation_s": "s", "evaluation_s": "s"}
+BASE_UNITS = {"candidate_id": "", "generation": "1", "feasible": "", "violation": "sum of positive constraint "
+              "values (units of each constraint)", "reason": ""}
+_SUFFIX_UNITS = (("_mm", "mm"), ("_deg", "deg"), ("_kg", "kg"), ("_nm", "N*m"), ("_mpa", "MPa"), ("_n", "N"),
+                 ("_s", "s"), ("_share", "1"))
+
+
+# ------------------------------------------------------------------ atomic writes
+def _atomic(path: Path, write) -> None:
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
+    try:
+        with os.fdopen(fd, "wb") as fh:
+            write(fh)
+            fh.flush()
+            os.fsync(fh.fileno())
+        os.replace(tmp, path)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except FileNotFoundError:
+            pass
+        raise
+
+
+def write_bytes(path: Path, data: bytes) -> None:
+    """Write ``data`` to ``path`` atomically."""
+    _atomic(path, lambda fh: fh.write(data))
+
+
+def write_json(path: Path, obj: Any) -> None:
+    """Write ``obj`` as indented JSON atomically (non-JSON values as strings)."""
+    write_bytes(path, (json.dumps(obj, indent=2, default=str) + "\n").encode("utf-8"))
+
+
+def metric_unit(name: str) -> str:
+    """Unit of a metric column from the end of its name (``_mm`` -> mm ...); "1" otherwise."""
+    low = name.lower()
+    for suf, unit in _SUFFIX_UNITS:
+        if low.endswith(suf):
+            return unit
+    return "1"
+
+
+def write_parquet(path: Path, df: pd.DataFrame, units: dict, meta: dict) -> None:
+    """Write ``df`` atomically with ``units`` and ``meta`` in the schema metadata key ``tiltopt``."""
+    table = pa.Table.from_pandas(df, preserve_index=False)
+    info = dict(meta)
+    info["units"] = {c: units.get(c, metric_unit(c)) for c in df.columns}
+    md = dict(table.schema.metadata or {})
+    md[META_KEY] = json.dumps(info, default=str).encode("utf-8")
+    table = table.replace_schema_metadata(md)
+    _atomic(path, lambda fh: pq.write_table(table, fh))
+
+
+def read_parquet(path: Path) -> tuple[pd.DataFrame, dict]:
+    """A result Parquet file and its ``tiltopt`` metadata."""
+    table = pq.read_table(path)
+    raw = (table.schema.metadata or {}).get(META_KEY)
+    return table.to_pandas(), (json.loads(raw) if raw else {})
+
+
+def package_versions() -> dict:
+    """Versions of Python and the packages a run depends on."""
+    from importlib import metadata
+
+    out = {"python": platform.python_version()}
+    for name in ("tiltopt", "numpy", "scipy", "pandas", "pyarrow", "pymoo", "dask", "distributed"):
+        try:
+            out[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            out[name] = None
+    return out
+
+
+# ------------------------------------------------------------------ reading a run
+@dataclass
+class Run:
+    """A run folder, loaded.
+
+    Attributes
+    ----------
+    run_dir : Path
+    run_id : str
+    meta : dict
+        run.json.
+    front, generations : pandas.DataFrame
+    evaluations : pandas.DataFrame
+        Read on first use.
+    """
+
+    run_dir: Path
+    run_id: str
+    meta: dict
+    front: pd.DataFrame
+    generations: pd.DataFrame
+    units: dict = field(default_factory=dict)
+
+    @cached_property
+    def evaluations(self) -> pd.DataFrame:
+        path = self.run_dir / EVALUATIONS
+        parts_dir = self.run_dir / PARTS_DIR
+        if path.is_file():
+            return read_parquet(path)[0]
+        parts = sorted(parts_dir.glob("evaluations-*.parquet")) if parts_dir.is_dir() else []
+        if parts:
+            return pd.concat([read_parquet(p)[0] for p in parts], ignore_index=True)
+        return self.front.iloc[0:0].copy()
+
+    @property
+    def variable_names(self) -> list[str]:
+        return list(self.meta.get("problem", {}).get("variables", []))
+
+    @property
+    def objective_names(self) -> list[str]:
+        return list(self.meta.get("problem", {}).get("objectives", []))
+
+    @cached_property
+    def config(self):
+        """The :class:`~optimizer.config.RunConfig` as run (parsed again from run.json)."""
+        from .config import parse_config
+
+        cfg = self.meta.get("config")
+        if not isinstance(cfg, dict):
+            raise InputError("run.json holds no config (this folder is a merge of runs).", str(self.run_dir / RUN_JSON),
+                             "config")
+        return parse_config(cfg, str(self.run_dir / RUN_JSON), self.meta.get("config_base_dir"))
+
+    @cached_property
+    def template(self):
+        """The :class:`problems.templates.Template` the run searched."""
+        d = self.meta.get("template")
+        if not d:
+            raise InputError("this run has no mechanism template (it ran a benchmark problem).",
+                             str(self.run_dir / RUN_JSON), "template")
+        from problems.templates import Template
+
+        return Template.from_dict(d, str(self.run_dir / RUN_JSON))
+
+    def _row(self, candidate_id: str) -> pd.Series:
+        for df in (self.front, self.evaluations):
+            hit = df.index[df["candidate_id"] == candidate_id] if "candidate_id" in df else []
+            if len(hit):
+                return df.loc[hit[0]]
+        raise InputError(f"no candidate {candidate_id!r} in this run. Candidate ids look like "
+                         f"{self.front['candidate_id'].iloc[0] if len(self.front) else 'g001-0000'!r}.",
+                         str(self.run_dir), "candidate_id")
+
+    def candidate_x(self, candidate_id: str) -> np.ndarray:
+        """Design vector of a candidate, in the template's variable order.
+
+        Returns
+        -------
+        x : ndarray of shape (n_var,)
+        """
+        row = self._row(candidate_id)
+        return np.array([float(row[f"var.{v}"]) for v in self.variable_names])
+
+    def candidate_mechanism(self, candidate_id: str):
+        """The :class:`kinematics.Mechanism` of a candidate (template with its design vector)."""
+        return self.template.mechanism_for(self.candidate_x(candidate_id))
+
+
+def load_run(run_dir: str | Path) -> Run:
+    """Load a run folder (or a merged front folder).
+
+    Raises
+    ------
+    InputError
+        When the folder or its run.json / front.parquet is missing or unreadable.
+    """
+    d = Path(run_dir)
+    if not d.is_dir():
+        raise InputError("expected a run folder (results/<run-id>/). It does not exist.", str(d))
+    rj = d / RUN_JSON
+    if not rj.is_file():
+        raise InputError("expected a run folder with run.json; none found. Is this a results/<run-id>/ folder?", str(d))
+    try:
+        meta = json.loads(rj.read_text(encoding="utf-8"))
+    except (OSError, json.JSONDecodeError) as exc:
+        raise InputError(f"cannot read run.json ({exc}).", str(rj)) from None
+    units: dict = {}
+    if (d / FRONT).is_file():
+        front, fm = read_parquet(d / FRONT)
+        units.update(fm.get("units", {}))
+    elif meta.get("status") in ("running", "interrupted", "failed"):
+        front = pd.DataFrame({"candidate_id": pd.Series(dtype=str)})
+    else:
+        raise InputError("front.parquet is missing from this run folder.", str(d))
+    gens = read_parquet(d / GENERATIONS)[0] if (d / GENERATIONS).is_file() else pd.DataFrame()
+    return Run(run_dir=d, run_id=str(meta.get("run_id", d.name)), meta=meta, front=front, generations=gens,
+               units=units)

@@ -1,0 +1,573 @@
+"""NSGA-II / NSGA-III runs over ``problem.evaluate_designs``, with checkpoints, resume and result files.
+
+The loop is pymoo's ask / tell: each generation's designs go to one batched
+``evaluate_designs(X)`` call, every evaluated design is recorded, and the
+algorithm (with its random generator) is pickled every ``checkpoint_every``
+generations. A resumed run therefore continues to the same front as an
+uninterrupted run with the same seed.
+
+Any object works as the problem if it has ``n_var``, ``n_obj``,
+``n_ieq_constr``, ``xl``, ``xu`` and ``evaluate_designs(X)`` returning an
+object with ``F``, ``G``, ``feasible``, ``violation``, ``reason``,
+``metrics``, ``objective_names`` and ``constraint_names``
+(:class:`problems.problem.TiltProblem`, :class:`optimizer.reference_problems.ZDTProblem`).
+"""
+from __future__ import annotations
+
+import math
+import pickle
+import shutil
+import signal
+import threading
+import time
+from dataclasses import dataclass, field
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from pymoo.core.evaluator import Evaluator
+from pymoo.core.problem import Problem
+from pymoo.problems.static import StaticProblem
+
+from kinematics.errors import InputError
+
+from . import results as R
+from .config import RunConfig, RunSettings, parse_config
+from .pareto import HV_REFERENCE, Normaliser, hypervolume, nondominated_mask
+from .progress import Progress
+
+CHECKPOINT_FORMAT = "tiltopt-checkpoint-1"
+
+
+class _Bounds(Problem):
+    """What the algorithm sees of the problem: sizes and bounds only (cheap to pickle)."""
+
+    def __init__(self, n_var, n_obj, n_ieq_constr, xl, xu):
+        super().__init__(n_var=n_var, n_obj=n_obj, n_ieq_constr=n_ieq_constr, xl=xl, xu=xu, elementwise=False)
+
+    def _evaluate(self, x, out, *args, **kwargs):
+        raise RuntimeError("the runner evaluates designs through evaluate_designs(); the algorithm must not")
+
+
+@dataclass
+class ProblemInfo:
+    """Names and units of a problem's columns (from the problem object)."""
+
+    kind: str
+    variables: list
+    variable_units: dict
+    objectives: list
+    objective_units: dict
+    constraints: list
+    constraint_units: dict
+    template: dict | None
+
+    def to_dict(self) -> dict:
+        return {"kind": self.kind, "variables": self.variables, "variable_units": self.variable_units,
+                "objectives": self.objectives, "objective_units": self.objective_units,
+                "constraints": self.constraints, "constraint_units": self.constraint_units}
+
+
+def describe_problem(problem) -> ProblemInfo:
+    """Variable, objective and constraint names and units of a problem object."""
+    template = getattr(problem, "template", None)
+    if template is not None and hasattr(template, "variables"):
+        variables = [v.name for v in template.variables]
+        vunits = {v.name: v.unit for v in template.variables}
+        tdict = template.to_dict()
+        kind = "tilt"
+    else:
+        variables = list(getattr(problem, "variable_names", [f"x{i + 1}" for i in range(problem.n_var)]))
+        vunits = dict(getattr(problem, "variable_units", {}) or {v: "1" for v in variables})
+        tdict = None
+        kind = str(getattr(problem, "name", type(problem).__name__))
+    objectives = list(getattr(problem, "objective_names", [f"f{i + 1}" for i in range(problem.n_obj)]))
+    constraints = list(getattr(problem, "constraint_names", [f"g{i + 1}" for i in range(problem.n_ieq_constr)]))
+    return ProblemInfo(kind=kind, variables=variables, variable_units=vunits, objectives=objectives,
+                       objective_units=dict(getattr(problem, "objective_units", {}) or {}),
+                       constraints=constraints, constraint_units=dict(getattr(problem, "constraint_units", {}) or {}),
+                       template=tdict)
+
+
+def _largest_partitions(n_obj: int, population: int) -> int:
+    p = 1
+    while math.comb(p + 1 + n_obj - 1, n_obj - 1) <= population:
+        p += 1
+    return p
+
+
+def make_algorithm(settings: RunSettings, n_obj: int):
+    """The pymoo algorithm of a run: NSGA-II, or NSGA-III with Das-Dennis reference directions."""
+    if settings.algorithm == "nsga2":
+        from pymoo.algorithms.moo.nsga2 import NSGA2
+
+        return NSGA2(pop_size=settings.population, eliminate_duplicates=True)
+    from pymoo.algorithms.moo.nsga3 import NSGA3
+    from pymoo.util.ref_dirs import get_reference_directions
+
+    parts = settings.nsga3_partitions or _largest_partitions(n_obj, settings.population)
+    ref_dirs = get_reference_directions("das-dennis", n_obj, n_partitions=parts)
+    return NSGA3(pop_size=settings.population, ref_dirs=ref_dirs, eliminate_duplicates=True)
+
+
+@dataclass
+class RunState:
+    """Everything besides the algorithm that a checkpoint keeps."""
+
+    generation: int = 0
+    n_evals: int = 0
+    generations: list = field(default_factory=list)
+    archive: pd.DataFrame | None = None
+    normaliser: Normaliser | None = None
+    elapsed_s: float = 0.0
+    evaluation_s: float = 0.0
+    part_start: int = 1          # first generation not yet in a part file
+    pending: list = field(default_factory=list)
+    started_utc: str = ""
+
+
+@dataclass
+class RunOutcome:
+    """How a run ended.
+
+    Attributes
+    ----------
+    run_dir : Path
+    run_id : str
+    status : {'finished', 'interrupted'}
+    generations : int
+        Generations done.
+    front_size : int
+    elapsed_s : float
+    """
+
+    run_dir: Path
+    run_id: str
+    status: str
+    generations: int
+    front_size: int
+    elapsed_s: float
+
+
+class _StopFlag:
+    """SIGINT handling: the first Ctrl-C asks to stop after this generation, a second aborts."""
+
+    def __init__(self, progress: Progress):
+        self.requested = False
+        self.progress = progress
+        self._old = None
+
+    def _handler(self, signum, frame):
+        if self.requested:
+            raise KeyboardInterrupt
+        self.requested = True
+        self.progress.message("stopping after this generation, writing a checkpoint (Ctrl-C again to abort) ...")
+
+    def __enter__(self):
+        if threading.current_thread() is threading.main_thread():
+            self._old = signal.signal(signal.SIGINT, self._handler)
+        return self
+
+    def __exit__(self, *exc):
+        if self._old is not None:
+            signal.signal(signal.SIGINT, self._old)
+        return False
+
+
+class Runner:
+    """One run of a problem into a run folder.
+
+    Parameters
+    ----------
+    problem : object with ``evaluate_designs``
+    settings : RunSettings
+    run_dir : Path
+    run_id : str
+    config : dict, optional
+        Everything about the config to keep in run.json (``config``, ``config_source``, ``config_base_dir``).
+    progress : bool
+        Print a progress line on stderr.
+    stop_after : int, optional
+        Stop (as after Ctrl-C, with a checkpoint) once this many generations are done.
+    """
+
+    def __init__(self, problem, settings: RunSettings, run_dir: Path, run_id: str, config: dict | None = None,
+                 progress: bool = True, stop_after: int | None = None):
+        self.problem = problem
+        self.settings = settings
+        self.run_dir = Path(run_dir)
+        self.run_id = run_id
+        self.config = config or {}
+        self.info = describe_problem(problem)
+        self.progress = Progress(settings.generations, run_id, enabled=progress)
+        self.stop_after = stop_after
+        self.width = max(3, len(str(settings.generations)))
+        self.algorithm = None
+        self.state = RunState()
+        self.units = self._units()
+        self.versions = R.package_versions()
+
+    # -------------------------------------------------------------- setup
+    def _units(self) -> dict:
+        u = dict(R.BASE_UNITS)
+        for v in self.info.variables:
+            u[f"var.{v}"] = self.info.variable_units.get(v, "1")
+        for o in self.info.objectives:
+            u[f"obj.{o}"] = self.info.objective_units.get(o, "1")
+        for c in self.info.constraints:
+            u[f"con.{c}"] = self.info.constraint_units.get(c, "1")
+        try:
+            from problems.problem import METRIC_UNITS
+
+            u.update(METRIC_UNITS)
+        except ImportError:
+            pass
+        return u
+
+    def _new_algorithm(self):
+        p = self.problem
+        alg = make_algorithm(self.settings, p.n_obj)
+        shell = _Bounds(p.n_var, p.n_obj, p.n_ieq_constr, np.asarray(p.xl, float), np.asarray(p.xu, float))
+        alg.setup(shell, termination=("n_gen", self.settings.generations), seed=self.settings.seed, verbose=False)
+        return alg
+
+    def _meta(self) -> dict:
+        return {"run_id": self.run_id, "seed": self.settings.seed, "config": self.config.get("config"),
+                "versions": self.versions, "caution": R.CAUTION}
+
+    # -------------------------------------------------------------- checkpoint
+    def _write_checkpoint(self):
+        s = self.state
+        blob = pickle.dumps({"format": CHECKPOINT_FORMAT, "algorithm": self.algorithm, "state": s,
+                             "problem": self.info.to_dict(), "settings": self.settings.to_dict()},
+                            protocol=pickle.HIGHEST_PROTOCOL)
+        R.write_bytes(self.run_dir / R.CHECKPOINT, blob)
+
+    def _load_checkpoint(self) -> bool:
+        path = self.run_dir / R.CHECKPOINT
+        if not path.is_file():
+            return False
+        try:
+            ck = pickle.loads(path.read_bytes())
+        except Exception as exc:  # a checkpoint from another version, or damaged
+            raise InputError(f"cannot read the checkpoint ({exc}). Start the run again without --resume.",
+                             str(path)) from None
+        if not isinstance(ck, dict) or ck.get("format") != CHECKPOINT_FORMAT:
+            raise InputError("not a tiltopt checkpoint of this version.", str(path))
+        if ck["problem"] != self.info.to_dict():
+            raise InputError("the checkpoint belongs to a different problem (variables, objectives or constraints "
+                             "differ from the config). Start a new run instead.", str(path))
+        self.algorithm = ck["algorithm"]
+        self.state = ck["state"]
+        # parts written after the checkpoint belong to generations that will run again
+        parts = self.run_dir / R.PARTS_DIR
+        if parts.is_dir():
+            for f in parts.glob("evaluations-*.parquet"):
+                if int(f.name.split("-")[1][1:]) > self.state.generation:
+                    f.unlink()
+        return True
+
+    # -------------------------------------------------------------- records
+    def _records(self, gen: int, X: np.ndarray, ev) -> pd.DataFrame:
+        n = X.shape[0]
+        cols: dict[str, Any] = {
+            "candidate_id": [f"g{gen:0{self.width}d}-{i:04d}" for i in range(n)],
+            "generation": np.full(n, gen, dtype=np.int64),
+            "feasible": np.asarray(ev.feasible, dtype=bool),
+            "violation": np.asarray(ev.violation, dtype=float),
+            "reason": [str(r) for r in ev.reason],
+        }
+        for j, v in enumerate(self.info.variables):
+            cols[f"var.{v}"] = X[:, j].astype(float)
+        F = np.asarray(ev.F, dtype=float)
+        for j, o in enumerate(self.info.objectives):
+            cols[f"obj.{o}"] = F[:, j]
+        G = np.asarray(ev.G, dtype=float).reshape(n, -1)
+        for j, c in enumerate(self.info.constraints):
+            cols[f"con.{c}"] = G[:, j]
+        for name, arr in (ev.metrics or {}).items():
+            a = np.asarray(arr)
+            if a.ndim == 1:
+                cols[name] = a
+            elif a.ndim == 2:
+                for k in range(a.shape[1]):
+                    cols[f"{name}.{k}"] = a[:, k]
+        return pd.DataFrame(cols)
+
+    def _obj_cols(self):
+        return [f"obj.{o}" for o in self.info.objectives]
+
+    def _update_archive(self, rec: pd.DataFrame):
+        """Keep the non-dominated feasible designs of every generation so far (first of equal designs)."""
+        s = self.state
+        new = rec[rec["feasible"].to_numpy()]
+        if len(new) == 0:
+            return
+        oc, vc = self._obj_cols(), [f"var.{v}" for v in self.info.variables]
+        if s.archive is None or len(s.archive) == 0:
+            F, X, n_old = new[oc].to_numpy(float), new[vc].to_numpy(float), 0
+        else:
+            n_old = len(s.archive)
+            F = np.vstack([s.archive[oc].to_numpy(float), new[oc].to_numpy(float)])
+            X = np.vstack([s.archive[vc].to_numpy(float), new[vc].to_numpy(float)])
+        keep = nondominated_mask(F)
+        idx = np.flatnonzero(keep)
+        _, first = np.unique(X[idx], axis=0, return_index=True)
+        idx = np.sort(idx[first])
+        old_idx, new_idx = idx[idx < n_old], idx[idx >= n_old] - n_old
+        if len(new_idx) == 0 and len(old_idx) == n_old:
+            return
+        parts = ([s.archive.iloc[old_idx]] if n_old else []) + [new.iloc[new_idx]]
+        s.archive = pd.concat(parts, ignore_index=True) if len(parts) > 1 else parts[0].reset_index(drop=True)
+
+    # -------------------------------------------------------------- files
+    def _write_front_and_generations(self):
+        meta = self._meta()
+        front = self.state.archive if self.state.archive is not None else self._empty_records()
+        R.write_parquet(self.run_dir / R.FRONT, front, self.units, meta)
+        gens = pd.DataFrame(self.state.generations, columns=list(R.GENERATION_UNITS))
+        R.write_parquet(self.run_dir / R.GENERATIONS, gens, R.GENERATION_UNITS, meta)
+
+    def _empty_records(self) -> pd.DataFrame:
+        cols = (["candidate_id", "generation", "feasible", "violation", "reason"]
+                + [f"var.{v}" for v in self.info.variables] + self._obj_cols()
+                + [f"con.{c}" for c in self.info.constraints])
+        return pd.DataFrame({c: pd.Series(dtype=str if c in ("candidate_id", "reason") else
+                                          (bool if c == "feasible" else (np.int64 if c == "generation" else float)))
+                             for c in cols})
+
+    def _flush_part(self):
+        s = self.state
+        if not s.pending:
+            return
+        df = pd.concat(s.pending, ignore_index=True)
+        name = f"evaluations-g{s.part_start:06d}-g{s.generation:06d}.parquet"
+        R.write_parquet(self.run_dir / R.PARTS_DIR / name, df, self.units, self._meta())
+        s.pending = []
+        s.part_start = s.generation + 1
+
+    def _write_evaluations(self):
+        parts = sorted((self.run_dir / R.PARTS_DIR).glob("evaluations-*.parquet")) \
+            if (self.run_dir / R.PARTS_DIR).is_dir() else []
+        frames = [R.read_parquet(p)[0] for p in parts] + list(self.state.pending)
+        df = pd.concat(frames, ignore_index=True) if frames else self._empty_records()
+        R.write_parquet(self.run_dir / R.EVALUATIONS, df, self.units, self._meta())
+
+    def _write_run_json(self, status: str, error: str | None = None):
+        s = self.state
+        outside = max(s.elapsed_s - s.evaluation_s, 0.0)
+        doc = {
+            "format": "tiltopt-run-1",
+            "run_id": self.run_id,
+            "status": status,
+            "seed": self.settings.seed,
+            "run": self.settings.to_dict(),
+            "config": self.config.get("config"),
+            "config_source": self.config.get("config_source"),
+            "config_base_dir": self.config.get("config_base_dir"),
+            "problem": self.info.to_dict(),
+            "template": self.info.template,
+            "hypervolume": {"normalisation": s.normaliser.to_dict() if s.normaliser else None,
+                            "reference": HV_REFERENCE,
+                            "note": "objectives mapped to [0, 1] by the feasible range of the first generation "
+                                    "with a feasible design; reference point 1.1 in each"},
+            "versions": self.versions,
+            "timings": {"started_utc": s.started_utc, "updated_utc": datetime.now(timezone.utc).isoformat(),
+                        "elapsed_s": s.elapsed_s, "evaluation_s": s.evaluation_s, "outside_evaluation_s": outside,
+                        "outside_evaluation_share": outside / s.elapsed_s if s.elapsed_s > 0 else None,
+                        "generations_done": s.generation, "evaluations": s.n_evals},
+            "front_size": 0 if s.archive is None else int(len(s.archive)),
+            "caution": R.CAUTION,
+        }
+        if error:
+            doc["error"] = error
+        R.write_json(self.run_dir / R.RUN_JSON, doc)
+
+    def _checkpoint(self, status="running"):
+        self._flush_part()
+        self._write_front_and_generations()
+        self._write_checkpoint()
+        self._write_run_json(status)
+
+    # -------------------------------------------------------------- the loop
+    def run(self, resume: bool = False) -> RunOutcome:
+        """Run (or continue) to the configured number of generations, or until stopped."""
+        self.run_dir.mkdir(parents=True, exist_ok=True)
+        if not (resume and self._load_checkpoint()):
+            self.algorithm = self._new_algorithm()
+            self.state = RunState(started_utc=datetime.now(timezone.utc).isoformat())
+            for f in (R.FRONT, R.EVALUATIONS, R.GENERATIONS, R.CHECKPOINT):
+                (self.run_dir / f).unlink(missing_ok=True)
+            shutil.rmtree(self.run_dir / R.PARTS_DIR, ignore_errors=True)
+            self._write_run_json("running")
+        alg, s = self.algorithm, self.state
+        p = self.problem
+        every = self.settings.checkpoint_every
+        status = "finished"
+        session_t0 = time.perf_counter()
+        base_elapsed = s.elapsed_s
+        session_gens = 0
+        try:
+            with _StopFlag(self.progress) as stop:
+                while alg.has_next():
+                    if stop.requested or (self.stop_after is not None and s.generation >= self.stop_after):
+                        status = "interrupted"
+                        break
+                    t0 = time.perf_counter()
+                    pop = alg.ask()
+                    X = np.asarray(pop.get("X"), dtype=float)
+                    te = time.perf_counter()
+                    ev = p.evaluate_designs(X)
+                    eval_dt = time.perf_counter() - te
+                    F = np.asarray(ev.F, dtype=float)
+                    G = np.asarray(ev.G, dtype=float).reshape(len(X), -1)
+                    if F.shape != (len(X), p.n_obj) or G.shape[1] != p.n_ieq_constr:
+                        raise RuntimeError(f"evaluate_designs returned F {F.shape}, G {G.shape} for "
+                                           f"{len(X)} designs, {p.n_obj} objectives, {p.n_ieq_constr} constraints")
+                    if not (np.isfinite(F).all() and np.isfinite(G).all()):
+                        raise RuntimeError("evaluate_designs returned inf or NaN in F or G")
+                    kw = {"F": F, "G": G} if p.n_ieq_constr else {"F": F}
+                    Evaluator().eval(StaticProblem(alg.problem, **kw), pop)
+                    alg.tell(infills=pop)
+
+                    s.generation += 1
+                    s.n_evals += len(X)
+                    rec = self._records(s.generation, X, ev)
+                    s.pending.append(rec)
+                    self._update_archive(rec)
+                    feas = rec["feasible"].to_numpy()
+                    if s.normaliser is None and feas.any():
+                        s.normaliser = Normaliser.from_points(F[feas])
+                    hv = float("nan")
+                    if s.normaliser is not None and s.archive is not None and len(s.archive):
+                        hv = hypervolume(s.normaliser(s.archive[self._obj_cols()].to_numpy(float)),
+                                         np.full(p.n_obj, HV_REFERENCE))
+                    now = time.perf_counter()
+                    s.elapsed_s = base_elapsed + (now - session_t0)
+                    s.evaluation_s += eval_dt
+                    s.generations.append({
+                        "generation": s.generation, "evaluations": s.n_evals, "feasible": int(feas.sum()),
+                        "feasible_share": float(feas.mean()), "front_size": 0 if s.archive is None else len(s.archive),
+                        "hypervolume": hv, "elapsed_s": s.elapsed_s, "generation_s": now - t0,
+                        "evaluation_s": eval_dt})
+                    session_gens += 1
+                    per_gen = (now - session_t0) / session_gens
+                    self.progress.update(s.generation, len(X) / max(now - t0, 1e-9), float(feas.mean()), hv,
+                                         per_gen * (self.settings.generations - s.generation))
+                    if s.generation % every == 0 and alg.has_next():
+                        self._checkpoint()
+        except KeyboardInterrupt:
+            # aborted inside a generation: keep the last checkpoint, write what completed generations hold
+            self.progress.message("aborted; results of the completed generations are written, "
+                                  "--resume continues from the last checkpoint")
+            self._write_front_and_generations()
+            self._write_evaluations()
+            self._write_run_json("interrupted")
+            raise
+        except BaseException as exc:
+            self.progress.close()
+            self._write_run_json("failed", error=f"{type(exc).__name__}: {exc}")
+            raise
+        self.progress.close()
+        self._flush_part()
+        self._write_front_and_generations()
+        self._write_checkpoint()
+        self._write_evaluations()
+        self._write_run_json(status)
+        if status == "interrupted":
+            self.progress.message(f"stopped at generation {s.generation}; continue with: "
+                                  f"tiltopt run --resume {self.run_dir}")
+        return RunOutcome(self.run_dir, self.run_id, status, s.generation,
+                          0 if s.archive is None else int(len(s.archive)), s.elapsed_s)
+
+
+# ------------------------------------------------------------------ entry points
+def config_record(cfg: RunConfig) -> dict:
+    return {"config": cfg.data, "config_source": cfg.source, "config_base_dir": str(cfg.base_dir)}
+
+
+def default_run_id(cfg: RunConfig) -> str:
+    return f"{cfg.run.name}-s{cfg.run.seed}"
+
+
+def _status(run_dir: Path) -> str | None:
+    try:
+        import json
+
+        return json.loads((run_dir / R.RUN_JSON).read_text(encoding="utf-8")).get("status")
+    except (OSError, ValueError):
+        return None
+
+
+def start_run(cfg: RunConfig, run_id: str | None = None, output: str | Path | None = None, overwrite: bool = False,
+              progress: bool = True, stop_after: int | None = None) -> RunOutcome:
+    """Start a new run of a config into ``<output>/<run-id>/``.
+
+    Parameters
+    ----------
+    cfg : RunConfig
+    run_id : str, optional
+        Default ``<name>-s<seed>``.
+    output : path, optional
+        Folder for the run folder (default: the config's ``[run] output``).
+    overwrite : bool
+        Replace an existing run folder of the same id.
+
+    Raises
+    ------
+    InputError
+        When the run folder exists and ``overwrite`` is false.
+    """
+    rid = run_id or default_run_id(cfg)
+    root = Path(output) if output is not None else cfg.run.output
+    run_dir = root / rid
+    if (run_dir / R.RUN_JSON).exists() and not overwrite:
+        st = _status(run_dir)
+        hint = (f"continue it with: tiltopt run --resume {run_dir}" if st in ("running", "interrupted", "failed")
+                else "pass --overwrite to replace it, or --run-id NAME for a new folder")
+        raise InputError(f"a run folder with this id already exists ({st or 'unknown'} run); {hint}.", str(run_dir))
+    if overwrite and run_dir.exists():
+        shutil.rmtree(run_dir)
+    problem = cfg.make_problem()
+    return Runner(problem, cfg.run, run_dir, rid, config_record(cfg), progress, stop_after).run(resume=False)
+
+
+def resume_run(run_dir: str | Path, progress: bool = True, stop_after: int | None = None,
+               problem=None) -> RunOutcome:
+    """Continue a run from its checkpoint to the configured number of generations.
+
+    ``problem`` may be given for runs of a problem object made in code (no config in run.json).
+    """
+    d = Path(run_dir)
+    meta = R.load_run(d).meta if (d / R.RUN_JSON).is_file() else None
+    if meta is None:
+        raise InputError("expected a run folder with run.json and checkpoint.pkl.", str(d))
+    if not (d / R.CHECKPOINT).is_file():
+        raise InputError("this run folder has no checkpoint.pkl to resume from; start the run again.", str(d))
+    if meta.get("config") is not None:
+        cfg = parse_config(meta["config"], str(d / R.RUN_JSON), meta.get("config_base_dir"))
+        settings, record = cfg.run, config_record(cfg)
+        record["config_source"] = meta.get("config_source")
+        problem = problem if problem is not None else cfg.make_problem()
+    else:
+        if problem is None:
+            raise InputError("this run was started from code, not a config; resume it from code with its problem.",
+                             str(d))
+        run = meta["run"]
+        settings = RunSettings(**{**run, "output": Path(run["output"])})
+        record = {}
+    runner = Runner(problem, settings, d, meta.get("run_id", d.name), record, progress, stop_after)
+    if meta.get("status") == "finished":
+        s = R.load_run(d)
+        return RunOutcome(d, runner.run_id, "finished", int(meta["timings"]["generations_done"]), len(s.front),
+                          float(meta["timings"]["elapsed_s"]))
+    return runner.run(resume=True)
+
+
+def run_problem(problem, settings: RunSettings, run_dir: str | Path, run_id: str | None = None,
+                progress: bool = False, stop_after: int | None = None, resume: bool = False) -> RunOutcome:
+    """Run any problem object with ``evaluate_designs`` (see module docs) into ``run_dir``."""
+    d = Path(run_dir)
+    return Runner(problem, settings, d, run_id or d.name, None, progress, stop_after).run(resume=resume)

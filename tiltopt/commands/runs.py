@@ -1,0 +1,103 @@
+"""``tiltopt run``, ``tiltopt batch``, ``tiltopt merge`` and ``tiltopt demo``."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import click
+
+from kinematics.errors import InputError
+
+from ..cli import main
+
+
+def _caution():
+    from optimizer.results import CAUTION
+
+    click.echo(CAUTION)
+
+
+def _report_outcome(o):
+    click.echo(f"run {o.run_id}: {o.status} after {o.generations} generations ({o.elapsed_s:.1f} s); "
+               f"front of {o.front_size} designs")
+    click.echo(f"results: {o.run_dir}  (front.parquet, evaluations.parquet, generations.parquet, run.json)")
+
+
+@main.command("run")
+@click.argument("config", required=False, type=click.Path(dir_okay=False))
+@click.option("--resume", "resume", type=click.Path(file_okay=False), default=None,
+              help="Continue the run in this folder from its checkpoint.")
+@click.option("--output", type=click.Path(file_okay=False), default=None,
+              help="Folder for the run folder (default: the config's [run] output).")
+@click.option("--run-id", default=None, help="Name of the run folder (default: <name>-s<seed>).")
+@click.option("--overwrite", is_flag=True, help="Replace an existing run folder of the same id.")
+@click.option("--quiet", is_flag=True, help="No progress line.")
+def run_cmd(config, resume, output, run_id, overwrite, quiet):
+    """Optimise a run config (NSGA-II/III); Ctrl-C stops cleanly with a checkpoint."""
+    from optimizer.config import load_config
+    from optimizer.runner import resume_run, start_run
+
+    if resume:
+        if config or output or run_id or overwrite:
+            raise InputError("--resume takes only the run folder; the config is the one stored in it.", "--resume")
+        o = resume_run(resume, progress=not quiet)
+    else:
+        if not config:
+            raise InputError("expected a run config (tiltopt run CONFIG) or --resume RUN_DIR.", "run")
+        o = start_run(load_config(config), run_id=run_id, output=output, overwrite=overwrite, progress=not quiet)
+    _report_outcome(o)
+    _caution()
+
+
+@main.command("batch")
+@click.argument("batch_file", type=click.Path(dir_okay=False))
+@click.option("--workers", type=click.IntRange(1, None), default=2, show_default=True,
+              help="Local worker processes (one run each at a time).")
+@click.option("--scheduler", default=None, help="Address of a Dask distributed scheduler (tcp://host:8786).")
+def batch_cmd(batch_file, workers, scheduler):
+    """Run many configs / seeds / grid points; finished runs are kept on restart."""
+    from optimizer.batch import SUMMARY, load_batch, run_dask, run_local
+
+    b = load_batch(batch_file)
+    click.echo(f"batch {b.name}: {len(b.items)} runs in {b.batch_dir}")
+    if scheduler:
+        df = run_dask(b, scheduler, echo=click.echo)
+    else:
+        df = run_local(b, workers=workers, echo=click.echo)
+    counts = df["status"].value_counts().to_dict()
+    click.echo("status: " + ", ".join(f"{k} {v}" for k, v in sorted(counts.items())))
+    click.echo(f"summary: {b.batch_dir / SUMMARY}")
+    if set(counts) - {"finished"}:
+        raise SystemExit(1)
+
+
+@main.command("merge")
+@click.argument("run_dirs", nargs=-1, required=True, type=click.Path(file_okay=False))
+@click.option("-o", "--output", "out", required=True, type=click.Path(file_okay=False),
+              help="Folder for the merged front.parquet and run.json.")
+def merge_cmd(run_dirs, out):
+    """Non-dominated union of several runs' fronts (same objectives)."""
+    from optimizer.merge import merge_fronts
+
+    d, df = merge_fronts(run_dirs, out)
+    click.echo(f"merged {len(run_dirs)} fronts: {len(df)} non-dominated designs in {d / 'front.parquet'}")
+    _caution()
+
+
+@main.command("demo")
+@click.option("--config", type=click.Path(dir_okay=False), default=None, help="Another config instead of the demo.")
+@click.option("--output", type=click.Path(file_okay=False), default=None, help="Folder for the run folder.")
+@click.option("--quiet", is_flag=True, help="No progress line.")
+def demo_cmd(config, output, quiet):
+    """Short optimisation of the Harbourline parcel trike demo config; prints where the results are."""
+    from optimizer.demo import run_demo
+
+    o = run_demo(config, output, progress=not quiet)
+    _report_outcome(o)
+    try:
+        from tiltopt.reports import demo_outputs
+    except ImportError:
+        demo_outputs = None
+    if demo_outputs is not None:
+        for name, path in demo_outputs(o.run_dir).items():
+            click.echo(f"{name}: {Path(path)}")
+    _caution()
