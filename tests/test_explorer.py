@@ -273,3 +273,77 @@ def test_cli_explore_and_sheet(tmp_path, monkeypatch):
                                   "--travel", "0"])
     assert r.exit_code == 0, r.output
     assert (tmp_path / "tb" / "candidate.toml").exists()
+
+
+# ----------------------------------------------------------------- a real tiny run
+TINY_CONFIG = """
+objectives = ["overall_width", "max_scrub", "max_heave"]
+[run]
+name = "tiny"
+seed = 2
+algorithm = "nsga2"
+population = 16
+generations = 3
+output = "out"
+checkpoint_every = 1
+[template]
+name = "wishbone_rocker"
+[envelope]
+lean_limit_deg = 30.0
+lean_step_deg = 5.0
+travel_mm = [-30.0, 0.0, 30.0]
+[constraints]
+max_width_mm = 900.0
+"""
+
+
+def make_tiny_run(folder: Path) -> Path:
+    """A real run of the optimiser (16 x 3 evaluations of the wishbone-rocker template, seeded)."""
+    pytest.importorskip("optimizer.runner", reason="the optimizer part is not installed on this branch")
+    from optimizer.config import load_config
+    from optimizer.runner import start_run
+
+    cfg = folder / "tiny.toml"
+    cfg.write_text(TINY_CONFIG, encoding="utf-8")
+    out = start_run(load_config(cfg), overwrite=True, progress=False)
+    return Path(out.run_dir)
+
+
+@pytest.fixture(scope="module")
+def tiny(tmp_path_factory):
+    from optimizer.results import load_run
+
+    run_dir = make_tiny_run(tmp_path_factory.mktemp("tiny"))
+    return run_dir, load_run(run_dir)
+
+
+def test_explorer_of_a_real_run(tiny, tmp_path):
+    from tiltopt.reports.runs import explore_runs
+
+    run_dir, run = tiny
+    path = explore_runs([run_dir], tmp_path / "e.html")
+    text = path.read_text(encoding="utf-8")
+    data = json.loads(re.search(r'<script type="application/json" id="tiltopt-data">(.*?)</script>', text,
+                                re.S).group(1))
+    assert data["ids"][:len(run.front)] == run.front["candidate_id"].astype(str).tolist()
+    assert data["runs"][0]["lean_deg"][-1] == 30.0 and data["runs"][0]["travel_mm"] == [-30.0, 0.0, 30.0]
+    assert {c["key"]: c["unit"] for c in data["columns"]}["obj.max_scrub"] == "mm"
+    # the precomputed drawing of the first front design is the template's geometry swept by the kinematics
+    from kinematics.sweep import sweep
+
+    x = run.candidate_x(data["ids"][0])
+    res = sweep(run.template.model, run.template.geometry(x[None]), [0.0], [0.0])
+    P = np.array(data["detail"]["0"]["s"][1][0]["p"]).reshape(-1, 2) / 10.0
+    assert np.allclose(P, res.points[0, 0, 0], atol=0.051)
+
+
+def test_demo_outputs_of_a_real_run(tiny):
+    from tiltopt.reports import demo_outputs
+    from tiltopt.reports.runs import best_compromise
+
+    run_dir, run = tiny
+    out = demo_outputs(run_dir)
+    assert out["explorer"] == run_dir / "explorer.html" and out["explorer"].exists()
+    assert out["sheet"] == run_dir / "sheets" / best_compromise(run.front) / "sheet.html"
+    html = out["sheet"].read_text(encoding="utf-8")
+    assert run.run_id in html and "Caution" in html

@@ -207,3 +207,60 @@ def test_clearance_section_when_the_part_is_present(tmp_path):
     assert "tyre to shell, 3-D [mm]" in html
     assert "No body shell given" not in html
     assert "<polygon" in html and 'stroke-dasharray' in html   # the shell section is drawn
+
+
+# ----------------------------------------------------------------- from a real tiny run
+@pytest.fixture(scope="module")
+def real_sheet(tmp_path_factory):
+    from test_explorer import make_tiny_run
+
+    from optimizer.results import load_run
+    from tiltopt.reports.runs import sheet_from_run
+
+    run_dir = make_tiny_run(tmp_path_factory.mktemp("tiny"))
+    run = load_run(run_dir)
+    feas = run.front[run.front["feasible"].astype(bool)]
+    cid = str(feas["candidate_id"].iloc[len(feas) // 2])
+    paths = sheet_from_run(run_dir, cid, run_dir / "sheet", jig_datum=(0.0, 100.0))
+    return run, cid, paths
+
+
+def test_real_candidate_toml_round_trips_to_the_stored_metrics(real_sheet):
+    """candidate.toml, swept over the run's envelope, gives the metrics the optimiser stored in the front."""
+    from click.testing import CliRunner
+
+    from tiltopt.cli import main
+
+    run, cid, paths = real_sheet
+    row = run.front[run.front["candidate_id"] == cid].iloc[0]
+    out = CliRunner().invoke(main, ["sweep", str(paths["candidate"]), "--lean", "0:30:5", "--travel", "-30,0,30",
+                                    "--format", "json"])
+    assert out.exit_code == 0, out.output
+    import json
+
+    recs = json.loads(out.output)
+    assert all(r["converged"] for r in recs)
+    assert max(abs(r["scrub_mm"]) for r in recs) == pytest.approx(row["max_scrub_mm"], abs=1e-6)
+    assert max(abs(r["heave_mm"]) for r in recs) == pytest.approx(row["max_heave_mm"], abs=1e-6)
+    cam = max(max(abs(r["camber_error_left_deg"]), abs(r["camber_error_right_deg"])) for r in recs)
+    assert cam == pytest.approx(row["max_camber_error_deg"], abs=1e-6)
+
+
+def test_real_pivots_and_dxf_match_the_candidate(real_sheet):
+    import ezdxf
+
+    from tiltopt.reports.dxf import body_layer
+
+    run, cid, paths = real_sheet
+    mech = run.candidate_mechanism(cid)
+    rows = list(csv.DictReader(l for l in paths["pivots"].read_text(encoding="utf-8").splitlines()
+                               if not l.startswith("#")))
+    for r in rows:
+        assert (float(r["y_mm"]), float(r["z_mm"])) == mech.bodies[r["body"]][r["point"]]
+    doc = ezdxf.readfile(str(paths["dxf"]))
+    for body, pts in mech.bodies.items():
+        got = np.array([(e.dxf.location.x, e.dxf.location.y) for e in doc.modelspace().query("POINT")
+                        if e.dxf.layer == body_layer(body)])
+        assert np.max(np.abs(got - np.array(list(pts.values())))) < 1e-6
+    html = paths["sheet"].read_text(encoding="utf-8")
+    assert f"tiltopt sheet" in html and f"--candidate {cid}" in html and run.run_id in html

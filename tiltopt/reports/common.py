@@ -47,8 +47,13 @@ def atomic_write_bytes(path: str | Path, data: bytes) -> Path:
 
 def column_unit(col: str, units: dict | None = None) -> str:
     """Unit of a results column: the Parquet metadata first, then the name's suffix."""
+    if col == "violation":
+        return "sum over constraints"
+    if col == "generation":
+        return "-"
     if units and units.get(col):
-        return str(units[col])
+        u = str(units[col])
+        return "-" if u == "1" else u
     name = col.split(".", 1)[1] if col.startswith(("obj.", "var.")) else col
     if col.startswith("obj.") and name in OBJECTIVE_UNITS:
         return OBJECTIVE_UNITS[name]
