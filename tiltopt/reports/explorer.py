@@ -182,7 +182,7 @@ def _rows_of(run: ExplorerRun, infeasible_limit: int) -> pd.DataFrame:
     return rows
 
 
-def build_data(runs: Sequence[ExplorerRun], *, detail_limit: int = 400, infeasible_detail: int = 40,
+def build_data(runs: Sequence[ExplorerRun], *, detail_limit: int = 300, infeasible_detail: int = 40,
                infeasible_limit: int = 2000, title: str = "Pareto explorer") -> dict:
     """The JSON the page embeds (see module docs)."""
     if not runs:
@@ -216,11 +216,13 @@ def build_data(runs: Sequence[ExplorerRun], *, detail_limit: int = 400, infeasib
     run_info = []
     detail: dict[str, dict] = {}
     for ri, (run, fr) in enumerate(zip(runs, frames)):
-        lean = lean_grid(run.lean_limit_deg, run.lean_step_deg)
+        lean = lean_grid(run.lean_limit_deg, run.lean_step_deg, finest_deg=5.0)
         travel = np.asarray(run.travel_mm, float)
         offset = sum(len(f) for f in frames[:ri])
         is_front = fr["__front"].to_numpy()
-        ok_rows = np.flatnonzero(is_front)[:detail_limit]
+        ok_rows = np.flatnonzero(is_front)
+        if len(ok_rows) > detail_limit:   # spread the precomputed designs evenly along the front's rows
+            ok_rows = ok_rows[np.unique(np.linspace(0, len(ok_rows) - 1, detail_limit).round().astype(int))]
         bad_rows = np.flatnonzero(~is_front)[:infeasible_detail]
         pick = np.concatenate([ok_rows, bad_rows]).astype(int)
         notes: list[str] = []
@@ -236,7 +238,8 @@ def build_data(runs: Sequence[ExplorerRun], *, detail_limit: int = 400, infeasib
                 detail[str(offset + int(i))] = _detail(an, k)
         if len(fr) > len(pick):
             notes.append(f"Drawings are precomputed for {len(pick)} of the {len(fr)} designs shown from this run "
-                         f"(the first {len(ok_rows)} front designs and {len(bad_rows)} infeasible ones).")
+                         f"({len(ok_rows)} front designs spread along the front and {len(bad_rows)} infeasible "
+                         f"ones); raise --detail-limit for more.")
         run_info.append({
             "id": run.run_id, "template": run.template or run.model.mech.name,
             "dir": run.run_dir or run.run_id, "lean_deg": [float(v) for v in lean],

@@ -96,13 +96,13 @@
     traceRows.length = 0;
     const t = [];
     const col = colourOf(feasIdx);
-    t.push(splomTrace(feasIdx, { name: "designs", marker: Object.assign({ size: 7, line: { width: 0.4, color: "#ffffff" }, showscale: true }, col) }));
+    t.push(splomTrace(feasIdx, { name: "designs", marker: Object.assign({ size: feasIdx.length > 300 ? 5 : 7, line: { width: 0.4, color: "#ffffff" }, showscale: true }, col) }));
     traceRows.push(feasIdx);
     t.push(splomTrace(infIdx, { name: "infeasible", visible: $("show-infeasible").checked,
                                  marker: { size: 5, color: GREY, opacity: 0.55 } }));
     traceRows.push(infIdx);
     t.push(splomTrace(mergedIdx, { name: "merged front", visible: $("highlight-front").checked, hoverinfo: "skip",
-                                    hovertemplate: null, marker: { size: 13, color: "rgba(0,0,0,0)", line: { width: 1.6, color: "#14325c" } } }));
+                                    hovertemplate: null, marker: { size: feasIdx.length > 300 ? 9 : 13, color: "rgba(0,0,0,0)", line: { width: 1.2, color: "#14325c" } } }));
     traceRows.push(mergedIdx);
     const s = state.selected >= 0 ? [state.selected] : [];
     t.push(splomTrace(s, { name: "selected", hoverinfo: "skip", hovertemplate: null,
