@@ -56,7 +56,7 @@ def serve(path: Path, port: int = 0, open_browser: bool = True):
               help="Page to write [default: explorer.html in the first run folder].")
 @click.option("--serve", "do_serve", is_flag=True, help="Serve the page on 127.0.0.1 and open it.")
 @click.option("--port", type=int, default=0, show_default=True, help="Port for --serve (0 = any free port).")
-@click.option("--detail-limit", type=click.IntRange(1, 5000), default=300, show_default=True,
+@click.option("--detail-limit", type=click.IntRange(1, 5000), default=800, show_default=True,
               help="Front designs per run whose drawings and curves are precomputed.")
 @click.option("--plotly-beside", is_flag=True, help="Write plotly.min.js next to the page instead of inside it.")
 def explore_cmd(run_dirs, output, do_serve, port, detail_limit, plotly_beside):

@@ -117,7 +117,7 @@ def _clean(v):
     if v is None:
         return None
     if isinstance(v, (np.floating, float)):
-        return None if not math.isfinite(float(v)) else round(float(v), 6)
+        return None if not math.isfinite(float(v)) else float(f"{float(v):.7g}")
     if isinstance(v, (np.integer,)):
         return int(v)
     if isinstance(v, (np.bool_,)):
@@ -163,6 +163,14 @@ def _detail(an, k: int) -> dict:
     return {"s": states, "curves": curves, "status": status, "wheels": wheels, "gap_label": gap_label}
 
 
+def _travel_subset(travel_mm) -> np.ndarray:
+    """At most three travels for the page (droop, ride height, bump); the sheet has them all."""
+    t = np.unique(np.asarray(travel_mm, float))
+    if len(t) <= 3:
+        return t
+    return np.unique([t.min(), t[np.argmin(np.abs(t))], t.max()])
+
+
 def _rows_of(run: ExplorerRun, infeasible_limit: int) -> pd.DataFrame:
     front = run.front.copy()
     front["__front"] = True
@@ -182,7 +190,7 @@ def _rows_of(run: ExplorerRun, infeasible_limit: int) -> pd.DataFrame:
     return rows
 
 
-def build_data(runs: Sequence[ExplorerRun], *, detail_limit: int = 300, infeasible_detail: int = 40,
+def build_data(runs: Sequence[ExplorerRun], *, detail_limit: int = 800, infeasible_detail: int = 40,
                infeasible_limit: int = 2000, title: str = "Pareto explorer") -> dict:
     """The JSON the page embeds (see module docs)."""
     if not runs:
@@ -217,7 +225,7 @@ def build_data(runs: Sequence[ExplorerRun], *, detail_limit: int = 300, infeasib
     detail: dict[str, dict] = {}
     for ri, (run, fr) in enumerate(zip(runs, frames)):
         lean = lean_grid(run.lean_limit_deg, run.lean_step_deg, finest_deg=5.0)
-        travel = np.asarray(run.travel_mm, float)
+        travel = _travel_subset(run.travel_mm)
         offset = sum(len(f) for f in frames[:ri])
         is_front = fr["__front"].to_numpy()
         ok_rows = np.flatnonzero(is_front)

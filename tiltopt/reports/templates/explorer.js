@@ -73,7 +73,8 @@
 
   function hoverText(i) {
     const run = D.runs[D.run[i]];
-    let s = `<b>${esc(D.ids[i])}</b> · ${esc(run.id)}` + (D.feasible[i] ? "" : ` · <i>infeasible: ${esc(D.reason[i])}</i>`);
+    let s = `<b>${esc(D.ids[i])}</b> · ${esc(run.id)}` + (D.feasible[i] ? "" : ` · <i>infeasible: ${esc(D.reason[i])}</i>`) +
+      (D.detail[String(i)] ? "" : " · <i>no drawing precomputed</i>");
     D.objectives.forEach((k) => { const c = colLookup[k]; if (c) s += `<br>${esc(withUnit(c))}: ${fmt(D.values[k][i], 3)}`; });
     if (state.colour.indexOf("__") !== 0 && !D.objectives.includes(state.colour)) {
       const c = colLookup[state.colour];
