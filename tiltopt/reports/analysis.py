@@ -77,7 +77,7 @@ def envelope_mask(lean_deg, lean_limit_deg: float, lean_step_deg: float | None =
 
 
 def analyse(model: Model, geom: Geometry, lean_deg, travel_mm, *, shell=None, loads=None,
-            station_x_mm: float | None = None, want_sizing: bool = True) -> Analysis:
+            station_x_mm: float | None = None, want_sizing: bool = True, want_clearance: bool = True) -> Analysis:
     """Sweep every candidate of ``geom`` over lean x travel in one batch, with the optional parts."""
     res = sweep(model, geom, lean_deg, travel_mm)
     C, T, L = res.status.shape
@@ -98,7 +98,10 @@ def analyse(model: Model, geom: Geometry, lean_deg, travel_mm, *, shell=None, lo
         notes.append("No body shell given: the drawing has no shell section and the shell clearances are absent.")
     gaps = front_view_gaps(spec, res.points, res.camber, pose, shell_poly)
     clearance = clearance_result = None
-    if shell is not None:
+    if shell is not None and not want_clearance:
+        notes.append(f"3-D clearances are not precomputed for this many designs ({geom.n_candidates}); the "
+                     f"clearance curve is the front-view gap. The build sheet gives the 3-D figures.")
+    elif shell is not None:
         try:
             from kinematics.clearance import evaluate_clearance
         except ModuleNotFoundError:

@@ -191,7 +191,7 @@ def _rows_of(run: ExplorerRun, infeasible_limit: int) -> pd.DataFrame:
 
 
 def build_data(runs: Sequence[ExplorerRun], *, detail_limit: int = 800, infeasible_detail: int = 40,
-               infeasible_limit: int = 2000, title: str = "Pareto explorer") -> dict:
+               infeasible_limit: int = 2000, clearance_limit: int = 200, title: str = "Pareto explorer") -> dict:
     """The JSON the page embeds (see module docs)."""
     if not runs:
         raise ValueError("no runs")
@@ -238,7 +238,8 @@ def build_data(runs: Sequence[ExplorerRun], *, detail_limit: int = 800, infeasib
         shell_poly = None
         if len(pick):
             geom = run.geometry_for(fr.iloc[pick])
-            an = analyse(run.model, geom, lean, travel, shell=run.shell, want_sizing=False)
+            an = analyse(run.model, geom, lean, travel, shell=run.shell, want_sizing=False,
+                         want_clearance=len(pick) <= clearance_limit)
             notes = an.notes
             spec = an.spec
             shell_poly = None if an.shell_poly is None else np.round(an.shell_poly, 2).tolist()
