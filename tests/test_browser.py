@@ -154,3 +154,31 @@ def test_colour_by_selector(page):
     n_dims = pg.evaluate("document.getElementById('parallel')._fullData[0].dimensions.length")
     assert n_dims == len([c for c in front.columns if c.startswith("obj.")])
     assert errors == []
+
+
+@pytest.mark.parametrize("paper, width_mm", [("A4", 210.0), ("Letter", 215.9)])
+def test_sheet_prints_within_the_paper_width(page, tmp_path, paper, width_mm):
+    """Print-emulated, the sheet fits the printable width of A4 and of letter paper (page margins 11 mm each
+    side, from the sheet's own @page rule); and the browser's PDF of it has pages of that paper size."""
+    from test_explorer import LEAN_LIMIT, TRAVEL, fixture_run
+    from tiltopt.reports.sheet import SheetInputs, write_sheet
+
+    pg, errors, requests, front = page
+    run, mechs, fr, res = fixture_run()
+    cid = str(fr["candidate_id"].iloc[0])
+    paths = write_sheet(tmp_path, SheetInputs(mech=mechs[cid], candidate_id=cid, lean_limit_deg=LEAN_LIMIT,
+                                              travel_mm=TRAVEL))
+    px = (width_mm - 22.0) / 25.4 * 96.0           # CSS px per inch = 96 (CSS Values and Units, level 3)
+    sheet = pg.context.browser.new_page(viewport={"width": int(px), "height": 1000})
+    try:
+        sheet.goto(paths["sheet"].as_uri())
+        sheet.emulate_media(media="print")
+        assert sheet.evaluate("document.documentElement.scrollWidth") <= int(px) + 1
+        pdf = sheet.pdf(format=paper)
+        import re
+
+        box = re.search(rb"/MediaBox\s*\[\s*0 0 ([\d.]+) ([\d.]+)", pdf)
+        w_pt = float(box.group(1))
+        assert w_pt == pytest.approx(width_mm / 25.4 * 72.0, abs=1.0)   # 72 pt per inch (PDF 1.7, 8.3.2.3)
+    finally:
+        sheet.close()

@@ -99,7 +99,7 @@ def test_sheet_html_sections(sheet_dir):
                     "Joints", "Springs", "Kinematic curves against lean", "Clearance at the envelope corners",
                     "Loads and tilt lock", "Safety"):
         assert f">{heading}" in html, heading
-    assert "@media print" in html and "size: A4" in html.replace("size:A4", "size: A4")
+    assert "@media print" in html and "@page" in html
     assert "Caution" in html
     # jig datum (10, 150): the upper-left chassis pivot row gives y - 10 and z - 150
     y, z = mech.point("chassis.upper_left_pivot")
