@@ -17,13 +17,17 @@ def demo_outputs(run_dir) -> dict[str, Path]:
     Returns
     -------
     dict
-        ``{"explorer": path of explorer.html, "sheet": path of sheet.html}``.
+        ``{"explorer": path of explorer.html, "sheet": path of sheet.html}`` (no "sheet" when the run
+        has no feasible design).
     """
     from .runs import best_compromise, explore_runs, load, sheet_from_run
 
     run_dir = Path(run_dir)
     run = load(run_dir)
     page = explore_runs([run_dir], run_dir / "explorer.html", runs=[run])
-    cid = best_compromise(run.front)
+    front = run.front
+    if not len(front) or not front["feasible"].astype(bool).any():
+        return {"explorer": page}   # no feasible design: nothing to build, the page shows why
+    cid = best_compromise(front)
     paths = sheet_from_run(run_dir, cid, run_dir / "sheets" / cid, run=run)
     return {"explorer": page, "sheet": paths["sheet"]}
