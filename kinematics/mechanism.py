@@ -23,6 +23,25 @@ File format (all lengths mm, angles degrees)::
                 their relative angle)
     [[wheels]]  name = "left" | "right", upright, centre, outer_radius_mm,
                 crown_radius_mm, static_camber_deg
+
+Keys for the 3-D clearance check (all optional; see :mod:`kinematics.clearance`)::
+
+    [[wheels]]  kingpin_inclination_deg = 0.0   # front view, top of the axis inboard
+                caster_deg = 0.0                # side view, top of the axis rearward
+                steer_axis_point = "upright.hub"   # point of the upright on the axis
+                                                # (default: the wheel centre)
+    [[links]]   tube_od_mm = 0.0                # tube diameter (0 = a line)
+                shell = "through"               # "inside" | "outside" | "through"
+    [[segments]] body, a, b (point names of that body), name (optional),
+                tube_od_mm = 0.0, shell = "through"   # a body's tube, as a capsule
+    [steer_envelope]                            # default: no steer
+    lean_deg = [0.0, 20.0, 40.0]                # rows, ascending, >= 0
+    max_steer_deg = [30.0, 12.0, 5.0]           # largest steer at that |lean|;
+                                                # linear between rows, held beyond
+
+``shell`` says where a tube must run: "inside" the body shell, "outside" it,
+or "through" it (the default: the slot it cuts is measured when it crosses
+the outline; nothing is required of it).
 """
 from __future__ import annotations
 
@@ -37,6 +56,7 @@ from .errors import InputError
 
 PIN_TOLERANCE_MM = 0.01
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
+SHELL_ROLES = ("inside", "outside", "through")
 
 
 @dataclass(frozen=True)
@@ -56,6 +76,20 @@ class Link:
     a: str
     b: str
     name: str
+    tube_od_mm: float = 0.0
+    shell: str = "through"
+
+
+@dataclass(frozen=True)
+class Segment:
+    """A tube of one body between two of its points (a capsule for clearance checks)."""
+
+    name: str
+    body: str
+    a: str
+    b: str
+    tube_od_mm: float = 0.0
+    shell: str = "through"
 
 
 @dataclass(frozen=True)
@@ -93,6 +127,9 @@ class Wheel:
     outer_radius_mm: float
     crown_radius_mm: float
     static_camber_deg: float = 0.0
+    kingpin_inclination_deg: float = 0.0
+    caster_deg: float = 0.0
+    steer_axis_point: str | None = None   # "upright.point" on the steering axis; None = the wheel centre
 
 
 @dataclass(frozen=True)
@@ -115,6 +152,8 @@ class Mechanism:
     wheels: tuple[Wheel, ...] = ()
     description: str = ""
     station_x_mm: float = 0.0
+    segments: tuple[Segment, ...] = ()
+    steer_envelope: tuple[tuple[float, float], ...] = ()   # (lean_deg, max_steer_deg) rows
     source: str = field(default="<memory>", compare=False)
 
     # ------------------------------------------------------------------ lookup
@@ -215,7 +254,7 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
     _check_keys(
         data,
         ["name", "chassis", "description", "station_x_mm", "bodies", "pins", "links", "springs",
-         "sliders", "wheels"],
+         "sliders", "wheels", "segments", "steer_envelope"],
         ["name", "chassis", "bodies", "wheels"], src, "")
     name = _string(data["name"], src, "name")
     chassis = _string(data["chassis"], src, "chassis")
@@ -287,10 +326,29 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
     links = []
     for i, t in enumerate(_list_of_tables(data, "links", src)):
         w = f"links[{i}]"
-        _check_keys(t, ["a", "b", "name"], ["a", "b"], src, w)
+        _check_keys(t, ["a", "b", "name", "tube_od_mm", "shell"], ["a", "b"], src, w)
         a, b = ref(t["a"], w + ".a"), ref(t["b"], w + ".b")
         _check_length(bodies, a, b, src, w)
-        links.append(Link(a, b, unique(_string(t.get("name", f"{a}~{b}"), src, w + ".name"), w + ".name")))
+        links.append(Link(a, b, unique(_string(t.get("name", f"{a}~{b}"), src, w + ".name"), w + ".name"),
+                          *_tube(t, src, w)))
+
+    segments = []
+    for i, t in enumerate(_list_of_tables(data, "segments", src)):
+        w = f"segments[{i}]"
+        _check_keys(t, ["name", "body", "a", "b", "tube_od_mm", "shell"], ["body", "a", "b"], src, w)
+        body = _string(t["body"], src, w + ".body")
+        if body not in bodies:
+            raise InputError(f"unknown body '{body}'. Bodies: {', '.join(bodies)}.", src, w + ".body")
+        for k in ("a", "b"):
+            pt = _string(t[k], src, f"{w}.{k}")
+            if pt not in bodies[body]:
+                raise InputError(f"expected a point name of body '{body}' ({', '.join(bodies[body])}). "
+                                 f"Got {pt!r} instead.", src, f"{w}.{k}")
+        pa, pb = bodies[body][t["a"]], bodies[body][t["b"]]
+        if math.hypot(pa[0] - pb[0], pa[1] - pb[1]) < 1.0:
+            raise InputError("the two ends are less than 1 mm apart.", src, w)
+        nm = unique(_string(t.get("name", f"{body}.{t['a']}~{t['b']}"), src, w + ".name"), w + ".name")
+        segments.append(Segment(nm, body, t["a"], t["b"], *_tube(t, src, w)))
 
     springs = []
     for i, t in enumerate(_list_of_tables(data, "springs", src)):
@@ -331,7 +389,8 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
     raw_wheels = _list_of_tables(data, "wheels", src)
     for i, t in enumerate(raw_wheels):
         w = f"wheels[{i}]"
-        _check_keys(t, ["name", "upright", "centre", "outer_radius_mm", "crown_radius_mm", "static_camber_deg"],
+        _check_keys(t, ["name", "upright", "centre", "outer_radius_mm", "crown_radius_mm", "static_camber_deg",
+                        "kingpin_inclination_deg", "caster_deg", "steer_axis_point"],
                     ["name", "upright", "centre", "outer_radius_mm", "crown_radius_mm"], src, w)
         nm = _string(t["name"], src, w + ".name")
         if nm not in ("left", "right"):
@@ -360,7 +419,19 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
                 f"in the design position the tyre of wheel '{nm}' must touch the ground (z = 0): with "
                 f"outer_radius_mm {big}, crown_radius_mm {small} and static_camber_deg {camber} its centre "
                 f"must be at z = {need:.3f} mm. It is at z = {zc:.3f} mm.", src, w + ".centre")
-        wheels.append(Wheel(nm, up, centre, big, small, camber))
+        steer = {}
+        for k in ("kingpin_inclination_deg", "caster_deg"):
+            if k in t:
+                steer[k] = _number(t[k], src, f"{w}.{k}")
+                if abs(steer[k]) >= 60:
+                    raise InputError(f"{k} must lie within +-60. Got {steer[k]}.", src, f"{w}.{k}")
+        if "steer_axis_point" in t:
+            sp = ref(t["steer_axis_point"], w + ".steer_axis_point")
+            if split_ref(sp)[0] != up:
+                raise InputError(f"the steering axis point must be a point of the upright '{up}'. Got {sp!r}.",
+                                 src, w + ".steer_axis_point")
+            steer["steer_axis_point"] = sp
+        wheels.append(Wheel(nm, up, centre, big, small, camber, **steer))
     names = sorted(w.name for w in wheels)
     if names != ["left", "right"]:
         raise InputError(f"expected exactly two wheels, named 'left' and 'right'. Got {names or 'none'}.",
@@ -369,7 +440,41 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
 
     return Mechanism(name=name, chassis=chassis, bodies=bodies, pins=tuple(pins), links=tuple(links),
                      springs=tuple(springs), sliders=tuple(sliders), wheels=tuple(wheels),
-                     description=description, station_x_mm=station_x, source=src)
+                     description=description, station_x_mm=station_x, segments=tuple(segments),
+                     steer_envelope=_steer_envelope(data, src), source=src)
+
+
+def _tube(t: dict, src: str, where: str) -> tuple[float, str]:
+    od = _number(t.get("tube_od_mm", 0.0), src, where + ".tube_od_mm", nonneg=True)
+    role = _string(t.get("shell", "through"), src, where + ".shell")
+    if role not in SHELL_ROLES:
+        raise InputError(f"expected one of {', '.join(SHELL_ROLES)}. Got {role!r} instead.", src, where + ".shell")
+    return od, role
+
+
+def _steer_envelope(data: dict, src: str) -> tuple[tuple[float, float], ...]:
+    if "steer_envelope" not in data:
+        return ()
+    env = data["steer_envelope"]
+    if not isinstance(env, dict):
+        raise InputError("expected a table [steer_envelope] with lean_deg and max_steer_deg lists.", src,
+                         "steer_envelope")
+    _check_keys(env, ["lean_deg", "max_steer_deg"], ["lean_deg", "max_steer_deg"], src, "steer_envelope")
+    rows = []
+    for k in ("lean_deg", "max_steer_deg"):
+        v = env[k]
+        if not isinstance(v, list) or not v:
+            raise InputError(f"expected a non-empty list of numbers. Got {v!r} instead.", src, f"steer_envelope.{k}")
+        rows.append([_number(x, src, f"steer_envelope.{k}[{i}]", nonneg=True) for i, x in enumerate(v)])
+    lean, steer = rows
+    if len(lean) != len(steer):
+        raise InputError(f"lean_deg and max_steer_deg must have the same length. Got {len(lean)} and "
+                         f"{len(steer)}.", src, "steer_envelope")
+    if any(b <= a for a, b in zip(lean, lean[1:])):
+        raise InputError(f"lean_deg must be strictly ascending. Got {lean}.", src, "steer_envelope.lean_deg")
+    if any(s >= 90 for s in steer):
+        raise InputError(f"max_steer_deg must be below 90. Got {steer}.", src, "steer_envelope.max_steer_deg")
+    return tuple(zip(lean, steer))
 
 
 def _check_length(bodies, a, b, src, where):
@@ -386,7 +491,22 @@ def _fmt(x: float) -> str:
 
 
 def _q(s: str) -> str:
-    return '"' + s.replace("\\", "\\\\").replace('"', '\\"') + '"'
+    """A TOML basic string: backslash, quote and control characters escaped (TOML 1.0)."""
+    out = []
+    for ch in s:
+        if ch == "\\":
+            out.append("\\\\")
+        elif ch == '"':
+            out.append('\\"')
+        elif ch == "\n":
+            out.append("\\n")
+        elif ch == "\t":
+            out.append("\\t")
+        elif ord(ch) < 0x20 or ord(ch) == 0x7F:
+            out.append(f"\\u{ord(ch):04X}")
+        else:
+            out.append(ch)
+    return '"' + "".join(out) + '"'
 
 
 def mechanism_to_toml(mech: Mechanism, header: str = "") -> str:
@@ -408,7 +528,10 @@ def mechanism_to_toml(mech: Mechanism, header: str = "") -> str:
         if p.base_mm is not None:
             out.append(f"base_mm = {_fmt(p.base_mm)}")
     for l in mech.links:
-        out += ["", "[[links]]", f"name = {_q(l.name)}", f"a = {_q(l.a)}", f"b = {_q(l.b)}"]
+        out += ["", "[[links]]", f"name = {_q(l.name)}", f"a = {_q(l.a)}", f"b = {_q(l.b)}"] + _tube_lines(l)
+    for g in mech.segments:
+        out += ["", "[[segments]]", f"name = {_q(g.name)}", f"body = {_q(g.body)}", f"a = {_q(g.a)}",
+                f"b = {_q(g.b)}"] + _tube_lines(g)
     for s in mech.springs:
         out += ["", "[[springs]]", f"name = {_q(s.name)}", f"a = {_q(s.a)}", f"b = {_q(s.b)}"]
         for k in ("rate_n_per_mm", "free_length_mm", "preload_n"):
@@ -422,7 +545,25 @@ def mechanism_to_toml(mech: Mechanism, header: str = "") -> str:
         out += ["", "[[wheels]]", f"name = {_q(w.name)}", f"upright = {_q(w.upright)}", f"centre = {_q(w.centre)}",
                 f"outer_radius_mm = {_fmt(w.outer_radius_mm)}", f"crown_radius_mm = {_fmt(w.crown_radius_mm)}",
                 f"static_camber_deg = {_fmt(w.static_camber_deg)}"]
+        for k in ("kingpin_inclination_deg", "caster_deg"):
+            if getattr(w, k) != 0.0:
+                out.append(f"{k} = {_fmt(getattr(w, k))}")
+        if w.steer_axis_point is not None:
+            out.append(f"steer_axis_point = {_q(w.steer_axis_point)}")
+    if mech.steer_envelope:
+        out += ["", "[steer_envelope]",
+                "lean_deg = [" + ", ".join(_fmt(r[0]) for r in mech.steer_envelope) + "]",
+                "max_steer_deg = [" + ", ".join(_fmt(r[1]) for r in mech.steer_envelope) + "]"]
     return "\n".join(out) + "\n"
+
+
+def _tube_lines(m) -> list[str]:
+    out = []
+    if m.tube_od_mm != 0.0:
+        out.append(f"tube_od_mm = {_fmt(m.tube_od_mm)}")
+    if m.shell != "through":
+        out.append(f"shell = {_q(m.shell)}")
+    return out
 
 
 # ---------------------------------------------------------------------- mirror
@@ -442,13 +583,18 @@ def mirror(mech: Mechanism) -> Mechanism:
         chassis=_swap_lr(mech.chassis),
         bodies=bodies,
         pins=tuple(Pin(_swap_lr(p.a), _swap_lr(p.b), _swap_lr(p.name), p.base_mm) for p in mech.pins),
-        links=tuple(Link(_swap_lr(l.a), _swap_lr(l.b), _swap_lr(l.name)) for l in mech.links),
+        links=tuple(replace(l, a=_swap_lr(l.a), b=_swap_lr(l.b), name=_swap_lr(l.name)) for l in mech.links),
         springs=tuple(replace(s, name=_swap_lr(s.name), a=_swap_lr(s.a), b=_swap_lr(s.b)) for s in mech.springs),
         sliders=tuple(Slider(_swap_lr(s.name), _swap_lr(s.a_from), _swap_lr(s.a_to), _swap_lr(s.b))
                       for s in mech.sliders),
         wheels=tuple(sorted((replace(w, name=_swap_lr(w.name), upright=_swap_lr(w.upright),
-                                     centre=_swap_lr(w.centre), static_camber_deg=-w.static_camber_deg)
+                                     centre=_swap_lr(w.centre), static_camber_deg=-w.static_camber_deg,
+                                     steer_axis_point=None if w.steer_axis_point is None
+                                     else _swap_lr(w.steer_axis_point))
                              for w in mech.wheels), key=lambda w: w.name)),
         description=mech.description,
         station_x_mm=mech.station_x_mm,
+        segments=tuple(replace(g, name=_swap_lr(g.name), body=_swap_lr(g.body), a=_swap_lr(g.a), b=_swap_lr(g.b))
+                       for g in mech.segments),
+        steer_envelope=mech.steer_envelope,   # by |lean|, and KPI/caster are inboard/rearward: unchanged
     )

@@ -79,7 +79,8 @@ def analyse(model: Model, lean_limit_deg: float = 45.0, lean_step_deg: float = 5
     zero = np.zeros(1)
     spring0 = b.L_spring0
     F, J = residual(model, b, q0, zero, spring0, "lean")
-    J = J[0]
+    dF = J[0, :, model.n_q]              # derivative with respect to the lean
+    J = J[0, :, :model.n_q]
     names = row_names(model, "lean")
     nk = model.n_loop_rows + len(model.eq_link)
     ns = len(model.eq_spring)
@@ -96,10 +97,6 @@ def analyse(model: Model, lean_limit_deg: float = 45.0, lean_step_deg: float = 5
     res.travel_dof = res.rank_free - res.rank_held
     # on the ground, springs held: lean is the one wanted freedom
     Js = J * _col_scale(model, b)
-    h = 1e-6
-    Fp = residual(model, b, q0, zero + h, spring0, "lean", jac=False)[0][0]
-    Fm = residual(model, b, q0, zero - h, spring0, "lean", jac=False)[0][0]
-    dF = (Fp - Fm) / (2 * h)
     r_full, left_full, null_full = _rank(Js)
     sol, *_ = np.linalg.lstsq(Js, -dF, rcond=None)
     res.leans_first_order = bool(np.linalg.norm(Js @ sol + dF) <= 1e-6 * max(np.linalg.norm(dF), 1.0))

@@ -420,14 +420,16 @@ class Model:
 
         Returns
         -------
-        W1 : ndarray of shape (2 n_pk, n_rows * n_q)
-        W2 : ndarray of shape (2 n_sl, n_rows * n_q)
-        Jc : ndarray of shape (n_rows, n_q)
+        W1 : ndarray of shape (2 n_pk, n_rows * (n_q + 1))
+        W2 : ndarray of shape (2 n_sl, n_rows * (n_q + 1))
+        Jc : ndarray of shape (n_rows, n_q + 1)
+            The last column is the derivative with respect to the prescribed
+            lean (the chassis angle), used for path tangents.
         """
         tab = tab or self._np
-        nq = self.n_q
+        nq = self.n_q + 1
         n_pk, n_sl = len(tab["pk_point"]), len(tab["sl_pk"])
-        pk_col = np.full(n_pk, -1)
+        pk_col = np.where(tab["pk_src"] == 0, self.n_q, -1)
         pk_col[tab["jac_pk"]] = tab["jac_col"]
         W1 = np.zeros((2 * n_pk, len(rows) * nq))
         W2 = np.zeros((2 * n_sl, len(rows) * nq))

@@ -29,12 +29,15 @@ STALLED = 1        # the equations cannot all be met here (locked, toggled, over
 MAX_ITER = 2       # iteration limit reached
 NONFINITE = 3      # geometry degenerated (zero-length member, NaN)
 SKIPPED = 4        # not attempted: an earlier state of the same path failed
+FOLD = 5           # the path passed a toggle: the solution found lies on another assembly branch
 STATUS_TEXT = {
     CONVERGED: "converged",
     STALLED: "cannot reach this state (locked: the equations have no solution here)",
     MAX_ITER: "no convergence within the iteration limit",
     NONFINITE: "geometry degenerated (non-finite values)",
     SKIPPED: "not attempted: an earlier state on the same path failed",
+    FOLD: "cannot reach this state: the linkage toggles before it (the lean path folds back; the solution "
+          "found belongs to another assembly branch)",
 }
 
 
@@ -141,7 +144,11 @@ def _layout(model: Model, stage: str) -> dict:
 
 def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np.ndarray, stage: str,
              jac: bool = True):
-    """Residual (N, m) and Jacobian (N, m, n_q) of a stage.
+    """Residual (N, m) and Jacobian (N, m, n_q + 1) of a stage.
+
+    The Jacobian's last column is the derivative with respect to the
+    prescribed lean (the chassis angle): path tangents come without extra
+    residual evaluations.
 
     Every row is a function of a few point coordinates; the Jacobian rows of
     the linear parts (pins, coordinate differences, ground heights, lateral
@@ -159,7 +166,7 @@ def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np
     lay = _layout(m, stage)
     x, E, ang = m.positions(q, lean, b.V, b.U, m._np, jac=jac)
     N = q.shape[0]
-    nq = m.n_q
+    nq = m.n_q + 1                       # coordinates + the lean column
     n_hold = b.hold.shape[1] if stage == "travel" else 0
     rows = n_rows(m, stage, n_hold)
     F = np.empty((N, rows))
@@ -199,12 +206,11 @@ def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np
             J[:, r0 + 1:r0 + 2 * ns:2] = 0.0
             dn = np.stack([n[..., 1], -n[..., 0]], -1)
             for j in range(ns):  # few sliders; loop over joints, not items
-                if srca[j] > 0:
-                    col = m.ang_coord[srca[j] - 1]
-                    J[:, r0 + 2 * j, col] += np.sum(dn[:, j] * d[:, j], -1)
-                    J[:, r0 + 2 * j + 1, col] -= b.Lc
-                if srcb[j] > 0:
-                    J[:, r0 + 2 * j + 1, m.ang_coord[srcb[j] - 1]] += b.Lc
+                col_a = m.ang_coord[srca[j] - 1] if srca[j] > 0 else m.n_q
+                col_b = m.ang_coord[srcb[j] - 1] if srcb[j] > 0 else m.n_q
+                J[:, r0 + 2 * j, col_a] += np.sum(dn[:, j] * d[:, j], -1)
+                J[:, r0 + 2 * j + 1, col_a] -= b.Lc
+                J[:, r0 + 2 * j + 1, col_b] += b.Lc
         r0 += 2 * ns
 
     def lengths(eq, L0, r0, blk):
@@ -232,7 +238,8 @@ def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np
             # hold: v^T (q / col_scale) = 0 for each free direction v (scaled coordinates, mm)
             F[:, r0:r0 + n_hold] = np.einsum("nkq,nq->nk", b.hold, q / b.col_scale)
             if jac:
-                J[:, r0:r0 + n_hold] = b.hold / b.col_scale[:, None, :]
+                J[:, r0:r0 + n_hold, :m.n_q] = b.hold / b.col_scale[:, None, :]
+                J[:, r0:r0 + n_hold, m.n_q] = 0.0
             r0 += n_hold
     elif len(m.eq_spring):
         r0 = lengths(m.eq_spring, target, r0, "spring")
@@ -247,10 +254,9 @@ def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np
         J[:, r0:r0 + 2] = Jf[:, B["ground"]]
         J[:, r0 + 2] = Jf[:, B["lateral"].start]
         for w in range(2):
-            if usrc[w] > 0:
-                col = m.ang_coord[usrc[w] - 1]
-                J[:, r0 + w, col] += Rr[:, w] * sg[:, w]
-                J[:, r0 + 2, col] -= 0.5 * Rr[:, w] * cg[:, w]
+            col = m.ang_coord[usrc[w] - 1] if usrc[w] > 0 else m.n_q
+            J[:, r0 + w, col] += Rr[:, w] * sg[:, w]
+            J[:, r0 + 2, col] -= 0.5 * Rr[:, w] * cg[:, w]
     return F, J
 
 
@@ -292,7 +298,7 @@ def hold_free_directions(model: Model, b: Batch) -> None:
     """
     N = len(b.cand)
     _, J = residual(model, b, model.design_q(N), np.zeros(N), np.zeros(N), "travel")
-    Js = J * b.col_scale[:, None, :]
+    Js = J[..., :model.n_q] * b.col_scale[:, None, :]
     _, sv, vt = np.linalg.svd(Js)
     tol = 1e-9 * np.maximum(sv[:, :1], 1.0)
     n = model.n_q
@@ -319,8 +325,8 @@ def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.
     resid : ndarray of shape (N,)
         Largest absolute equation residual, mm.
     iters : ndarray of shape (N,)
-    J : ndarray of shape (N, m, n_q)
-        Jacobian at the returned q (used for tangents).
+    J : ndarray of shape (N, m, n_q + 1)
+        Jacobian at the returned q, with the lean column last (used for tangents).
     """
     minnorm = False if minnorm is None else minnorm
     N = q0.shape[0]
@@ -330,7 +336,7 @@ def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.
     iters = np.zeros(N, dtype=int)
     active = np.arange(N)
     rows = n_rows(model, stage, b.hold.shape[1] if stage == "travel" else 0)
-    Jout = np.zeros((N, rows, model.n_q))
+    Jout = np.zeros((N, rows, model.n_q + 1))
     prev = np.full(N, np.inf)
     angle_cols = model.coord_kind == ANGLE
     sub, qs, ls, ts = b, q, lean, target
@@ -358,7 +364,7 @@ def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.
             F, J, qs = F[keep], J[keep], qs[keep]
             sub, ls, ts = b.take(active), lean[active], target[active]
         iters[active] += 1
-        dq = _ls_step(model, J * sub.col_scale[:, None, :], F, minnorm)
+        dq = _ls_step(model, J[..., :model.n_q] * sub.col_scale[:, None, :], F, minnorm)
         dq *= sub.col_scale
         dq[~np.isfinite(dq)] = np.inf  # a singular step fails the item at the next check
         big = np.max(np.abs(np.where(angle_cols, dq, 0.0)), axis=1)
@@ -377,4 +383,4 @@ def tangent(model: Model, J: np.ndarray, dF: np.ndarray, col_scale: np.ndarray,
     dF : ndarray of shape (N, m)
         Partial derivative of the residual with respect to the parameter.
     """
-    return _ls_step(model, J * col_scale[:, None, :], dF, minnorm) * col_scale
+    return _ls_step(model, J[..., :model.n_q] * col_scale[:, None, :], dF, minnorm) * col_scale

@@ -1,0 +1,781 @@
+"""Batched 3-D clearance of wheels, tubes, body shell and ground over a sweep's envelope.
+
+For every state of a :class:`kinematics.sweep.SweepResult` (lean x travel,
+many candidates of one topology at once) and the steer envelope of the
+mechanism file, this computes:
+
+* wheel-to-shell clearance of each wheel: the signed minimum distance
+  between the tyre (a torus R, r) steered about its steering axis and the
+  body shell (which leans with the chassis), positive = clear;
+* wheel-to-link clearance: each wheel against every link and body segment
+  that does not carry it (tubes as capsules of their ``tube_od_mm``);
+* link-to-shell: how far tubes that must stay ``inside`` (``outside``) the
+  shell cross its outline, and the slot each ``through`` tube sweeps on the
+  outline over the whole envelope (arc length, mm; the cut-out is that plus
+  the tube's diameter);
+* ground clearance of the shell and of every tube; overall width
+  (outermost tyre or shell extent) and track.
+
+Geometry and frames (DOMAIN.md): x forward, y right, z up; every link,
+segment and upright point lies in the linkage plane ``x = station_x_mm``.
+
+Wheel and steer. The tyre is the crown circle (radius R - r, in the wheel
+plane, about the wheel centre) swept by a ball of radius r, so its distance
+to anything is the crown circle's distance minus r. The steering axis passes
+through ``steer_axis_point`` (default the wheel centre); in the design
+position its top leans inboard by ``kingpin_inclination_deg`` (front view)
+and rearward by ``caster_deg`` (side view), and it turns with the upright.
+Steer delta > 0 turns the front of the wheel toward +y; both signs up to the
+envelope's ``max_steer_deg`` at the state's |lean| are checked, as a rigid
+rotation of the wheel about the axis in that state.
+
+Search and its error estimate. For each (state, wheel) the crown circle x
+steer range is sampled on a coarse grid (``crown_samples`` x
+``steer_samples``), then the best sample is refined by a coordinate search
+whose steps halve ``refine_iterations`` times. The reported value is always
+a distance actually reached (never below the true minimum). Alongside it,
+``*_error_mm`` is an estimated upper bound of how far the true minimum may lie
+below it: it uses that the squared distance to any set is semiconcave
+(Hess(d^2/2) <= I in space), applied to the coarse samples outside the
+refined neighbourhood and to the final refinement steps; so a coarse grid
+reports a large error rather than a falsely fine one. For shells whose
+section changes along x, distances are measured in each point's own
+section (see :mod:`kinematics.shell`), which the estimate does not cover.
+Tubes against the shell are sampled at ``tube_samples`` points and refined
+the same way along the tube; slot crossings are found by root finding on
+the outline (to about 1e-6 mm).
+
+States that did not converge give NaN everywhere, and a candidate with any
+such state gets NaN in every entry of :meth:`ClearanceResult.summary`.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .mechanism import split_ref
+from .model import Geometry, Model
+from .shell import (Shell, inside_level, outline_position, section_distance, shell_signed_distance,
+                    signed_distance_yz, support, to_chassis_frame)
+
+_REACH = 6            # initial local-search step, in coarse half-spacings (covers +-3 cells)
+_NEAREST_MEMBERS = 3   # members searched per (state, wheel); the rest only enter through their bound
+
+__all__ = ["ClearanceSettings", "ClearanceResult", "Members", "members_of", "evaluate_clearance",
+           "max_steer_deg", "shell_signed_distance"]
+
+
+@dataclass
+class ClearanceSettings:
+    """Sampling density of the clearance search.
+
+    crown_samples : coarse samples round the crown circle (default 24, every 15 deg).
+    steer_samples : coarse steer samples across [-max, +max] (default 3: -max, 0, +max; 1 when no steer).
+    refine_iterations : halvings of the local coordinate search after the coarse grid.
+    tube_samples : samples along a tube for its inside / outside check.
+    root_iterations : iterations of the slot crossing root finder.
+    """
+
+    crown_samples: int = 24
+    steer_samples: int = 3
+    refine_iterations: int = 8
+    tube_samples: int = 9
+    root_iterations: int = 20
+
+    def __post_init__(self):
+        for k in ("crown_samples", "steer_samples", "refine_iterations", "tube_samples", "root_iterations"):
+            v = getattr(self, k)
+            if not isinstance(v, (int, np.integer)) or v < (0 if k == "refine_iterations" else 1):
+                raise ValueError(f"{k} must be a positive integer; got {v!r}")
+        if self.crown_samples < 4:
+            raise ValueError("crown_samples must be at least 4")
+        if self.tube_samples < 2:
+            raise ValueError("tube_samples must be at least 2")
+
+
+@dataclass(frozen=True)
+class Members:
+    """Links and body segments as capsules.
+
+    Attributes
+    ----------
+    names : list of str
+    ia, ib : ndarray of shape (n_members,)
+        Point indices (model.point_refs order) of the two ends.
+    radius : ndarray of shape (n_members,)
+        Tube radius, mm.
+    role : ndarray of shape (n_members,) of str
+        'inside', 'outside' or 'through'.
+    carries : ndarray of shape (2, n_members) of bool
+        True where the member carries the [left, right] wheel (left out of
+        that wheel's check): one of its ends is a point of the wheel's upright
+        or is pinned to it.
+    """
+
+    names: list
+    ia: np.ndarray
+    ib: np.ndarray
+    radius: np.ndarray
+    role: np.ndarray
+    carries: np.ndarray
+
+    def __len__(self):
+        return len(self.names)
+
+
+def members_of(model: Model) -> Members:
+    """The capsules of a model's links and ``[[segments]]``."""
+    mech = model.mech
+    pinned: dict[str, set[str]] = {}
+    for p in mech.pins:
+        pinned.setdefault(p.a, set()).add(split_ref(p.b)[0])
+        pinned.setdefault(p.b, set()).add(split_ref(p.a)[0])
+    for s in mech.sliders:
+        pinned.setdefault(s.b, set()).add(split_ref(s.a_from)[0])
+    names, ia, ib, rad, role, car = [], [], [], [], [], []
+    items = [(l.name, l.a, l.b, l.tube_od_mm, l.shell) for l in mech.links]
+    items += [(g.name, f"{g.body}.{g.a}", f"{g.body}.{g.b}", g.tube_od_mm, g.shell) for g in mech.segments]
+    for nm, a, b, od, sh in items:
+        names.append(nm)
+        ia.append(model.point_index[a])
+        ib.append(model.point_index[b])
+        rad.append(0.5 * od)
+        role.append(sh)
+        row = []
+        for w in mech.wheels:
+            up = w.upright
+            row.append(any(split_ref(r)[0] == up or up in pinned.get(r, ()) for r in (a, b)))
+        car.append(row)
+    return Members(names, np.array(ia, int), np.array(ib, int), np.array(rad, float), np.array(role, dtype=object),
+                   np.array(car, bool).reshape(-1, 2).T.copy())
+
+
+def max_steer_deg(mech, lean_deg) -> np.ndarray:
+    """Largest steer angle (deg) at each lean from the mechanism's steer envelope (0 without one)."""
+    lean = np.abs(np.asarray(lean_deg, float))
+    if not mech.steer_envelope:
+        return np.zeros_like(lean)
+    rows = np.array(mech.steer_envelope, float)
+    return np.interp(lean, rows[:, 0], rows[:, 1])
+
+
+# --------------------------------------------------------------------- result
+@dataclass
+class ClearanceResult:
+    """Clearances of every state; arrays have shape (n_candidates, n_travel, n_lean[, 2]).
+
+    ``[..., 0]`` is the left wheel, ``[..., 1]`` the right one; for
+    ``ground_mm`` it is [shell, tubes]. NaN where the state did not converge;
+    +inf where there is nothing to clear (no tube, or no shell in reach).
+    """
+
+    lean_deg: np.ndarray
+    travel_mm: np.ndarray
+    converged: np.ndarray
+    wheel_shell_mm: np.ndarray
+    wheel_shell_error_mm: np.ndarray
+    wheel_shell_steer_deg: np.ndarray
+    wheel_link_mm: np.ndarray
+    wheel_link_error_mm: np.ndarray
+    wheel_link_steer_deg: np.ndarray
+    wheel_link_member: np.ndarray          # (C, T, L, 2) index into member_names, -1 = none
+    max_steer_deg: np.ndarray              # (C, T, L)
+    steer_deg: np.ndarray                  # (C, T, L) steer of the state's worst wheel clearance
+    ground_mm: np.ndarray                  # (C, T, L, 2) [shell, tubes]
+    overall_width_mm: np.ndarray           # (C, T, L)
+    track_mm: np.ndarray                   # (C, T, L)
+    inside_violation_mm: np.ndarray        # (C, T, L)
+    outside_violation_mm: np.ndarray       # (C, T, L)
+    slot_length_mm: np.ndarray             # (C, n_through)
+    slot_position_mm: np.ndarray           # (C, T, L, n_through) arc position of the crossing, NaN if none
+    member_names: list = field(default_factory=list)
+    through_names: list = field(default_factory=list)
+    settings: ClearanceSettings = field(default_factory=ClearanceSettings)
+
+    SUMMARY_KEYS = ("min_wheel_shell_mm", "min_wheel_link_mm", "min_clearance_mm", "min_ground_mm",
+                    "max_overall_width_mm", "total_slot_length_mm", "inside_violation_mm",
+                    "outside_violation_mm")
+
+    def summary(self) -> dict:
+        """Envelope extremes per candidate.
+
+        Returns
+        -------
+        dict of str -> ndarray
+            For each key of ``SUMMARY_KEYS`` an array of shape (n_candidates,),
+            NaN for a candidate with any state that did not converge; and
+            ``KEY + '_state'`` of shape (n_candidates, 2): the (travel index,
+            lean index) where it occurs (-1 where NaN or not tied to a state).
+            Also ``min_wheel_shell_error_mm`` / ``min_wheel_link_error_mm``: the
+            error estimate at the minimum's state.
+        """
+        C = self.converged.shape[0]
+        ok = self.converged.reshape(C, -1).all(axis=1)
+        out = {}
+
+        def extreme(key, arr, fn, err=None):
+            flat = arr.reshape(C, self.converged.shape[1] * self.converged.shape[2], -1)
+            per_state = fn(flat, axis=2)
+            filled = np.where(np.isnan(per_state), np.inf if fn is np.min else -np.inf, per_state)
+            idx = np.argmin(filled, axis=1) if fn is np.min else np.argmax(filled, axis=1)
+            val = per_state[np.arange(C), idx]
+            val = np.where(ok, val, np.nan)
+            t, l = np.unravel_index(idx, self.converged.shape[1:])
+            out[key] = val
+            out[key + "_state"] = np.where((ok & np.isfinite(val))[:, None], np.stack([t, l], -1), -1)
+            if err is not None:
+                e = err.reshape(flat.shape)
+                w = np.argmin(np.where(np.isnan(flat), np.inf, flat), axis=2)[np.arange(C), idx]
+                out[key.replace("_mm", "_error_mm")] = np.where(ok, e[np.arange(C), idx, w], np.nan)
+
+        extreme("min_wheel_shell_mm", self.wheel_shell_mm, np.min, self.wheel_shell_error_mm)
+        extreme("min_wheel_link_mm", self.wheel_link_mm, np.min, self.wheel_link_error_mm)
+        both = np.minimum(out["min_wheel_shell_mm"], out["min_wheel_link_mm"])
+        pick_link = out["min_wheel_link_mm"] < out["min_wheel_shell_mm"]
+        out["min_clearance_mm"] = both
+        out["min_clearance_mm_state"] = np.where(pick_link[:, None], out["min_wheel_link_mm_state"],
+                                                 out["min_wheel_shell_mm_state"])
+        extreme("min_ground_mm", self.ground_mm, np.min)
+        extreme("max_overall_width_mm", self.overall_width_mm[..., None], np.max)
+        extreme("inside_violation_mm", self.inside_violation_mm[..., None], np.max)
+        extreme("outside_violation_mm", self.outside_violation_mm[..., None], np.max)
+        out["total_slot_length_mm"] = np.where(ok, self.slot_length_mm.sum(axis=1), np.nan)
+        out["total_slot_length_mm_state"] = np.full((C, 2), -1)
+        return out
+
+    def records(self, candidate: int = 0) -> list[dict]:
+        """One JSON-ready dict per state of one candidate (nulls where not converged)."""
+        rows = []
+        c = candidate
+
+        def num(v):
+            v = float(v)
+            return v if math.isfinite(v) else None
+
+        for ti, s in enumerate(self.travel_mm):
+            for li, phi in enumerate(self.lean_deg):
+                ok = bool(self.converged[c, ti, li])
+
+                def val(a):
+                    return num(a[c, ti, li]) if ok else None
+
+                def lr(a):
+                    return {"left": num(a[c, ti, li, 0]) if ok else None,
+                            "right": num(a[c, ti, li, 1]) if ok else None}
+
+                g = self.ground_mm[c, ti, li]
+                rows.append({
+                    "lean_deg": float(phi),
+                    "travel_mm": float(s),
+                    "steer_deg": val(self.steer_deg),
+                    "max_steer_deg": val(self.max_steer_deg),
+                    "converged": ok,
+                    "wheel_shell_clearance_mm": lr(self.wheel_shell_mm),
+                    "wheel_link_clearance_mm": lr(self.wheel_link_mm),
+                    "wheel_shell_error_mm": lr(self.wheel_shell_error_mm),
+                    "wheel_link_error_mm": lr(self.wheel_link_error_mm),
+                    "ground_clearance_mm": num(np.min(g)) if ok else None,
+                    "ground_clearance_shell_mm": num(g[0]) if ok else None,
+                    "ground_clearance_tubes_mm": num(g[1]) if ok else None,
+                    "slot_length_mm": {n: (num(self.slot_length_mm[c, k]) if ok else None)
+                                       for k, n in enumerate(self.through_names)},
+                    "inside_violation_mm": val(self.inside_violation_mm),
+                    "outside_violation_mm": val(self.outside_violation_mm),
+                    "overall_width_mm": val(self.overall_width_mm),
+                    "track_mm": val(self.track_mm),
+                })
+        return rows
+
+    def summary_record(self, candidate: int = 0) -> dict:
+        """The summary of one candidate as JSON-ready dicts with the state where each extreme occurs."""
+        s = self.summary()
+        out = {}
+        for k in self.SUMMARY_KEYS:
+            v = float(s[k][candidate])
+            entry = {"value": v if math.isfinite(v) else None}
+            t, l = (int(i) for i in s[k + "_state"][candidate])
+            if t >= 0 and k != "total_slot_length_mm":
+                entry["lean_deg"] = float(self.lean_deg[l])
+                entry["travel_mm"] = float(self.travel_mm[t])
+            ek = k.replace("_mm", "_error_mm")
+            if ek in s:
+                e = float(s[ek][candidate])
+                entry["error_mm"] = e if math.isfinite(e) else None
+            out[k] = entry
+        out["slot_length_mm"] = {n: (float(self.slot_length_mm[candidate, k])
+                                     if np.isfinite(self.slot_length_mm[candidate, k]) else None)
+                                 for k, n in enumerate(self.through_names)}
+        return out
+
+
+# ------------------------------------------------------------------ helpers
+def _rotate(vx, vy, vz, ex, ey, ez, c, s):
+    """Rodrigues rotation of v about unit e by the angle with cosine c and sine s (broadcasting)."""
+    dot = (ex * vx + ey * vy + ez * vz) * (1.0 - c)
+    cx = ey * vz - ez * vy
+    cy = ez * vx - ex * vz
+    cz = ex * vy - ey * vx
+    return (vx * c + cx * s + ex * dot, vy * c + cy * s + ey * dot, vz * c + cz * s + ez * dot)
+
+
+class _Wheels:
+    """Per-(state, wheel) item data of the converged states, flattened."""
+
+    def __init__(self, model: Model, geom: Geometry, sr, items: np.ndarray, shape):
+        mech = model.mech
+        C, T, L = shape
+        cand, t_i, l_i, w_i = np.unravel_index(items, (C, T, L, 2))
+        self.cand, self.t, self.l, self.w = cand, t_i, l_i, w_i
+        xs = mech.station_x_mm
+        pts = sr.points
+        centre_idx = np.array(model.wheel_centre)[w_i]
+        axis_pt = np.array([model.point_index[w.steer_axis_point or w.centre] for w in mech.wheels])[w_i]
+        c = pts[cand, t_i, l_i, centre_idx]
+        P = pts[cand, t_i, l_i, axis_pt]
+        self.cx = np.full(len(items), xs)
+        self.cy, self.cz = c[:, 0], c[:, 1]
+        self.px, self.py, self.pz = self.cx, P[:, 0], P[:, 1]
+        gam = sr.camber[cand, t_i, l_i, w_i]
+        self.sg, self.cg = np.sin(gam), np.cos(gam)
+        beta = sr.body_angle[cand, t_i, l_i, np.array(model.wheel_upright)[w_i]]
+        kpi = np.radians([w.kingpin_inclination_deg for w in mech.wheels])[w_i]
+        cas = np.radians([w.caster_deg for w in mech.wheels])[w_i]
+        inboard = np.array([+1.0 if w.name == "left" else -1.0 for w in mech.wheels])[w_i]
+        e0x, e0y, e0z = -np.tan(cas), inboard * np.tan(kpi), np.ones(len(items))
+        nrm = np.sqrt(e0x ** 2 + e0y ** 2 + 1.0)
+        e0x, e0y, e0z = e0x / nrm, e0y / nrm, e0z / nrm
+        cb, sb = np.cos(beta), np.sin(beta)
+        self.ex, self.ey, self.ez = e0x, cb * e0y + sb * e0z, -sb * e0y + cb * e0z
+        R = geom.outer_radius[cand, w_i]
+        self.r = geom.crown_radius[cand, w_i]
+        self.rho = R - self.r
+        self.lean = np.radians(sr.lean_deg)[l_i]
+        self.delta_max = np.radians(max_steer_deg(mech, sr.lean_deg))[l_i]
+        off = np.sqrt((self.cy - self.py) ** 2 + (self.cz - self.pz) ** 2)
+        self.arm = off + self.rho                    # largest distance of a crown point from the axis point
+
+    def crown(self, idx, delta, theta):
+        """World crown-circle points, each of shape delta.shape == theta.shape == (n, m)."""
+        sl = (idx, None)
+        ct, st = np.cos(theta), np.sin(theta)
+        rho = self.rho[sl]
+        vx = self.cx[sl] - self.px[sl] + rho * ct
+        vy = self.cy[sl] - self.py[sl] + rho * st * self.sg[sl]
+        vz = self.cz[sl] - self.pz[sl] + rho * st * self.cg[sl]
+        x, y, z = _rotate(vx, vy, vz, self.ex[sl], self.ey[sl], self.ez[sl], np.cos(delta), np.sin(delta))
+        return x + self.px[sl], y + self.py[sl], z + self.pz[sl]
+
+    def crown_fixed_steer(self, idx, delta, theta):
+        """World crown points at one steer per item: delta (n,), theta (n, m) -> three arrays (n, m)."""
+        cd, sd = np.cos(delta), np.sin(delta)
+        e = (self.ex[idx], self.ey[idx], self.ez[idx])
+        px, py, pz = self.px[idx], self.py[idx], self.pz[idx]
+        c = _rotate(self.cx[idx] - px, self.cy[idx] - py, self.cz[idx] - pz, *e, cd, sd)
+        f = _rotate(1.0, 0.0, 0.0, *e, cd, sd)
+        u = _rotate(0.0, self.sg[idx], self.cg[idx], *e, cd, sd)
+        rc = self.rho[idx][:, None] * np.cos(theta)
+        rs = self.rho[idx][:, None] * np.sin(theta)
+        base = (px, py, pz)
+        return tuple((c[i] + base[i])[:, None] + f[i][:, None] * rc + u[i][:, None] * rs for i in range(3))
+
+    def crown_grid(self, delta, theta):
+        """World crown points on a grid: delta (n, S), theta (K,) -> three arrays (n, S, K)."""
+        cd, sd = np.cos(delta), np.sin(delta)
+        e = (self.ex[:, None], self.ey[:, None], self.ez[:, None])
+        sl = (slice(None), None)
+        c = _rotate((self.cx - self.px)[sl], (self.cy - self.py)[sl], (self.cz - self.pz)[sl], *e, cd, sd)
+        f = _rotate(1.0, 0.0, 0.0, *e, cd, sd)
+        u = _rotate(0.0, self.sg[sl], self.cg[sl], *e, cd, sd)
+        rc = self.rho[:, None, None] * np.cos(theta)
+        rs = self.rho[:, None, None] * np.sin(theta)
+        base = (self.px, self.py, self.pz)
+        return tuple((c[i] + base[i][:, None])[..., None] + f[i][..., None] * rc + u[i][..., None] * rs
+                     for i in range(3))
+
+
+def _coarse_grid(W: _Wheels, st: ClearanceSettings):
+    """The coarse (steer x crown angle) grid of every item and its world points in single precision.
+
+    The coarse grid only picks the basin and feeds the error estimate: single precision (about
+    1e-4 mm here) suffices and halves its memory traffic.
+    """
+    n = len(W.rho)
+    K = st.crown_samples
+    S = st.steer_samples if (W.delta_max > 0).any() else 1
+    theta = 2 * math.pi * np.arange(K) / K
+    sg = np.linspace(-1.0, 1.0, S) if S > 1 else np.zeros(1)
+    pts = tuple(g.reshape(n, -1).astype(np.float32) for g in W.crown_grid(W.delta_max[:, None] * sg[None, :], theta))
+    return S, K, theta, sg, pts
+
+
+def _search(W: _Wheels, pfun, coarse_pfun, st: ClearanceSettings, grid, early_pfun=None):
+    """Minimise pfun(idx, x, y, z) over the crown circle x steer range of every item.
+
+    ``pfun`` maps world crown points (arrays (n, m)) to clearances (distance minus
+    the crown radius); ``coarse_pfun`` may return lower bounds of it (used on the
+    coarse grid only); ``early_pfun`` (default ``pfun``) is used in all but the
+    last three refinement rounds, which always use ``pfun``. Returns the reached
+    minimum, its steer and crown angle (rad) and the error estimate (see module docs).
+    """
+    early_pfun = early_pfun or pfun
+    n = len(W.rho)
+    idx = np.arange(n)
+    steer = W.delta_max > 0
+    S, K, theta, sg, (gx, gy, gz) = grid
+    F = coarse_pfun(idx, gx, gy, gz).reshape(n, S, K).astype(float)
+    flat = np.where(np.isnan(F), np.inf, F).reshape(n, -1)
+    k = np.argmin(flat, axis=1)
+    si, ki = np.unravel_index(k, (S, K))
+    hth0 = math.pi / K
+    hd0 = np.where(steer, W.delta_max / max(S - 1, 1), 0.0)
+    db = W.delta_max * sg[si]
+    tb = theta[ki]
+    n_exact = min(3, st.refine_iterations)
+    use = early_pfun if st.refine_iterations > n_exact else pfun
+
+    def fun(idx, delta, theta):
+        return use(idx, *W.crown(idx, delta, theta))
+
+    fb = fun(idx, db[:, None], tb[:, None])[:, 0]
+    # the local search starts with steps of _REACH half-spacings, so it reaches about _REACH coarse
+    # cells either way: the coarse cells within that neighbourhood are covered by the search
+    hth, hd = _REACH * hth0, _REACH * hd0
+    for it in range(st.refine_iterations):
+        if it == st.refine_iterations - n_exact and use is not pfun:
+            use = pfun                                   # the last rounds: exact distances
+            fb = fun(idx, db[:, None], tb[:, None])[:, 0]
+        # theta then steer: three-point moves, steps halving each round
+        tc = tb[:, None] + np.array([-hth, hth])
+        fc = use(idx, *W.crown_fixed_steer(idx, db, tc))
+        j = np.argmin(fc, axis=1)
+        better = fc[idx, j] < fb
+        tb = np.where(better, tc[idx, j], tb)
+        fb = np.where(better, fc[idx, j], fb)
+        if steer.any():
+            dc = np.clip(db[:, None] + hd[:, None] * np.array([-1.0, 1.0]), -W.delta_max[:, None],
+                         W.delta_max[:, None])
+            fc = fun(idx, dc, np.repeat(tb[:, None], 2, 1))
+            j = np.argmin(fc, axis=1)
+            better = fc[idx, j] < fb
+            db = np.where(better, dc[idx, j], db)
+            fb = np.where(better, fc[idx, j], fb)
+        hth, hd = hth / 2, hd / 2
+
+    # error estimate: lower bounds of the true minimum from the coarse samples outside the refined
+    # neighbourhood and from the final steps (semiconcavity of the squared distance)
+    with np.errstate(invalid="ignore"):
+        return _estimate(W, fb, db, tb, flat, si, ki, S, K, hth0, hd0, st)
+
+
+def _lower(D, rho, arm, h_t, h_d):
+    """Lower bound of the true minimum distance near a sample at crown distance D (cell half-sizes h_t, h_d).
+
+    Semiconcavity of the squared distance to any set, Hess(d^2/2) <= I, along the crown path, whose
+    displacement is at most rho h_t + arm h_d and curvature at most 1/rho (theta) and 1/(distance
+    from the axis) (steer); the Lipschitz bound D - displacement always holds.
+    """
+    s_lip = rho * h_t + arm * h_d
+    Dm = np.maximum(D + s_lip, 0.0)
+    A = 2 * (rho * h_t) ** 2 + 2 * (arm * h_d) ** 2 + Dm * (rho * h_t ** 2 + arm * h_d ** 2)
+    semi = np.where((D > 0) & (D * D > A), np.sqrt(np.maximum(D * D - A, 0.0)), -np.inf)
+    return np.maximum(semi, D - s_lip)
+
+
+def _estimate(W, fb, db, tb, flat, si, ki, S, K, hth0, hd0, st):
+    n = len(fb)
+    r = W.r
+    Db = fb + r
+    Dc = flat + r[:, None]
+    cells = _REACH // 2
+    near_k = (np.abs(((np.arange(K)[None, :] - ki[:, None]) + K // 2) % K - K // 2) <= cells)  # (n, K)
+    near_s = np.abs(np.arange(S)[None, :] - si[:, None]) <= cells                                # (n, S)
+    near = (near_s[:, :, None] & near_k[:, None, :]).reshape(n, -1)
+    # only samples whose Lipschitz bound falls below the reached value can lower the bound
+    s_lip = (W.rho * hth0 + W.arm * hd0)[:, None]
+    cand = ~near & np.isfinite(Dc) & (Dc - s_lip < Db[:, None])
+    ii, kk = np.nonzero(cand)
+    lb_c = np.full(n, np.inf)
+    if len(ii):
+        vals = _lower(Dc[ii, kk], W.rho[ii], W.arm[ii], hth0, hd0[ii])
+        np.minimum.at(lb_c, ii, vals)
+    nfin = max(st.refine_iterations - 1, 0)
+    lb_fine = _lower(Db, W.rho, W.arm, _REACH * hth0 / 2 ** nfin, _REACH * hd0 / 2 ** nfin)
+    lb = np.minimum(lb_c, lb_fine)
+    err = np.where(np.isfinite(fb), np.maximum(Db - lb, 0.0), np.nan)
+    return fb, db, tb, err
+
+
+def _segment_distance(px, py, pz, ay, az, by, bz, x0):
+    """Distance of points (n, m) to segments (n, M) in the plane x = x0; returns (n, m, M)."""
+    ey, ez = (by - ay)[:, None, :], (bz - az)[:, None, :]
+    inv = (1.0 / np.maximum(ey * ey + ez * ez, 1e-30))
+    wy = py[..., None] - ay[:, None, :]
+    wz = pz[..., None] - az[:, None, :]
+    s = wy * ey
+    s += wz * ez
+    s *= inv
+    np.clip(s, 0.0, 1.0, out=s)
+    wy -= s * ey
+    wz -= s * ez
+    wy *= wy
+    wz *= wz
+    wy += wz
+    dx = px - x0
+    wy += (dx * dx)[..., None]
+    return np.sqrt(wy, out=wy)
+
+
+# ---------------------------------------------------------------------- main
+def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell: Shell,
+                       settings: ClearanceSettings | None = None) -> ClearanceResult:
+    """Clearances of many candidates over their envelope, in one batch.
+
+    Parameters
+    ----------
+    model : Model
+    geom : Geometry or None
+        The candidates the sweep was run on (default: the mechanism itself).
+    sweep_result : SweepResult
+        ``sweep(model, geom, lean_deg, travel_mm)``; arrays (C, T, L, ...).
+    shell : Shell
+        The body shell, fixed to the chassis.
+    settings : ClearanceSettings, optional
+
+    Returns
+    -------
+    ClearanceResult
+        Arrays of shape (n_candidates, n_travel, n_lean[, 2]).
+    """
+    st = settings or ClearanceSettings()
+    geom = geom or model.default_geometry
+    sr = sweep_result
+    mech = model.mech
+    C, T, L = sr.status.shape
+    conv = sr.converged
+    xs = mech.station_x_mm
+    mem = members_of(model)
+    M = len(mem)
+    pts = sr.points                                                        # (C, T, L, P, 2)
+    lean = np.broadcast_to(np.radians(sr.lean_deg), (C, T, L))
+    cl, sl = np.cos(lean), np.sin(lean)
+    # chassis datum position from one chassis point: world = t + R(lean) p_design
+    ci = int(np.flatnonzero(model.point_body == model.chassis)[0])
+    pd = geom.points[:, ci][:, None, None, :]
+    trans = np.stack([pts[..., ci, 0] - (cl * pd[..., 0] + sl * pd[..., 1]),
+                      pts[..., ci, 1] - (-sl * pd[..., 0] + cl * pd[..., 1])], -1)   # (C, T, L, 2)
+
+    # ---------------------------------------------------------- wheels
+    ok_items = np.flatnonzero(np.repeat(conv[..., None], 2, axis=-1).ravel())
+    W = _Wheels(model, geom, sr, ok_items, (C, T, L))
+    it_trans = trans[W.cand, W.t, W.l]                                    # (n, 2)
+
+    def shell_fun(lower_bound):
+        cl_i, sl_i = np.cos(W.lean), np.sin(W.lean)
+
+        def f(idx, x, y, z):
+            dt = y.dtype
+            dy = y - it_trans[idx, 0][:, None].astype(dt)
+            dz = z - it_trans[idx, 1][:, None].astype(dt)
+            c, s = cl_i[idx][:, None].astype(dt), sl_i[idx][:, None].astype(dt)
+            return signed_distance_yz(shell, c * dy - s * dz, s * dy + c * dz, x,
+                                      lower_bound=lower_bound) - W.r[idx][:, None].astype(dt)
+        return f
+
+    grid = _coarse_grid(W, st)
+    cheap = shell_fun(True)
+    ws_val, ws_steer, _, ws_err = _search(W, shell_fun(False), cheap, st, grid, early_pfun=cheap)
+
+    if M:
+        n = len(W.r)
+        idx_all = np.arange(n)
+        ends_a = pts[W.cand, W.t, W.l][:, mem.ia]                          # (n, M, 2)
+        ends_b = pts[W.cand, W.t, W.l][:, mem.ib]
+        excl = mem.carries[W.w]                                            # (n, M)
+        # every crown point lies within `arm` of the steering-axis point: a lower bound per member
+        lb = _segment_distance(W.px[:, None], W.py[:, None], W.pz[:, None], ends_a[..., 0], ends_a[..., 1],
+                               ends_b[..., 0], ends_b[..., 1], xs)[:, 0] - mem.radius - (W.arm + W.r)[:, None]
+        lb = np.where(excl, np.inf, lb)
+        k = max(1, min(int(np.max(np.sum(~excl, axis=1))), _NEAREST_MEMBERS))
+        order = np.argsort(lb, axis=1)
+        keep, drop = order[:, :k], order[:, k:]
+        ka = np.take_along_axis(ends_a, keep[..., None], 1)
+        kb = np.take_along_axis(ends_b, keep[..., None], 1)
+        krad = mem.radius[keep]
+        kex = np.take_along_axis(excl, keep, 1)
+
+        def link_fun(idx, x, y, z):
+            dt = y.dtype
+            a_, b_ = ka[idx].astype(dt), kb[idx].astype(dt)
+            d = _segment_distance(x, y, z, a_[..., 0], a_[..., 1], b_[..., 0], b_[..., 1], xs)
+            d = np.where(kex[idx][:, None, :], np.inf, d - krad[idx][:, None, :].astype(dt))
+            return np.min(d, axis=-1) - W.r[idx][:, None].astype(dt)
+
+        wl_val, wl_steer, wl_theta, wl_err = _search(W, link_fun, link_fun, st, grid)
+        # members left out of the search can only lower the minimum down to their bound
+        if drop.shape[1]:
+            lb_drop = np.min(np.take_along_axis(lb, drop, 1), axis=1)
+            wl_err = np.where(lb_drop < wl_val, np.maximum(wl_err, wl_val - lb_drop), wl_err)
+        x, y, z = W.crown(idx_all, wl_steer[:, None], wl_theta[:, None])
+        d = _segment_distance(x, y, z, ka[..., 0], ka[..., 1], kb[..., 0], kb[..., 1], xs)[:, 0]
+        d = np.where(kex, np.inf, d - krad)
+        best = np.take_along_axis(keep, np.argmin(d, axis=1)[:, None], 1)[:, 0]
+        wl_member = np.where(np.isfinite(wl_val), best, -1)
+    else:
+        n = len(W.r)
+        wl_val, wl_steer, wl_err, wl_member = np.full(n, np.inf), np.zeros(n), np.zeros(n), np.full(n, -1)
+
+    def scatter(v, fill=np.nan, dtype=float):
+        out = np.full(C * T * L * 2, fill, dtype=dtype)
+        out[ok_items] = v
+        return out.reshape(C, T, L, 2)
+
+    wheel_shell = scatter(ws_val)
+    wheel_link = scatter(wl_val)
+    ws_steer_deg = scatter(np.degrees(ws_steer))
+    wl_steer_deg = scatter(np.degrees(wl_steer))
+    worst = np.minimum(wheel_shell, wheel_link)                            # (C, T, L, 2)
+    wsel = np.argmin(np.where(np.isnan(worst), np.inf, worst), axis=-1)
+    use_link = np.take_along_axis(wheel_link < wheel_shell, wsel[..., None], -1)[..., 0]
+    steer_deg = np.where(use_link, np.take_along_axis(wl_steer_deg, wsel[..., None], -1)[..., 0],
+                         np.take_along_axis(ws_steer_deg, wsel[..., None], -1)[..., 0])
+    steer_deg = np.where(conv, steer_deg, np.nan)
+
+    # ------------------------------------------------- width and ground
+    S = st.steer_samples if (W.delta_max > 0).any() else 1
+    sg = np.linspace(-1.0, 1.0, S) if S > 1 else np.zeros(1)
+    delta = W.delta_max[:, None] * sg                                      # (n, S)
+    cd, sd = np.cos(delta), np.sin(delta)
+    sl_ = (slice(None), None)
+    ccy = _rotate((W.cx - W.px)[sl_], (W.cy - W.py)[sl_], (W.cz - W.pz)[sl_], W.ex[sl_], W.ey[sl_], W.ez[sl_],
+                  cd, sd)[1] + W.py[:, None]
+    fy = _rotate(1.0, 0.0, 0.0, W.ex[sl_], W.ey[sl_], W.ez[sl_], cd, sd)[1]
+    uy = _rotate(0.0, W.sg[sl_], W.cg[sl_], W.ex[sl_], W.ey[sl_], W.ez[sl_], cd, sd)[1]
+    half = W.rho[:, None] * np.sqrt(fy * fy + uy * uy) + W.r[:, None]
+    right = scatter(np.max(ccy + half, axis=1))
+    left = scatter(np.min(ccy - half, axis=1))
+    ty, tz = trans[..., 0], trans[..., 1]
+    sh_right = ty + support(shell, np.stack([cl, sl], -1))
+    sh_left = ty - support(shell, np.stack([-cl, -sl], -1))
+    width = np.maximum(np.max(right, -1), sh_right) - np.minimum(np.min(left, -1), sh_left)
+    width = np.where(conv, width, np.nan)
+    ground_shell = tz - support(shell, np.stack([sl, -cl], -1))
+    if M:
+        za, zb = pts[..., mem.ia, 1], pts[..., mem.ib, 1]
+        ground_tubes = np.min(np.minimum(za, zb) - mem.radius, axis=-1)
+    else:
+        ground_tubes = np.full((C, T, L), np.inf)
+    ground = np.where(conv[..., None], np.stack([ground_shell, ground_tubes], -1), np.nan)
+
+    # ------------------------------------------------- tubes and the shell
+    inside_v = np.zeros((C, T, L))
+    outside_v = np.zeros((C, T, L))
+    through = [k for k in range(M) if mem.role[k] == "through"]
+    slot_pos = np.full((C, T, L, len(through)), np.nan)
+    slot_len = np.zeros((C, len(through)))
+    if M:
+        A = to_chassis_frame(pts[..., mem.ia, :], trans[..., None, :], lean[..., None])   # (C, T, L, M, 2)
+        B = to_chassis_frame(pts[..., mem.ib, :], trans[..., None, :], lean[..., None])
+        for role, sign in (("inside", +1.0), ("outside", -1.0)):
+            ks = np.flatnonzero(mem.role == role)
+            if not len(ks):
+                continue
+            a, b, rk = A[..., ks, :], B[..., ks, :], mem.radius[ks]
+            v = _tube_extreme(shell, a, b, xs, sign, st)                   # max of sign * sd along the tube
+            viol = np.maximum(v + rk, 0.0)
+            val = np.max(viol, axis=-1)
+            if role == "inside":
+                inside_v = val
+            else:
+                outside_v = val
+        if through:
+            tk = np.array(through)
+            a, b = A[..., tk, :], B[..., tk, :]
+            ha, hb = inside_level(shell, a, xs), inside_level(shell, b, xs)
+            cross = (ha * hb < 0) & np.isfinite(ha) & np.isfinite(hb)
+            s = _root(shell, a, b, ha, hb, xs, st.root_iterations)
+            p = a + (b - a) * s[..., None]
+            pos, perim = outline_position(shell, xs, p)
+            slot_pos = np.where(cross, pos, np.nan)
+            slot_len = _circular_range(slot_pos.reshape(C, T * L, -1), perim)
+    inside_v = np.where(conv, inside_v, np.nan)
+    outside_v = np.where(conv, outside_v, np.nan)
+    all_ok = conv.reshape(C, -1).all(axis=1)
+    slot_len = np.where(all_ok[:, None], slot_len, np.nan)
+
+    return ClearanceResult(
+        lean_deg=np.asarray(sr.lean_deg, float), travel_mm=np.asarray(sr.travel_mm, float), converged=conv,
+        wheel_shell_mm=wheel_shell, wheel_shell_error_mm=scatter(ws_err), wheel_shell_steer_deg=ws_steer_deg,
+        wheel_link_mm=wheel_link, wheel_link_error_mm=scatter(wl_err), wheel_link_steer_deg=wl_steer_deg,
+        wheel_link_member=scatter(wl_member, -1, int),
+        max_steer_deg=np.where(conv, np.broadcast_to(max_steer_deg(mech, sr.lean_deg), (C, T, L)), np.nan),
+        steer_deg=steer_deg, ground_mm=ground, overall_width_mm=width,
+        track_mm=np.where(conv, sr.track, np.nan), inside_violation_mm=inside_v, outside_violation_mm=outside_v,
+        slot_length_mm=slot_len, slot_position_mm=slot_pos, member_names=list(mem.names),
+        through_names=[mem.names[k] for k in through], settings=st)
+
+
+def _tube_extreme(shell: Shell, a, b, x0, sign, st: ClearanceSettings):
+    """max over the tube axis of ``sign * section distance``: sampled, then refined by halving steps."""
+    n = st.tube_samples
+    s = np.linspace(0.0, 1.0, n)
+    p = a[..., None, :] + (b - a)[..., None, :] * s[:, None]
+    f = sign * section_distance(shell, p, x0)
+    j = np.argmax(np.where(np.isnan(f), -np.inf, f), axis=-1)
+    sb = s[j]
+    fb = np.take_along_axis(f, j[..., None], -1)[..., 0]
+    h = 0.5 / (n - 1)
+    for _ in range(st.refine_iterations):
+        sc = np.clip(sb[..., None] + np.array([-h, h]), 0.0, 1.0)
+        pc = a[..., None, :] + (b - a)[..., None, :] * sc[..., None]
+        fc = sign * section_distance(shell, pc, x0)
+        k = np.argmax(np.where(np.isnan(fc), -np.inf, fc), axis=-1)
+        fk = np.take_along_axis(fc, k[..., None], -1)[..., 0]
+        better = fk > fb
+        sb = np.where(better, np.take_along_axis(sc, k[..., None], -1)[..., 0], sb)
+        fb = np.where(better, fk, fb)
+        h /= 2
+    return fb
+
+
+def _root(shell: Shell, a, b, ha, hb, x0, iterations):
+    """Where the tube a -> b crosses the outline (parameter in [0, 1]); Illinois regula falsi.
+
+    Entries without a sign change get an arbitrary value (callers mask them).
+    """
+    lo, hi = np.zeros(ha.shape), np.ones(ha.shape)
+    bad = ~(ha * hb < 0)
+    flo = np.where(bad, -1.0, ha)
+    fhi = np.where(bad, 1.0, hb)
+    side = np.zeros(ha.shape)
+    for _ in range(iterations):
+        den = fhi - flo
+        m = hi - fhi * (hi - lo) / np.where(den == 0, 1.0, den)
+        m = np.where((den == 0) | ~np.isfinite(m), 0.5 * (lo + hi), np.clip(m, lo, hi))
+        fm = inside_level(shell, a + (b - a) * m[..., None], x0)
+        fm = np.where(np.isfinite(fm), fm, 0.0)
+        same = fm * fhi > 0                      # m replaces hi
+        flo = np.where(same & (side > 0), 0.5 * flo, flo)
+        fhi = np.where(~same & (side < 0), 0.5 * fhi, fhi)
+        hi, fhi = np.where(same, m, hi), np.where(same, fm, fhi)
+        lo, flo = np.where(same, lo, m), np.where(same, flo, fm)
+        side = np.where(same, 1.0, -1.0)
+    return np.where(np.abs(flo) < np.abs(fhi), lo, hi)
+
+
+def _circular_range(pos: np.ndarray, perimeter: float) -> np.ndarray:
+    """Length of the shortest arc of a closed outline holding every finite position.
+
+    pos : ndarray of shape (C, n_states, K) -> (C, K); 0 where no position is finite.
+    """
+    C, N, K = pos.shape
+    fin = np.isfinite(pos)
+    anyfin = fin.any(axis=1)
+    first = np.take_along_axis(pos, np.argmax(fin, axis=1)[:, None, :], 1)       # a finite value, if any
+    p = np.where(fin, pos, first)
+    p = np.sort(p, axis=1)
+    gaps = np.diff(p, axis=1)
+    wrap = p[:, :1] + perimeter - p[:, -1:]
+    big = np.max(np.concatenate([gaps, wrap], axis=1), axis=1)
+    return np.where(anyfin, perimeter - big, 0.0)

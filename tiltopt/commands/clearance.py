@@ -1,0 +1,116 @@
+"""``tiltopt clearance``: wheel, tube, shell and ground clearance over the lean x travel x steer envelope."""
+from __future__ import annotations
+
+import math
+
+import click
+
+from kinematics.errors import InputError
+from kinematics.mechanism import load_mechanism
+from kinematics.model import Model
+from kinematics.units import parse_values
+
+from ..cli import main
+from ..output import table, to_csv, to_json
+
+CAUTION = ("Caution: these figures are geometric and quasi-static estimates. Prototypes must be tested; "
+           "structural sign-off, brakes, tilt locks and road use follow local rules and qualified engineers.")
+
+COLUMNS = [
+    ("lean_deg", "lean_deg"), ("travel_mm", "travel_mm"), ("steer_deg", "steer_deg"), ("converged", "ok"),
+    ("wheel_shell_clearance_mm.left", "shell_L_mm"), ("wheel_shell_clearance_mm.right", "shell_R_mm"),
+    ("wheel_link_clearance_mm.left", "link_L_mm"), ("wheel_link_clearance_mm.right", "link_R_mm"),
+    ("ground_clearance_mm", "ground_mm"), ("overall_width_mm", "width_mm"), ("track_mm", "track_mm"),
+    ("inside_violation_mm", "inside_viol_mm"), ("outside_violation_mm", "outside_viol_mm"),
+]
+
+
+def clearance_run(mech_path: str, shell_path: str, lean: str, travel: str, crown_samples: int | None = None,
+                  steer_samples: int | None = None):
+    """Load, sweep and check one mechanism; returns (mech, shell, clearance result)."""
+    from kinematics.clearance import ClearanceSettings, evaluate_clearance
+    from kinematics.shell import load_shell
+    from kinematics.sweep import sweep
+
+    mech = load_mechanism(mech_path)
+    shell = load_shell(shell_path)
+    leans = parse_values(lean, "--lean", "deg")
+    travels = parse_values(travel, "--travel", "mm")
+    kw = {}
+    if crown_samples is not None:
+        kw["crown_samples"] = crown_samples
+    if steer_samples is not None:
+        kw["steer_samples"] = steer_samples
+    try:
+        settings = ClearanceSettings(**kw)
+    except ValueError as exc:
+        raise InputError(f"{exc}.", key="--crown-samples / --steer-samples") from None
+    model = Model(mech)
+    res = sweep(model, lean_deg=leans, travel_mm=travels)
+    return mech, shell, evaluate_clearance(model, None, res, shell, settings)
+
+
+def _flat(row: dict) -> dict:
+    out = {}
+    for k, v in row.items():
+        if isinstance(v, dict):
+            for kk, vv in v.items():
+                out[f"{k}.{kk}"] = vv
+        else:
+            out[k] = v
+    return out
+
+
+@main.command("clearance")
+@click.argument("mech", type=click.Path(dir_okay=False))
+@click.option("--shell", "shell_path", required=True, type=click.Path(dir_okay=False),
+              help="Body shell: .toml (superellipse stations) or .csv (polygon sections x_mm,y_mm,z_mm).")
+@click.option("--lean", default="0:40:5", show_default=True, help="Leans, deg: start:stop:step or a,b,c.")
+@click.option("--travel", default="0", show_default=True, help="Travels, mm (bump positive): start:stop:step or a,b,c.")
+@click.option("--crown-samples", type=int, default=None,
+              help="Coarse samples round each tyre's crown circle (default 24). More = slower, tighter error bound.")
+@click.option("--steer-samples", type=int, default=None,
+              help="Coarse steer samples across the steer range (default 3).")
+@click.option("--format", "fmt", type=click.Choice(["table", "json", "csv"]), default="table", show_default=True)
+def clearance_cmd(mech, shell_path, lean, travel, crown_samples, steer_samples, fmt):
+    """Wheel-to-shell, wheel-to-link, tube-to-shell and ground clearance, slots, width and track per state.
+
+    Clearances are signed minimum distances in mm (positive = clear), each tyre steered through
+    the mechanism's [steer_envelope] at every lean. The error estimate is an upper bound of how far
+    the true minimum may lie below the reported one at this sampling.
+    """
+    m, shell, res = clearance_run(mech, shell_path, lean, travel, crown_samples, steer_samples)
+    rows = res.records(0)
+    summary = res.summary_record(0)
+    if fmt == "json":
+        click.echo(to_json({
+            "mechanism": m.name, "mechanism_file": str(mech), "shell": shell.name, "shell_file": str(shell_path),
+            "units": {"length": "mm", "angle": "deg"},
+            "sampling": {"crown_samples": res.settings.crown_samples, "steer_samples": res.settings.steer_samples,
+                         "refine_iterations": res.settings.refine_iterations},
+            "caution": CAUTION, "states": rows, "summary": summary}))
+        return
+    if fmt == "csv":
+        click.echo(to_csv(rows), nl=False)
+        return
+    click.echo(f"{m.name} in shell {shell.name}: clearance per state, mm (positive = clear; '-' = state not reached)")
+    click.echo(table([_flat(r) for r in rows], COLUMNS, digits=1))
+    click.echo("\nenvelope summary:")
+    lines = []
+    for k, e in summary.items():
+        if k == "slot_length_mm":
+            continue
+        v = "-" if e["value"] is None else f"{e['value']:.1f}"
+        where = f"  at lean {e['lean_deg']:g} deg, travel {e['travel_mm']:g} mm" if "lean_deg" in e else ""
+        err = f"  (error estimate <= {e['error_mm']:.1f})" if e.get("error_mm") is not None and \
+            math.isfinite(e["error_mm"]) and e["value"] is not None and math.isfinite(e["value"]) else ""
+        lines.append(f"  {k:<24} {v:>9}{where}{err}")
+    click.echo("\n".join(lines))
+    if summary["slot_length_mm"]:
+        click.echo("slots swept on the shell outline (mm, add the tube diameter for the cut-out):")
+        for n, v in summary["slot_length_mm"].items():
+            click.echo(f"  {n:<32} {'-' if v is None else f'{v:.1f}'}")
+    bad = [r for r in rows if not r["converged"]]
+    if bad:
+        click.echo(f"\n{len(bad)} of {len(rows)} states not reached; their clearances are not reported.")
+    click.echo("\n" + CAUTION)
