@@ -309,7 +309,7 @@ def _clearance_section(an: Analysis) -> str:
             if k.endswith("_error_mm"):
                 continue
             err = an.clearance.get(k.replace("_mm", "_error_mm"))
-            extra = f" (± {_num(err[0], 1)})" if err is not None and np.isfinite(err[0]) and err[0] > 0 else ""
+            extra = f" (± {_num(err[0], 1)})" if err is not None and np.isfinite(err[0]) and err[0] >= 0.05 else ""
             rows.append([_e(labels.get(k, k)), _clr(v[0]) + extra, "mm"])
         s += "<h3>3-D clearance over the whole envelope (lean, travel and steer)</h3>"
         s += _table(["figure", "value", "unit"], rows)
