@@ -1,0 +1,266 @@
+"""The build-sheet folder: DXF, CSV and candidate.toml against the design, sheet.html content, drawing geometry."""
+from __future__ import annotations
+
+import csv
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from kinematics.mechanism import load_mechanism
+from kinematics.model import Model
+from kinematics.sweep import sweep
+
+from test_explorer import LEAN_LIMIT, TRAVEL, fixture_run
+
+
+@pytest.fixture(scope="module")
+def sheet_dir(tmp_path_factory):
+    from tiltopt.reports.sheet import SheetInputs, write_sheet
+
+    run, mechs, front, res = fixture_run()
+    cid = str(front["candidate_id"].iloc[2])
+    out = tmp_path_factory.mktemp("sheet")
+    paths = write_sheet(out, SheetInputs(
+        mech=mechs[cid], candidate_id=cid, run_id=run.run_id, lean_limit_deg=LEAN_LIMIT, travel_mm=TRAVEL,
+        row=front.iloc[2].to_dict(), units=run.units, jig_datum=(10.0, 150.0), corner_load_n=400.0, sag_mm=20.0,
+        provenance={"config": "tests/fixture", "seed": 3}))
+    return paths, mechs[cid], front.iloc[2].to_dict()
+
+
+def test_dxf_reread_gives_the_pivot_coordinates(sheet_dir):
+    import ezdxf
+
+    from tiltopt.reports.dxf import body_layer
+
+    paths, mech, _ = sheet_dir
+    # read back with ezdxf itself (a general-purpose DXF library, independent of our writer's logic)
+    doc = ezdxf.readfile(str(paths["dxf"]))
+    msp = doc.modelspace()
+    assert doc.units == ezdxf.units.MM
+    pts = {}
+    for e in msp.query("POINT"):
+        pts.setdefault(e.dxf.layer, []).append((e.dxf.location.x, e.dxf.location.y))
+    for body, points in mech.bodies.items():
+        got = np.array(pts[body_layer(body)])
+        want = np.array(list(points.values()))
+        assert got.shape == want.shape
+        assert np.max(np.abs(got - want)) < 1e-6
+    circles = np.array([(c.dxf.center.x, c.dxf.center.y) for c in msp.query("CIRCLE") if c.dxf.layer == "PIVOTS"])
+    for pin in mech.pins:
+        y, z = mech.point(pin.a)
+        assert np.min(np.hypot(circles[:, 0] - y, circles[:, 1] - z)) < 1e-6
+    assert any("Caution" in t.text for t in msp.query("MTEXT"))
+
+
+def test_pivots_csv_matches(sheet_dir):
+    paths, mech, _ = sheet_dir
+    text = paths["pivots"].read_text(encoding="utf-8")
+    assert "Caution" in text and "mm" in text
+    rows = list(csv.DictReader(line for line in text.splitlines() if not line.startswith("#")))
+    assert [(r["body"], r["point"]) for r in rows] == [tuple(ref.split(".")) for ref in mech.point_refs]
+    for r in rows:
+        y, z = mech.bodies[r["body"]][r["point"]]
+        assert float(r["y_mm"]) == y and float(r["z_mm"]) == z
+
+
+def test_candidate_toml_round_trips_to_the_front_metrics(sheet_dir):
+    paths, mech, row = sheet_dir
+    again = load_mechanism(paths["candidate"])
+    assert again.bodies == mech.bodies
+    model = Model(again)
+    res = sweep(model, None, np.linspace(0.0, LEAN_LIMIT, 11), TRAVEL)
+    # the stored front metrics were computed by the fixture from the in-memory mechanism
+    assert np.nanmax(np.abs(res.scrub)) == pytest.approx(row["max_scrub_mm"], abs=1e-6)
+    assert np.nanmax(np.abs(res.heave)) == pytest.approx(row["max_heave_mm"], abs=1e-6)
+    assert np.degrees(np.nanmax(np.abs(res.camber_error))) == pytest.approx(row["max_camber_error_deg"], abs=1e-6)
+
+
+def test_cli_sweep_rereads_candidate_toml(sheet_dir):
+    from click.testing import CliRunner
+
+    from tiltopt.cli import main
+
+    paths, mech, row = sheet_dir
+    out = CliRunner().invoke(main, ["sweep", str(paths["candidate"]), "--lean", "0:25:2.5", "--travel", "-30,0,30",
+                                    "--format", "json"])
+    assert out.exit_code == 0, out.output
+    import json
+
+    recs = json.loads(out.output)
+    assert max(abs(r["scrub_mm"]) for r in recs) == pytest.approx(row["max_scrub_mm"], abs=1e-6)
+
+
+def test_sheet_html_sections(sheet_dir):
+    paths, mech, _ = sheet_dir
+    html = paths["sheet"].read_text(encoding="utf-8")
+    for heading in ("Summary", "Scenario", "Front view at the design position", "Pivot coordinates", "Members",
+                    "Joints", "Springs", "Kinematic curves against lean", "Clearance at the envelope corners",
+                    "Loads and tilt lock", "Safety"):
+        assert f">{heading}" in html, heading
+    assert "@media print" in html and "@page" in html
+    assert "Caution" in html
+    # jig datum (10, 150): the upper-left chassis pivot row gives y - 10 and z - 150
+    y, z = mech.point("chassis.upper_left_pivot")
+    assert f"{y - 10:.2f}" in html and f"{z - 150:.2f}" in html
+    # degraded parts are said so, visibly
+    assert "No loads given" in html
+
+
+def test_suggested_spring_rate_closed_form(sheet_dir):
+    """Rate for a stated sag: 1/2 (k MR_L^2 + k MR_R^2) s^2 = 2 F s / 2 -> k = 2 F / (s (MR_L^2 + MR_R^2)).
+
+    Closed form of the virtual work of two equal springs against the two corner loads (derived here).
+    """
+    import re
+
+    paths, mech, _ = sheet_dir
+    model = Model(mech)
+    res = sweep(model, None, [0.0], [0.0])
+    mr = res.motion_ratio[0, 0]
+    k = 2 * 400.0 / (20.0 * np.sum(mr ** 2))
+    html = paths["sheet"].read_text(encoding="utf-8")
+    assert f">{k:.1f}<" in html
+
+
+def test_tyre_outline_is_the_torus_silhouette():
+    """Front view of a torus (R, r) upright: height 2R, width 2r; tilted by camber g, the lowest point
+    lies (R - r) sin g from the centre toward -y and at z_c - (R - r) cos g - r (DOMAIN.md contact formula)."""
+    from tiltopt.reports.drawing import tyre_outline
+
+    R, r, g = 250.0, 23.0, math.radians(12.0)
+    up = tyre_outline(np.array([0.0, 0.0]), 0.0, R, r, 401)
+    assert up[:, 1].max() == pytest.approx(R, abs=1e-6) and up[:, 1].min() == pytest.approx(-R, abs=1e-6)
+    assert up[:, 0].max() == pytest.approx(r, abs=1e-3) and up[:, 0].min() == pytest.approx(-r, abs=1e-3)
+    c = np.array([100.0, (R - r) * math.cos(g) + r])
+    t = tyre_outline(c, g, R, r, 2001)
+    low = t[np.argmin(t[:, 1])]
+    assert low[1] == pytest.approx(0.0, abs=1e-3)
+    assert low[0] == pytest.approx(c[0] - (R - r) * math.sin(g), abs=0.5)
+
+
+def test_front_view_gaps_against_shapely():
+    """The front-view tyre-to-link gap equals shapely's polygon-to-line distance (reference library)."""
+    shapely = pytest.importorskip("shapely")
+    from shapely.geometry import LineString, Polygon
+
+    from tiltopt.reports.drawing import front_view_gaps, tyre_outline
+
+    mech = load_mechanism(Path(__file__).resolve().parents[1] / "configs" / "wishbone_rocker.toml")
+    model = Model(mech)
+    from tiltopt.reports.drawing import drawing_spec
+
+    spec = drawing_spec(model)
+    res = sweep(model, None, [0.0, 20.0], [0.0])
+    g = front_view_gaps(spec, res.points, res.camber)
+    P = res.points[0, 0, 1]
+    best = np.inf
+    for w_i, w in enumerate(spec["wheels"]):
+        tyre = Polygon(tyre_outline(P[w["centre"]], res.camber[0, 0, 1, w_i], w["R"], w["r"], 10))
+        lines = []
+        for b_i, b in enumerate(spec["bodies"]):
+            if b_i == w["body"]:
+                continue
+            h = b["hull"]
+            lines += [(h[k], h[(k + 1) % len(h)]) for k in range(len(h) if len(h) > 2 else 1)]
+        lines += [(i, j) for i, j, _ in spec["links"] + spec["springs"]]
+        best = min(best, min(tyre.exterior.distance(LineString([P[i], P[j]])) for i, j in lines))
+    # our gap samples the tyre outline's vertices against exact segments: equal to within the chord sag
+    assert g["wheel_link_mm"][0, 0, 1] == pytest.approx(best, abs=0.5)
+
+
+def test_sizing_section_when_the_part_is_present(tmp_path):
+    """With the sizing part installed and a loads file, the sheet shows its member sizes and tilt-lock torque."""
+    loads_mod = pytest.importorskip("kinematics.loads", reason="sizing part not installed on this branch")
+    sizing_mod = pytest.importorskip("kinematics.sizing", reason="sizing part not installed on this branch")
+    from tiltopt.reports.sheet import SheetInputs, write_sheet
+
+    root = Path(__file__).resolve().parents[1]
+    mech = load_mechanism(root / "configs" / "wishbone_rocker.toml")
+    loads = loads_mod.load_loads(root / "configs" / "loads_demo.toml")
+    paths = write_sheet(tmp_path, SheetInputs(mech=mech, lean_limit_deg=30.0, travel_mm=(-30.0, 0.0, 30.0),
+                                              loads=loads))
+    html = paths["sheet"].read_text(encoding="utf-8")
+    sz = sizing_mod.size_linkage(Model(mech), None, loads)
+    assert f"{sz.tilt_lock_torque_nm[0]:.1f} N·m" in html
+    assert f"{sz.linkage_mass_kg[0]:.2f} kg" in html
+    assert sz.tube_label(0, 0) in html
+    assert "No loads given" not in html
+    # the corner load for the suggested rate comes from the vehicle: m * front share * g / 2
+    v = loads.vehicle
+    assert f"under {v.total_mass_kg * v.front_share * 9.80665 / 2:.0f} N per front wheel" in html
+
+
+def test_clearance_section_when_the_part_is_present(tmp_path):
+    """With the clearance part installed and a shell, the sheet shows the 3-D clearance figures."""
+    shell_mod = pytest.importorskip("kinematics.shell", reason="clearance part not installed on this branch")
+    pytest.importorskip("kinematics.clearance", reason="clearance part not installed on this branch")
+    from tiltopt.reports.sheet import SheetInputs, write_sheet
+
+    root = Path(__file__).resolve().parents[1]
+    mech = load_mechanism(root / "configs" / "wishbone_rocker.toml")
+    shell = shell_mod.superellipse_shell([-400.0, 400.0], 290.0, 430.0, 540.0, 2.6)
+    paths = write_sheet(tmp_path, SheetInputs(mech=mech, lean_limit_deg=30.0, travel_mm=(-30.0, 0.0, 30.0),
+                                              shell=shell))
+    html = paths["sheet"].read_text(encoding="utf-8")
+    assert "tyre to shell, 3-D [mm]" in html
+    assert "No body shell given" not in html
+    assert "<polygon" in html and 'stroke-dasharray' in html   # the shell section is drawn
+
+
+# ----------------------------------------------------------------- from a real tiny run
+@pytest.fixture(scope="module")
+def real_sheet(tmp_path_factory):
+    from test_explorer import make_tiny_run
+
+    from optimizer.results import load_run
+    from tiltopt.reports.runs import sheet_from_run
+
+    run_dir = make_tiny_run(tmp_path_factory.mktemp("tiny"))
+    run = load_run(run_dir)
+    feas = run.front[run.front["feasible"].astype(bool)]
+    cid = str(feas["candidate_id"].iloc[len(feas) // 2])
+    paths = sheet_from_run(run_dir, cid, run_dir / "sheet", jig_datum=(0.0, 100.0))
+    return run, cid, paths
+
+
+def test_real_candidate_toml_round_trips_to_the_stored_metrics(real_sheet):
+    """candidate.toml, swept over the run's envelope, gives the metrics the optimiser stored in the front."""
+    from click.testing import CliRunner
+
+    from tiltopt.cli import main
+
+    run, cid, paths = real_sheet
+    row = run.front[run.front["candidate_id"] == cid].iloc[0]
+    out = CliRunner().invoke(main, ["sweep", str(paths["candidate"]), "--lean", "0:30:5", "--travel", "-30,0,30",
+                                    "--format", "json"])
+    assert out.exit_code == 0, out.output
+    import json
+
+    recs = json.loads(out.output)
+    assert all(r["converged"] for r in recs)
+    assert max(abs(r["scrub_mm"]) for r in recs) == pytest.approx(row["max_scrub_mm"], abs=1e-6)
+    assert max(abs(r["heave_mm"]) for r in recs) == pytest.approx(row["max_heave_mm"], abs=1e-6)
+    cam = max(max(abs(r["camber_error_left_deg"]), abs(r["camber_error_right_deg"])) for r in recs)
+    assert cam == pytest.approx(row["max_camber_error_deg"], abs=1e-6)
+
+
+def test_real_pivots_and_dxf_match_the_candidate(real_sheet):
+    import ezdxf
+
+    from tiltopt.reports.dxf import body_layer
+
+    run, cid, paths = real_sheet
+    mech = run.candidate_mechanism(cid)
+    rows = list(csv.DictReader(l for l in paths["pivots"].read_text(encoding="utf-8").splitlines()
+                               if not l.startswith("#")))
+    for r in rows:
+        assert (float(r["y_mm"]), float(r["z_mm"])) == mech.bodies[r["body"]][r["point"]]
+    doc = ezdxf.readfile(str(paths["dxf"]))
+    for body, pts in mech.bodies.items():
+        got = np.array([(e.dxf.location.x, e.dxf.location.y) for e in doc.modelspace().query("POINT")
+                        if e.dxf.layer == body_layer(body)])
+        assert np.max(np.abs(got - np.array(list(pts.values())))) < 1e-6
+    html = paths["sheet"].read_text(encoding="utf-8")
+    assert f"tiltopt sheet" in html and f"--candidate {cid}" in html and run.run_id in html

@@ -1,0 +1,135 @@
+"""``tiltopt explore`` (the Pareto explorer page) and ``tiltopt sheet`` (the build sheet of a design)."""
+from __future__ import annotations
+
+import functools
+import http.server
+import threading
+import webbrowser
+from pathlib import Path
+
+import click
+
+from kinematics.errors import InputError
+
+from ..cli import main
+
+
+def _pair(text: str, option: str) -> tuple[float, float]:
+    try:
+        parts = [float(p) for p in str(text).split(",")]
+        if len(parts) != 2:
+            raise ValueError
+        return parts[0], parts[1]
+    except ValueError:
+        raise InputError(f"expected two numbers 'Y,Z' in mm (for example 0,150). Got {text!r}.", key=option) from None
+
+
+class _QuietHandler(http.server.SimpleHTTPRequestHandler):
+    def log_message(self, format, *args):  # noqa: A002 (the base class's name)
+        pass
+
+
+def make_server(path: Path, port: int = 0) -> http.server.ThreadingHTTPServer:
+    """An HTTP server for the page's folder, bound to 127.0.0.1 only (never all interfaces)."""
+    handler = functools.partial(_QuietHandler, directory=str(Path(path).parent))
+    return http.server.ThreadingHTTPServer(("127.0.0.1", port), handler)
+
+
+def serve(path: Path, port: int = 0, open_browser: bool = True):
+    """Serve the page's folder on 127.0.0.1 only, until Ctrl-C."""
+    httpd = make_server(path, port)
+    url = f"http://127.0.0.1:{httpd.server_address[1]}/{path.name}"
+    click.echo(f"serving {url} (127.0.0.1 only; Ctrl-C stops)")
+    if open_browser:
+        threading.Timer(0.3, lambda: webbrowser.open(url)).start()
+    try:
+        httpd.serve_forever()
+    except KeyboardInterrupt:
+        pass
+    finally:
+        httpd.server_close()
+
+
+@main.command("explore")
+@click.argument("run_dirs", nargs=-1, required=True, type=click.Path(file_okay=False))
+@click.option("-o", "--output", type=click.Path(dir_okay=False), default=None,
+              help="Page to write [default: explorer.html in the first run folder].")
+@click.option("--serve", "do_serve", is_flag=True, help="Serve the page on 127.0.0.1 and open it.")
+@click.option("--port", type=int, default=0, show_default=True, help="Port for --serve (0 = any free port).")
+@click.option("--detail-limit", type=click.IntRange(1, 5000), default=800, show_default=True,
+              help="Front designs per run whose drawings and curves are precomputed.")
+@click.option("--plotly-beside", is_flag=True, help="Write plotly.min.js next to the page instead of inside it.")
+def explore_cmd(run_dirs, output, do_serve, port, detail_limit, plotly_beside):
+    """Write the Pareto explorer of one or more runs: one offline HTML page."""
+    from ..reports.runs import explore_runs
+
+    out = Path(output) if output else Path(run_dirs[0]) / "explorer.html"
+    path = explore_runs(list(run_dirs), out, beside=plotly_beside, detail_limit=detail_limit)
+    click.echo(f"explorer: {path}")
+    if do_serve:
+        serve(path.resolve(), port)
+
+
+@main.command("sheet")
+@click.argument("source", type=click.Path())
+@click.option("--candidate", "candidate", default=None, help="Candidate id (see the explorer). Needed for a run folder.")
+@click.option("-o", "--output", type=click.Path(file_okay=False), default=None,
+              help="Folder to write [default: RUN_DIR/sheets/ID, or next to a mechanism file].")
+@click.option("--jig-datum", default="0,0", show_default=True,
+              help="Jig datum 'Y,Z' in mm, chassis datum frame; the pivot table also gives coordinates from it.")
+@click.option("--sag-mm", type=float, default=None, help="Static sag for the suggested spring rate [default: 30% of the bump travel].")
+@click.option("--corner-load-n", type=float, default=None,
+              help="Static vertical load per front wheel, N, for the suggested spring rate [default: from the loads].")
+@click.option("--loads", "loads_file", type=click.Path(dir_okay=False), default=None,
+              help="Loads file (vehicle, load cases) for member sizing and tilt-lock torque [default: the run's].")
+@click.option("--shell", "shell_file", type=click.Path(dir_okay=False), default=None,
+              help="Body shell file for the shell section and clearances [default: the run's].")
+@click.option("--lean-limit", type=float, default=30.0, show_default=True, help="Mechanism file only: lean limit, deg.")
+@click.option("--travel", default="-30,0,30", show_default=True, help="Mechanism file only: travels, mm.")
+def sheet_cmd(source, candidate, output, jig_datum, sag_mm, corner_load_n, loads_file, shell_file, lean_limit, travel):
+    """Write the build sheet of a design: sheet.html, pivots.csv, candidate.toml, linkage.dxf.
+
+    SOURCE is a results folder (with --candidate ID) or a mechanism .toml file.
+    """
+    jig = _pair(jig_datum, "--jig-datum")
+    src = Path(source)
+    extra = {}
+    if loads_file:
+        try:
+            from kinematics.loads import load_loads
+        except ModuleNotFoundError:
+            raise InputError("--loads needs the sizing part (kinematics.loads), which is not installed.",
+                             key="--loads") from None
+        extra["loads"] = load_loads(loads_file)
+    if shell_file:
+        try:
+            from kinematics.shell import load_shell
+        except ModuleNotFoundError:
+            raise InputError("--shell needs the clearance part (kinematics.shell), which is not installed.",
+                             key="--shell") from None
+        extra["shell"] = load_shell(shell_file)
+    if src.is_file():
+        from kinematics.mechanism import load_mechanism
+        from kinematics.units import parse_values
+
+        from ..reports.sheet import SheetInputs, write_sheet
+
+        mech = load_mechanism(src)
+        out = Path(output) if output else src.with_name(src.stem + "_sheet")
+        paths = write_sheet(out, SheetInputs(
+            mech=mech, candidate_id=mech.name, lean_limit_deg=lean_limit,
+            travel_mm=[float(t) for t in parse_values(travel, "--travel", "mm")], jig_datum=jig, sag_mm=sag_mm,
+            corner_load_n=corner_load_n, provenance={"config": str(src)}, **extra,
+            command=f"tiltopt sheet {src} --lean-limit {lean_limit:g} --travel {travel}"))
+    else:
+        if not src.is_dir():
+            raise InputError("not found. Give a results folder (results/RUN_ID) or a mechanism .toml file.", source)
+        if not candidate:
+            raise InputError("a results folder needs --candidate ID (the explorer shows each design's id and the "
+                             "exact command).", source, "--candidate")
+        from ..reports.runs import sheet_from_run
+
+        paths = sheet_from_run(src, candidate, output, jig_datum=jig, sag_mm=sag_mm, corner_load_n=corner_load_n,
+                               **extra)
+    for key in ("sheet", "pivots", "candidate", "dxf"):
+        click.echo(f"{key}: {paths[key]}")

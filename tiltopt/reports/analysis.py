@@ -1,0 +1,149 @@
+"""What the explorer and the sheet show about designs: one batched sweep, front-view gaps,
+and the optional clearance and sizing parts (used when they are installed and have data).
+
+Every optional part degrades to a note that the pages show; nothing here is
+an estimate of our own standing in for those parts' figures.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from kinematics.model import Geometry, Model
+from kinematics.sweep import SweepResult, sweep
+
+from .drawing import drawing_spec, front_view_gaps, shell_outline
+
+
+@dataclass
+class Analysis:
+    """Sweep and derived data of a batch of candidates of one topology.
+
+    Attributes
+    ----------
+    sweep : SweepResult
+        Arrays (C, T, L, ...).
+    pose : ndarray of shape (C, T, L, 3)
+        Chassis pose (y_O mm, z_O mm, lean rad).
+    gaps : dict of ndarray of shape (C, T, L)
+        Front-view gaps (see :func:`drawing.front_view_gaps`).
+    clearance : dict of ndarray of shape (C,) or None
+        ``ClearanceResult.summary()`` when the clearance part and a shell are present.
+    sizing : object or None
+        ``SizingResult`` when the sizing part and loads are present.
+    notes : list of str
+        Why a part is missing, shown on the pages.
+    """
+
+    model: Model
+    geom: Geometry
+    sweep: SweepResult
+    spec: dict
+    pose: np.ndarray
+    gaps: dict
+    shell_poly: np.ndarray | None = None
+    clearance: dict | None = None
+    clearance_result: object | None = None
+    sizing: object | None = None
+    notes: list[str] = field(default_factory=list)
+
+
+def envelope_leans(lean_limit_deg: float, lean_step_deg: float | None = None) -> np.ndarray:
+    """The envelope's leans: 0, step, 2 step, ..., limit (limit always included), as the problem sweeps them."""
+    step = float(lean_step_deg) if lean_step_deg else float(lean_limit_deg)
+    n = int(math.floor(lean_limit_deg / step + 1e-9))
+    v = list(step * np.arange(n + 1))
+    if lean_limit_deg - v[-1] > 1e-9:
+        v.append(float(lean_limit_deg))
+    return np.array(v, float)
+
+
+def lean_grid(lean_limit_deg: float, lean_step_deg: float | None = None, finest_deg: float = 2.5) -> np.ndarray:
+    """Leans for drawings and curves: the envelope's leans, each interval split to at most ``finest_deg``."""
+    nodes = envelope_leans(lean_limit_deg, lean_step_deg)
+    out = [0.0]
+    for a, b in zip(nodes[:-1], nodes[1:]):
+        n = max(1, int(math.ceil((b - a) / finest_deg - 1e-9)))
+        out += list(a + (b - a) * np.arange(1, n + 1) / n)
+    return np.array(out, float)
+
+
+def envelope_mask(lean_deg, lean_limit_deg: float, lean_step_deg: float | None = None) -> np.ndarray:
+    """True for the leans of ``lean_deg`` that are envelope states."""
+    nodes = envelope_leans(lean_limit_deg, lean_step_deg)
+    return np.any(np.abs(np.asarray(lean_deg)[:, None] - nodes[None, :]) < 1e-9, axis=1)
+
+
+def analyse(model: Model, geom: Geometry, lean_deg, travel_mm, *, shell=None, loads=None,
+            station_x_mm: float | None = None, want_sizing: bool = True, want_clearance: bool = True) -> Analysis:
+    """Sweep every candidate of ``geom`` over lean x travel in one batch, with the optional parts."""
+    res = sweep(model, geom, lean_deg, travel_mm)
+    C, T, L = res.status.shape
+    pose = np.concatenate([res.q[..., :2], np.broadcast_to(np.radians(res.lean_deg), (C, T, L))[..., None]], -1)
+    pose = np.where(res.converged[..., None], pose, np.nan)
+    spec = drawing_spec(model, geom, 0)
+    notes: list[str] = []
+    shell_poly = None
+    x_mm = model.mech.station_x_mm if station_x_mm is None else station_x_mm
+    if shell is not None:
+        try:
+            shell_poly = shell_outline(shell, x_mm)
+        except ModuleNotFoundError:
+            notes.append("The shell section is not drawn: the clearance part (kinematics.shell) is not installed.")
+        if shell is not None and shell_poly is None and not notes:
+            notes.append(f"The body shell has no section at the linkage station x = {x_mm:g} mm.")
+    else:
+        notes.append("No body shell given: the drawing has no shell section and the shell clearances are absent.")
+    gaps = front_view_gaps(spec, res.points, res.camber, pose, shell_poly)
+    clearance = clearance_result = None
+    if shell is not None and not want_clearance:
+        notes.append(f"3-D clearances are not precomputed for this many designs ({geom.n_candidates}); the "
+                     f"clearance curve is the front-view gap. The build sheet gives the 3-D figures.")
+    elif shell is not None:
+        try:
+            from kinematics.clearance import evaluate_clearance
+        except ModuleNotFoundError:
+            notes.append("3-D clearances not computed: the clearance part (kinematics.clearance) is not installed.")
+        else:
+            clearance_result = evaluate_clearance(model, geom, res, shell)
+            clearance = {k: np.asarray(v, float) for k, v in clearance_result.summary().items()
+                         if not k.endswith("_state")}
+    sizing = None
+    if want_sizing:
+        if loads is None:
+            notes.append("No loads given: member sizes, masses, utilisation and tilt-lock torque are absent.")
+        else:
+            try:
+                from kinematics.sizing import size_linkage
+            except ModuleNotFoundError:
+                notes.append("Member sizing not computed: the sizing part (kinematics.sizing) is not installed.")
+            else:
+                sizing = size_linkage(model, geom, loads)
+    return Analysis(model=model, geom=geom, sweep=res, spec=spec, pose=pose, gaps=gaps, shell_poly=shell_poly,
+                    clearance=clearance, clearance_result=clearance_result, sizing=sizing, notes=notes)
+
+
+def min_gap(gaps: dict) -> np.ndarray:
+    """Smallest front-view gap of each state (tyre to links, tyre to shell), NaN-aware."""
+    a = np.stack([gaps["wheel_link_mm"], gaps["wheel_shell_mm"]])
+    with np.errstate(all="ignore"):
+        out = np.nanmin(np.where(np.isnan(a), np.inf, a), axis=0)
+    return np.where(np.isfinite(out), out, np.nan)
+
+
+def state_clearance(an: Analysis) -> tuple[np.ndarray, str]:
+    """Smallest clearance of each state (C, T, L) and what it is.
+
+    The 3-D wheel-to-shell / wheel-to-link clearance over the steer range when
+    the clearance part ran; otherwise the front-view gap of the drawing.
+    """
+    cr = an.clearance_result
+    if cr is not None:
+        a = np.concatenate([np.asarray(cr.wheel_shell_mm, float), np.asarray(cr.wheel_link_mm, float)], axis=-1)
+        with np.errstate(all="ignore"):
+            m = np.min(np.where(np.isnan(a), np.inf, a), axis=-1)
+        bad = np.any(np.isnan(a), axis=-1) | ~np.isfinite(m)
+        return np.where(bad, np.nan, m), "min clearance, 3-D with steer"
+    return min_gap(an.gaps), "min front-view gap"

@@ -1,0 +1,608 @@
+"""The build sheet of one design: a folder with sheet.html, pivots.csv, candidate.toml and linkage.dxf.
+
+:func:`write_sheet` works from a :class:`kinematics.Mechanism` and the
+envelope alone (plus, when given, the run's row, shell and loads);
+:func:`write_sheet_from_run` takes a results run and a candidate id.
+Every file is written atomically and carries units, provenance and the
+safety caution.
+"""
+from __future__ import annotations
+
+import csv
+import datetime as _dt
+import html
+import io
+import math
+import shlex
+from dataclasses import dataclass, field
+from importlib import resources
+from pathlib import Path
+from typing import Sequence
+
+import numpy as np
+
+from kinematics.mechanism import Mechanism, mechanism_to_toml, split_ref
+from kinematics.model import Model
+
+from .analysis import Analysis, analyse, envelope_mask, lean_grid
+from .common import SAFETY, atomic_write_text, column_label, column_unit, versions
+from .drawing import BODY_COLOURS, front_view_svg
+from .dxf import write_dxf
+
+G = 9.80665  # m/s^2, standard gravity (CGPM 1901)
+
+SAFETY_POINTS = [
+    "The figures on this sheet are geometric and quasi-static estimates from a planar model; "
+    "they are not a structural analysis of the real parts.",
+    "Build and test a prototype before anyone rides it: check the lean range, the travel, the clearances "
+    "and the steering by hand first, then at walking pace.",
+    "Structural sign-off of members, welds and joints, the brakes, the tilt lock and use on public roads "
+    "follow local rules and need a qualified engineer.",
+    "A tilting vehicle that fails can hurt its rider and others.",
+]
+
+
+@dataclass
+class SheetInputs:
+    """What a sheet is made from (everything but the mechanism is optional)."""
+
+    mech: Mechanism
+    candidate_id: str = "design"
+    run_id: str = ""
+    lean_limit_deg: float = 30.0
+    travel_mm: Sequence[float] = (0.0,)
+    lean_step_deg: float | None = None
+    row: dict = field(default_factory=dict)
+    units: dict = field(default_factory=dict)
+    shell: object | None = None
+    loads: object | None = None
+    jig_datum: tuple[float, float] = (0.0, 0.0)
+    sag_mm: float | None = None
+    corner_load_n: float | None = None
+    provenance: dict = field(default_factory=dict)
+    scenario: dict = field(default_factory=dict)
+    command: str = ""
+
+
+# ----------------------------------------------------------------- helpers
+def _num(v, d=1):
+    if v is None:
+        return "–"
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        return html.escape(str(v))
+    if v == float("inf"):
+        return "∞"
+    if not math.isfinite(v):
+        return "–"
+    s = f"{v:.{d}f}"
+    return s[1:] if s.startswith("-") and float(s) == 0 else s
+
+
+def _e(s) -> str:
+    return html.escape("" if s is None else str(s))
+
+
+def _table(headers: list[str], rows: list[list], cls: str = "", num_from: int = 1) -> str:
+    out = [f'<table class="{cls}"><thead><tr>' + "".join(f"<th>{_e(h)}</th>" for h in headers) + "</tr></thead><tbody>"]
+    for r in rows:
+        cells = []
+        for k, v in enumerate(r):
+            c = ' class="num"' if k >= num_from else ""
+            cells.append(f"<td{c}>{v}</td>")
+        out.append("<tr>" + "".join(cells) + "</tr>")
+    out.append("</tbody></table>")
+    return "".join(out)
+
+
+def line_chart(x, series, *, xlabel: str, ylabel: str, title: str = "", width: float = 330, height: float = 210) -> str:
+    """A small SVG line chart.
+
+    series : list of (label, y, colour, dashed); y may hold NaN (gaps).
+    """
+    x = np.asarray(x, float)
+    ys = [np.asarray(s[1], float) for s in series]
+    finite = np.concatenate([y[np.isfinite(y)] for y in ys]) if ys else np.zeros(0)
+    lo, hi = (float(finite.min()), float(finite.max())) if len(finite) else (0.0, 1.0)
+    if hi - lo < 1e-9:
+        lo, hi = lo - 1.0, hi + 1.0
+    pad = 0.08 * (hi - lo)
+    lo, hi = lo - pad, hi + pad
+    ml, mr, mt, mb = 46.0, 10.0, 24.0, 34.0
+    W, H = width - ml - mr, height - mt - mb
+    X = lambda v: ml + (v - x.min()) / max(x.max() - x.min(), 1e-9) * W
+    Y = lambda v: mt + (hi - v) / (hi - lo) * H
+    out = [f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 {width} {height}" class="chart" '
+           f'font-family="Helvetica, Arial, sans-serif" font-size="10">']
+    out.append(f'<text x="{ml}" y="14" font-size="11" font-weight="bold" fill="#1d2733">{_e(title)}</text>')
+    ticks = _nice_ticks(lo, hi, 5)
+    for t in ticks:
+        out.append(f'<line x1="{ml}" x2="{ml + W}" y1="{Y(t):.1f}" y2="{Y(t):.1f}" stroke="#e3e7eb"/>')
+        out.append(f'<text x="{ml - 4}" y="{Y(t) + 3:.1f}" text-anchor="end" fill="#444">{_tick(t)}</text>')
+    for t in _nice_ticks(x.min(), x.max(), 6):
+        out.append(f'<line x1="{X(t):.1f}" x2="{X(t):.1f}" y1="{mt}" y2="{mt + H}" stroke="#eef1f3"/>')
+        out.append(f'<text x="{X(t):.1f}" y="{mt + H + 12}" text-anchor="middle" fill="#444">{_tick(t)}</text>')
+    if lo < 0 < hi:
+        out.append(f'<line x1="{ml}" x2="{ml + W}" y1="{Y(0):.1f}" y2="{Y(0):.1f}" stroke="#9aa5ae"/>')
+    out.append(f'<rect x="{ml}" y="{mt}" width="{W}" height="{H}" fill="none" stroke="#9aa5ae"/>')
+    for label, y, colour, dashed in series:
+        y = np.asarray(y, float)
+        segs, curp = [], []
+        for xv, yv in zip(x, y):
+            if np.isfinite(yv):
+                curp.append(f"{X(xv):.1f},{Y(yv):.1f}")
+            elif curp:
+                segs.append(curp)
+                curp = []
+        if curp:
+            segs.append(curp)
+        for s in segs:
+            out.append(f'<polyline points="{" ".join(s)}" fill="none" stroke="{colour}" stroke-width="1.6"'
+                       + (' stroke-dasharray="5,3"' if dashed else "") + "/>")
+    out.append(f'<text x="{ml + W / 2}" y="{height - 4}" text-anchor="middle" fill="#222">{_e(xlabel)}</text>')
+    out.append(f'<text transform="translate(11,{mt + H / 2}) rotate(-90)" text-anchor="middle" fill="#222">'
+               f'{_e(ylabel)}</text>')
+    out.append("</svg>")
+    return "".join(out)
+
+
+def _nice_ticks(lo, hi, n):
+    span = hi - lo
+    if span <= 0:
+        return [lo]
+    raw = span / n
+    mag = 10 ** math.floor(math.log10(raw))
+    step = min((m * mag for m in (1, 2, 2.5, 5, 10) if m * mag >= raw), default=10 * mag)
+    start = math.ceil(lo / step) * step
+    out = []
+    v = start
+    while v <= hi + 1e-9 * step:
+        out.append(round(v, 10))
+        v += step
+    return out
+
+
+def _tick(v):
+    return f"{v:g}" if abs(v) >= 1e-9 else "0"
+
+
+# ----------------------------------------------------------------- sections
+def _pivot_rows(model: Model, P: np.ndarray, spec: dict, jig) -> list[dict]:
+    tag = {i: f"P{k + 1}" for k, (i, _) in enumerate(spec["pivots"])}
+    mech = model.mech
+    pin_partner = {}
+    for p in mech.pins:
+        pin_partner[model.point_index[p.b]] = tag.get(model.point_index[p.a], "")
+    rows = []
+    for i, ref in enumerate(model.point_refs):
+        body, point = split_ref(ref)
+        rows.append({"tag": tag.get(i, pin_partner.get(i, "")), "body": body, "point": point,
+                     "y_mm": float(P[i, 0]), "z_mm": float(P[i, 1]),
+                     "y_jig_mm": float(P[i, 0] - jig[0]), "z_jig_mm": float(P[i, 1] - jig[1])})
+    return rows
+
+
+def _members(model: Model, P: np.ndarray) -> list[dict]:
+    """Centre-to-centre lengths: links, springs (installed), and each body between its joint points."""
+    mech, pidx = model.mech, model.point_index
+    out = []
+    for l in mech.links:
+        out.append({"name": l.name, "kind": "link", "from": l.a, "to": l.b,
+                    "length_mm": float(np.linalg.norm(P[pidx[l.a]] - P[pidx[l.b]]))})
+    joint_refs = {}
+    for p in mech.pins:
+        joint_refs.setdefault(split_ref(p.a)[0], []).append(p.a)
+        joint_refs.setdefault(split_ref(p.b)[0], []).append(p.b)
+    for j in list(mech.links) + list(mech.springs):
+        for r in (j.a, j.b):
+            joint_refs.setdefault(split_ref(r)[0], []).append(r)
+    for w in mech.wheels:
+        joint_refs.setdefault(w.upright, []).append(w.centre)
+    for b in model.body_names:
+        if b == mech.chassis:
+            continue
+        refs = list(dict.fromkeys(joint_refs.get(b, [])))
+        for a_i in range(len(refs)):
+            for b_i in range(a_i + 1, len(refs)):
+                a, c = refs[a_i], refs[b_i]
+                out.append({"name": b, "kind": "body", "from": split_ref(a)[1], "to": split_ref(c)[1],
+                            "length_mm": float(np.linalg.norm(P[pidx[a]] - P[pidx[c]]))})
+    return out
+
+
+def _spring_data(model: Model, an: Analysis, inp: SheetInputs) -> tuple[list[list], list[str]]:
+    r = an.sweep
+    mech = model.mech
+    notes = []
+    if not mech.springs:
+        return [], ["This mechanism has no springs."]
+    travel = np.asarray(r.travel_mm)
+    t0 = int(np.argmin(np.abs(travel)))
+    lo, hi = int(np.argmin(travel)), int(np.argmax(travel))
+    mr = r.motion_ratio[0, t0]
+    sum_mr2 = float(np.nansum(mr ** 2))
+    corner = inp.corner_load_n
+    if corner is None and inp.loads is not None:
+        corner = _corner_load_from(inp.loads)
+    sag = inp.sag_mm
+    sag_note = ""
+    if sag is None and len(travel) and travel.max() > travel.min():
+        # common practice, no source: static sag about 30 % of the total wheel travel
+        sag = round(0.3 * float(travel.max() - travel.min()), 1)
+        sag_note = " (30 % of the total travel, a common starting point; set --sag-mm)"
+    rows = []
+    P = np.asarray(an.geom.points[0])
+    for k, s in enumerate(mech.springs):
+        inst = float(np.linalg.norm(P[model.point_index[s.a]] - P[model.point_index[s.b]]))
+        l_lo = r.spring_length[0, lo, 0, k]
+        l_hi = r.spring_length[0, hi, 0, k]
+        stroke = abs(l_lo - l_hi) if np.isfinite(l_lo) and np.isfinite(l_hi) else float("nan")
+        if corner is not None and sag and sum_mr2 > 0:
+            # equal springs: total energy 1/2 sum k MR_i^2 s^2 = work of 2 corner loads over the sag
+            k_sugg = 2.0 * corner / (sag * sum_mr2)
+        else:
+            k_sugg = float("nan")
+        rows.append([_e(s.name), _num(inst, 1), _num(l_hi, 1), _num(l_lo, 1), _num(stroke, 1), _num(mr[k], 3),
+                     _num(s.rate_n_per_mm, 1) if s.rate_n_per_mm else "–", _num(k_sugg, 1)])
+    if corner is None:
+        notes.append("No suggested rate: give the static vertical load per front wheel (--corner-load-n) "
+                     "or a loads file with the vehicle.")
+    else:
+        notes.append(f"Suggested rate: each spring alike, for a static sag of {_num(sag, 1)} mm{sag_note} under "
+                     f"{_num(corner, 0)} N per front wheel: k = 2 F / (sag x sum of MR^2), MR at travel "
+                     f"{_num(travel[t0], 0)} mm; preload and geometric stiffness ignored.")
+    return rows, notes
+
+
+def _corner_load_from(loads) -> float | None:
+    veh = getattr(loads, "vehicle", None)
+    mass = None
+    for name in ("total_mass_kg", "mass_kg"):
+        mass = mass if mass is not None else getattr(veh if veh is not None else loads, name, None)
+    share = getattr(veh, "front_share", None) if veh is not None else getattr(loads, "front_share", None)
+    if mass is None or share is None:
+        return None
+    return float(mass) * float(share) * G / 2.0
+
+
+def _corners(r) -> list[tuple[int, int, str]]:
+    travel = np.asarray(r.travel_mm)
+    L = len(r.lean_deg)
+    picks = []
+    for ti in sorted({int(np.argmin(travel)), int(np.argmin(np.abs(travel))), int(np.argmax(travel))}):
+        for li in sorted({0, L - 1}):
+            picks.append((ti, li, (float(r.lean_deg[li]), float(travel[ti]))))
+    return picks
+
+
+def _clearance_section(an: Analysis) -> str:
+    r = an.sweep
+    rows = []
+    for ti, li, label in _corners(r):
+        ok = bool(r.converged[0, ti, li])
+        g = an.gaps
+        row = [_num(label[0], 1), _num(label[1], 0), "yes" if ok else f'<span class="bad">{_e(r.status_text(0, ti, li))}</span>',
+               _num(g["wheel_link_mm"][0, ti, li], 1), _num(g["wheel_shell_mm"][0, ti, li], 1),
+               _num(g["ground_mm"][0, ti, li], 1)]
+        cr = an.clearance_result
+        if cr is not None:
+            row += [_clr(np.min(cr.wheel_link_mm[0, ti, li])), _clr(np.min(cr.wheel_shell_mm[0, ti, li])),
+                    _clr(np.min(cr.ground_mm[0, ti, li])), _num(cr.max_steer_deg[0, ti, li], 0)]
+        rows.append(row)
+    heads = ["lean [deg]", "travel [mm]", "reached", "tyre to links, front view [mm]",
+             "tyre to shell section, front view [mm]", "lowest link point [mm]"]
+    if an.clearance_result is not None:
+        heads += ["tyre to links, 3-D [mm]", "tyre to shell, 3-D [mm]", "ground, 3-D [mm]", "steer range ± [deg]"]
+    s = _table(heads, rows, num_from=0)
+    s += ('<p class="note">Front-view gaps, measured in the linkage plane on the drawing (tyre outline to the '
+          'links and bodies not carrying it; tyre outline to the shell section at the linkage station, negative '
+          'inside). Steer is not included in the front-view figures' + ('; the 3-D figures include the steer range '
+          'given for that state.' if an.clearance_result is not None else '.') + '</p>')
+    if an.clearance:
+        labels = {"min_wheel_shell_mm": "tyre to shell, 3-D", "min_wheel_link_mm": "tyre to links, 3-D",
+                  "min_clearance_mm": "smallest clearance, 3-D", "min_ground_mm": "ground clearance",
+                  "max_overall_width_mm": "overall width", "total_slot_length_mm": "total slot length",
+                  "inside_violation_mm": "pivots outside their zone", "outside_violation_mm": "wheels inside the shell"}
+        rows = []
+        for k, v in an.clearance.items():
+            if k.endswith("_error_mm"):
+                continue
+            err = an.clearance.get(k.replace("_mm", "_error_mm"))
+            extra = f" (± {_num(err[0], 1)})" if err is not None and np.isfinite(err[0]) and err[0] >= 0.05 else ""
+            rows.append([_e(labels.get(k, k)), _clr(v[0]) + extra, "mm"])
+        s += "<h3>3-D clearance over the whole envelope (lean, travel and steer)</h3>"
+        s += _table(["figure", "value", "unit"], rows)
+        s += ('<p class="note">"nothing near": no member or shell within reach of the tyre; ± is the '
+              'estimate\'s error bound given by the clearance part.</p>')
+    return s
+
+
+def _sizing_sections(an: Analysis, members: list[dict]) -> tuple[str, str]:
+    """(member table html, loads html)."""
+    sz = an.sizing
+    if sz is None:
+        rows = [[_e(m["name"]), _e(m["kind"]), _e(f'{m["from"]} – {m["to"]}'), _num(m["length_mm"], 1)]
+                for m in members]
+        t = _table(["member", "kind", "between points", "centre-to-centre [mm]"], rows, num_from=3)
+        t += ('<p class="note">Tube, material, mass, worst load case and utilisation need the sizing part and '
+              'a loads description (see the notes); only the centre-to-centre lengths are given here.</p>')
+        return t, ""
+    rows = []
+    names = sz.member_names
+    for j, name in enumerate(names):
+        mb = sz.members[j]
+        rows.append([_e(name), _e(getattr(mb, "kind", "")), _num(sz.length_mm[0, j], 1), _e(sz.tube_label(0, j)),
+                     _e(getattr(mb, "material", "")), _num(sz.mass_kg[0, j], 3), _e(sz.worst_case_name(0, j)),
+                     _util(sz.utilisation[0, j])])
+    t = _table(["member", "kind", "centre-to-centre [mm]", "tube OD x wall [mm]", "material", "mass [kg]",
+                "worst case", "utilisation"], rows, num_from=2)
+    t += (f'<p class="note">Linkage mass {_num(sz.linkage_mass_kg[0], 2)} kg, including {sz.n_pivots} pivots at '
+          f'{_num(sz.pivot_mass_kg / max(sz.n_pivots, 1) * 1000, 0)} g each. Safety factor '
+          f'{_num(getattr(sz, "safety_factor", float("nan")), 2)} on yield and buckling. '
+          f'{"All members pass." if bool(sz.feasible[0]) else "Not all members pass: " + _e(sz.reason[0])}</p>')
+    t += "".join(f'<p class="note">{_e(n)}</p>' for n in getattr(sz, "notes", []) or [])
+    loads = [f"<p>Tilt-lock torque (largest parked state): <b>{_num(sz.tilt_lock_torque_nm[0], 1)} N·m</b></p>"]
+    states = getattr(sz, "states", []) or []
+    if states:
+        srow = []
+        for s in states:
+            srow.append([_e(getattr(s, "name", "")), _e(getattr(s, "kind", "")), _num(getattr(s, "lean_deg", None), 1),
+                         _num(getattr(s, "travel_mm", None), 0), _num(getattr(s, "front_load_n", None), 0),
+                         _num(getattr(s, "brake_g", None), 2), "yes" if getattr(s, "locked", False) else "no"])
+        loads.append(_table(["load state", "kind", "lean [deg]", "travel [mm]", "front load [N]", "brake [g]",
+                             "tilt locked"], srow, num_from=2))
+    return t, "".join(loads)
+
+
+def _short(text: str, n: int = 160) -> str:
+    """A description without a template's generated variable list, cut to about n characters."""
+    text = text.split(" [template ")[0].strip()
+    return text if len(text) <= n else text[: n - 1].rsplit(" ", 1)[0] + " …"
+
+
+def _split_tables(title: str, headers: list[str], rows: list[list]) -> str:
+    """A full-width section with the rows in two side-by-side tables."""
+    if not rows:
+        return ""
+    half = (len(rows) + 1) // 2
+    return (f'<section class="avoid-break"><h3>{_e(title)}</h3><div class="grid2">'
+            f'<div>{_table(headers, rows[:half])}</div><div>{_table(headers, rows[half:])}</div></div>'
+            + ('<p class="note">∞: nothing within reach to clear.</p>' if any("∞" in str(c) for r in rows for c in r)
+               else "") + '</section>')
+
+
+def _clr(v) -> str:
+    """A clearance figure: NaN = state not reached, +inf = nothing within reach."""
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        return "–"
+    if v == float("inf"):
+        return "nothing near"
+    return _num(v, 1)
+
+
+def _same(a, b) -> bool:
+    try:
+        return abs(float(a) - float(b)) <= 1e-9 * max(1.0, abs(float(b)))
+    except (TypeError, ValueError):
+        return False
+
+
+def _util(u):
+    if u is None or not np.isfinite(u):
+        return "–"
+    cls = ' class="bad"' if u > 1.0 else ""
+    return f"<span{cls}>{u * 100:.0f} %</span>"
+
+
+def _curves(an: Analysis) -> str:
+    r = an.sweep
+    palette = BODY_COLOURS
+    deg = 180.0 / math.pi
+    x = r.lean_deg
+    charts = []
+    specs = [("scrub", "scrub [mm]", [r.scrub[0]]), ("heave", "heave [mm]", [r.heave[0]]),
+             ("camber error (L solid, R dashed)", "camber error [deg]",
+              [r.camber_error[0, ..., 0] * deg, r.camber_error[0, ..., 1] * deg]),
+             ("track change", "track change [mm]", [r.track_change[0]])]
+    from .analysis import state_clearance
+    gap, gap_label = state_clearance(an)
+    specs.append((gap_label, "clearance [mm]", [gap[0]]))
+    for title, ylabel, arrays in specs:
+        series = []
+        for ti, tr in enumerate(r.travel_mm):
+            for k, a in enumerate(arrays):
+                series.append((f"{tr:g} mm", a[ti], palette[ti % len(palette)], k == 1))
+        charts.append(line_chart(x, series, xlabel="lean [deg]", ylabel=ylabel, title=title))
+    legend = " ".join(f'<span class="key"><span class="sw" style="background:{palette[ti % len(palette)]}"></span>'
+                      f"travel {tr:g} mm</span>" for ti, tr in enumerate(r.travel_mm))
+    return f'<div class="legend">{legend}</div><div class="charts">' + "".join(
+        f'<div class="chartbox">{c}</div>' for c in charts) + "</div>"
+
+
+def _joint_rows(model: Model, P) -> list[list]:
+    mech, pidx = model.mech, model.point_index
+    rows = []
+    for p in mech.pins:
+        y, z = P[pidx[p.a]]
+        rows.append([_e(p.name), "pin", _e(f"{p.a} = {p.b}"), _num(y, 2), _num(z, 2)])
+    for l in mech.links:
+        y, z = P[pidx[l.a]]
+        rows.append([_e(l.name), "link (two ball or pin ends)", _e(f"{l.a} – {l.b}"), _num(y, 2), _num(z, 2)])
+    for s in mech.springs:
+        y, z = P[pidx[s.a]]
+        rows.append([_e(s.name), "spring (pin ends)", _e(f"{s.a} – {s.b}"), _num(y, 2), _num(z, 2)])
+    for s in mech.sliders:
+        y, z = P[pidx[s.b]]
+        rows.append([_e(s.name), "slider", _e(f"{s.b} on {s.a_from} → {s.a_to}"), _num(y, 2), _num(z, 2)])
+    return rows
+
+
+# ----------------------------------------------------------------- writer
+def _provenance_text(inp: SheetInputs) -> str:
+    p = inp.provenance
+    parts = [f"candidate {inp.candidate_id}"]
+    if inp.run_id:
+        parts.append(f"run {inp.run_id}")
+    for k in ("config", "seed"):
+        if p.get(k) is not None:
+            parts.append(f"{k} {p[k]}")
+    v = p.get("versions") or versions()
+    parts.append("versions " + ", ".join(f"{k} {val}" for k, val in v.items()))
+    return "; ".join(parts)
+
+
+def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
+    """Write the build-sheet folder; returns {"sheet", "pivots", "candidate", "dxf"} -> path."""
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    mech = inp.mech
+    model = Model(mech)
+    geom = model.default_geometry
+    lean = lean_grid(inp.lean_limit_deg, inp.lean_step_deg)
+    an = analyse(model, geom, lean, inp.travel_mm, shell=inp.shell, loads=inp.loads)
+    P = np.asarray(geom.points[0])
+    spec = an.spec
+    prov = _provenance_text(inp)
+    stamp = _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC")
+    jig = tuple(float(v) for v in inp.jig_datum)
+    paths: dict[str, Path] = {}
+
+    # candidate.toml
+    header = (f"tiltopt build sheet: mechanism of {prov}\nwritten {stamp}. Lengths mm, angles deg, "
+              f"front view at the design position.\n{SAFETY}")
+    paths["candidate"] = atomic_write_text(out_dir / "candidate.toml", mechanism_to_toml(mech, header=header))
+
+    # pivots.csv
+    prow = _pivot_rows(model, P, spec, jig)
+    buf = io.StringIO()
+    buf.write(f"# tiltopt pivots of {prov}\n# design position, mm, relative to the chassis datum O "
+              f"(ground, centre plane); jig datum at y = {jig[0]:g} mm, z = {jig[1]:g} mm\n# {SAFETY}\n")
+    w = csv.writer(buf, lineterminator="\n")
+    w.writerow(["body", "point", "y_mm", "z_mm"])
+    for r in prow:
+        w.writerow([r["body"], r["point"], repr(r["y_mm"]), repr(r["z_mm"])])
+    paths["pivots"] = atomic_write_text(out_dir / "pivots.csv", buf.getvalue())
+
+    # linkage.dxf
+    paths["dxf"] = write_dxf(out_dir / "linkage.dxf", model, jig_datum=jig, provenance=f"tiltopt: {prov}")
+
+    # sheet.html
+    labels = [f"P{k + 1}" for k in range(len(spec["pivots"]))]
+    r = an.sweep
+    ti0 = int(np.argmin(np.abs(np.asarray(r.travel_mm))))
+    pose0 = an.pose[0, ti0, 0] if r.converged[0, ti0, 0] else (0.0, 0.0, 0.0)
+    drawing = front_view_svg(spec, P, geom.static_camber[0], (0.0, 0.0, 0.0), an.shell_poly, dimensions=True,
+                             jig_datum=jig if any(abs(v) > 1e-9 for v in jig) else None,
+                             labels=labels, title=f"{inp.candidate_id}: front view at the design position",
+                             show_gaps=False)
+    lean_draw = front_view_svg(spec, r.points[0, ti0, -1], r.camber[0, ti0, -1], an.pose[0, ti0, -1],
+                               an.shell_poly, title="at the lean limit") if r.converged[0, ti0, -1] else \
+        f'<p class="bad">The lean limit was not reached: {_e(r.status_text(0, ti0, len(r.lean_deg) - 1))}</p>'
+    del pose0
+    members = _members(model, P)
+    member_html, loads_html = _sizing_sections(an, members)
+    spring_rows, spring_notes = _spring_data(model, an, inp)
+
+    metric_rows = []
+    metric_names = {c for c in inp.row if not c.startswith(("obj.", "var.", "__"))}
+    for c, v in inp.row.items():
+        if c in ("candidate_id", "reason", "generation", "violation", "feasible") or c.startswith(("__", "var.", "con.")):
+            continue
+        if isinstance(v, (bool, np.bool_)) or isinstance(v, str):
+            continue
+        if c.startswith("obj."):
+            name = c[4:]
+            twin = [m for m in metric_names if m.startswith(name + "_") and _same(inp.row.get(m), v)]
+            if twin:
+                continue
+            label = "objective: " + column_label(c)
+        else:
+            label = column_label(c)
+        metric_rows.append([_e(label), _num(v, 3), _e(column_unit(c, inp.units))])
+    var_rows = [[_e(column_label(c)), _num(v, 2), _e(column_unit(c, inp.units))]
+                for c, v in inp.row.items() if c.startswith("var.")]
+    conv_all = bool(r.converged[0].all())
+    em = envelope_mask(r.lean_deg, inp.lean_limit_deg, inp.lean_step_deg)
+    kin_rows = [
+        ["track at the design position", _num(float(r.track[0, ti0, 0]), 1), "mm"],
+        ["max |scrub| over the envelope", _num(np.nanmax(np.abs(r.scrub[0][:, em])), 2), "mm"],
+        ["max |heave| over the envelope", _num(np.nanmax(np.abs(r.heave[0][:, em])), 2), "mm"],
+        ["max |camber error| over the envelope", _num(np.degrees(np.nanmax(np.abs(r.camber_error[0][:, em]))), 2),
+         "deg"],
+        ["every envelope state reached", "yes" if conv_all else '<span class="bad">NO</span>', ""],
+    ]
+    scen = [[_e(k), _e(v)] for k, v in inp.scenario.items()]
+    scen += [["lean envelope", _e(f"0 to {inp.lean_limit_deg:g} deg (symmetric)")],
+             ["travel envelope", _e(", ".join(f"{t:g}" for t in inp.travel_mm) + " mm (bump positive)")],
+             ["template / mechanism", _e(mech.name + (f" – {_short(mech.description)}" if mech.description else ""))],
+             ["linkage station", _e(f"x = {mech.station_x_mm:g} mm")]]
+    piv_table = _table(["tag", "body", "point", "y [mm]", "z [mm]", "y from jig [mm]", "z from jig [mm]"],
+                       [[_e(p["tag"]), _e(p["body"]), _e(p["point"]), _num(p["y_mm"], 2), _num(p["z_mm"], 2),
+                         _num(p["y_jig_mm"], 2), _num(p["z_jig_mm"], 2)] for p in prow], num_from=3)
+    notes = "".join(f"<li>{_e(n)}</li>" for n in an.notes)
+    safety = "".join(f"<li>{_e(s)}</li>" for s in SAFETY_POINTS)
+    css = resources.files("tiltopt.reports").joinpath("templates", "sheet.css").read_text(encoding="utf-8")
+    doc = f"""<!DOCTYPE html>
+<html lang="en"><head><meta charset="utf-8">
+<meta name="viewport" content="width=device-width, initial-scale=1">
+<title>Build sheet {_e(inp.candidate_id)}</title>
+<style>{css}</style></head>
+<body>
+<div class="page">
+<header class="top">
+  <div><div class="kicker">tiltopt build sheet</div><h1>{_e(inp.candidate_id)}</h1>
+  <div class="sub">{_e(mech.name)}{' · run ' + _e(inp.run_id) if inp.run_id else ''} · {_e(stamp)}</div></div>
+  <div class="caution-box">{_e(SAFETY)}</div>
+</header>
+<section class="grid2">
+  <div><h2>Summary</h2>{_table(["figure", "value", "unit"], kin_rows)}
+  {('<h3>Design variables</h3>' + _table(["variable", "value", "unit"], var_rows)) if var_rows else ''}</div>
+  <div><h2>Scenario</h2>{_table(["", ""], scen, num_from=9)}
+  {('<p class="note">Re-create: <code>' + _e(inp.command) + '</code></p>') if inp.command else ''}</div>
+</section>
+{_split_tables("Objectives and metrics from the run", ["figure", "value", "unit"], metric_rows)}
+<section class="avoid-break">
+  <h2>Front view at the design position</h2>
+  <div class="figure">{drawing}</div>
+  <p class="note">Looking from ahead; y to the right, z up, ground z = 0, mm. Tags P1… are the pivots of the
+  table below; + marks the chassis datum O. Dashed outline: body shell section at the linkage station.</p>
+</section>
+<section class="avoid-break">
+  <h2>Pivot coordinates</h2>
+  <p class="note">Design position (upright, ride height, straight ahead). y, z from the chassis datum O
+  (ground level, chassis centre plane); jig datum J at y = {jig[0]:g} mm, z = {jig[1]:g} mm. Pin partners share
+  a tag. The same figures are in pivots.csv; linkage.dxf has them as points per body layer and pivot circles.</p>
+  {piv_table}
+</section>
+<section class="avoid-break">
+  <h2>Members</h2>{member_html}
+</section>
+<section class="avoid-break"><h2>Joints</h2>
+  {_table(["joint", "kind", "joins", "y [mm]", "z [mm]"], _joint_rows(model, P), num_from=3)}
+</section>
+<section class="avoid-break"><h2>Springs</h2>
+  {_table(["spring", "installed length [mm]", "at full bump [mm]", "at full droop [mm]", "stroke [mm]",
+           "motion ratio", "rate in file [N/mm]", "suggested rate [N/mm]"], spring_rows) if spring_rows else ''}
+  {''.join(f'<p class="note">{_e(n)}</p>' for n in spring_notes)}
+  <p class="note">Motion ratio: spring shortening per mm of wheel travel at lean 0, both wheels together.</p>
+</section>
+<section class="avoid-break"><h2>Kinematic curves against lean</h2>{_curves(an)}</section>
+<section class="avoid-break"><h2>Clearance at the envelope corners</h2>{_clearance_section(an)}</section>
+<section class="avoid-break grid2">
+  <div><h2>At the lean limit</h2>
+  <div class="figure small">{lean_draw}</div>
+  <p class="note">Lean {inp.lean_limit_deg:g} deg, travel {float(r.travel_mm[ti0]):g} mm. Red: smallest
+  front-view gap of each tyre, mm.</p></div>
+  <div><h2>Loads and tilt lock</h2>{loads_html or '<p class="note">Not available for this sheet (see the notes).</p>'}</div>
+</section>
+<section class="avoid-break safety"><h2>Safety</h2><ul>{safety}</ul></section>
+{('<section class="avoid-break"><h2>Notes</h2><ul class="notes">' + notes + '</ul></section>') if notes else ''}
+<footer>Files in this folder: sheet.html, pivots.csv, candidate.toml (re-read by <code>tiltopt sweep</code>),
+linkage.dxf. Provenance: {_e(prov)}. Generated {_e(stamp)}.</footer>
+</div></body></html>
+"""
+    paths["sheet"] = atomic_write_text(out_dir / "sheet.html", doc)
+    return paths
