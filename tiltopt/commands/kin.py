@@ -109,12 +109,3 @@ def check_cmd(file):
     for line in describe(model, analyse(model)):
         click.echo(line)
 
-
-@main.command("demo")
-def demo_cmd():
-    """Run the built-in demo: a lean x travel sweep of the wishbone-rocker demo mechanism."""
-    path = Path(__file__).resolve().parents[2] / "configs" / "wishbone_rocker.toml"
-    if not path.exists():
-        raise InputError("the demo mechanism configs/wishbone_rocker.toml is missing; run from a clone of tiltopt.")
-    ctx = click.get_current_context()
-    ctx.invoke(sweep_cmd, mech=str(path), lean="0:35:5", travel="-30,0,30", fmt="table")
