@@ -31,3 +31,46 @@ class InputError(ValueError):
             where.append(f"key '{key}'")
         prefix = (": ".join([", ".join(where)]) + ": ") if where else ""
         super().__init__(prefix + message)
+
+
+def read_text(path, what: str) -> str:
+    """Read a user's text file, turning every failure into an :class:`InputError`.
+
+    ``what`` names the kind of file in the message ("mechanism .toml").
+    """
+    from pathlib import Path
+
+    p = Path(path)
+    try:
+        return p.read_text(encoding="utf-8")
+    except FileNotFoundError:
+        raise InputError(f"file not found. Give the path of a {what} file.", str(p)) from None
+    except IsADirectoryError:
+        raise InputError(f"this is a folder. Give the path of a {what} file.", str(p)) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise InputError(f"cannot read the file ({exc}).", str(p)) from None
+
+
+def read_toml(path, what: str) -> dict:
+    """Read and decode a user's TOML file (see :func:`read_text`)."""
+    import tomllib
+
+    text = read_text(path, what)
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise InputError(f"not valid TOML ({exc}).", str(path)) from None
+
+
+def check_keys(table, allowed, src: str, where: str, required=()) -> None:
+    """Unknown keys and missing required keys of a TOML table are errors naming the key."""
+    if not isinstance(table, dict):
+        raise InputError(f"expected a table. Got {table!r} instead.", src, where or None)
+    allowed = set(allowed)
+    for k in table:
+        if k not in allowed:
+            raise InputError(f"unknown key '{k}'. Expected one of: {', '.join(sorted(allowed))}.", src,
+                             f"{where}.{k}" if where else k)
+    for k in required:
+        if k not in table:
+            raise InputError("this key is required but missing.", src, f"{where}.{k}" if where else k)

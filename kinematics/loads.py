@@ -63,14 +63,13 @@ from __future__ import annotations
 import csv
 import io
 import math
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from .errors import InputError
+from .errors import InputError, check_keys, read_text, read_toml
 
 G = 9.80665  # standard gravity, m/s^2
 DATA = Path(__file__).parent / "data"
@@ -216,16 +215,7 @@ def _num(t: dict, key: str, src: str, where: str, default: Any = None, *, lo: fl
     return v
 
 
-def _keys(t: Any, allowed, src: str, where: str, required=()):
-    if not isinstance(t, dict):
-        raise InputError(f"expected a table. Got {t!r} instead.", src, where)
-    for k in t:
-        if k not in allowed:
-            raise InputError(f"unknown key '{k}'. Expected one of: {', '.join(sorted(allowed))}.", src,
-                             f"{where}.{k}" if where else k)
-    for k in required:
-        if k not in t:
-            raise InputError("this key is required but missing.", src, f"{where}.{k}" if where else k)
+_keys = check_keys
 
 
 def _str(t: dict, key: str, src: str, where: str, default: str | None = None) -> str:
@@ -241,15 +231,7 @@ def _str(t: dict, key: str, src: str, where: str, default: str | None = None) ->
 
 
 def _read_toml(path: Path, what: str) -> dict:
-    src = str(path)
-    try:
-        return tomllib.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise InputError(f"file not found. Give the path of a {what} .toml file.", src) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read the file ({exc}).", src) from None
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc}).", src) from None
+    return read_toml(path, f"{what} .toml")
 
 
 # ----------------------------------------------------------------- materials
@@ -286,12 +268,7 @@ def load_catalogue(path: str | Path | None = None) -> Catalogue:
     """
     path = Path(path) if path else DATA / "tubes.csv"
     src = str(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError("file not found. Give the path of a tube catalogue .csv file.", src) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read the file ({exc}).", src) from None
+    text = read_text(path, "tube catalogue .csv")
     lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]
     reader = csv.DictReader(io.StringIO("\n".join(lines)))
     need = ["material", "outer_diameter_mm", "wall_mm"]

@@ -47,12 +47,11 @@ from __future__ import annotations
 
 import math
 import re
-import tomllib
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Iterable
 
-from .errors import InputError
+from .errors import InputError, check_keys, read_toml
 
 PIN_TOLERANCE_MM = 0.01
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
@@ -198,31 +197,12 @@ def load_mechanism(path: str | Path) -> Mechanism:
     InputError
         On any problem, naming the file and the key.
     """
-    path = Path(path)
-    src = str(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError("file not found. Give the path of a mechanism .toml file.", src) from None
-    except OSError as exc:
-        raise InputError(f"cannot read the file ({exc.strerror}).", src) from None
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc}).", src) from None
-    return parse_mechanism(data, src)
+    data = read_toml(path, "mechanism .toml")
+    return parse_mechanism(data, str(path))
 
 
 def _check_keys(table: dict, allowed: Iterable[str], required: Iterable[str], src: str, where: str):
-    allowed = set(allowed)
-    for key in table:
-        if key not in allowed:
-            raise InputError(
-                f"unknown key '{key}'. Expected one of: {', '.join(sorted(allowed))}.",
-                src, f"{where}.{key}" if where else key)
-    for key in required:
-        if key not in table:
-            raise InputError("this key is required but missing.", src, f"{where}.{key}" if where else key)
+    check_keys(table, allowed, src, where, required)
 
 
 def _number(value: Any, src: str, key: str, *, positive: bool = False, nonneg: bool = False) -> float:

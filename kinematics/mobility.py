@@ -11,7 +11,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from .model import ANGLE, TRANSLATION, Model
+from .model import TRANSLATION, Model
 from .solver import Batch, residual, row_names
 from .sweep import sweep
 

@@ -47,7 +47,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import InputError
+from .errors import InputError, read_text
 
 _NEWTON_ITERATIONS = 5
 _CHART_LIMIT = 0.9     # each Newton chart covers |t|^n <= 0.9 of its free coordinate
@@ -114,12 +114,7 @@ def load_shell(path: str | Path) -> Shell:
     """
     path = Path(path)
     src = str(path)
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise InputError("file not found. Give the path of a shell .toml or .csv file.", src) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read the file ({exc}).", src) from None
+    text = read_text(path, "shell .toml or .csv")
     if path.suffix.lower() == ".csv":
         return parse_polygon_csv(text, src)
     try:

@@ -390,7 +390,6 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     NL = N * L
     flat_q = q_out.reshape(NL, nq)
     flat_lean = np.broadcast_to(lean_rad, (N, L)).reshape(NL)
-    cand_all = np.repeat(cand_t, L)
     item_nl = np.repeat(np.arange(N), L)
     x_np, _, ang = model.positions(flat_q, flat_lean, bt.V[item_nl], bt.U[item_nl], model._np)
     body_angle = model.body_angles(ang)

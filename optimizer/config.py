@@ -20,14 +20,13 @@ from __future__ import annotations
 import copy
 import math
 import time
-import tomllib
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 
-from kinematics.errors import InputError
+from kinematics.errors import InputError, read_toml as _read_toml
 
 ALGORITHM_NAMES = ("nsga2", "nsga3")
 RUN_KEYS = ("name", "seed", "algorithm", "population", "generations", "output", "checkpoint_every",
@@ -194,15 +193,7 @@ def parse_config(data: dict, src: str = "<memory>", base_dir: str | Path | None 
 
 
 def read_toml(path: str | Path) -> dict:
-    p = Path(path)
-    try:
-        return tomllib.loads(p.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise InputError("file not found.", str(p)) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read the file ({exc}).", str(p)) from None
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc}).", str(p)) from None
+    return _read_toml(path, "run config .toml")
 
 
 def load_config(path: str | Path) -> RunConfig:

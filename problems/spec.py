@@ -53,7 +53,7 @@ from typing import Any
 
 import numpy as np
 
-from kinematics.errors import InputError
+from kinematics.errors import InputError, check_keys
 from kinematics.mechanism import load_mechanism
 
 from .registry import CLEARANCE, CONSTRAINTS, OBJECTIVES, SIZING, TEMPLATES
@@ -156,16 +156,7 @@ class ProblemSpec:
 
 
 # ------------------------------------------------------------------ helpers
-def _keys(table: Any, allowed, src: str, where: str, required=()):
-    if not isinstance(table, dict):
-        raise InputError(f"expected a table. Got {table!r} instead.", src, where)
-    for k in table:
-        if k not in allowed:
-            raise InputError(f"unknown key '{k}'. Expected one of: {', '.join(sorted(allowed))}.", src,
-                             f"{where}.{k}" if where else k)
-    for k in required:
-        if k not in table:
-            raise InputError("this key is required but missing.", src, f"{where}.{k}" if where else k)
+_keys = check_keys
 
 
 def _num(v: Any, src: str, key: str, *, lo: float | None = None, lo_open: bool = False,

@@ -46,7 +46,7 @@ from typing import Any, Callable, Iterable, Mapping, Sequence
 
 import numpy as np
 
-from kinematics.errors import InputError
+from kinematics.errors import InputError, read_toml
 from kinematics.mechanism import Mechanism, load_mechanism, mechanism_to_toml, parse_mechanism, split_ref
 from kinematics.model import Geometry, Model
 
@@ -591,12 +591,7 @@ def load_template_entry(path: str | Path) -> TemplateEntry:
     """
     path = Path(path)
     src = str(path)
-    try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise InputError("file not found. Give the path of a template variable file.", src) from None
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc}).", src) from None
+    data = read_toml(path, "template variable .toml")
     for k in data:
         if k not in _ENTRY_KEYS:
             raise InputError(f"unknown key '{k}'. Expected one of: {', '.join(sorted(_ENTRY_KEYS))}.", src, k)

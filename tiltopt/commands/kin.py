@@ -1,13 +1,10 @@
 """``tiltopt sweep`` and ``tiltopt check``."""
 from __future__ import annotations
 
-import tomllib
-from pathlib import Path
 
 import click
-import numpy as np
 
-from kinematics.errors import InputError
+from kinematics.errors import InputError, read_toml
 from kinematics.mechanism import load_mechanism
 from kinematics.model import Model
 from kinematics.units import parse_values
@@ -78,15 +75,7 @@ def sweep_cmd(mech, lean, travel, fmt):
 
 
 def _file_kind(path: str) -> str:
-    p = Path(path)
-    try:
-        data = tomllib.loads(p.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise InputError("file not found.", path) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputError(f"cannot read the file ({exc}).", path) from None
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc}).", path) from None
+    data = read_toml(path, "mechanism or run config .toml")
     return "mechanism" if "bodies" in data else "config"
 
 

@@ -13,7 +13,6 @@ import datetime as _dt
 import html
 import io
 import math
-import shlex
 from dataclasses import dataclass, field
 from importlib import resources
 from pathlib import Path
