@@ -56,6 +56,15 @@ _SUFFIX_UNITS = (("_mm", "mm"), ("_deg", "deg"), ("_kg", "kg"), ("_nm", "N*m"), 
 
 
 # ------------------------------------------------------------------ atomic writes
+def _file_mode() -> int:
+    old = os.umask(0)
+    os.umask(old)
+    return 0o666 & ~old
+
+
+_MODE = _file_mode()   # the mode an ordinary open() would give (mkstemp makes 0600 files)
+
+
 def _atomic(path: Path, write) -> None:
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
@@ -65,6 +74,7 @@ def _atomic(path: Path, write) -> None:
             write(fh)
             fh.flush()
             os.fsync(fh.fileno())
+        os.chmod(tmp, _MODE)
         os.replace(tmp, path)
     except BaseException:
         try:
