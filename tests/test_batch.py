@@ -239,3 +239,32 @@ def test_dask_worker_killed_mid_run_is_retried(tmp_path):
     a = pq.read_table(run_dir / "front.parquet").to_pandas()
     c = pq.read_table(Path(b2.items[0].run_dir) / "front.parquet").to_pandas()
     pd.testing.assert_frame_equal(a[["candidate_id", "obj.f1", "obj.f2"]], c[["candidate_id", "obj.f1", "obj.f2"]])
+
+
+def test_ctrl_c_stops_a_local_batch_and_a_restart_finishes_it(tmp_path):
+    import subprocess
+    import sys
+
+    (tmp_path / "z.toml").write_text(CONFIG.replace("generations = 8", "generations = 40")
+                                     .replace('n_var = 6', 'n_var = 6\neval_delay_s = 0.03'))
+    (tmp_path / "batch.toml").write_text('[batch]\nname = "c"\noutput = "res"\n[[runs]]\nconfig = "z.toml"\n'
+                                         'seeds = [1, 2]\n')
+    b = load_batch(tmp_path / "batch.toml")
+    cmd = [sys.executable, "-c", "from tiltopt.cli import main; main()", "batch", str(tmp_path / "batch.toml"),
+           "--workers", "2"]
+    # a session of its own, so Ctrl-C goes to the batch and its workers as a terminal would send it
+    proc = subprocess.Popen(cmd, start_new_session=True, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+    t0 = time.time()
+    while not all((Path(it.run_dir) / "checkpoint.pkl").exists() for it in b.items):
+        assert proc.poll() is None and time.time() - t0 < 60
+        time.sleep(0.05)
+    os.killpg(proc.pid, signal.SIGINT)
+    out, _ = proc.communicate(timeout=120)
+    assert proc.returncode == 1, out
+    summary = pq.read_table(b.batch_dir / "summary.parquet").to_pandas()
+    assert list(summary["status"]) == ["interrupted", "interrupted"], out
+    df = run_local(b, workers=2)          # the restart continues both from their checkpoints
+    assert list(df["status"]) == ["finished", "finished"]
+    for it in b.items:
+        ev = pq.read_table(Path(it.run_dir) / "evaluations.parquet").to_pandas()
+        assert len(ev) == 40 * 12 and ev["candidate_id"].is_unique
