@@ -235,14 +235,19 @@ def execute_item(item: dict) -> dict:
         problem = cfg.make_problem()
         runner = Runner(problem, cfg.run, d, item["run_id"], config_record(cfg), progress=False, notices=False)
         runner.run(resume=(d / R.CHECKPOINT).is_file())
+    except KeyboardInterrupt:   # a second Ctrl-C, or one before the run started: the last checkpoint stays valid
+        return summary_row(item, status="interrupted")
     except Exception as exc:
         return summary_row(item, status="failed", error=f"{type(exc).__name__}: {exc}")
     return summary_row(item)
 
 
+EXIT_FAILED, EXIT_INTERRUPTED = 3, 4
+
+
 def _process_main(item: dict) -> None:
     row = execute_item(item)
-    raise SystemExit(0 if row["status"] == "finished" else 3)
+    raise SystemExit({"finished": 0, "interrupted": EXIT_INTERRUPTED}.get(row["status"], EXIT_FAILED))
 
 
 # ------------------------------------------------------------------ executors
@@ -271,35 +276,53 @@ def run_local(batch: Batch, workers: int = 2, echo=None, poll_s: float = 0.2) ->
     attempts = {it.run_id: 0 for it in batch.items}
     running: dict[str, tuple[Any, BatchItem]] = {}
     _write_summary(batch, rows)
-    while todo or running:
-        while todo and len(running) < max(1, workers):
-            it = todo.pop(0)
-            attempts[it.run_id] += 1
-            p = ctx.Process(target=_process_main, args=(it.to_dict(),), name=f"tiltopt-{it.run_id}")
-            p.start()
-            running[it.run_id] = (p, it)
-            _log(echo, f"{it.run_id}: started (attempt {attempts[it.run_id]}, pid {p.pid})")
-        time.sleep(poll_s)
-        for rid, (p, it) in list(running.items()):
+    try:
+        while todo or running:
+            while todo and len(running) < max(1, workers):
+                it = todo.pop(0)
+                attempts[it.run_id] += 1
+                p = ctx.Process(target=_process_main, args=(it.to_dict(),), name=f"tiltopt-{it.run_id}")
+                p.start()
+                running[it.run_id] = (p, it)
+                _log(echo, f"{it.run_id}: started (attempt {attempts[it.run_id]}, pid {p.pid})")
+            time.sleep(poll_s)
+            for rid, (p, it) in list(running.items()):
+                if p.is_alive():
+                    continue
+                p.join()
+                del running[rid]
+                row = summary_row(it.to_dict(), attempts[rid])
+                if row["status"] == "finished":
+                    _log(echo, f"{rid}: finished, front of {row['front_size']}")
+                elif p.exitcode == EXIT_FAILED and row["status"] == "failed":
+                    _log(echo, f"{rid}: failed: {row['error']}")
+                elif p.exitcode == EXIT_INTERRUPTED:
+                    row["status"] = "interrupted"
+                    _log(echo, f"{rid}: interrupted (continues from its checkpoint next time)")
+                elif attempts[rid] <= batch.retries:
+                    _log(echo, f"{rid}: worker died (exit code {p.exitcode}); starting it again")
+                    todo.append(it)
+                    row["status"] = "retrying"
+                else:
+                    row["status"] = "died"
+                    row["error"] = f"worker died {attempts[rid]} times (last exit code {p.exitcode})"
+                    _log(echo, f"{rid}: {row['error']}")
+                rows[rid] = row
+                _write_summary(batch, rows)
+    except KeyboardInterrupt:
+        # Ctrl-C reaches the workers too (same process group): each stops after its generation
+        # with a checkpoint. Wait for them, record where they are, start nothing new.
+        _log(echo, "stopping: the running runs write a checkpoint after their generation ...")
+        for rid, (p, it) in running.items():
+            p.join(timeout=120)
             if p.is_alive():
-                continue
-            p.join()
-            del running[rid]
+                p.terminate()
+                p.join()
             row = summary_row(it.to_dict(), attempts[rid])
-            if row["status"] == "finished":
-                _log(echo, f"{rid}: finished, front of {row['front_size']}")
-            elif row["status"] == "failed" and p.exitcode == 3:
-                _log(echo, f"{rid}: failed: {row['error']}")
-            elif attempts[rid] <= batch.retries:
-                _log(echo, f"{rid}: worker died (exit code {p.exitcode}); starting it again")
-                todo.append(it)
-                row["status"] = "retrying"
-            else:
-                row["status"] = "died"
-                row["error"] = f"worker died {attempts[rid]} times (last exit code {p.exitcode})"
-                _log(echo, f"{rid}: {row['error']}")
+            if row["status"] != "finished":
+                row["status"] = "interrupted"
             rows[rid] = row
-            _write_summary(batch, rows)
+        running.clear()
     _write_summary(batch, rows)
     return pd.DataFrame([rows[it.run_id] for it in batch.items], columns=list(SUMMARY_UNITS))
 

@@ -56,6 +56,15 @@ _SUFFIX_UNITS = (("_mm", "mm"), ("_deg", "deg"), ("_kg", "kg"), ("_nm", "N*m"), 
 
 
 # ------------------------------------------------------------------ atomic writes
+def _file_mode() -> int:
+    old = os.umask(0)
+    os.umask(old)
+    return 0o666 & ~old
+
+
+_MODE = _file_mode()   # the mode an ordinary open() would give (mkstemp makes 0600 files)
+
+
 def _atomic(path: Path, write) -> None:
     path = Path(path)
     path.parent.mkdir(parents=True, exist_ok=True)
@@ -65,6 +74,7 @@ def _atomic(path: Path, write) -> None:
             write(fh)
             fh.flush()
             os.fsync(fh.fileno())
+        os.chmod(tmp, _MODE)
         os.replace(tmp, path)
     except BaseException:
         try:
@@ -151,11 +161,16 @@ class Run:
     def evaluations(self) -> pd.DataFrame:
         path = self.run_dir / EVALUATIONS
         parts_dir = self.run_dir / PARTS_DIR
-        if path.is_file():
-            return read_parquet(path)[0]
+        whole = read_parquet(path)[0] if path.is_file() else None
         parts = sorted(parts_dir.glob("evaluations-*.parquet")) if parts_dir.is_dir() else []
-        if parts:
-            return pd.concat([read_parquet(p)[0] for p in parts], ignore_index=True)
+        if parts and self.meta.get("status") != "finished":
+            # a run under way or killed: the parts reach its last checkpoint, the whole file (if any)
+            # its last stop; take whichever holds more generations
+            from_parts = pd.concat([read_parquet(p)[0] for p in parts], ignore_index=True)
+            if whole is None or from_parts["generation"].max() > whole["generation"].max():
+                return from_parts
+        if whole is not None:
+            return whole
         return self.front.iloc[0:0].copy()
 
     @property

@@ -544,6 +544,8 @@ class Runner:
         self._write_checkpoint()
         self._write_evaluations()
         self._write_run_json(status)
+        if status == "finished":   # evaluations.parquet now holds every part
+            shutil.rmtree(self.run_dir / R.PARTS_DIR, ignore_errors=True)
         if status == "interrupted":
             self.progress.message(f"stopped at generation {s.generation}; continue with: "
                                   f"tiltopt run --resume {self.run_dir}")

@@ -4,6 +4,7 @@ against a brute-force numpy dominance filter. Problems: ZDT1 and ZDT2 (Zitzler, 
 Evolutionary Computation 8(2), 2000)."""
 from __future__ import annotations
 
+import json
 import os
 import signal
 import threading
@@ -198,3 +199,72 @@ def test_cli_batch_and_merge(tmp_path):
     assert r.exit_code == 0 and "non-dominated designs" in r.output and "Caution" in r.output
     r = CliRunner().invoke(main, ["merge", dirs[0], str(tmp_path / "nothing"), "-o", str(tmp_path / "m3")])
     assert r.exit_code == 2 and "does not exist" in r.output
+
+
+def test_dask_worker_killed_mid_run_is_retried(tmp_path):
+    from distributed import Client, LocalCluster
+
+    (tmp_path / "z.toml").write_text(CONFIG.replace("generations = 8", "generations = 30")
+                                     .replace('n_var = 6', 'n_var = 6\neval_delay_s = 0.03'))
+    (tmp_path / "batch.toml").write_text('[batch]\nname = "dk"\noutput = "res"\n[[runs]]\nconfig = "z.toml"\n'
+                                         'seeds = [4]\n')
+    b = load_batch(tmp_path / "batch.toml")
+    run_dir = Path(b.items[0].run_dir)
+    # one worker process under a nanny on loopback: killing it loses the task; the nanny starts a new one
+    with LocalCluster(n_workers=1, threads_per_worker=1, processes=True, protocol="tcp://", host="127.0.0.1",
+                      dashboard_address=None) as cluster, Client(cluster) as client:
+        pids = list(client.run(os.getpid).values())
+        killed = []
+
+        def kill_later():
+            t0 = time.time()
+            while not (run_dir / "checkpoint.pkl").exists() and time.time() - t0 < 60:
+                time.sleep(0.02)
+            killed.append(json.loads((run_dir / "run.json").read_text())["status"])
+            os.kill(pids[0], signal.SIGKILL)
+
+        threading.Thread(target=kill_later, daemon=True).start()
+        df = run_dask(b, client)
+    assert killed == ["running"]                 # the worker died in the middle of the run
+    assert df["status"].iloc[0] == "finished"
+    ev = pq.read_table(run_dir / "evaluations.parquet").to_pandas()
+    assert len(ev) == 30 * 12 and ev["candidate_id"].is_unique
+    # the same front as a straight local run of the same item
+    b2 = load_batch(tmp_path / "batch.toml")
+    b2.batch_dir = tmp_path / "straight"
+    for it in b2.items:
+        it.run_dir = str(b2.batch_dir / it.run_id)
+        it.data["benchmark"]["eval_delay_s"] = 0.0
+    run_local(b2, workers=1)
+    a = pq.read_table(run_dir / "front.parquet").to_pandas()
+    c = pq.read_table(Path(b2.items[0].run_dir) / "front.parquet").to_pandas()
+    pd.testing.assert_frame_equal(a[["candidate_id", "obj.f1", "obj.f2"]], c[["candidate_id", "obj.f1", "obj.f2"]])
+
+
+def test_ctrl_c_stops_a_local_batch_and_a_restart_finishes_it(tmp_path):
+    import subprocess
+    import sys
+
+    (tmp_path / "z.toml").write_text(CONFIG.replace("generations = 8", "generations = 40")
+                                     .replace('n_var = 6', 'n_var = 6\neval_delay_s = 0.03'))
+    (tmp_path / "batch.toml").write_text('[batch]\nname = "c"\noutput = "res"\n[[runs]]\nconfig = "z.toml"\n'
+                                         'seeds = [1, 2]\n')
+    b = load_batch(tmp_path / "batch.toml")
+    cmd = [sys.executable, "-c", "from tiltopt.cli import main; main()", "batch", str(tmp_path / "batch.toml"),
+           "--workers", "2"]
+    # a session of its own, so Ctrl-C goes to the batch and its workers as a terminal would send it
+    proc = subprocess.Popen(cmd, start_new_session=True, stdout=subprocess.PIPE, stderr=subprocess.STDOUT, text=True)
+    t0 = time.time()
+    while not all((Path(it.run_dir) / "checkpoint.pkl").exists() for it in b.items):
+        assert proc.poll() is None and time.time() - t0 < 60
+        time.sleep(0.05)
+    os.killpg(proc.pid, signal.SIGINT)
+    out, _ = proc.communicate(timeout=120)
+    assert proc.returncode == 1, out
+    summary = pq.read_table(b.batch_dir / "summary.parquet").to_pandas()
+    assert list(summary["status"]) == ["interrupted", "interrupted"], out
+    df = run_local(b, workers=2)          # the restart continues both from their checkpoints
+    assert list(df["status"]) == ["finished", "finished"]
+    for it in b.items:
+        ev = pq.read_table(Path(it.run_dir) / "evaluations.parquet").to_pandas()
+        assert len(ev) == 40 * 12 and ev["candidate_id"].is_unique

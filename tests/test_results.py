@@ -123,3 +123,20 @@ def test_atomic_write_keeps_old_file_on_failure(tmp_path):
     assert [p.name for p in tmp_path.iterdir()] == ["f.parquet"]   # no temp file left behind
     units = json.loads(pq.read_schema(path).metadata[b"tiltopt"])["units"]
     assert units == {"a_mm": "mm"}
+
+
+def test_evaluations_of_an_unfinished_run(tmp_path):
+    from optimizer.config import RunSettings
+    from optimizer.reference_problems import ZDTProblem
+    from optimizer.runner import run_problem
+
+    s = RunSettings(name="u", seed=1, algorithm="nsga2", population=10, generations=9, output=tmp_path,
+                    checkpoint_every=2)
+    run_problem(ZDTProblem("zdt1", 5), s, tmp_path / "u", stop_after=3)        # stopped at 3: whole file
+    run_problem(ZDTProblem("zdt1", 5), s, tmp_path / "u", stop_after=7, resume=True)
+    (tmp_path / "u" / "evaluations.parquet").unlink()      # as if killed after the checkpoint at 6
+    meta = json.loads((tmp_path / "u" / "run.json").read_text())
+    meta["status"] = "running"
+    (tmp_path / "u" / "run.json").write_text(json.dumps(meta))
+    ev = load_run(tmp_path / "u").evaluations
+    assert ev["generation"].max() == 7 and len(ev) == 70 and ev["candidate_id"].is_unique
