@@ -79,8 +79,7 @@ DEFAULT_PIVOT_ALLOWANCE_G = 60.0
 DEFAULT_PIVOT_BASE_MM = 50.0
 DEFAULT_BUMP_G = 3.0       # De Lorenzo & Hull (see module docs)
 DEFAULT_BRAKE_G = 0.7      # common practice, no source
-SAFETY_CAUTION = ("Caution: these figures are geometric and quasi-static estimates. Prototypes must be tested; "
-                  "structural sign-off, brakes, tilt locks and road use follow local rules and qualified engineers.")
+from .safety import SAFETY_CAUTION  # noqa: E402,F401  (re-exported: loads output carries it)
 
 
 @dataclass(frozen=True)

@@ -41,10 +41,10 @@ from kinematics.errors import InputError
 
 FRONT, EVALUATIONS, GENERATIONS, RUN_JSON, CHECKPOINT = (
     "front.parquet", "evaluations.parquet", "generations.parquet", "run.json", "checkpoint.pkl")
+from kinematics.safety import SAFETY_CAUTION
 PARTS_DIR = "evaluations.parts"
 META_KEY = b"tiltopt"
-CAUTION = ("Caution: these figures are geometric and quasi-static estimates; prototypes must be tested; "
-           "structural sign-off, brakes, tilt locks and road use follow local rules and qualified engineers.")
+CAUTION = SAFETY_CAUTION
 
 GENERATION_UNITS = {"generation": "1", "evaluations": "1", "feasible": "1", "feasible_share": "1",
                     "front_size": "1", "hypervolume": "1 (population front, normalised objectives, reference 1.1 each)",

@@ -13,8 +13,7 @@ from kinematics.units import parse_values
 from ..cli import main
 from ..output import table, to_csv, to_json
 
-CAUTION = ("Caution: these figures are geometric and quasi-static estimates. Prototypes must be tested; "
-           "structural sign-off, brakes, tilt locks and road use follow local rules and qualified engineers.")
+from kinematics.safety import SAFETY_CAUTION as CAUTION  # noqa: E402
 
 COLUMNS = [
     ("lean_deg", "lean_deg"), ("travel_mm", "travel_mm"), ("steer_deg", "steer_deg"), ("converged", "ok"),

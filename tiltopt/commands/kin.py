@@ -5,6 +5,7 @@ from __future__ import annotations
 import click
 
 from kinematics.errors import InputError, read_toml
+from kinematics.safety import SAFETY_CAUTION
 from kinematics.mechanism import load_mechanism
 from kinematics.model import Model
 from kinematics.units import parse_values
@@ -60,6 +61,11 @@ def sweep_cmd(mech, lean, travel, fmt):
         first = bad[0]
         click.echo(f"\n{len(bad)} of {len(rows)} states not reached; first: lean {first['lean_deg']:g} deg, "
                    f"travel {first['travel_mm']:g} mm: {first['status']}")
+    _bump_table(model, res)
+    click.echo("\n" + SAFETY_CAUTION)
+
+
+def _bump_table(model, res):
     if model.spring_names:
         click.echo("\nbump at lean 0 (against the design position):")
         brows = []

@@ -9,8 +9,7 @@ import re
 import tempfile
 from pathlib import Path
 
-SAFETY = ("Caution: these figures are geometric and quasi-static estimates. Prototypes must be tested. "
-          "Structural sign-off, brakes, tilt locks and road use follow local rules and qualified engineers.")
+from kinematics.safety import SAFETY_CAUTION as SAFETY  # noqa: E402
 
 _UNIT_SUFFIX = [("_mm", "mm"), ("_deg", "deg"), ("_kg", "kg"), ("_nm", "N·m"), ("_n", "N"), ("_mpa", "MPa"),
                 ("_pct", "%"), ("_n_per_mm", "N/mm")]

@@ -1,0 +1,3 @@
+from tiltopt.cli import main
+
+main()
