@@ -12,12 +12,12 @@ config selects one with a ``[benchmark]`` table instead of the problem tables::
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass, field
 
 import numpy as np
 from pymoo.core.problem import Problem
 
 from kinematics.errors import InputError
+from problems.problem import Evaluation  # the same result type as the linkage problem's
 
 BENCHMARKS = {
     "zdt1": "ZDT1: convex front f2 = 1 - sqrt(f1), 2 objectives (Zitzler, Deb and Thiele 2000)",
@@ -25,31 +25,6 @@ BENCHMARKS = {
     "zdt3": "ZDT3: disconnected front, 2 objectives (Zitzler, Deb and Thiele 2000)",
 }
 BENCHMARK_KEYS = ("name", "n_var", "eval_delay_s")
-
-
-@dataclass
-class Evaluation:
-    """Result of one batched evaluation (same fields as the linkage problem's).
-
-    Attributes
-    ----------
-    F : ndarray of shape (n, n_obj)
-    G : ndarray of shape (n, n_constr)
-    feasible : ndarray of shape (n,), bool
-    violation : ndarray of shape (n,)
-    reason : list of str
-    metrics : dict of str to ndarray of shape (n,)
-    objective_names, constraint_names : list of str
-    """
-
-    F: np.ndarray
-    G: np.ndarray
-    feasible: np.ndarray
-    violation: np.ndarray
-    reason: list
-    metrics: dict = field(default_factory=dict)
-    objective_names: list = field(default_factory=list)
-    constraint_names: list = field(default_factory=list)
 
 
 class ZDTProblem(Problem):
@@ -98,7 +73,7 @@ class ZDTProblem(Problem):
         F = self.objectives(X)
         n = X.shape[0]
         g = 1.0 + 9.0 * X[:, 1:].sum(axis=1) / (X.shape[1] - 1)
-        return Evaluation(F=F, G=np.zeros((n, 0)), feasible=np.ones(n, dtype=bool), violation=np.zeros(n),
+        return Evaluation(X=X, F=F, G=np.zeros((n, 0)), feasible=np.ones(n, dtype=bool), violation=np.zeros(n),
                           reason=[""] * n, metrics={"g": g}, objective_names=list(self.objective_names),
                           constraint_names=[])
 
