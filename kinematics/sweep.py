@@ -299,7 +299,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
 
     def advance(idx, hist_q, hist_phi, hist_t, phi_new):
         """One continuation step of items ``idx`` from their last states (Lagrange predictor)."""
-        sub = bl.take(idx)
+        sub = bl if len(idx) == M else bl.take(idx)
         n_h = len(hist_q)
         if n_h == 1:
             guess = hist_q[0] + hist_t * (phi_new - hist_phi[0])[:, None]
