@@ -332,7 +332,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
             suspect |= (st == CONVERGED) & (np.linalg.slogdet(Jk[..., :nq])[0] != sign0[idx])
         return qs, st, res, it, suspect, t_new
 
-    n_sub = 8
+    n_sub = 4
     for k in range(1, Kl):
         ok = np.flatnonzero(alive)
         if len(ok) == 0:
