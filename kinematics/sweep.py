@@ -4,9 +4,9 @@
    ``s`` relative to the chassis), by continuation from the design position.
 2. The spring lengths found there are held.
 3. The mechanism is leaned from 0 to each requested lean by continuation
-   (secant predictor, Newton corrector), all candidates and travels in one
-   batch; a path that fails stops there and its later states are reported as
-   not attempted.
+   (Lagrange predictor, Newton corrector, a branch guard on every step), all
+   candidates and travels in one batch; a path that fails stops there and its
+   later states are reported as not attempted.
 
 All candidates (same topology, different geometry) and all travels are one
 batch: there is no Python loop over candidates or states, only over the
