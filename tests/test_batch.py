@@ -56,6 +56,19 @@ def _fronts(batch):
     return {it.run_id: pq.read_table(Path(it.run_dir) / "front.parquet").to_pandas() for it in batch.items}
 
 
+def _assert_same_front_as_straight_run(tmp_path, run_dir):
+    """The front in run_dir equals that of an uninterrupted local run of the same batch item."""
+    b2 = load_batch(tmp_path / "batch.toml")
+    b2.batch_dir = tmp_path / "straight"
+    for it in b2.items:
+        it.run_dir = str(b2.batch_dir / it.run_id)
+        it.data["benchmark"]["eval_delay_s"] = 0.0
+    run_local(b2, workers=1)
+    a = pq.read_table(run_dir / "front.parquet").to_pandas()
+    c = pq.read_table(Path(b2.items[0].run_dir) / "front.parquet").to_pandas()
+    pd.testing.assert_frame_equal(a[["candidate_id", "obj.f1", "obj.f2"]], c[["candidate_id", "obj.f1", "obj.f2"]])
+
+
 def test_grid_expansion_and_errors(tmp_path):
     (tmp_path / "z.toml").write_text(CONFIG)
     (tmp_path / "g.toml").write_text("""
@@ -140,15 +153,7 @@ def test_killed_worker_is_retried_and_resumes(tmp_path):
     df = run_local(b, workers=1, echo=echo)
     assert killed and df["status"].iloc[0] == "finished" and df["attempts"].iloc[0] == 2
     # the retried run continued from its checkpoint to the same front as a straight run
-    b2 = load_batch(tmp_path / "batch.toml")
-    b2.batch_dir = tmp_path / "straight"
-    for it in b2.items:
-        it.run_dir = str(b2.batch_dir / it.run_id)
-        it.data["benchmark"]["eval_delay_s"] = 0.0
-    run_local(b2, workers=1)
-    a = pq.read_table(run_dir / "front.parquet").to_pandas()
-    c = pq.read_table(Path(b2.items[0].run_dir) / "front.parquet").to_pandas()
-    pd.testing.assert_frame_equal(a[["candidate_id", "obj.f1", "obj.f2"]], c[["candidate_id", "obj.f1", "obj.f2"]])
+    _assert_same_front_as_straight_run(tmp_path, run_dir)
 
 
 def test_merge_is_the_nondominated_union(tmp_path):
@@ -230,15 +235,7 @@ def test_dask_worker_killed_mid_run_is_retried(tmp_path):
     ev = pq.read_table(run_dir / "evaluations.parquet").to_pandas()
     assert len(ev) == 30 * 12 and ev["candidate_id"].is_unique
     # the same front as a straight local run of the same item
-    b2 = load_batch(tmp_path / "batch.toml")
-    b2.batch_dir = tmp_path / "straight"
-    for it in b2.items:
-        it.run_dir = str(b2.batch_dir / it.run_id)
-        it.data["benchmark"]["eval_delay_s"] = 0.0
-    run_local(b2, workers=1)
-    a = pq.read_table(run_dir / "front.parquet").to_pandas()
-    c = pq.read_table(Path(b2.items[0].run_dir) / "front.parquet").to_pandas()
-    pd.testing.assert_frame_equal(a[["candidate_id", "obj.f1", "obj.f2"]], c[["candidate_id", "obj.f1", "obj.f2"]])
+    _assert_same_front_as_straight_run(tmp_path, run_dir)
 
 
 def test_ctrl_c_stops_a_local_batch_and_a_restart_finishes_it(tmp_path):

@@ -11,7 +11,7 @@ from kinematics.model import Model
 from kinematics.units import parse_values
 
 from ..cli import main
-from ..output import table, to_csv, to_json
+from ..output import flatten, table, to_csv, to_json
 
 from kinematics.safety import SAFETY_CAUTION as CAUTION  # noqa: E402
 
@@ -49,17 +49,6 @@ def clearance_run(mech_path: str, shell_path: str, lean: str, travel: str, crown
     return mech, shell, evaluate_clearance(model, None, res, shell, settings)
 
 
-def _flat(row: dict) -> dict:
-    out = {}
-    for k, v in row.items():
-        if isinstance(v, dict):
-            for kk, vv in v.items():
-                out[f"{k}.{kk}"] = vv
-        else:
-            out[k] = v
-    return out
-
-
 @main.command("clearance")
 @click.argument("mech", type=click.Path(dir_okay=False))
 @click.option("--shell", "shell_path", required=True, type=click.Path(dir_okay=False),
@@ -93,7 +82,7 @@ def clearance_cmd(mech, shell_path, lean, travel, crown_samples, steer_samples, 
         click.echo(to_csv(rows), nl=False)
         return
     click.echo(f"{m.name} in shell {shell.name}: clearance per state, mm (positive = clear; '-' = state not reached)")
-    click.echo(table([_flat(r) for r in rows], COLUMNS, digits=1))
+    click.echo(table([flatten(r) for r in rows], COLUMNS, digits=1))
     click.echo("\nenvelope summary:")
     lines = []
     for k, e in summary.items():
