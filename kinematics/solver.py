@@ -48,11 +48,23 @@ class SolveSettings:
     tol_mm : largest equation residual accepted as converged, mm.
     max_iter : iteration limit per solve.
     max_angle_step_rad : largest change of any angle in one iteration.
+    engine : {'compiled', 'numpy'}
+        'compiled' runs the iteration per item in numba-compiled code
+        (:mod:`kinematics.kernel`); 'numpy' is the array-at-a-time reference
+        path. Both solve the same equations with the same step rule.
     """
 
     tol_mm: float = 1e-10
     max_iter: int = 30
     max_angle_step_rad: float = 0.25
+    engine: str = "compiled"
+
+    def __post_init__(self):
+        if self.engine not in ENGINES:
+            raise ValueError(f"SolveSettings.engine must be one of {ENGINES}; got {self.engine!r}.")
+
+
+ENGINES = ("compiled", "numpy")
 
 
 class Batch:
@@ -329,6 +341,8 @@ def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.
         Jacobian at the returned q, with the lean column last (used for tangents).
     """
     minnorm = False if minnorm is None else minnorm
+    if settings.engine == "compiled" and not minnorm:
+        return solve_states(model, b, q0, lean, target, stage, settings)[:5]
     N = q0.shape[0]
     q = q0.copy()
     status = np.full(N, MAX_ITER, dtype=np.int8)
@@ -371,6 +385,33 @@ def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.
         f = np.minimum(1.0, settings.max_angle_step_rad / np.maximum(big, 1e-300))
         qs = qs + dq * f[:, None]
     return q, status, resid, iters, Jout
+
+
+def solve_states(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.ndarray, stage: str,
+                 settings: SolveSettings = SolveSettings(), items: np.ndarray | None = None):
+    """:func:`newton`, plus the lean tangent and the det(J) sign at the solution.
+
+    ``items`` (optional, shape (N,)): the rows of ``b`` the N states belong to
+    (default: all of them, in order).
+
+    Returns
+    -------
+    q, status, resid, iters, J : as :func:`newton`
+    lean_tangent : ndarray of shape (N, n_q)
+        dq/dphi at the returned q (least squares of ``J_q t = -J_phi``).
+    det_sign : ndarray of shape (N,)
+        Sign of det(J_q) for a square system (0 when singular); 0 otherwise.
+    """
+    if settings.engine == "compiled":
+        from . import kernel  # noqa: PLC0415 (numba loads on first use)
+        return kernel.solve(model, b, q0, lean, target, stage, settings, items)
+    if items is not None:
+        b = b.take(items)
+    q, st, res, it, J = newton(model, b, q0, lean, target, stage, settings)
+    t = tangent(model, J, J[..., model.n_q], b.col_scale)
+    with np.errstate(invalid="ignore"):       # a non-finite item has sign NaN; its status says why
+        sign = np.linalg.slogdet(J[..., :model.n_q])[0] if J.shape[1] == model.n_q else np.zeros(len(q))
+    return q, st, res, it, J, t, sign
 
 
 def tangent(model: Model, J: np.ndarray, dF: np.ndarray, col_scale: np.ndarray,

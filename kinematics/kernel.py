@@ -1,0 +1,468 @@
+"""Compiled Newton corrector: the batched solve of :mod:`kinematics.solver`, one item per loop pass.
+
+At the optimizer's batch sizes (a few hundred items of ten unknowns) the
+numpy path of :func:`kinematics.solver.newton` spends most of its time in
+array-call overhead and in passes over the (N, m, n_q + 1) Jacobian. This
+module runs the same iteration per item in code compiled by numba, with the
+item's point positions, point Jacobian, residual and LU factors in small
+scratch arrays: the same equations, the same analytic Jacobian (the rotated
+design vectors of :meth:`Model.positions`, written by index), the same step
+rule and the same status codes. At the solution it also returns the lean
+tangent dq/dphi and the sign of det(J), which the continuation's branch guard
+needs, from one more factorisation of the Jacobian it already has.
+
+The numpy path stays the reference: tests solve the same states both ways and
+compare them (``tests/test_kernel.py``).
+
+Shapes: ``N`` items, ``n_q`` coordinates, ``m`` equation rows of the stage.
+"""
+from __future__ import annotations
+
+import numba
+import numpy as np
+
+from .model import ANGLE, Model
+
+_STAGE = {"lean": 0, "travel": 1}
+_CONVERGED, _STALLED, _MAX_ITER, _NONFINITE = 0, 1, 2, 3
+
+
+def tables(model: Model) -> dict:
+    """Integer topology tables of the model for the kernel (cached on the model)."""
+    cache = model.__dict__.get("_kernel_tables")
+    if cache is not None:
+        return cache
+    from .solver import _layout  # noqa: PLC0415 (solver imports this module lazily)
+
+    m, tab = model, model._np
+    src_col = np.r_[m.n_q, m.ang_coord].astype(np.int64)     # angle source -> Jacobian column
+    lay = _layout(m, "lean")
+    sa, sb = lay["slider_src"]
+
+    def i64(a, shape=None):
+        a = np.ascontiguousarray(np.asarray(a, dtype=np.int64))
+        return a.reshape(shape) if shape is not None else a
+
+    t = dict(
+        n_q=m.n_q, n_pts=tab["n"],
+        ang_coord=i64(m.ang_coord), src_col=src_col,
+        pk_src=i64(tab["pk_src"]),
+        p_start=i64(np.r_[tab["starts"], len(tab["pk_src"])]),    # pairs of point j: p_start[j]:p_start[j+1]
+        p_col=src_col[np.asarray(tab["pk_src"], dtype=np.int64)],  # Jacobian column of each pair
+        sl_pt=i64(np.asarray(tab["pk_point"])[tab["sl_pk"]]),     # point of each slide term
+        ty=i64(tab["ty"]), tz=i64(tab["tz"]),
+        sl_pk=i64(tab["sl_pk"]), sl_coord=i64(tab["sl_coord"]),
+        eq_pin=i64(m.eq_pin, (-1, 2)), eq_slider=i64(m.eq_slider, (-1, 3)),
+        sl_src=i64(np.stack([sa, sb], -1) if len(sa) else np.zeros((0, 2)), (-1, 2)),
+        eq_link=i64(m.eq_link, (-1, 2)), eq_spring=i64(m.eq_spring, (-1, 2)),
+        eq_wheel=i64(m.eq_wheel), usrc=i64(lay["usrc"]),
+        angle_col=(m.coord_kind == ANGLE).astype(np.bool_),
+    )
+    model.__dict__["_kernel_tables"] = t
+    return t
+
+
+def positions(model: Model, q: np.ndarray, lean: np.ndarray, V: np.ndarray, U: np.ndarray, cand: np.ndarray,
+              which: str = "needed"):
+    """Point positions of many states, compiled (same arithmetic as :meth:`Model.positions`).
+
+    Parameters
+    ----------
+    q : ndarray of shape (N, n_q)
+    lean : ndarray of shape (N,)
+        Chassis angle, radians.
+    V, U : complex ndarrays of shapes (C, n_pk) and (C, n_sl)
+        Per-candidate design vectors of the point table (:meth:`Model.design_vectors`).
+    cand : ndarray of shape (N,)
+        Candidate (row of V and U) of each state.
+    which : {'needed', 'all'}
+        The points of the equations (``model._np``) or every point (``model._all``).
+
+    Returns
+    -------
+    x : ndarray of shape (N, n_points_in_table, 2)
+    ang : ndarray of shape (N, n_ang)
+        Angle sources: the lean, then the angle coordinates.
+    """
+    tab = model._np if which == "needed" else model._all
+    pt = _point_tables(model, which)
+    N = q.shape[0]
+    x = np.empty((N, tab["n"], 2))
+    ang = np.empty((N, model.n_ang))
+    _positions(np.ascontiguousarray(q, dtype=float), np.ascontiguousarray(lean, dtype=float),
+               np.ascontiguousarray(V, dtype=np.complex128), np.ascontiguousarray(U, dtype=np.complex128),
+               np.ascontiguousarray(cand, dtype=np.int64), pt["ang_coord"], pt["pk_src"], pt["pk_point"],
+               pt["ty"], pt["tz"], pt["sl_pk"], pt["sl_coord"], x, ang)
+    return x, ang
+
+
+def _point_tables(model: Model, which: str) -> dict:
+    cache = model.__dict__.setdefault("_kernel_point_tables", {})
+    if which not in cache:
+        tab = model._np if which == "needed" else model._all
+        i64 = (lambda a: np.ascontiguousarray(np.asarray(a, dtype=np.int64)))
+        cache[which] = dict(ang_coord=i64(model.ang_coord), pk_src=i64(tab["pk_src"]),
+                            pk_point=i64(tab["pk_point"]), ty=i64(tab["ty"]), tz=i64(tab["tz"]),
+                            sl_pk=i64(tab["sl_pk"]), sl_coord=i64(tab["sl_coord"]))
+    return cache[which]
+
+
+@numba.njit(cache=True, error_model="numpy")
+def _positions(Q, lean, V, U, cand, ang_coord, pk_src, pk_point, ty, tz, sl_pk, sl_coord, X, ANG):
+    n_src = ang_coord.shape[0] + 1
+    cs = np.empty((n_src, 2))
+    w = np.empty(V.shape[1], np.complex128)
+    for i in range(Q.shape[0]):
+        q = Q[i]
+        c_ = cand[i]
+        ANG[i, 0] = lean[i]
+        for k in range(n_src - 1):
+            ANG[i, k + 1] = q[ang_coord[k]]
+        for k in range(n_src):
+            cs[k, 0] = np.cos(ANG[i, k])
+            cs[k, 1] = np.sin(ANG[i, k])
+        for k in range(V.shape[1]):
+            w[k] = V[c_, k]
+        for s in range(sl_pk.shape[0]):
+            w[sl_pk[s]] += U[c_, s] * q[sl_coord[s]]
+        for j in range(X.shape[1]):
+            X[i, j, 0] = q[ty[j]]
+            X[i, j, 1] = q[tz[j]]
+        for k in range(V.shape[1]):
+            c, s = cs[pk_src[k], 0], cs[pk_src[k], 1]
+            j = pk_point[k]
+            X[i, j, 0] += c * w[k].real + s * w[k].imag
+            X[i, j, 1] += c * w[k].imag - s * w[k].real
+
+
+def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray, stage: str, settings,
+          items: np.ndarray | None = None):
+    """Compiled Newton solve of a batch of states; see :func:`kinematics.solver.newton`.
+
+    items : ndarray of shape (N,), optional
+        Rows of ``b`` the states belong to (default: all, in order); saves
+        copying a sub-batch for a step of some of the items.
+
+    Returns
+    -------
+    q : ndarray of shape (N, n_q)
+    status : ndarray of shape (N,), int8
+    resid : ndarray of shape (N,)
+        Largest absolute equation residual, mm.
+    iters : ndarray of shape (N,)
+    J : ndarray of shape (N, m, n_q + 1)
+        Jacobian at the returned q, the lean column last.
+    tangent : ndarray of shape (N, n_q)
+        Least-squares dq/dphi at the returned q (the solution of ``J_q t = -J_phi``).
+    det_sign : ndarray of shape (N,)
+        Sign of det(J_q) for a square system (0 when singular), else 0.
+    """
+    t = tables(model)
+    N, Nb = q0.shape[0], len(b.cand)
+    items = np.arange(N) if items is None else np.ascontiguousarray(items, dtype=np.int64)
+    st = _STAGE[stage]
+    if st == 1:
+        tgt = np.ascontiguousarray(np.asarray(target, float).reshape(N, 1))
+        hold = np.ascontiguousarray(b.hold, dtype=float)
+    else:
+        tgt = np.ascontiguousarray(np.asarray(target, float).reshape(N, len(model.eq_spring)))
+        hold = np.zeros((Nb, 0, model.n_q))
+    from .solver import n_rows  # noqa: PLC0415
+    rows = n_rows(model, stage, hold.shape[1] if st == 1 else 0)
+    q = np.ascontiguousarray(q0, dtype=float).copy()
+    status = np.empty(N, np.int8)
+    resid = np.empty(N)
+    iters = np.zeros(N, np.int64)
+    J = np.empty((N, rows, model.n_q + 1))
+    tan = np.empty((N, model.n_q))
+    det = np.zeros(N)
+    n0 = b.n0 if b.n0.shape[1] else np.zeros((Nb, 0, 2))
+    _newton(q, np.ascontiguousarray(lean, dtype=float), tgt, items, hold, st,
+            np.ascontiguousarray(b.V, dtype=np.complex128), np.ascontiguousarray(b.U, dtype=np.complex128),
+            np.ascontiguousarray(b.R), np.ascontiguousarray(b.r), np.ascontiguousarray(b.gamma0),
+            np.ascontiguousarray(b.Lc), np.ascontiguousarray(b.L_link.reshape(Nb, len(model.eq_link))),
+            np.ascontiguousarray(n0, dtype=float), np.ascontiguousarray(b.zc0),
+            np.ascontiguousarray(b.col_scale),
+            t["n_pts"], t["src_col"], t["ang_coord"], t["pk_src"], t["p_start"], t["p_col"], t["ty"], t["tz"],
+            t["sl_pk"], t["sl_pt"], t["sl_coord"], t["eq_pin"], t["eq_slider"], t["sl_src"], t["eq_link"],
+            t["eq_spring"], t["eq_wheel"], t["usrc"], t["angle_col"],
+            float(settings.tol_mm), int(settings.max_iter), float(settings.max_angle_step_rad),
+            status, resid, iters, J, tan, det)
+    return q, status, resid, iters, J, tan, det
+
+
+@numba.njit(cache=True, error_model="numpy")
+def _lu_solve(A, rhs, n, nr):
+    """Solve ``A X = rhs`` in place (partial pivoting). Returns (ok, det_sign); ``rhs`` has nr columns."""
+    sign = 1.0
+    for k in range(n):
+        p = k
+        big = abs(A[k, k])
+        for i in range(k + 1, n):
+            v = abs(A[i, k])
+            if v > big:
+                big = v
+                p = i
+        if big == 0.0 or not np.isfinite(big):
+            return False, 0.0
+        if p != k:
+            sign = -sign
+            for j in range(n):
+                A[k, j], A[p, j] = A[p, j], A[k, j]
+            for j in range(nr):
+                rhs[k, j], rhs[p, j] = rhs[p, j], rhs[k, j]
+        if A[k, k] < 0.0:
+            sign = -sign
+        inv = 1.0 / A[k, k]
+        for i in range(k + 1, n):
+            f = A[i, k] * inv
+            if f != 0.0:
+                for j in range(k + 1, n):
+                    A[i, j] -= f * A[k, j]
+                for j in range(nr):
+                    rhs[i, j] -= f * rhs[k, j]
+    for j in range(nr):
+        for i in range(n - 1, -1, -1):
+            s = rhs[i, j]
+            for c in range(i + 1, n):
+                s -= A[i, c] * rhs[c, j]
+            rhs[i, j] = s / A[i, i]
+    return True, sign
+
+
+@numba.njit(cache=True, error_model="numpy")
+def _ls_solve(Jm, rows, n, scale, rhs, A, B):
+    """Least-squares solution of ``(Jm[:, :n] * scale) y = rhs`` (rhs: (rows, nr)); y into B[:n].
+
+    Square: the LU solve, with the damped normal equations if it is exactly
+    singular (as :func:`kinematics.solver._ls_step`); otherwise the normal
+    equations with a vanishing Tikhonov term. Returns (ok, det_sign).
+    """
+    nr = rhs.shape[1]
+    if rows == n:
+        for i in range(n):
+            for j in range(n):
+                A[i, j] = Jm[i, j] * scale[j]
+            for j in range(nr):
+                B[i, j] = rhs[i, j]
+        ok, sign = _lu_solve(A, B, n, nr)
+        if ok:
+            return True, sign
+    dmax = 1.0
+    for i in range(n):
+        for j in range(n):
+            s = 0.0
+            for r in range(rows):
+                s += Jm[r, i] * Jm[r, j]
+            A[i, j] = s * scale[i] * scale[j]
+        if A[i, i] > dmax:
+            dmax = A[i, i]
+        for j in range(nr):
+            s = 0.0
+            for r in range(rows):
+                s += Jm[r, i] * rhs[r, j]
+            B[i, j] = s * scale[i]
+    for i in range(n):
+        A[i, i] += 1e-13 * dmax
+    ok, _ = _lu_solve(A, B, n, nr)
+    return ok, 0.0
+
+
+@numba.njit(cache=True, error_model="numpy", inline="always")
+def _add_point(Jm, r, j, cy, cz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz):
+    """Jm[r] += cy * d(y_j)/d(q, phi) + cz * d(z_j)/d(q, phi): the point Jacobian, written by index.
+
+    A pair vector (ry, rz) of angle column c gives dy/dc = rz, dz/dc = -ry; a
+    slide direction (uy, uz) of slide column c gives dy/dc = uy, dz/dc = uz.
+    """
+    Jm[r, ty[j]] += cy
+    Jm[r, tz[j]] += cz
+    for k in range(p_start[j], p_start[j + 1]):
+        Jm[r, p_col[k]] += cy * rz[k] - cz * ry[k]
+    for s in range(sl_pt.shape[0]):
+        if sl_pt[s] == j:
+            Jm[r, sl_coord[s]] += cy * uy[s] + cz * uz[s]
+
+
+@numba.njit(cache=True, error_model="numpy")
+def _evaluate(q, lean, tgt, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0, zc0, scale,
+              src_col, ang_coord, pk_src, p_start, p_col, ty, tz, sl_pk, sl_pt, sl_coord, eq_pin, eq_slider, sl_src,
+              eq_link, eq_spring, eq_wheel, usrc, ang, cs, w, ry, rz, uy, uz, x, F, Jm):
+    """Residual F (m,) and Jacobian Jm (m, n_q + 1) of one item at q (see solver.residual)."""
+    nq = q.shape[0]
+    ang[0] = lean
+    for k in range(ang_coord.shape[0]):
+        ang[k + 1] = q[ang_coord[k]]
+    for k in range(ang.shape[0]):
+        cs[k, 0] = np.cos(ang[k])
+        cs[k, 1] = np.sin(ang[k])
+    for k in range(V.shape[0]):
+        w[k] = V[k]
+    for i in range(sl_pk.shape[0]):
+        w[sl_pk[i]] += U[i] * q[sl_coord[i]]
+        c, s = cs[pk_src[sl_pk[i]], 0], cs[pk_src[sl_pk[i]], 1]
+        uy[i] = c * U[i].real + s * U[i].imag
+        uz[i] = c * U[i].imag - s * U[i].real
+    for j in range(x.shape[0]):
+        x[j, 0] = q[ty[j]]
+        x[j, 1] = q[tz[j]]
+        for k in range(p_start[j], p_start[j + 1]):
+            c, s = cs[pk_src[k], 0], cs[pk_src[k], 1]
+            # exp(-i a) (wy + i wz) = (c wy + s wz) + i (c wz - s wy)
+            ry[k] = c * w[k].real + s * w[k].imag
+            rz[k] = c * w[k].imag - s * w[k].real
+            x[j, 0] += ry[k]
+            x[j, 1] += rz[k]
+    Jm[:, :] = 0.0
+    r0 = 0
+    for e in range(eq_pin.shape[0]):
+        a, b = eq_pin[e, 0], eq_pin[e, 1]
+        for d in range(2):
+            F[r0] = x[a, d] - x[b, d]
+            _add_point(Jm, r0, a, 1.0 - d, float(d), ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            _add_point(Jm, r0, b, d - 1.0, -float(d), ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            r0 += 1
+    for e in range(eq_slider.shape[0]):
+        f, p = eq_slider[e, 0], eq_slider[e, 2]
+        tha, thb = ang[sl_src[e, 0]], ang[sl_src[e, 1]]
+        c, s = cs[sl_src[e, 0], 0], cs[sl_src[e, 0], 1]
+        ny = c * n0[e, 0] + s * n0[e, 1]
+        nz = -s * n0[e, 0] + c * n0[e, 1]
+        dy, dz = x[p, 0] - x[f, 0], x[p, 1] - x[f, 1]
+        F[r0] = ny * dy + nz * dz
+        _add_point(Jm, r0, p, ny, nz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+        _add_point(Jm, r0, f, -ny, -nz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+        ca, cb = src_col[sl_src[e, 0]], src_col[sl_src[e, 1]]
+        Jm[r0, ca] += nz * dy - ny * dz
+        F[r0 + 1] = (thb - tha) * Lc
+        Jm[r0 + 1, ca] -= Lc
+        Jm[r0 + 1, cb] += Lc
+        r0 += 2
+    for e in range(eq_link.shape[0] + (eq_spring.shape[0] if stage == 0 else 0)):
+        if e < eq_link.shape[0]:
+            a, b, L0 = eq_link[e, 0], eq_link[e, 1], L_link[e]
+        else:
+            a, b, L0 = eq_spring[e - eq_link.shape[0], 0], eq_spring[e - eq_link.shape[0], 1], tgt[e - eq_link.shape[0]]
+        dy, dz = x[a, 0] - x[b, 0], x[a, 1] - x[b, 1]
+        L = np.sqrt(dy * dy + dz * dz)
+        F[r0] = L - L0
+        _add_point(Jm, r0, a, dy / L, dz / L, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+        _add_point(Jm, r0, b, -dy / L, -dz / L, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+        r0 += 1
+        if stage == 1 and e == eq_link.shape[0] - 1:
+            break
+    if stage == 1:
+        for k in range(2):
+            j = eq_wheel[k]
+            F[r0] = x[j, 1] - q[1] - zc0[k] - tgt[0]
+            _add_point(Jm, r0, j, 0.0, 1.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            Jm[r0, 1] -= 1.0
+            r0 += 1
+        for h in range(hold.shape[0]):
+            s = 0.0
+            for c in range(nq):
+                s += hold[h, c] * q[c] / scale[c]
+                Jm[r0, c] = hold[h, c] / scale[c]
+            F[r0] = s
+            r0 += 1
+    lat = 0.0
+    for k in range(2):
+        j = eq_wheel[k]
+        g = gamma0[k] + ang[usrc[k]]
+        Rr = R[k] - r[k]
+        sg, cg = np.sin(g), np.cos(g)
+        F[r0 + k] = x[j, 1] - Rr * cg - r[k]
+        _add_point(Jm, r0 + k, j, 0.0, 1.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+        _add_point(Jm, r0 + 2, j, 0.5, 0.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+        col = src_col[usrc[k]]
+        Jm[r0 + k, col] += Rr * sg
+        lat += x[j, 0] - Rr * sg
+        Jm[r0 + 2, col] -= 0.5 * Rr * cg
+    F[r0 + 2] = 0.5 * lat
+
+
+@numba.njit(cache=True, error_model="numpy")
+def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0, zc0, scale,
+            n_pts, src_col, ang_coord, pk_src, p_start, p_col, ty, tz, sl_pk, sl_pt, sl_coord, eq_pin, eq_slider,
+            sl_src, eq_link, eq_spring, eq_wheel, usrc, angle_col, tol, max_iter, max_step,
+            status, resid, iters, J, tan, det):
+    N, nq = Q.shape
+    rows = J.shape[1]
+    ang = np.empty(ang_coord.shape[0] + 1)
+    cs = np.empty((ang_coord.shape[0] + 1, 2))
+    w = np.empty(V.shape[1], np.complex128)
+    x = np.empty((n_pts, 2))
+    ry = np.empty(V.shape[1])
+    rz = np.empty(V.shape[1])
+    uy = np.empty(U.shape[1])
+    uz = np.empty(U.shape[1])
+    F = np.empty(rows)
+    A = np.empty((nq, nq))
+    B = np.empty((nq, 1))
+    rhs = np.empty((rows, 1))
+    for it_ in range(N):
+        i = item[it_]           # row of the item's constants
+        q = Q[it_]
+        Jm = J[it_]
+        prev = np.inf
+        st = _MAX_ITER
+        for it in range(max_iter + 1):
+            _evaluate(q, lean[it_], tgt[it_], hold[i], stage, V[i], U[i], R[i], r[i], gamma0[i],
+                      Lc[i], L_link[i], n0[i], zc0[i], scale[i],
+                      src_col, ang_coord, pk_src, p_start, p_col, ty, tz, sl_pk, sl_pt, sl_coord, eq_pin, eq_slider,
+                      sl_src, eq_link, eq_spring, eq_wheel, usrc, ang, cs, w, ry, rz, uy, uz, x, F, Jm)
+            rmax = 0.0
+            finite = True
+            for k in range(rows):
+                v = abs(F[k])
+                if not np.isfinite(v):
+                    finite = False
+                elif v > rmax:
+                    rmax = v
+            if not finite:
+                resid[it_] = np.nan
+                st = _NONFINITE
+                break
+            resid[it_] = rmax
+            if rmax <= tol:
+                st = _CONVERGED
+                break
+            if it >= 4 and rmax > 0.9 * prev:
+                st = _STALLED
+                break
+            if it >= 2:
+                if rmax < prev:
+                    prev = rmax
+            else:
+                prev = rmax
+            if it == max_iter:
+                break
+            iters[it_] += 1
+            for k in range(rows):
+                rhs[k, 0] = -F[k]
+            ok, _ = _ls_solve(Jm, rows, nq, scale[i], rhs, A, B)
+            big = 0.0
+            for c in range(nq):
+                dq = B[c, 0] * scale[i, c]
+                if not ok or not np.isfinite(dq):
+                    big = np.nan
+                    break
+                if angle_col[c] and abs(dq) > big:
+                    big = abs(dq)
+            if not big == big:      # a singular step fails the item at the next check
+                for c in range(nq):
+                    q[c] = np.nan
+                continue
+            f = 1.0
+            if big > max_step:
+                f = max_step / big
+            for c in range(nq):
+                q[c] += B[c, 0] * scale[i, c] * f
+        status[it_] = st
+        # the lean tangent and det(J) sign at the returned state
+        for k in range(rows):
+            rhs[k, 0] = -Jm[k, nq]
+        ok, sign = _ls_solve(Jm, rows, nq, scale[i], rhs, A, B)
+        det[it_] = sign if rows == nq else 0.0
+        for c in range(nq):
+            tan[it_, c] = B[c, 0] * scale[i, c] if ok else np.nan
