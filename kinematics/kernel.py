@@ -207,7 +207,7 @@ def _lu_solve(A, rhs, n, nr):
             return False, 0.0
         if p != k:
             sign = -sign
-            for j in range(n):
+            for j in range(k, n):
                 A[k, j], A[p, j] = A[p, j], A[k, j]
             for j in range(nr):
                 rhs[k, j], rhs[p, j] = rhs[p, j], rhs[k, j]
@@ -216,7 +216,7 @@ def _lu_solve(A, rhs, n, nr):
         inv = 1.0 / A[k, k]
         for i in range(k + 1, n):
             f = A[i, k] * inv
-            if f != 0.0:
+            if f != 0.0:            # the Jacobians are sparse: skip rows with nothing to eliminate
                 for j in range(k + 1, n):
                     A[i, j] -= f * A[k, j]
                 for j in range(nr):
@@ -269,116 +269,19 @@ def _ls_solve(Jm, rows, n, scale, rhs, A, B):
 
 
 @numba.njit(cache=True, error_model="numpy", inline="always")
-def _add_point(Jm, r, j, cy, cz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz):
-    """Jm[r] += cy * d(y_j)/d(q, phi) + cz * d(z_j)/d(q, phi): the point Jacobian, written by index.
+def _add_point(J, n, r, j, cy, cz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz):
+    """J[n, r] += cy * d(y_j)/d(q, phi) + cz * d(z_j)/d(q, phi): the point Jacobian, written by index.
 
     A pair vector (ry, rz) of angle column c gives dy/dc = rz, dz/dc = -ry; a
     slide direction (uy, uz) of slide column c gives dy/dc = uy, dz/dc = uz.
     """
-    Jm[r, ty[j]] += cy
-    Jm[r, tz[j]] += cz
+    J[n, r, ty[j]] += cy
+    J[n, r, tz[j]] += cz
     for k in range(p_start[j], p_start[j + 1]):
-        Jm[r, p_col[k]] += cy * rz[k] - cz * ry[k]
+        J[n, r, p_col[k]] += cy * rz[k] - cz * ry[k]
     for s in range(sl_pt.shape[0]):
         if sl_pt[s] == j:
-            Jm[r, sl_coord[s]] += cy * uy[s] + cz * uz[s]
-
-
-@numba.njit(cache=True, error_model="numpy")
-def _evaluate(q, lean, tgt, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0, zc0, scale,
-              src_col, ang_coord, pk_src, p_start, p_col, ty, tz, sl_pk, sl_pt, sl_coord, eq_pin, eq_slider, sl_src,
-              eq_link, eq_spring, eq_wheel, usrc, ang, cs, w, ry, rz, uy, uz, x, F, Jm):
-    """Residual F (m,) and Jacobian Jm (m, n_q + 1) of one item at q (see solver.residual)."""
-    nq = q.shape[0]
-    ang[0] = lean
-    for k in range(ang_coord.shape[0]):
-        ang[k + 1] = q[ang_coord[k]]
-    for k in range(ang.shape[0]):
-        cs[k, 0] = np.cos(ang[k])
-        cs[k, 1] = np.sin(ang[k])
-    for k in range(V.shape[0]):
-        w[k] = V[k]
-    for i in range(sl_pk.shape[0]):
-        w[sl_pk[i]] += U[i] * q[sl_coord[i]]
-        c, s = cs[pk_src[sl_pk[i]], 0], cs[pk_src[sl_pk[i]], 1]
-        uy[i] = c * U[i].real + s * U[i].imag
-        uz[i] = c * U[i].imag - s * U[i].real
-    for j in range(x.shape[0]):
-        x[j, 0] = q[ty[j]]
-        x[j, 1] = q[tz[j]]
-        for k in range(p_start[j], p_start[j + 1]):
-            c, s = cs[pk_src[k], 0], cs[pk_src[k], 1]
-            # exp(-i a) (wy + i wz) = (c wy + s wz) + i (c wz - s wy)
-            ry[k] = c * w[k].real + s * w[k].imag
-            rz[k] = c * w[k].imag - s * w[k].real
-            x[j, 0] += ry[k]
-            x[j, 1] += rz[k]
-    Jm[:, :] = 0.0
-    r0 = 0
-    for e in range(eq_pin.shape[0]):
-        a, b = eq_pin[e, 0], eq_pin[e, 1]
-        for d in range(2):
-            F[r0] = x[a, d] - x[b, d]
-            _add_point(Jm, r0, a, 1.0 - d, float(d), ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-            _add_point(Jm, r0, b, d - 1.0, -float(d), ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-            r0 += 1
-    for e in range(eq_slider.shape[0]):
-        f, p = eq_slider[e, 0], eq_slider[e, 2]
-        tha, thb = ang[sl_src[e, 0]], ang[sl_src[e, 1]]
-        c, s = cs[sl_src[e, 0], 0], cs[sl_src[e, 0], 1]
-        ny = c * n0[e, 0] + s * n0[e, 1]
-        nz = -s * n0[e, 0] + c * n0[e, 1]
-        dy, dz = x[p, 0] - x[f, 0], x[p, 1] - x[f, 1]
-        F[r0] = ny * dy + nz * dz
-        _add_point(Jm, r0, p, ny, nz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-        _add_point(Jm, r0, f, -ny, -nz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-        ca, cb = src_col[sl_src[e, 0]], src_col[sl_src[e, 1]]
-        Jm[r0, ca] += nz * dy - ny * dz
-        F[r0 + 1] = (thb - tha) * Lc
-        Jm[r0 + 1, ca] -= Lc
-        Jm[r0 + 1, cb] += Lc
-        r0 += 2
-    for e in range(eq_link.shape[0] + (eq_spring.shape[0] if stage == 0 else 0)):
-        if e < eq_link.shape[0]:
-            a, b, L0 = eq_link[e, 0], eq_link[e, 1], L_link[e]
-        else:
-            a, b, L0 = eq_spring[e - eq_link.shape[0], 0], eq_spring[e - eq_link.shape[0], 1], tgt[e - eq_link.shape[0]]
-        dy, dz = x[a, 0] - x[b, 0], x[a, 1] - x[b, 1]
-        L = np.sqrt(dy * dy + dz * dz)
-        F[r0] = L - L0
-        _add_point(Jm, r0, a, dy / L, dz / L, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-        _add_point(Jm, r0, b, -dy / L, -dz / L, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-        r0 += 1
-        if stage == 1 and e == eq_link.shape[0] - 1:
-            break
-    if stage == 1:
-        for k in range(2):
-            j = eq_wheel[k]
-            F[r0] = x[j, 1] - q[1] - zc0[k] - tgt[0]
-            _add_point(Jm, r0, j, 0.0, 1.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-            Jm[r0, 1] -= 1.0
-            r0 += 1
-        for h in range(hold.shape[0]):
-            s = 0.0
-            for c in range(nq):
-                s += hold[h, c] * q[c] / scale[c]
-                Jm[r0, c] = hold[h, c] / scale[c]
-            F[r0] = s
-            r0 += 1
-    lat = 0.0
-    for k in range(2):
-        j = eq_wheel[k]
-        g = gamma0[k] + ang[usrc[k]]
-        Rr = R[k] - r[k]
-        sg, cg = np.sin(g), np.cos(g)
-        F[r0 + k] = x[j, 1] - Rr * cg - r[k]
-        _add_point(Jm, r0 + k, j, 0.0, 1.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-        _add_point(Jm, r0 + 2, j, 0.5, 0.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-        col = src_col[usrc[k]]
-        Jm[r0 + k, col] += Rr * sg
-        lat += x[j, 0] - Rr * sg
-        Jm[r0 + 2, col] -= 0.5 * Rr * cg
-    F[r0 + 2] = 0.5 * lat
+            J[n, r, sl_coord[s]] += cy * uy[s] + cz * uz[s]
 
 
 @numba.njit(cache=True, error_model="numpy")
@@ -400,6 +303,103 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
     A = np.empty((nq, nq))
     B = np.empty((nq, 1))
     rhs = np.empty((rows, 1))
+    # the residual and Jacobian of one state: an inner function, which numba inlines (a call with
+    # forty array arguments costs more than the arithmetic)
+    def evaluate(i, n, lean_n):
+        """Residual F (m,) and Jacobian J[n] (m, n_q + 1) of state n, constants in row i (solver.residual)."""
+        nq = Q.shape[1]
+        ang[0] = lean_n
+        for k in range(ang_coord.shape[0]):
+            ang[k + 1] = Q[n, ang_coord[k]]
+        for k in range(ang.shape[0]):
+            cs[k, 0] = np.cos(ang[k])
+            cs[k, 1] = np.sin(ang[k])
+        for k in range(V.shape[1]):
+            w[k] = V[i, k]
+        for s_ in range(sl_pk.shape[0]):
+            w[sl_pk[s_]] += U[i, s_] * Q[n, sl_coord[s_]]
+            c, s = cs[pk_src[sl_pk[s_]], 0], cs[pk_src[sl_pk[s_]], 1]
+            uy[s_] = c * U[i, s_].real + s * U[i, s_].imag
+            uz[s_] = c * U[i, s_].imag - s * U[i, s_].real
+        for j in range(x.shape[0]):
+            x[j, 0] = Q[n, ty[j]]
+            x[j, 1] = Q[n, tz[j]]
+            for k in range(p_start[j], p_start[j + 1]):
+                c, s = cs[pk_src[k], 0], cs[pk_src[k], 1]
+                # exp(-i a) (wy + i wz) = (c wy + s wz) + i (c wz - s wy)
+                ry[k] = c * w[k].real + s * w[k].imag
+                rz[k] = c * w[k].imag - s * w[k].real
+                x[j, 0] += ry[k]
+                x[j, 1] += rz[k]
+        for a in range(J.shape[1]):
+            for c in range(J.shape[2]):
+                J[n, a, c] = 0.0
+        r0 = 0
+        for e in range(eq_pin.shape[0]):
+            a, b = eq_pin[e, 0], eq_pin[e, 1]
+            for d in range(2):
+                F[r0] = x[a, d] - x[b, d]
+                _add_point(J, n, r0, a, 1.0 - d, float(d), ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+                _add_point(J, n, r0, b, d - 1.0, -float(d), ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+                r0 += 1
+        for e in range(eq_slider.shape[0]):
+            f, p = eq_slider[e, 0], eq_slider[e, 2]
+            tha, thb = ang[sl_src[e, 0]], ang[sl_src[e, 1]]
+            c, s = cs[sl_src[e, 0], 0], cs[sl_src[e, 0], 1]
+            ny = c * n0[i, e, 0] + s * n0[i, e, 1]
+            nz = -s * n0[i, e, 0] + c * n0[i, e, 1]
+            dy, dz = x[p, 0] - x[f, 0], x[p, 1] - x[f, 1]
+            F[r0] = ny * dy + nz * dz
+            _add_point(J, n, r0, p, ny, nz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            _add_point(J, n, r0, f, -ny, -nz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            ca, cb = src_col[sl_src[e, 0]], src_col[sl_src[e, 1]]
+            J[n, r0, ca] += nz * dy - ny * dz
+            F[r0 + 1] = (thb - tha) * Lc[i]
+            J[n, r0 + 1, ca] -= Lc[i]
+            J[n, r0 + 1, cb] += Lc[i]
+            r0 += 2
+        for e in range(eq_link.shape[0] + (eq_spring.shape[0] if stage == 0 else 0)):
+            if e < eq_link.shape[0]:
+                a, b, L0 = eq_link[e, 0], eq_link[e, 1], L_link[i, e]
+            else:
+                a, b, L0 = eq_spring[e - eq_link.shape[0], 0], eq_spring[e - eq_link.shape[0], 1], tgt[n, e - eq_link.shape[0]]
+            dy, dz = x[a, 0] - x[b, 0], x[a, 1] - x[b, 1]
+            L = np.sqrt(dy * dy + dz * dz)
+            F[r0] = L - L0
+            _add_point(J, n, r0, a, dy / L, dz / L, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            _add_point(J, n, r0, b, -dy / L, -dz / L, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            r0 += 1
+            if stage == 1 and e == eq_link.shape[0] - 1:
+                break
+        if stage == 1:
+            for k in range(2):
+                j = eq_wheel[k]
+                F[r0] = x[j, 1] - Q[n, 1] - zc0[i, k] - tgt[n, 0]
+                _add_point(J, n, r0, j, 0.0, 1.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+                J[n, r0, 1] -= 1.0
+                r0 += 1
+            for h in range(hold.shape[1]):
+                s = 0.0
+                for c in range(nq):
+                    s += hold[i, h, c] * Q[n, c] / scale[i, c]
+                    J[n, r0, c] = hold[i, h, c] / scale[i, c]
+                F[r0] = s
+                r0 += 1
+        lat = 0.0
+        for k in range(2):
+            j = eq_wheel[k]
+            g = gamma0[i, k] + ang[usrc[k]]
+            Rr = R[i, k] - r[i, k]
+            sg, cg = np.sin(g), np.cos(g)
+            F[r0 + k] = x[j, 1] - Rr * cg - r[i, k]
+            _add_point(J, n, r0 + k, j, 0.0, 1.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            _add_point(J, n, r0 + 2, j, 0.5, 0.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            col = src_col[usrc[k]]
+            J[n, r0 + k, col] += Rr * sg
+            lat += x[j, 0] - Rr * sg
+            J[n, r0 + 2, col] -= 0.5 * Rr * cg
+        F[r0 + 2] = 0.5 * lat
+
     for it_ in range(N):
         i = item[it_]           # row of the item's constants
         q = Q[it_]
@@ -407,10 +407,7 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
         prev = np.inf
         st = _MAX_ITER
         for it in range(max_iter + 1):
-            _evaluate(q, lean[it_], tgt[it_], hold[i], stage, V[i], U[i], R[i], r[i], gamma0[i],
-                      Lc[i], L_link[i], n0[i], zc0[i], scale[i],
-                      src_col, ang_coord, pk_src, p_start, p_col, ty, tz, sl_pk, sl_pt, sl_coord, eq_pin, eq_slider,
-                      sl_src, eq_link, eq_spring, eq_wheel, usrc, ang, cs, w, ry, rz, uy, uz, x, F, Jm)
+            evaluate(i, it_, lean[it_])
             rmax = 0.0
             finite = True
             for k in range(rows):

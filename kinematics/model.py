@@ -343,7 +343,7 @@ class Model:
         U : ndarray of shape (n_candidates, n_sl), complex
             Unit guide directions of the slide terms, times their sign.
         """
-        V2 = np.einsum("kp,cpd->ckd", tab["comb"], geom.points)
+        V2 = np.matmul(tab["comb"], geom.points)          # (C, n_pk, 2)
         V = V2[..., 0] + 1j * V2[..., 1]
         d = geom.points[:, tab["sl_to"]] - geom.points[:, tab["sl_from"]]
         U = d / np.linalg.norm(d, axis=-1, keepdims=True) * tab["sl_sign"][None, :, None]

@@ -311,7 +311,7 @@ def hold_free_directions(model: Model, b: Batch) -> None:
     N = len(b.cand)
     _, J = residual(model, b, model.design_q(N), np.zeros(N), np.zeros(N), "travel")
     Js = J[..., :model.n_q] * b.col_scale[:, None, :]
-    _, sv, vt = np.linalg.svd(Js)
+    _, sv, vt = np.linalg.svd(Js, full_matrices=Js.shape[1] < Js.shape[2])   # all n_q right vectors
     tol = 1e-9 * np.maximum(sv[:, :1], 1.0)
     n = model.n_q
     svp = np.zeros((N, n))

@@ -226,7 +226,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     cand_t = np.repeat(np.arange(C), T)
     s_item = np.tile(travel, C)
     bt = Batch(model, geom, cand_t)
-    bc = Batch(model, geom, np.arange(C))          # one item per candidate: the design Jacobian
+    bc = bt.take(np.arange(C) * T)                 # one item per candidate: the design Jacobian
     hold_free_directions(model, bc)
     bt.hold = bc.hold[cand_t]
     N = C * T
