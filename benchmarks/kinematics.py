@@ -8,7 +8,8 @@ Measures, on the wishbone-rocker demo mechanism (c):
   sweep;
 * ``scalar_states_per_s``: the same kind of states solved one at a time by
   the scalar scipy loop of :mod:`kinematics.reference` (a subset of the
-  candidates; states per second is what is compared);
+  candidates, each timed best of ``--repeat // 2`` runs, as the batch is timed
+  best of ``--repeat``; states per second is what is compared);
 * ``bound_states_per_s``: raw throughput of numpy's batched ``linalg.solve``
   for the system size used, divided by the Newton iterations used per state,
   and ``bound_fraction`` = states_per_s / bound_states_per_s.
@@ -81,13 +82,14 @@ def main(argv=None) -> dict:
     lean_iters = float(res.iterations[:, :, 1:].sum())
     iters_per_state = max(lean_iters / max(res.converged[:, :, 1:].sum(), 1), 1.0)
 
-    # scalar per-state scipy loop on the same kind of states
+    # scalar per-state scipy loop on the same kind of states, best of --repeat like the batch
     sc = min(args.scalar_candidates, C)
-    t0 = time.perf_counter()
+    t_scalar = 0.0
     for c in range(sc):
         pts_c = {ref: tuple(pts[c, i]) for i, ref in enumerate(model.point_refs)}
-        reference_sweep(mech.with_points(pts_c), leans, travels, max_lean_step_deg=5.0, max_travel_step_mm=15.0)
-    t_scalar = time.perf_counter() - t0
+        mech_c = mech.with_points(pts_c)
+        t_scalar += best_of(lambda: reference_sweep(mech_c, leans, travels, max_lean_step_deg=5.0,
+                                                    max_travel_step_mm=15.0), max(1, args.repeat // 2))
     scalar_states_per_s = sc * len(leans) * len(travels) / t_scalar
 
     # raw batched linalg.solve bound for the system size used (lean-stage items: C x travels)

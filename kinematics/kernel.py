@@ -136,12 +136,17 @@ def _positions(Q, lean, V, U, cand, ang_coord, pk_src, pk_point, ty, tz, sl_pk, 
 
 
 def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray, stage: str, settings,
-          items: np.ndarray | None = None):
-    """Compiled Newton solve of a batch of states; see :func:`kinematics.solver.newton`.
+          items: np.ndarray | None = None, final_jacobian: bool = True):
+    """Compiled Newton solve of a batch of states; see :func:`kinematics.solver.solve_states`.
 
     items : ndarray of shape (N,), optional
         Rows of ``b`` the states belong to (default: all, in order); saves
         copying a sub-batch for a step of some of the items.
+    final_jacobian : bool
+        True: J, tangent and det sign at the returned q (one more Jacobian and
+        factorisation per state). False: those of the last Newton step's
+        Jacobian, from the factors of that step (a state solved without a step
+        still gets them at q).
 
     Returns
     -------
@@ -151,9 +156,9 @@ def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray,
         Largest absolute equation residual, mm.
     iters : ndarray of shape (N,)
     J : ndarray of shape (N, m, n_q + 1)
-        Jacobian at the returned q, the lean column last.
+        Jacobian (see ``final_jacobian``), the lean column last.
     tangent : ndarray of shape (N, n_q)
-        Least-squares dq/dphi at the returned q (the solution of ``J_q t = -J_phi``).
+        Least-squares dq/dphi (the solution of ``J_q t = -J_phi``) of that Jacobian.
     det_sign : ndarray of shape (N,)
         Sign of det(J_q) for a square system (0 when singular), else 0.
     """
@@ -187,7 +192,7 @@ def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray,
             t["sl_pk"], t["sl_pt"], t["sl_coord"], t["eq_pin"], t["eq_slider"], t["sl_src"], t["eq_link"],
             t["eq_spring"], t["eq_wheel"], t["usrc"], t["angle_col"],
             float(settings.tol_mm), int(settings.max_iter), float(settings.max_angle_step_rad),
-            status, resid, iters, J, tan, det)
+            bool(final_jacobian), status, resid, iters, J, tan, det)
     return q, status, resid, iters, J, tan, det
 
 
@@ -287,26 +292,30 @@ def _add_point(J, n, r, j, cy, cz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coo
 @numba.njit(cache=True, error_model="numpy")
 def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0, zc0, scale,
             n_pts, src_col, ang_coord, pk_src, p_start, p_col, ty, tz, sl_pk, sl_pt, sl_coord, eq_pin, eq_slider,
-            sl_src, eq_link, eq_spring, eq_wheel, usrc, angle_col, tol, max_iter, max_step,
+            sl_src, eq_link, eq_spring, eq_wheel, usrc, angle_col, tol, max_iter, max_step, final_jacobian,
             status, resid, iters, J, tan, det):
     N, nq = Q.shape
     rows = J.shape[1]
     ang = np.empty(ang_coord.shape[0] + 1)
     cs = np.empty((ang_coord.shape[0] + 1, 2))
-    w = np.empty(V.shape[1], np.complex128)
+    wy = np.empty(V.shape[1])
+    wz = np.empty(V.shape[1])
     x = np.empty((n_pts, 2))
     ry = np.empty(V.shape[1])
     rz = np.empty(V.shape[1])
     uy = np.empty(U.shape[1])
     uz = np.empty(U.shape[1])
     F = np.empty(rows)
+    gsc = np.empty((2, 2))          # sin, cos of each wheel's camber
     A = np.empty((nq, nq))
-    B = np.empty((nq, 1))
-    rhs = np.empty((rows, 1))
-    # the residual and Jacobian of one state: an inner function, which numba inlines (a call with
-    # forty array arguments costs more than the arithmetic)
-    def evaluate(i, n, lean_n):
-        """Residual F (m,) and Jacobian J[n] (m, n_q + 1) of state n, constants in row i (solver.residual)."""
+    B = np.empty((nq, 2))
+    rhs = np.empty((rows, 2))
+    # The residual and the Jacobian of one state, as inner functions, which numba inlines (a call
+    # with forty array arguments costs more than the arithmetic). residual() leaves the rotated
+    # pair vectors, slide directions and positions in the scratch arrays; jacobian() writes
+    # J[n] from them, so a converged state needs no Jacobian unless it is asked for.
+    def residual(i, n, lean_n):
+        """Residual F (m,) of state n, constants in row i (kinematics.solver.residual)."""
         nq = Q.shape[1]
         ang[0] = lean_n
         for k in range(ang_coord.shape[0]):
@@ -315,74 +324,59 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
             cs[k, 0] = np.cos(ang[k])
             cs[k, 1] = np.sin(ang[k])
         for k in range(V.shape[1]):
-            w[k] = V[i, k]
+            wy[k] = V[i, k].real
+            wz[k] = V[i, k].imag
         for s_ in range(sl_pk.shape[0]):
-            w[sl_pk[s_]] += U[i, s_] * Q[n, sl_coord[s_]]
+            qs_ = Q[n, sl_coord[s_]]
+            wy[sl_pk[s_]] += U[i, s_].real * qs_
+            wz[sl_pk[s_]] += U[i, s_].imag * qs_
             c, s = cs[pk_src[sl_pk[s_]], 0], cs[pk_src[sl_pk[s_]], 1]
             uy[s_] = c * U[i, s_].real + s * U[i, s_].imag
             uz[s_] = c * U[i, s_].imag - s * U[i, s_].real
         for j in range(x.shape[0]):
-            x[j, 0] = Q[n, ty[j]]
-            x[j, 1] = Q[n, tz[j]]
+            xy = Q[n, ty[j]]
+            xz = Q[n, tz[j]]
             for k in range(p_start[j], p_start[j + 1]):
                 c, s = cs[pk_src[k], 0], cs[pk_src[k], 1]
                 # exp(-i a) (wy + i wz) = (c wy + s wz) + i (c wz - s wy)
-                ry[k] = c * w[k].real + s * w[k].imag
-                rz[k] = c * w[k].imag - s * w[k].real
-                x[j, 0] += ry[k]
-                x[j, 1] += rz[k]
-        for a in range(J.shape[1]):
-            for c in range(J.shape[2]):
-                J[n, a, c] = 0.0
+                ry[k] = c * wy[k] + s * wz[k]
+                rz[k] = c * wz[k] - s * wy[k]
+                xy += ry[k]
+                xz += rz[k]
+            x[j, 0] = xy
+            x[j, 1] = xz
         r0 = 0
         for e in range(eq_pin.shape[0]):
             a, b = eq_pin[e, 0], eq_pin[e, 1]
-            for d in range(2):
-                F[r0] = x[a, d] - x[b, d]
-                _add_point(J, n, r0, a, 1.0 - d, float(d), ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-                _add_point(J, n, r0, b, d - 1.0, -float(d), ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-                r0 += 1
+            F[r0] = x[a, 0] - x[b, 0]
+            F[r0 + 1] = x[a, 1] - x[b, 1]
+            r0 += 2
         for e in range(eq_slider.shape[0]):
             f, p = eq_slider[e, 0], eq_slider[e, 2]
-            tha, thb = ang[sl_src[e, 0]], ang[sl_src[e, 1]]
             c, s = cs[sl_src[e, 0], 0], cs[sl_src[e, 0], 1]
             ny = c * n0[i, e, 0] + s * n0[i, e, 1]
             nz = -s * n0[i, e, 0] + c * n0[i, e, 1]
-            dy, dz = x[p, 0] - x[f, 0], x[p, 1] - x[f, 1]
-            F[r0] = ny * dy + nz * dz
-            _add_point(J, n, r0, p, ny, nz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-            _add_point(J, n, r0, f, -ny, -nz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-            ca, cb = src_col[sl_src[e, 0]], src_col[sl_src[e, 1]]
-            J[n, r0, ca] += nz * dy - ny * dz
-            F[r0 + 1] = (thb - tha) * Lc[i]
-            J[n, r0 + 1, ca] -= Lc[i]
-            J[n, r0 + 1, cb] += Lc[i]
+            F[r0] = ny * (x[p, 0] - x[f, 0]) + nz * (x[p, 1] - x[f, 1])
+            F[r0 + 1] = (ang[sl_src[e, 1]] - ang[sl_src[e, 0]]) * Lc[i]
             r0 += 2
-        for e in range(eq_link.shape[0] + (eq_spring.shape[0] if stage == 0 else 0)):
+        n_len = eq_link.shape[0] + (eq_spring.shape[0] if stage == 0 else 0)
+        for e in range(n_len):
             if e < eq_link.shape[0]:
                 a, b, L0 = eq_link[e, 0], eq_link[e, 1], L_link[i, e]
             else:
-                a, b, L0 = eq_spring[e - eq_link.shape[0], 0], eq_spring[e - eq_link.shape[0], 1], tgt[n, e - eq_link.shape[0]]
+                k = e - eq_link.shape[0]
+                a, b, L0 = eq_spring[k, 0], eq_spring[k, 1], tgt[n, k]
             dy, dz = x[a, 0] - x[b, 0], x[a, 1] - x[b, 1]
-            L = np.sqrt(dy * dy + dz * dz)
-            F[r0] = L - L0
-            _add_point(J, n, r0, a, dy / L, dz / L, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-            _add_point(J, n, r0, b, -dy / L, -dz / L, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            F[r0] = np.sqrt(dy * dy + dz * dz) - L0
             r0 += 1
-            if stage == 1 and e == eq_link.shape[0] - 1:
-                break
         if stage == 1:
             for k in range(2):
-                j = eq_wheel[k]
-                F[r0] = x[j, 1] - Q[n, 1] - zc0[i, k] - tgt[n, 0]
-                _add_point(J, n, r0, j, 0.0, 1.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-                J[n, r0, 1] -= 1.0
+                F[r0] = x[eq_wheel[k], 1] - Q[n, 1] - zc0[i, k] - tgt[n, 0]
                 r0 += 1
             for h in range(hold.shape[1]):
                 s = 0.0
                 for c in range(nq):
                     s += hold[i, h, c] * Q[n, c] / scale[i, c]
-                    J[n, r0, c] = hold[i, h, c] / scale[i, c]
                 F[r0] = s
                 r0 += 1
         lat = 0.0
@@ -390,15 +384,65 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
             j = eq_wheel[k]
             g = gamma0[i, k] + ang[usrc[k]]
             Rr = R[i, k] - r[i, k]
-            sg, cg = np.sin(g), np.cos(g)
-            F[r0 + k] = x[j, 1] - Rr * cg - r[i, k]
+            gsc[k, 0], gsc[k, 1] = np.sin(g), np.cos(g)
+            F[r0 + k] = x[j, 1] - Rr * gsc[k, 1] - r[i, k]
+            lat += x[j, 0] - Rr * gsc[k, 0]
+        F[r0 + 2] = 0.5 * lat
+
+    def jacobian(i, n):
+        """Jacobian J[n] (m, n_q + 1) of the state residual() was last called for."""
+        nq = Q.shape[1]
+        for a in range(J.shape[1]):
+            for c in range(J.shape[2]):
+                J[n, a, c] = 0.0
+        r0 = 0
+        for e in range(eq_pin.shape[0]):
+            a, b = eq_pin[e, 0], eq_pin[e, 1]
+            for d in range(2):
+                _add_point(J, n, r0, a, 1.0 - d, float(d), ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+                _add_point(J, n, r0, b, d - 1.0, -float(d), ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+                r0 += 1
+        for e in range(eq_slider.shape[0]):
+            f, p = eq_slider[e, 0], eq_slider[e, 2]
+            c, s = cs[sl_src[e, 0], 0], cs[sl_src[e, 0], 1]
+            ny = c * n0[i, e, 0] + s * n0[i, e, 1]
+            nz = -s * n0[i, e, 0] + c * n0[i, e, 1]
+            dy, dz = x[p, 0] - x[f, 0], x[p, 1] - x[f, 1]
+            _add_point(J, n, r0, p, ny, nz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            _add_point(J, n, r0, f, -ny, -nz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            ca, cb = src_col[sl_src[e, 0]], src_col[sl_src[e, 1]]
+            J[n, r0, ca] += nz * dy - ny * dz
+            J[n, r0 + 1, ca] -= Lc[i]
+            J[n, r0 + 1, cb] += Lc[i]
+            r0 += 2
+        n_len = eq_link.shape[0] + (eq_spring.shape[0] if stage == 0 else 0)
+        for e in range(n_len):
+            if e < eq_link.shape[0]:
+                a, b = eq_link[e, 0], eq_link[e, 1]
+            else:
+                a, b = eq_spring[e - eq_link.shape[0], 0], eq_spring[e - eq_link.shape[0], 1]
+            dy, dz = x[a, 0] - x[b, 0], x[a, 1] - x[b, 1]
+            L = np.sqrt(dy * dy + dz * dz)
+            _add_point(J, n, r0, a, dy / L, dz / L, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            _add_point(J, n, r0, b, -dy / L, -dz / L, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            r0 += 1
+        if stage == 1:
+            for k in range(2):
+                _add_point(J, n, r0, eq_wheel[k], 0.0, 1.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+                J[n, r0, 1] -= 1.0
+                r0 += 1
+            for h in range(hold.shape[1]):
+                for c in range(nq):
+                    J[n, r0, c] = hold[i, h, c] / scale[i, c]
+                r0 += 1
+        for k in range(2):
+            j = eq_wheel[k]
+            Rr = R[i, k] - r[i, k]
             _add_point(J, n, r0 + k, j, 0.0, 1.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
             _add_point(J, n, r0 + 2, j, 0.5, 0.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
             col = src_col[usrc[k]]
-            J[n, r0 + k, col] += Rr * sg
-            lat += x[j, 0] - Rr * sg
-            J[n, r0 + 2, col] -= 0.5 * Rr * cg
-        F[r0 + 2] = 0.5 * lat
+            J[n, r0 + k, col] += Rr * gsc[k, 0]
+            J[n, r0 + 2, col] -= 0.5 * Rr * gsc[k, 1]
 
     for it_ in range(N):
         i = item[it_]           # row of the item's constants
@@ -406,8 +450,9 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
         Jm = J[it_]
         prev = np.inf
         st = _MAX_ITER
+        stepped = False         # tan[it_] and det[it_] hold those of the last step's Jacobian
         for it in range(max_iter + 1):
-            evaluate(i, it_, lean[it_])
+            residual(i, it_, lean[it_])
             rmax = 0.0
             finite = True
             for k in range(rows):
@@ -435,9 +480,12 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
             if it == max_iter:
                 break
             iters[it_] += 1
+            jacobian(i, it_)
+            # the step and, from the same factors, the lean tangent of this Jacobian
             for k in range(rows):
                 rhs[k, 0] = -F[k]
-            ok, _ = _ls_solve(Jm, rows, nq, scale[i], rhs, A, B)
+                rhs[k, 1] = -Jm[k, nq]
+            ok, sign = _ls_solve(Jm, rows, nq, scale[i], rhs, A, B)
             big = 0.0
             for c in range(nq):
                 dq = B[c, 0] * scale[i, c]
@@ -446,6 +494,10 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
                     break
                 if angle_col[c] and abs(dq) > big:
                     big = abs(dq)
+            stepped = ok
+            det[it_] = sign if rows == nq else 0.0
+            for c in range(nq):
+                tan[it_, c] = B[c, 1] * scale[i, c] if ok else np.nan
             if not big == big:      # a singular step fails the item at the next check
                 for c in range(nq):
                     q[c] = np.nan
@@ -456,10 +508,91 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
             for c in range(nq):
                 q[c] += B[c, 0] * scale[i, c] * f
         status[it_] = st
-        # the lean tangent and det(J) sign at the returned state
-        for k in range(rows):
-            rhs[k, 0] = -Jm[k, nq]
-        ok, sign = _ls_solve(Jm, rows, nq, scale[i], rhs, A, B)
-        det[it_] = sign if rows == nq else 0.0
-        for c in range(nq):
-            tan[it_, c] = B[c, 0] * scale[i, c] if ok else np.nan
+        if final_jacobian or not stepped:
+            # the Jacobian, lean tangent and det(J) sign at the returned state
+            jacobian(i, it_)
+            for k in range(rows):
+                rhs[k, 0] = -Jm[k, nq]
+                rhs[k, 1] = 0.0
+            ok, sign = _ls_solve(Jm, rows, nq, scale[i], rhs, A, B)
+            det[it_] = sign if rows == nq else 0.0
+            for c in range(nq):
+                tan[it_, c] = B[c, 0] * scale[i, c] if ok else np.nan
+
+
+def predict(hist_q: list, hist_t: list, hist_phi: list, phi_new: np.ndarray) -> np.ndarray:
+    """Predicted states of a continuation step, shape (N, n_q).
+
+    With two solved states per item (``hist_*[-2]`` and ``hist_*[-1]``: states q, path tangents
+    dq/dphi, leans phi) the cubic Hermite extrapolation through both states and tangents
+    (divided differences on the nodes a, a, b, b); with one, or where the two leans coincide
+    (padded paths), the tangent line of the last state.
+    """
+    qb, tb, pb = hist_q[-1], hist_t[-1], hist_phi[-1]
+    qa, ta, pa = (hist_q[-2], hist_t[-2], hist_phi[-2]) if len(hist_q) > 1 else (qb, tb, pb)
+    out = np.empty(qb.shape)
+    c = np.ascontiguousarray
+    _predict(c(qa), c(ta), c(pa, dtype=float), c(qb), c(tb), c(pb, dtype=float), c(phi_new, dtype=float),
+             len(hist_q) > 1, out)
+    return out
+
+
+@numba.njit(cache=True, error_model="numpy")
+def _predict(qa, ta, pa, qb, tb, pb, phi, two, out):
+    N, n = qb.shape
+    for i in range(N):
+        x, a, b = phi[i], pa[i], pb[i]
+        ok = two and a != b
+        if ok:
+            H = b - a
+            for c in range(n):
+                fab = (qb[i, c] - qa[i, c]) / H
+                faab = (fab - ta[i, c]) / H
+                faabb = ((tb[i, c] - fab) / H - faab) / H
+                v = qa[i, c] + (x - a) * (ta[i, c] + (x - a) * (faab + faabb * (x - b)))
+                if not np.isfinite(v):
+                    ok = False
+                    break
+                out[i, c] = v
+        if not ok:
+            for c in range(n):
+                out[i, c] = qb[i, c] + tb[i, c] * (x - b)
+
+
+def branch_test(q_new, t_new, q_old, t_old, phi_old, phi_new, col_scale, items):
+    """Trapezoid ratio and tangent turn of continuation steps (see sweep.BRANCH_JUMP_RATIO).
+
+    On one assembly branch the secant (q_new - q_old) / dphi matches the mean of the path
+    tangents at both ends to second order in the step. Returns ``ratio`` (N,):
+    |secant - mean tangent| / (|secant| + |mean tangent|) in scaled coordinates (0 for a
+    zero step, NaN where a tangent is not finite), and ``turned`` (N,): the tangent turned
+    by more than a right angle. ``items``: the rows of ``col_scale`` (n_items, n_q).
+    """
+    N = q_new.shape[0]
+    ratio, turned = np.empty(N), np.empty(N, np.bool_)
+    c = np.ascontiguousarray
+    _branch_test(c(q_new), c(t_new), c(q_old), c(t_old), c(phi_old, dtype=float), c(phi_new, dtype=float),
+                 c(col_scale), c(items, dtype=np.int64), ratio, turned)
+    return ratio, turned
+
+
+@numba.njit(cache=True, error_model="numpy")
+def _branch_test(q1, t1, q0, t0, p0, p1, col_scale, items, ratio, turned):
+    N, n = q1.shape
+    for i in range(N):
+        row = items[i]
+        dphi = p1[i] - p0[i]
+        mis = 0.0
+        sec2 = 0.0
+        mean2 = 0.0
+        dot = 0.0
+        for c in range(n):
+            s = 1.0 / col_scale[row, c]
+            sec = (q1[i, c] - q0[i, c]) / dphi
+            mean = 0.5 * (t0[i, c] + t1[i, c])
+            mis += ((sec - mean) * s) ** 2
+            sec2 += (sec * s) ** 2
+            mean2 += (mean * s) ** 2
+            dot += t0[i, c] * t1[i, c] * s * s
+        ratio[i] = np.sqrt(mis) / max(np.sqrt(sec2) + np.sqrt(mean2), 1e-12) if dphi != 0.0 else 0.0
+        turned[i] = dot < 0.0

@@ -343,6 +343,11 @@ def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.
     minnorm = False if minnorm is None else minnorm
     if settings.engine == "compiled" and not minnorm:
         return solve_states(model, b, q0, lean, target, stage, settings)[:5]
+    return _newton_numpy(model, b, q0, lean, target, stage, settings, minnorm)[:5]
+
+
+def _newton_numpy(model: Model, b: Batch, q0, lean, target, stage: str, settings: SolveSettings, minnorm: bool):
+    """The numpy path of :func:`newton`; also returns the Jacobian of each item's last step."""
     N = q0.shape[0]
     q = q0.copy()
     status = np.full(N, MAX_ITER, dtype=np.int8)
@@ -351,6 +356,7 @@ def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.
     active = np.arange(N)
     rows = n_rows(model, stage, b.hold.shape[1] if stage == "travel" else 0)
     Jout = np.zeros((N, rows, model.n_q + 1))
+    Jstep = np.zeros_like(Jout)
     prev = np.full(N, np.inf)
     angle_cols = model.coord_kind == ANGLE
     sub, qs, ls, ts = b, q, lean, target
@@ -378,36 +384,47 @@ def newton(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.
             F, J, qs = F[keep], J[keep], qs[keep]
             sub, ls, ts = b.take(active), lean[active], target[active]
         iters[active] += 1
+        Jstep[active] = J
         dq = _ls_step(model, J[..., :model.n_q] * sub.col_scale[:, None, :], F, minnorm)
         dq *= sub.col_scale
         dq[~np.isfinite(dq)] = np.inf  # a singular step fails the item at the next check
         big = np.max(np.abs(np.where(angle_cols, dq, 0.0)), axis=1)
         f = np.minimum(1.0, settings.max_angle_step_rad / np.maximum(big, 1e-300))
         qs = qs + dq * f[:, None]
-    return q, status, resid, iters, Jout
+    return q, status, resid, iters, Jout, Jstep
 
 
 def solve_states(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.ndarray, stage: str,
-                 settings: SolveSettings = SolveSettings(), items: np.ndarray | None = None):
-    """:func:`newton`, plus the lean tangent and the det(J) sign at the solution.
+                 settings: SolveSettings = SolveSettings(), items: np.ndarray | None = None,
+                 final_jacobian: bool = True):
+    """:func:`newton`, plus the lean tangent and the det(J) sign.
 
-    ``items`` (optional, shape (N,)): the rows of ``b`` the N states belong to
-    (default: all of them, in order).
+    Parameters
+    ----------
+    items : ndarray of shape (N,), optional
+        The rows of ``b`` the N states belong to (default: all of them, in order).
+    final_jacobian : bool
+        True: J, tangent and det sign at the returned q. False: those of the
+        Jacobian of each state's last Newton step (within one converged step of
+        the returned q), which saves a Jacobian and a factorisation per state;
+        the continuation uses them for its predictor and branch guard.
 
     Returns
     -------
-    q, status, resid, iters, J : as :func:`newton`
+    q, status, resid, iters, J : as :func:`newton` (J as ``final_jacobian`` says)
     lean_tangent : ndarray of shape (N, n_q)
-        dq/dphi at the returned q (least squares of ``J_q t = -J_phi``).
+        dq/dphi of that Jacobian (least squares of ``J_q t = -J_phi``).
     det_sign : ndarray of shape (N,)
         Sign of det(J_q) for a square system (0 when singular); 0 otherwise.
     """
     if settings.engine == "compiled":
         from . import kernel  # noqa: PLC0415 (numba loads on first use)
-        return kernel.solve(model, b, q0, lean, target, stage, settings, items)
+        return kernel.solve(model, b, q0, lean, target, stage, settings, items, final_jacobian)
     if items is not None:
         b = b.take(items)
-    q, st, res, it, J = newton(model, b, q0, lean, target, stage, settings)
+    q, st, res, it, J, Jstep = _newton_numpy(model, b, q0, lean, target, stage, settings, False)
+    if not final_jacobian:
+        J = np.where((it > 0)[:, None, None], Jstep, J)
     t = tangent(model, J, J[..., model.n_q], b.col_scale)
     with np.errstate(invalid="ignore"):       # a non-finite item has sign NaN; its status says why
         sign = np.linalg.slogdet(J[..., :model.n_q])[0] if J.shape[1] == model.n_q else np.zeros(len(q))

@@ -20,6 +20,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from . import kernel
 from .model import Geometry, Model
 from .solver import (CONVERGED, FOLD, SKIPPED, STATUS_TEXT, Batch, SolveSettings, hold_free_directions, n_rows,
                      newton, residual, solve_states, tangent)
@@ -87,7 +88,6 @@ class SweepResult:
             V, U = m.design_vectors(self.geometry, m._all)
             cand = np.repeat(np.arange(C), T * L)
             if self.engine == "compiled":
-                from . import kernel  # noqa: PLC0415
                 x, _ = kernel.positions(m, q, lean, V, U, cand, "all")
             else:
                 x, _, _ = m.positions(q, lean, V[cand], U[cand], m._all)
@@ -180,6 +180,14 @@ def _lean_paths(lean_rad: np.ndarray, max_step: float):
     paths = np.array([p + [p[-1]] * (K - len(p)) for p in paths])
     index = [where[float(v)] for v in lean_rad]
     return paths, index
+
+
+def _positions(model: Model, engine: str, q, lean, b: Batch, items):
+    """Positions (N, n_needed, 2) and angle sources (N, n_ang) of states of batch items ``items``."""
+    if engine == "compiled":
+        return kernel.positions(model, q, lean, b.V, b.U, items)
+    x, _, ang = model.positions(q, lean, b.V[items], b.U[items], model._np)
+    return x, ang
 
 
 def _spring_lengths(model: Model, b: Batch, q):
@@ -302,38 +310,18 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
         """One continuation step of items ``idx`` from their last states.
 
         ``hist_q``, ``hist_phi``, ``hist_t``: the last one or two solved states of each item,
-        their leans and their path tangents dq/dphi. The predictor is the cubic Hermite
-        extrapolation through the last two states and their tangents (the tangent line from
-        a single state); its error is O(h^4) in the step h, against O(h^3) for a Lagrange
-        extrapolation through three states, which saves Newton iterations.
+        their leans and their path tangents dq/dphi. The predictor (:func:`kernel.predict`) is
+        the cubic Hermite extrapolation through the last two states and their tangents (the
+        tangent line from a single state); its error is O(h^4) in the step h, against O(h^3)
+        for a Lagrange extrapolation through three states, which saves Newton iterations.
         """
-        scale = 1.0 / bl.col_scale[idx]
-        qb, tb, b_ = hist_q[-1], hist_t[-1], hist_phi[-1][:, None]
-        x = phi_new[:, None]
-        guess = qb + tb * (x - b_)
-        if len(hist_q) > 1:
-            qa, ta, a = hist_q[-2], hist_t[-2], hist_phi[-2][:, None]
-            with np.errstate(divide="ignore", invalid="ignore"):
-                # divided differences on the nodes a, a, b, b (f[a, a] = ta, f[b, b] = tb)
-                H = b_ - a
-                fab = (qb - qa) / H
-                faab = (fab - ta) / H
-                faabb = ((tb - fab) / H - faab) / H
-                herm = qa + (x - a) * (ta + (x - a) * (faab + faabb * (x - b_)))
-            ok_h = np.all(np.isfinite(herm), axis=1)        # repeated nodes (padded paths) keep the line
-            guess[ok_h] = herm[ok_h]
+        guess = kernel.predict(hist_q, hist_t, hist_phi, phi_new)
+        # tangent and det sign of each state's last Newton step (saves a factorisation per state)
         qs, st, res, it, _, t_new, det_sign = solve_states(model, bl, guess, phi_new, held[idx], "lean",
-                                                           settings.solve, idx)
-        # trapezoid test of the step: on one branch the secant (q1 - q0) / dphi matches the mean
-        # of the path tangents dq/dphi (t_new: at the new state) at both ends to second order
-        dphi = x - b_
-        with np.errstate(divide="ignore", invalid="ignore"):
-            secant = (qs - qb) / dphi
-        mismatch = np.linalg.norm((secant - 0.5 * (tb + t_new)) * scale, axis=1)
-        size = np.linalg.norm(secant * scale, axis=1) + np.linalg.norm(0.5 * (tb + t_new) * scale, axis=1)
-        ratio = np.where(dphi[:, 0] != 0, mismatch / np.maximum(size, 1e-12), 0.0)
-        # ... and the tangent may not turn by more than a right angle within one step
-        turned = np.sum(tb * t_new * scale * scale, axis=1) < 0
+                                                           settings.solve, idx, final_jacobian=False)
+        # trapezoid test of the step, and the tangent may not turn by more than a right angle
+        ratio, turned = kernel.branch_test(qs, t_new, hist_q[-1], hist_t[-1], hist_phi[-1], phi_new,
+                                           bl.col_scale, idx)
         suspect = (st == CONVERGED) & ((ratio > BRANCH_JUMP_RATIO) | turned)
         if square:
             suspect |= (st == CONVERGED) & (det_sign != sign0[idx])
@@ -401,11 +389,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     flat_q = q_out.reshape(NL, nq)
     flat_lean = np.broadcast_to(lean_rad, (N, L)).reshape(NL)
     item_nl = np.repeat(np.arange(N), L)
-    if settings.solve.engine == "compiled":
-        from . import kernel  # noqa: PLC0415
-        x_np, ang = kernel.positions(model, flat_q, flat_lean, bt.V, bt.U, item_nl)
-    else:
-        x_np, _, ang = model.positions(flat_q, flat_lean, bt.V[item_nl], bt.U[item_nl], model._np)
+    x_np, ang = _positions(model, settings.solve.engine, flat_q, flat_lean, bt, item_nl)
     body_angle = model.body_angles(ang)
     gamma = bt.gamma0[item_nl] + body_angle[:, model.wheel_upright]
     Rr = (bt.R - bt.r)[item_nl]
@@ -418,7 +402,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
         spring_len = np.zeros((NL, 0))
 
     # references at lean 0 of the same travel
-    x0, _, ang0 = model.positions(q_ref, np.zeros(N), bt.V, bt.U, model._np)
+    x0, ang0 = _positions(model, settings.solve.engine, q_ref, np.zeros(N), bt, np.arange(N))
     g0 = bt.gamma0 + model.body_angles(ang0)[:, model.wheel_upright]
     Rr0 = bt.R - bt.r
     c0 = x0[:, model.eq_wheel, 0] - Rr0 * np.sin(g0)

@@ -88,6 +88,28 @@ def test_one_solve_agrees(case, stage):
     assert np.allclose(J, k[4], rtol=1e-9, atol=1e-9)
 
 
+def test_last_step_tangent_agrees_and_is_close(case):
+    """final_jacobian=False: both engines give the tangent of the last step's Jacobian, and it
+    is within the last Newton step of the tangent at the returned state."""
+    name, model, geom = case
+    C = geom.n_candidates
+    b = Batch(model, geom, np.arange(C))
+    rng = np.random.default_rng(11)
+    target = b.L_spring0 * rng.uniform(0.99, 1.01, size=b.L_spring0.shape)
+    lean = np.radians(rng.uniform(-10.0, 10.0, C))
+    q0 = model.design_q(C) + rng.normal(scale=1e-2, size=(C, model.n_q))
+    a = solve_states(model, b, q0, lean, target, "lean", NUMPY, final_jacobian=False)
+    k = solve_states(model, b, q0, lean, target, "lean", COMPILED, final_jacobian=False)
+    exact = solve_states(model, b, q0, lean, target, "lean", COMPILED)
+    ok = a[1] == CONVERGED
+    assert ok.any() and np.array_equal(a[1], k[1])
+    scale = np.max(np.abs(exact[5]), axis=1, keepdims=True) + 1.0
+    assert np.allclose(a[5][ok] / scale[ok], k[5][ok] / scale[ok], atol=1e-9)
+    assert np.array_equal(a[6][ok], k[6][ok])
+    assert np.allclose(k[5][ok] / scale[ok], exact[5][ok] / scale[ok], atol=1e-5)
+    assert np.array_equal(k[6][ok], exact[6][ok])
+
+
 def test_jacobian_matches_finite_differences(case):
     """The kernel's Jacobian against central differences of its own residual (h = 1e-6)."""
     name, model, geom = case
