@@ -33,7 +33,7 @@ sys.path.insert(0, str(ROOT))
 
 from kinematics import Model, load_mechanism, sweep  # noqa: E402
 from kinematics.reference import reference_sweep  # noqa: E402
-from kinematics.solver import Batch, n_rows  # noqa: E402
+from kinematics.solver import n_rows  # noqa: E402
 
 
 def candidates(model: Model, n: int, seed: int = 0) -> np.ndarray:

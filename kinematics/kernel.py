@@ -307,6 +307,7 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
     uz = np.empty(U.shape[1])
     F = np.empty(rows)
     gsc = np.empty((2, 2))          # sin, cos of each wheel's camber
+    sn = np.empty((max(eq_slider.shape[0], 1), 2))   # rotated slider guide normals
     A = np.empty((nq, nq))
     B = np.empty((nq, 2))
     rhs = np.empty((rows, 2))
@@ -354,9 +355,9 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
         for e in range(eq_slider.shape[0]):
             f, p = eq_slider[e, 0], eq_slider[e, 2]
             c, s = cs[sl_src[e, 0], 0], cs[sl_src[e, 0], 1]
-            ny = c * n0[i, e, 0] + s * n0[i, e, 1]
-            nz = -s * n0[i, e, 0] + c * n0[i, e, 1]
-            F[r0] = ny * (x[p, 0] - x[f, 0]) + nz * (x[p, 1] - x[f, 1])
+            sn[e, 0] = c * n0[i, e, 0] + s * n0[i, e, 1]         # the guide normal, rotated
+            sn[e, 1] = -s * n0[i, e, 0] + c * n0[i, e, 1]
+            F[r0] = sn[e, 0] * (x[p, 0] - x[f, 0]) + sn[e, 1] * (x[p, 1] - x[f, 1])
             F[r0 + 1] = (ang[sl_src[e, 1]] - ang[sl_src[e, 0]]) * Lc[i]
             r0 += 2
         n_len = eq_link.shape[0] + (eq_spring.shape[0] if stage == 0 else 0)
@@ -404,9 +405,7 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
                 r0 += 1
         for e in range(eq_slider.shape[0]):
             f, p = eq_slider[e, 0], eq_slider[e, 2]
-            c, s = cs[sl_src[e, 0], 0], cs[sl_src[e, 0], 1]
-            ny = c * n0[i, e, 0] + s * n0[i, e, 1]
-            nz = -s * n0[i, e, 0] + c * n0[i, e, 1]
+            ny, nz = sn[e, 0], sn[e, 1]
             dy, dz = x[p, 0] - x[f, 0], x[p, 1] - x[f, 1]
             _add_point(J, n, r0, p, ny, nz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
             _add_point(J, n, r0, f, -ny, -nz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
