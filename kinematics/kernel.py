@@ -192,13 +192,16 @@ def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray,
             t["sl_pk"], t["sl_pt"], t["sl_coord"], t["eq_pin"], t["eq_slider"], t["sl_src"], t["eq_link"],
             t["eq_spring"], t["eq_wheel"], t["usrc"], t["angle_col"],
             float(settings.tol_mm), int(settings.max_iter), float(settings.max_angle_step_rad),
-            bool(final_jacobian), status, resid, iters, J, tan, det)
+            float(settings.chord_below_mm), bool(final_jacobian), status, resid, iters, J, tan, det)
     return q, status, resid, iters, J, tan, det
 
 
 @numba.njit(cache=True, error_model="numpy")
-def _lu_solve(A, rhs, n, nr):
-    """Solve ``A X = rhs`` in place (partial pivoting). Returns (ok, det_sign); ``rhs`` has nr columns."""
+def _lu_factor(A, n, piv):
+    """LU factors of A[:n, :n] in place (partial pivoting; multipliers below the diagonal).
+
+    Returns (ok, det_sign); ``piv[k]`` is the row swapped with row k.
+    """
     sign = 1.0
     for k in range(n):
         p = k
@@ -210,49 +213,59 @@ def _lu_solve(A, rhs, n, nr):
                 p = i
         if big == 0.0 or not np.isfinite(big):
             return False, 0.0
+        piv[k] = p
         if p != k:
             sign = -sign
-            for j in range(k, n):
+            for j in range(n):
                 A[k, j], A[p, j] = A[p, j], A[k, j]
-            for j in range(nr):
-                rhs[k, j], rhs[p, j] = rhs[p, j], rhs[k, j]
         if A[k, k] < 0.0:
             sign = -sign
         inv = 1.0 / A[k, k]
         for i in range(k + 1, n):
             f = A[i, k] * inv
+            A[i, k] = f
             if f != 0.0:            # the Jacobians are sparse: skip rows with nothing to eliminate
                 for j in range(k + 1, n):
                     A[i, j] -= f * A[k, j]
-                for j in range(nr):
-                    rhs[i, j] -= f * rhs[k, j]
-    for j in range(nr):
-        for i in range(n - 1, -1, -1):
-            s = rhs[i, j]
-            for c in range(i + 1, n):
-                s -= A[i, c] * rhs[c, j]
-            rhs[i, j] = s / A[i, i]
     return True, sign
 
 
 @numba.njit(cache=True, error_model="numpy")
-def _ls_solve(Jm, rows, n, scale, rhs, A, B):
-    """Least-squares solution of ``(Jm[:, :n] * scale) y = rhs`` (rhs: (rows, nr)); y into B[:n].
+def _lu_apply(A, piv, B, n):
+    """Solve with the factors of :func:`_lu_factor`, in place on B[:n] (all its columns)."""
+    for j in range(B.shape[1]):
+        for k in range(n):          # the row swaps of the factorisation (rows of L swapped too)
+            p = piv[k]
+            if p != k:
+                B[k, j], B[p, j] = B[p, j], B[k, j]
+        for k in range(n):          # L (unit diagonal)
+            f = B[k, j]
+            if f != 0.0:
+                for i in range(k + 1, n):
+                    B[i, j] -= A[i, k] * f
+        for i in range(n - 1, -1, -1):
+            s = B[i, j]
+            for c in range(i + 1, n):
+                s -= A[i, c] * B[c, j]
+            B[i, j] = s / A[i, i]
 
-    Square: the LU solve, with the damped normal equations if it is exactly
-    singular (as :func:`kinematics.solver._ls_step`); otherwise the normal
-    equations with a vanishing Tikhonov term. Returns (ok, det_sign).
+
+@numba.njit(cache=True, error_model="numpy")
+def _ls_factor(Jm, rows, n, scale, A, piv):
+    """Factor the least-squares step of ``(Jm[:, :n] * scale) y = rhs``.
+
+    Square: the LU factors of the scaled Jacobian, or, if it is exactly
+    singular, of the damped normal equations (as :func:`kinematics.solver._ls_step`);
+    otherwise the normal equations with a vanishing Tikhonov term.
+    Returns (ok, det_sign, normal): det_sign 0 unless square and not singular.
     """
-    nr = rhs.shape[1]
     if rows == n:
         for i in range(n):
             for j in range(n):
                 A[i, j] = Jm[i, j] * scale[j]
-            for j in range(nr):
-                B[i, j] = rhs[i, j]
-        ok, sign = _lu_solve(A, B, n, nr)
+        ok, sign = _lu_factor(A, n, piv)
         if ok:
-            return True, sign
+            return True, sign, False
     dmax = 1.0
     for i in range(n):
         for j in range(n):
@@ -262,15 +275,25 @@ def _ls_solve(Jm, rows, n, scale, rhs, A, B):
             A[i, j] = s * scale[i] * scale[j]
         if A[i, i] > dmax:
             dmax = A[i, i]
-        for j in range(nr):
-            s = 0.0
-            for r in range(rows):
-                s += Jm[r, i] * rhs[r, j]
-            B[i, j] = s * scale[i]
     for i in range(n):
         A[i, i] += 1e-13 * dmax
-    ok, _ = _lu_solve(A, B, n, nr)
-    return ok, 0.0
+    ok, _ = _lu_factor(A, n, piv)
+    return ok, 0.0, True
+
+
+@numba.njit(cache=True, error_model="numpy")
+def _ls_apply(Jm, rows, n, scale, A, piv, normal, rhs, B):
+    """The step y of :func:`_ls_factor`'s factors for each column of rhs (rows, nr), into B[:n]."""
+    for j in range(rhs.shape[1]):
+        for i in range(n):
+            if normal:
+                s = 0.0
+                for r in range(rows):
+                    s += Jm[r, i] * rhs[r, j]
+                B[i, j] = s * scale[i]
+            else:
+                B[i, j] = rhs[i, j]
+    _lu_apply(A, piv, B, n)
 
 
 @numba.njit(cache=True, error_model="numpy", inline="always")
@@ -292,7 +315,7 @@ def _add_point(J, n, r, j, cy, cz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coo
 @numba.njit(cache=True, error_model="numpy")
 def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0, zc0, scale,
             n_pts, src_col, ang_coord, pk_src, p_start, p_col, ty, tz, sl_pk, sl_pt, sl_coord, eq_pin, eq_slider,
-            sl_src, eq_link, eq_spring, eq_wheel, usrc, angle_col, tol, max_iter, max_step, final_jacobian,
+            sl_src, eq_link, eq_spring, eq_wheel, usrc, angle_col, tol, max_iter, max_step, chord_below, final_jacobian,
             status, resid, iters, J, tan, det):
     N, nq = Q.shape
     rows = J.shape[1]
@@ -311,6 +334,8 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
     A = np.empty((nq, nq))
     B = np.empty((nq, 2))
     rhs = np.empty((rows, 2))
+    piv = np.empty(nq, np.int64)
+    ok, normal = False, False
     # The residual and the Jacobian of one state, as inner functions, which numba inlines (a call
     # with forty array arguments costs more than the arithmetic). residual() leaves the rotated
     # pair vectors, slide directions and positions in the scratch arrays; jacobian() writes
@@ -450,6 +475,9 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
         prev = np.inf
         st = _MAX_ITER
         stepped = False         # tan[it_] and det[it_] hold those of the last step's Jacobian
+        chord_ok = False        # factors of an earlier step may be reused (a chord step)
+        was_chord = False
+        r_last = np.inf
         for it in range(max_iter + 1):
             residual(i, it_, lean[it_])
             rmax = 0.0
@@ -479,12 +507,24 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
             if it == max_iter:
                 break
             iters[it_] += 1
-            jacobian(i, it_)
-            # the step and, from the same factors, the lean tangent of this Jacobian
+            # near the solution the factors of the last Jacobian serve again (a chord step)
+            # unless the last chord step did not cut the residual tenfold
+            if was_chord and rmax > 0.1 * r_last:
+                chord_ok = False
+            use_chord = chord_ok and rmax <= chord_below
+            if not use_chord:
+                jacobian(i, it_)
+                ok, sign, normal = _ls_factor(Jm, rows, nq, scale[i], A, piv)
+                det[it_] = sign if rows == nq else 0.0
+            chord_ok = True
+            was_chord = use_chord
+            r_last = rmax
+            # the step and, from the same factors, the lean tangent of their Jacobian
             for k in range(rows):
                 rhs[k, 0] = -F[k]
                 rhs[k, 1] = -Jm[k, nq]
-            ok, sign = _ls_solve(Jm, rows, nq, scale[i], rhs, A, B)
+            if ok:
+                _ls_apply(Jm, rows, nq, scale[i], A, piv, normal, rhs, B)
             big = 0.0
             for c in range(nq):
                 dq = B[c, 0] * scale[i, c]
@@ -494,7 +534,6 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
                 if angle_col[c] and abs(dq) > big:
                     big = abs(dq)
             stepped = ok
-            det[it_] = sign if rows == nq else 0.0
             for c in range(nq):
                 tan[it_, c] = B[c, 1] * scale[i, c] if ok else np.nan
             if not big == big:      # a singular step fails the item at the next check
@@ -513,7 +552,9 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
             for k in range(rows):
                 rhs[k, 0] = -Jm[k, nq]
                 rhs[k, 1] = 0.0
-            ok, sign = _ls_solve(Jm, rows, nq, scale[i], rhs, A, B)
+            ok, sign, normal = _ls_factor(Jm, rows, nq, scale[i], A, piv)
+            if ok:
+                _ls_apply(Jm, rows, nq, scale[i], A, piv, normal, rhs, B)
             det[it_] = sign if rows == nq else 0.0
             for c in range(nq):
                 tan[it_, c] = B[c, 0] * scale[i, c] if ok else np.nan

@@ -48,6 +48,12 @@ class SolveSettings:
     tol_mm : largest equation residual accepted as converged, mm.
     max_iter : iteration limit per solve.
     max_angle_step_rad : largest change of any angle in one iteration.
+    chord_below_mm : below this largest residual a Newton step reuses the
+        Jacobian (and, compiled, its LU factors) of the item's previous step, a
+        chord step: from a good predictor that cuts the residual to about its
+        square times the distance moved, so convergence is unchanged while
+        a Jacobian and a factorisation are saved. A chord step that does not
+        cut the residual tenfold stops chord steps for that item. 0 disables it.
     engine : {'compiled', 'numpy'}
         'compiled' runs the iteration per item in numba-compiled code
         (:mod:`kinematics.kernel`); 'numpy' is the array-at-a-time reference
@@ -57,6 +63,7 @@ class SolveSettings:
     tol_mm: float = 1e-10
     max_iter: int = 30
     max_angle_step_rad: float = 0.25
+    chord_below_mm: float = 1e-6
     engine: str = "compiled"
 
     def __post_init__(self):
@@ -358,6 +365,9 @@ def _newton_numpy(model: Model, b: Batch, q0, lean, target, stage: str, settings
     Jout = np.zeros((N, rows, model.n_q + 1))
     Jstep = np.zeros_like(Jout)
     prev = np.full(N, np.inf)
+    chord_ok = np.zeros(N, bool)         # an earlier step's Jacobian may be reused (chord step)
+    was_chord = np.zeros(N, bool)
+    r_last = np.full(N, np.inf)
     angle_cols = model.coord_kind == ANGLE
     sub, qs, ls, ts = b, q, lean, target
     for it in range(settings.max_iter + 1):
@@ -381,10 +391,16 @@ def _newton_numpy(model: Model, b: Batch, q0, lean, target, stage: str, settings
             break
         if not keep.all():
             active = active[keep]
-            F, J, qs = F[keep], J[keep], qs[keep]
+            F, J, qs, rmax = F[keep], J[keep], qs[keep], rmax[keep]
             sub, ls, ts = b.take(active), lean[active], target[active]
         iters[active] += 1
-        Jstep[active] = J
+        a = active
+        chord_ok[a] &= ~(was_chord[a] & (rmax > 0.1 * r_last[a]))
+        use = chord_ok[a] & (rmax <= settings.chord_below_mm)
+        if use.any():
+            J = np.where(use[:, None, None], Jstep[a], J)
+        Jstep[a] = J
+        chord_ok[a], was_chord[a], r_last[a] = True, use, rmax
         dq = _ls_step(model, J[..., :model.n_q] * sub.col_scale[:, None, :], F, minnorm)
         dq *= sub.col_scale
         dq[~np.isfinite(dq)] = np.inf  # a singular step fails the item at the next check

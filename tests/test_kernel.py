@@ -98,16 +98,36 @@ def test_last_step_tangent_agrees_and_is_close(case):
     target = b.L_spring0 * rng.uniform(0.99, 1.01, size=b.L_spring0.shape)
     lean = np.radians(rng.uniform(-10.0, 10.0, C))
     q0 = model.design_q(C) + rng.normal(scale=1e-2, size=(C, model.n_q))
-    a = solve_states(model, b, q0, lean, target, "lean", NUMPY, final_jacobian=False)
-    k = solve_states(model, b, q0, lean, target, "lean", COMPILED, final_jacobian=False)
     exact = solve_states(model, b, q0, lean, target, "lean", COMPILED)
-    ok = a[1] == CONVERGED
-    assert ok.any() and np.array_equal(a[1], k[1])
     scale = np.max(np.abs(exact[5]), axis=1, keepdims=True) + 1.0
-    assert np.allclose(a[5][ok] / scale[ok], k[5][ok] / scale[ok], atol=1e-9)
-    assert np.array_equal(a[6][ok], k[6][ok])
-    assert np.allclose(k[5][ok] / scale[ok], exact[5][ok] / scale[ok], atol=1e-5)
-    assert np.array_equal(k[6][ok], exact[6][ok])
+    # chord steps (default): the tangent of the last factorised Jacobian, which may be that of
+    # the start (here 1e-2 off); without them, that of the last Newton iterate
+    for chord, atol in ((SolveSettings().chord_below_mm, 1e-2), (0.0, 1e-5)):
+        a = solve_states(model, b, q0, lean, target, "lean", SolveSettings(engine="numpy", chord_below_mm=chord),
+                         final_jacobian=False)
+        k = solve_states(model, b, q0, lean, target, "lean", SolveSettings(chord_below_mm=chord),
+                         final_jacobian=False)
+        ok = a[1] == CONVERGED
+        assert ok.any() and np.array_equal(a[1], k[1]) and np.array_equal(a[3], k[3])
+        assert np.allclose(a[5][ok] / scale[ok], k[5][ok] / scale[ok], atol=1e-9)
+        assert np.array_equal(a[6][ok], k[6][ok])
+        assert np.allclose(k[5][ok] / scale[ok], exact[5][ok] / scale[ok], atol=atol)
+        assert np.array_equal(k[6][ok], exact[6][ok])
+        assert np.allclose(k[0][ok], exact[0][ok], atol=1e-9)
+
+
+def test_chord_steps_keep_the_solution():
+    """Chord steps change the path to the solution, not the solution: a sweep with and without."""
+    model = Model(load_mechanism(CONFIGS / "wishbone_rocker.toml"))
+    geom = model.batch_geometry(variants(model, 12, seed=4))
+    leans, travels = np.arange(0.0, 40.0 + 1e-9, 5.0), [-25.0, 0.0, 25.0]
+    a = sweep(model, geom, leans, travels, SweepSettings(solve=SolveSettings(chord_below_mm=0.0)))
+    b = sweep(model, geom, leans, travels)
+    assert np.array_equal(a.status, b.status)
+    ok = a.converged
+    assert ok.mean() > 0.9
+    assert np.max(np.abs(a.q[ok] - b.q[ok])) < 1e-9
+    assert np.max(b.residual_mm[ok]) <= SolveSettings().tol_mm
 
 
 def test_jacobian_matches_finite_differences(case):
