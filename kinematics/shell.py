@@ -497,11 +497,11 @@ def signed_distance_yz(shell: Shell, y, z, x_mm, *, lower_bound: bool = False) -
 def inside_level(shell: Shell, yz: np.ndarray, x_mm) -> np.ndarray:
     """A function with the same zero set and sign as the section distance, cheap (for root finding)."""
     yz = np.asarray(yz, float)
-    x = np.broadcast_to(np.asarray(x_mm, float), yz.shape[:-1])
+    x = np.asarray(x_mm, float)
     if shell.kind == "superellipse":
-        a, b, zc, n = superellipse_params(shell, x)
+        a, b, zc, n = superellipse_params(shell, x)    # once when x is one value (tubes in the linkage plane)
         return np.abs(yz[..., 0] / a) ** n + np.abs((yz[..., 1] - zc) / b) ** n - 1.0
-    return section_distance(shell, yz, x)
+    return section_distance(shell, yz, np.broadcast_to(x, yz.shape[:-1]))
 
 
 # ------------------------------------------------------------ extents

@@ -1,0 +1,394 @@
+"""Compiled per-item kernel of the clearance search (numba).
+
+:func:`search` runs, for each (state, wheel) item in one compiled loop, the same search as the
+numpy reference :func:`kinematics.clearance._search` (the coarse grid, the coordinate refinement,
+and the error estimate of :func:`kinematics.clearance._estimate`) with the same distance
+functions as :mod:`kinematics.shell` and :func:`kinematics.clearance._segment_distance`, written
+here for one point at a time. The numpy path stays the reference: ``tests/test_clearance_kernel.py``
+checks both against each other and against closed forms.
+
+What the compiled loop saves is the numpy call overhead and the temporary arrays of a batch of
+a few thousand items; the arithmetic is the same, in double precision throughout (the numpy path
+evaluates the coarse grid in single precision, so a coarse near-tie may pick a neighbouring basin;
+both results are reached distances within their error estimates).
+
+Item data are packed in one array ``q`` of shape (n_items, N_COLUMNS), columns named below.
+"""
+from __future__ import annotations
+
+import math
+
+import numba
+import numpy as np
+
+# columns of the item array q
+CX, CY, CZ, PX, PY, PZ, EX, EY, EZ, SG, CG, RHO, R, DMAX, ARM, TY, TZ, CL, SL = range(19)
+N_COLUMNS = 19
+
+# what the item's clearance is measured to
+SHELL_SUPERELLIPSE, SHELL_POLYGON, MEMBERS = 0, 1, 2
+
+_NEWTON_ITERATIONS = 5      # as kinematics.shell
+_CHART_LIMIT = 0.9
+
+
+# ------------------------------------------------------------------ superellipse
+@numba.njit(cache=True)
+def _newton(Z, u, v, a, b, n, inv_n, zmax, ab, ab_b):
+    """One step of kinematics.shell._chart's Newton iteration on the arc Y = a (1 - (Z/b)^n)^(1/n).
+
+    ab = a / b and ab_b = ab / b are the chart's constants (the same values numpy computes).
+    """
+    t = Z / b
+    p2 = t ** (n - 2.0)
+    w = p2 * t * t
+    om = 1.0 - w
+    q = om ** (inv_n - 1.0)
+    Y = a * q * om
+    dY = -ab * p2 * t * q
+    d2Y = -ab_b * (n - 1.0) * p2 * q / om
+    e = Y - u
+    g1 = e * dY + (Z - v)
+    g2 = dY * dY + e * d2Y + 1.0
+    g2 = max(g2, 0.25 * (1.0 + dY * dY))
+    return min(max(Z - g1 / g2, 0.0), zmax)
+
+
+@numba.njit(cache=True)
+def superellipse_distance(y, z, a, b, n):
+    """kinematics.shell.superellipse_distance for one point.
+
+    The same two Newton charts (z free, then y free), run side by side so that the two chains of
+    powers overlap in the processor. A chart whose step leaves Z unchanged has reached the fixed
+    point of its iteration: its remaining steps would change nothing, so they are skipped.
+    """
+    u, v = abs(y), abs(z)
+    inv_n = 1.0 / n
+    gauge = (u / a) ** n + (v / b) ** n                 # the same sum in both charts
+    G = max(gauge, 1e-300) ** inv_n
+    lim = _CHART_LIMIT ** inv_n
+    zs_max, zt_max = b * lim, a * lim
+    Zs = min(max(min(v, v / max(G, 1e-12)), 0.0), zs_max)   # side chart: (u, v, a, b)
+    Zt = min(max(min(u, u / max(G, 1e-12)), 0.0), zt_max)   # top chart: (v, u, b, a)
+    abs_, bat = a / b, b / a
+    abs_b, bat_a = abs_ / b, bat / a
+    done_s = done_t = False
+    for _ in range(_NEWTON_ITERATIONS):
+        if not done_s:
+            Zn = _newton(Zs, u, v, a, b, n, inv_n, zs_max, abs_, abs_b)
+            done_s = Zn == Zs
+            Zs = Zn
+        if not done_t:
+            Zn = _newton(Zt, v, u, b, a, n, inv_n, zt_max, bat, bat_a)
+            done_t = Zn == Zt
+            Zt = Zn
+        if done_s and done_t:
+            break
+    ts, tt = Zs / b, Zt / a
+    Ys = a * (1.0 - ts ** n) ** inv_n
+    Yt = b * (1.0 - tt ** n) ** inv_n
+    d_side = (Ys - u) ** 2 + (Zs - v) ** 2
+    d_top = (Yt - v) ** 2 + (Zt - u) ** 2
+    d = math.sqrt(min(d_side, d_top))
+    return -d if gauge < 1.0 else d
+
+
+@numba.njit(cache=True)
+def superellipse_lower_bound(y, z, a, b, n):
+    """kinematics.shell.superellipse_distance_lower_bound for one point."""
+    u, v = abs(y) / a, abs(z) / b
+    pu, pv = u ** n, v ** n
+    S = max(pu + pv, 1e-30)
+    G = S ** (1.0 / n)
+    gy = pu / max(u, 1e-30) / a
+    gz = pv / max(v, 1e-30) / b
+    grad = (G / S) * math.sqrt(gy * gy + gz * gz)
+    return (G - 1.0) / max(grad, 1e-30)
+
+
+@numba.njit(cache=True)
+def _segment(xs, x):
+    """Bay index and fraction of x between the stations xs (x clamped), as kinematics.shell."""
+    m = len(xs)
+    xc = min(max(x, xs[0]), xs[m - 1])
+    i = 0
+    while i < m - 2 and xs[i + 1] <= xc:          # searchsorted(xs, xc, 'right') - 1, clipped
+        i += 1
+    return i, (xc - xs[i]) / (xs[i + 1] - xs[i])
+
+
+@numba.njit(cache=True)
+def _with_caps(d, x, x0, x1):
+    """kinematics.shell.signed_distance_yz: the section distance d with the flat end caps."""
+    beyond = max(x0 - x, x - x1)
+    if beyond > 0:
+        return math.hypot(beyond, d) if d > 0 else beyond
+    to_cap = min(x - x0, x1 - x)
+    return -min(-d, max(to_cap, 0.0)) if d < 0 else d
+
+
+@numba.njit(cache=True)
+def superellipse_shell_distance(tab, y, z, x, lower_bound):
+    """Signed distance (chassis frame) to a superellipse shell, caps included.
+
+    tab : ndarray of shape (n_stations, 5): x, half width, half height, centre z, exponent.
+    """
+    i, t = _segment(tab[:, 0], x)
+    a = tab[i, 1] + (tab[i + 1, 1] - tab[i, 1]) * t
+    b = tab[i, 2] + (tab[i + 1, 2] - tab[i, 2]) * t
+    zc = tab[i, 3] + (tab[i + 1, 3] - tab[i, 3]) * t
+    n = tab[i, 4] + (tab[i + 1, 4] - tab[i, 4]) * t
+    if lower_bound:
+        d = superellipse_lower_bound(y, z - zc, a, b, n)
+    else:
+        d = superellipse_distance(y, z - zc, a, b, n)
+    return _with_caps(d, x, tab[0, 0], tab[len(tab) - 1, 0])
+
+
+# ------------------------------------------------------------------ polygons
+@numba.njit(cache=True)
+def polygon_shell_distance(xs, outlines, y, z, x, offset):
+    """Signed distance (chassis frame) to a polygon shell (sections linear in x), caps included.
+
+    kinematics.shell.polygon_distance of the section interpolated at x, less ``offset`` (the
+    thinned outline's error bound when ``outlines`` are the coarse ones), then the end caps.
+    """
+    i, t = _segment(xs, x)
+    V = outlines.shape[1]
+    best = np.inf
+    crossings = 0
+    s0 = 1.0 - t
+    y1 = outlines[i, 0, 0] * s0 + outlines[i + 1, 0, 0] * t
+    z1 = outlines[i, 0, 1] * s0 + outlines[i + 1, 0, 1] * t
+    for k in range(V):
+        y0, z0 = y1, z1                             # edge from vertex k to vertex k + 1, as in numpy
+        kn = k + 1 if k + 1 < V else 0
+        y1 = outlines[i, kn, 0] * s0 + outlines[i + 1, kn, 0] * t
+        z1 = outlines[i, kn, 1] * s0 + outlines[i + 1, kn, 1] * t
+        ey, ez = y1 - y0, z1 - z0
+        wy, wz = y - y0, z - z0
+        L2 = max(ey * ey + ez * ez, 1e-300)
+        s = min(max((wy * ey + wz * ez) / L2, 0.0), 1.0)
+        dy, dz = wy - s * ey, wz - s * ez
+        d2 = dy * dy + dz * dz
+        if d2 < best:
+            best = d2
+        if (z0 > z) != (z1 > z):
+            if y < y0 + (z - z0) * ey / (ez if ez != 0 else 1.0):
+                crossings += 1
+    d = math.sqrt(best)
+    if crossings % 2 == 1:
+        d = -d
+    return _with_caps(d - offset, x, xs[0], xs[len(xs) - 1])
+
+
+# ------------------------------------------------------------------ one point of one item
+@numba.njit(cache=True)
+def _value(mode, exact, q, i, x, y, z, tab, outlines, coarse, coarse_err, mem, mem_ex, xs):
+    """Clearance (distance minus crown radius) of world crown point (x, y, z) of item i."""
+    if mode == MEMBERS:
+        best = np.inf
+        for m in range(mem.shape[1]):
+            if mem_ex[i, m]:
+                continue
+            ay, az, ey, ez = mem[i, m, 0], mem[i, m, 1], mem[i, m, 2], mem[i, m, 3]
+            wy, wz = y - ay, z - az
+            s = min(max((wy * ey + wz * ez) * mem[i, m, 4], 0.0), 1.0)
+            wy -= s * ey
+            wz -= s * ez
+            dx = x - xs
+            d = math.sqrt(wy * wy + wz * wz + dx * dx) - mem[i, m, 5]
+            if d < best:
+                best = d
+        return best - q[i, R]
+    dy, dz = y - q[i, TY], z - q[i, TZ]
+    c, s = q[i, CL], q[i, SL]
+    yc, zc = c * dy - s * dz, s * dy + c * dz
+    if mode == SHELL_SUPERELLIPSE:
+        d = superellipse_shell_distance(tab, yc, zc, x, not exact)
+    elif exact:
+        d = polygon_shell_distance(tab[:, 0], outlines, yc, zc, x, 0.0)
+    else:
+        d = polygon_shell_distance(tab[:, 0], coarse, yc, zc, x, coarse_err)
+    return d - q[i, R]
+
+
+@numba.njit(cache=True)
+def _rotate(vx, vy, vz, ex, ey, ez, c, s):
+    """kinematics.clearance._rotate for one vector."""
+    dot = (ex * vx + ey * vy + ez * vz) * (1.0 - c)
+    cx = ey * vz - ez * vy
+    cy = ez * vx - ex * vz
+    cz = ex * vy - ey * vx
+    return vx * c + cx * s + ex * dot, vy * c + cy * s + ey * dot, vz * c + cz * s + ez * dot
+
+
+@numba.njit(cache=True)
+def _frame(q, i, delta):
+    """Steered crown frame of item i: centre (from the axis point), forward and up unit vectors."""
+    cd, sd = math.cos(delta), math.sin(delta)
+    ex, ey, ez = q[i, EX], q[i, EY], q[i, EZ]
+    c = _rotate(q[i, CX] - q[i, PX], q[i, CY] - q[i, PY], q[i, CZ] - q[i, PZ], ex, ey, ez, cd, sd)
+    f = _rotate(1.0, 0.0, 0.0, ex, ey, ez, cd, sd)
+    u = _rotate(0.0, q[i, SG], q[i, CG], ex, ey, ez, cd, sd)
+    return c, f, u
+
+
+@numba.njit(cache=True)
+def _point(q, i, fr, theta):
+    return _point_cs(q, i, fr, math.cos(theta), math.sin(theta))
+
+
+@numba.njit(cache=True)
+def _point_cs(q, i, fr, ct, st):
+    """World crown point of item i at the crown angle with cosine ct and sine st, in frame fr."""
+    c, f, u = fr
+    rc = q[i, RHO] * ct
+    rs = q[i, RHO] * st
+    return (c[0] + q[i, PX] + f[0] * rc + u[0] * rs, c[1] + q[i, PY] + f[1] * rc + u[1] * rs,
+            c[2] + q[i, PZ] + f[2] * rc + u[2] * rs)
+
+
+@numba.njit(cache=True)
+def _eval(mode, exact, q, i, delta, theta, tab, outlines, coarse, coarse_err, mem, mem_ex, xs):
+    x, y, z = _point(q, i, _frame(q, i, delta), theta)
+    return _value(mode, exact, q, i, x, y, z, tab, outlines, coarse, coarse_err, mem, mem_ex, xs)
+
+
+@numba.njit(cache=True)
+def _lower(D, rho, arm, h_t, h_d):
+    """kinematics.clearance._lower for one sample."""
+    s_lip = rho * h_t + arm * h_d
+    Dm = max(D + s_lip, 0.0)
+    A = 2 * (rho * h_t) ** 2 + 2 * (arm * h_d) ** 2 + Dm * (rho * h_t ** 2 + arm * h_d ** 2)
+    semi = math.sqrt(max(D * D - A, 0.0)) if (D > 0 and D * D > A) else -np.inf
+    return max(semi, D - s_lip)
+
+
+@numba.njit(cache=True)
+def _better(f1, f2, fb):
+    """The numpy step rule: index (0, 1) of the first smaller of two trials if it beats fb, else -1.
+
+    A NaN trial is never taken (numpy's argmin picks it, and NaN < fb is False).
+    """
+    if math.isnan(f1) or math.isnan(f2):
+        return -1
+    if f2 < f1:
+        return 1 if f2 < fb else -1
+    return 0 if f1 < fb else -1
+
+
+@numba.njit(cache=True)
+def search(mode, q, sg, K, refine_iterations, any_steer, reach, tab, outlines, coarse, coarse_err,
+           mem, mem_ex, xs, out):
+    """Minimise the clearance over the crown circle x steer range of every item.
+
+    Parameters
+    ----------
+    mode : {SHELL_SUPERELLIPSE, SHELL_POLYGON, MEMBERS}
+    q : ndarray of shape (n, N_COLUMNS)
+        Item data (columns named at the top of the module).
+    sg : ndarray of shape (S,)
+        Coarse steer samples as fractions of the item's largest steer.
+    K : int
+        Coarse samples round the crown circle.
+    refine_iterations : int
+    any_steer : bool
+        Whether any item of the batch steers (the numpy path then makes steer moves for all).
+    reach : int
+        Initial local step in coarse half-spacings (``kinematics.clearance._REACH``).
+    tab : ndarray of shape (n_stations, 5)
+        Shell stations: x, then the superellipse a, b, zc, n (only x is used for polygons).
+    outlines, coarse : ndarray of shape (n_stations, n_vertices, 2)
+        Polygon sections and their thinned version (dummies for other modes).
+    coarse_err : float
+        Error bound of the thinned outlines.
+    mem : ndarray of shape (n, k, 6)
+        Members nearest each item (MEMBERS mode): first end (ay, az), axis (by - ay, bz - az), the
+        reciprocal of its squared length (as kinematics.clearance._segment_distance), tube radius.
+    mem_ex : ndarray of shape (n, k) of bool
+        Members left out (they carry the wheel).
+    xs : float
+        x of the linkage plane.
+    out : ndarray of shape (n, 4)
+        Written: reached minimum, its steer (rad), its crown angle (rad), error estimate.
+    """
+    n = q.shape[0]
+    S = len(sg)
+    cells = reach // 2
+    hth0 = math.pi / K
+    n_exact = min(3, refine_iterations)
+    nfin = max(refine_iterations - 1, 0)
+    F = np.empty(S * K)
+    theta, ct, st = np.empty(K), np.empty(K), np.empty(K)
+    for k in range(K):
+        theta[k] = 2 * math.pi * k / K
+        ct[k], st[k] = math.cos(theta[k]), math.sin(theta[k])
+    for i in range(n):
+        dmax = q[i, DMAX]
+        # coarse grid: lower bounds of the shell distance, exact member distances
+        best = np.inf
+        si, ki = 0, 0
+        for s in range(S):
+            fr = _frame(q, i, dmax * sg[s])
+            for k in range(K):
+                x, y, z = _point_cs(q, i, fr, ct[k], st[k])
+                v = _value(mode, mode == MEMBERS, q, i, x, y, z, tab, outlines, coarse, coarse_err, mem,
+                           mem_ex, xs)
+                if math.isnan(v):
+                    v = np.inf
+                F[s * K + k] = v
+                if v < best:
+                    best = v
+                    si, ki = s, k
+        hd0 = dmax / max(S - 1, 1) if dmax > 0 else 0.0
+        db = dmax * sg[si]
+        tb = theta[ki]
+        exact = mode == MEMBERS or refine_iterations <= n_exact
+        fb = _eval(mode, exact, q, i, db, tb, tab, outlines, coarse, coarse_err, mem, mem_ex, xs)
+        hth, hd = reach * hth0, reach * hd0
+        for it in range(refine_iterations):
+            if it == refine_iterations - n_exact and not exact:
+                exact = True                                  # the last rounds: exact distances
+                fb = _eval(mode, exact, q, i, db, tb, tab, outlines, coarse, coarse_err, mem, mem_ex, xs)
+            fr = _frame(q, i, db)
+            x, y, z = _point(q, i, fr, tb - hth)
+            f1 = _value(mode, exact, q, i, x, y, z, tab, outlines, coarse, coarse_err, mem, mem_ex, xs)
+            x, y, z = _point(q, i, fr, tb + hth)
+            f2 = _value(mode, exact, q, i, x, y, z, tab, outlines, coarse, coarse_err, mem, mem_ex, xs)
+            j = _better(f1, f2, fb)
+            if j >= 0:
+                tb = tb - hth if j == 0 else tb + hth
+                fb = f1 if j == 0 else f2
+            if any_steer:
+                d1 = min(max(db - hd, -dmax), dmax)
+                d2 = min(max(db + hd, -dmax), dmax)
+                # a trial clipped onto the current steer is the current point: its value is fb
+                f1 = fb if d1 == db else _eval(mode, exact, q, i, d1, tb, tab, outlines, coarse, coarse_err,
+                                               mem, mem_ex, xs)
+                f2 = fb if d2 == db else _eval(mode, exact, q, i, d2, tb, tab, outlines, coarse, coarse_err,
+                                               mem, mem_ex, xs)
+                j = _better(f1, f2, fb)
+                if j >= 0:
+                    db = d1 if j == 0 else d2
+                    fb = f1 if j == 0 else f2
+            hth, hd = hth / 2, hd / 2
+        # error estimate (kinematics.clearance._estimate)
+        r, rho, arm = q[i, R], q[i, RHO], q[i, ARM]
+        Db = fb + r
+        s_lip = rho * hth0 + arm * hd0
+        lb = np.inf
+        for s in range(S):
+            near_s = abs(s - si) <= cells
+            for k in range(K):
+                dk = abs(k - ki)
+                if near_s and min(dk, K - dk) <= cells:       # circular distance in crown samples
+                    continue
+                Dc = F[s * K + k] + r
+                if math.isfinite(Dc) and Dc - s_lip < Db:
+                    lb = min(lb, _lower(Dc, rho, arm, hth0, hd0))
+        lb = min(lb, _lower(Db, rho, arm, reach * hth0 / 2 ** nfin, reach * hd0 / 2 ** nfin))
+        out[i, 0] = fb
+        out[i, 1] = db
+        out[i, 2] = tb
+        out[i, 3] = max(Db - lb, 0.0) if math.isfinite(fb) else np.nan
