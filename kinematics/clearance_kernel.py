@@ -30,6 +30,7 @@ SHELL_SUPERELLIPSE, SHELL_POLYGON, MEMBERS = 0, 1, 2
 
 _NEWTON_ITERATIONS = 5      # as kinematics.shell
 _CHART_LIMIT = 0.9
+_CHART_LOW = 0.0999         # < 1 - _CHART_LIMIT: where the other chart's arc ends, with room to spare
 
 
 # ------------------------------------------------------------------ superellipse
@@ -55,41 +56,54 @@ def _newton(Z, u, v, a, b, n, inv_n, zmax, ab, ab_b):
 
 
 @numba.njit(cache=True)
+def _chart(u, v, a, b, n, inv_n, G, lim):
+    """kinematics.shell._chart for one point (G and lim = 0.9^(1/n) shared by both charts)."""
+    zmax = b * lim
+    Z = min(max(min(v, v / max(G, 1e-12)), 0.0), zmax)
+    ab = a / b
+    ab_b = ab / b
+    for _ in range(_NEWTON_ITERATIONS):
+        Zn = _newton(Z, u, v, a, b, n, inv_n, zmax, ab, ab_b)
+        if Zn == Z:
+            break                      # the fixed point of the iteration: further steps change nothing
+        Z = Zn
+    t = Z / b
+    Y = a * (1.0 - t ** n) ** inv_n
+    return (Y - u) ** 2 + (Z - v) ** 2
+
+
+@numba.njit(cache=True)
+def _box2(u, v, u0, u1, v0, v1):
+    """Squared distance of (u, v) to the box [u0, u1] x [v0, v1]."""
+    du = max(u0 - u, 0.0, u - u1)
+    dv = max(v0 - v, 0.0, v - v1)
+    return du * du + dv * dv
+
+
+@numba.njit(cache=True)
 def superellipse_distance(y, z, a, b, n):
     """kinematics.shell.superellipse_distance for one point.
 
-    The same two Newton charts (z free, then y free), run side by side so that the two chains of
-    powers overlap in the processor. A chart whose step leaves Z unchanged has reached the fixed
-    point of its iteration: its remaining steps would change nothing, so they are skipped.
+    The same two Newton charts; the likelier one first. The other chart's arc lies in a box (its
+    free coordinate within the chart limit, the other between the two charts' ends): when that box
+    is no nearer than the first chart's point, the other chart cannot give the minimum and is not
+    run, which leaves the result as it is.
     """
     u, v = abs(y), abs(z)
     inv_n = 1.0 / n
     gauge = (u / a) ** n + (v / b) ** n                 # the same sum in both charts
     G = max(gauge, 1e-300) ** inv_n
     lim = _CHART_LIMIT ** inv_n
-    zs_max, zt_max = b * lim, a * lim
-    Zs = min(max(min(v, v / max(G, 1e-12)), 0.0), zs_max)   # side chart: (u, v, a, b)
-    Zt = min(max(min(u, u / max(G, 1e-12)), 0.0), zt_max)   # top chart: (v, u, b, a)
-    abs_, bat = a / b, b / a
-    abs_b, bat_a = abs_ / b, bat / a
-    done_s = done_t = False
-    for _ in range(_NEWTON_ITERATIONS):
-        if not done_s:
-            Zn = _newton(Zs, u, v, a, b, n, inv_n, zs_max, abs_, abs_b)
-            done_s = Zn == Zs
-            Zs = Zn
-        if not done_t:
-            Zn = _newton(Zt, v, u, b, a, n, inv_n, zt_max, bat, bat_a)
-            done_t = Zn == Zt
-            Zt = Zn
-        if done_s and done_t:
-            break
-    ts, tt = Zs / b, Zt / a
-    Ys = a * (1.0 - ts ** n) ** inv_n
-    Yt = b * (1.0 - tt ** n) ** inv_n
-    d_side = (Ys - u) ** 2 + (Zs - v) ** 2
-    d_top = (Yt - v) ** 2 + (Zt - u) ** 2
-    d = math.sqrt(min(d_side, d_top))
+    low = _CHART_LOW ** inv_n                            # below the far end of the other chart's arc
+    if v * a <= u * b:                                   # nearer the side: the chart with z free first
+        d = _chart(u, v, a, b, n, inv_n, G, lim)
+        if _box2(u, v, 0.0, a * lim, b * low, b) < d:
+            d = min(d, _chart(v, u, b, a, n, inv_n, G, lim))
+    else:
+        d = _chart(v, u, b, a, n, inv_n, G, lim)
+        if _box2(u, v, a * low, a, 0.0, b * lim) < d:
+            d = min(_chart(u, v, a, b, n, inv_n, G, lim), d)
+    d = math.sqrt(d)
     return -d if gauge < 1.0 else d
 
 
@@ -184,23 +198,29 @@ def polygon_shell_distance(xs, outlines, y, z, x, offset):
 
 # ------------------------------------------------------------------ one point of one item
 @numba.njit(cache=True)
+def _members_value(mem, mem_ex, i, x, y, z, xs):
+    """Least distance of point (x, y, z) to the capsules of item i (kinematics.clearance._segment_distance)."""
+    best = np.inf
+    for m in range(mem.shape[1]):
+        if mem_ex[i, m]:
+            continue
+        ay, az, ey, ez = mem[i, m, 0], mem[i, m, 1], mem[i, m, 2], mem[i, m, 3]
+        wy, wz = y - ay, z - az
+        s = min(max((wy * ey + wz * ez) * mem[i, m, 4], 0.0), 1.0)
+        wy -= s * ey
+        wz -= s * ez
+        dx = x - xs
+        d = math.sqrt(wy * wy + wz * wz + dx * dx) - mem[i, m, 5]
+        if d < best:
+            best = d
+    return best
+
+
+@numba.njit(cache=True)
 def _value(mode, exact, q, i, x, y, z, tab, outlines, coarse, coarse_err, mem, mem_ex, xs):
     """Clearance (distance minus crown radius) of world crown point (x, y, z) of item i."""
     if mode == MEMBERS:
-        best = np.inf
-        for m in range(mem.shape[1]):
-            if mem_ex[i, m]:
-                continue
-            ay, az, ey, ez = mem[i, m, 0], mem[i, m, 1], mem[i, m, 2], mem[i, m, 3]
-            wy, wz = y - ay, z - az
-            s = min(max((wy * ey + wz * ez) * mem[i, m, 4], 0.0), 1.0)
-            wy -= s * ey
-            wz -= s * ez
-            dx = x - xs
-            d = math.sqrt(wy * wy + wz * wz + dx * dx) - mem[i, m, 5]
-            if d < best:
-                best = d
-        return best - q[i, R]
+        return _members_value(mem, mem_ex, i, x, y, z, xs) - q[i, R]
     dy, dz = y - q[i, TY], z - q[i, TZ]
     c, s = q[i, CL], q[i, SL]
     yc, zc = c * dy - s * dz, s * dy + c * dz
@@ -253,6 +273,54 @@ def _point_cs(q, i, fr, ct, st):
 def _eval(mode, exact, q, i, delta, theta, tab, outlines, coarse, coarse_err, mem, mem_ex, xs):
     x, y, z = _point(q, i, _frame(q, i, delta), theta)
     return _value(mode, exact, q, i, x, y, z, tab, outlines, coarse, coarse_err, mem, mem_ex, xs)
+
+
+@numba.njit(cache=True)
+def _coarse_superellipse(q, i, fr, ct, st, tab, F, off, w):
+    """Coarse lower bounds of one steer slice of item i: F[off + k] = _value(SHELL_SUPERELLIPSE, False, ...).
+
+    The same arithmetic as superellipse_shell_distance(..., lower_bound=True), in passes over the
+    slice's samples, so that the powers of different samples need not wait for one another.
+    w : scratch of shape (8, K).
+    """
+    K = len(ct)
+    r, ty, tz, c, s = q[i, R], q[i, TY], q[i, TZ], q[i, CL], q[i, SL]
+    xs = tab[:, 0]
+    for k in range(K):
+        x, y, z = _point_cs(q, i, fr, ct[k], st[k])
+        dy, dz = y - ty, z - tz
+        yc, zc = c * dy - s * dz, s * dy + c * dz
+        j, t = _segment(xs, x)
+        a = tab[j, 1] + (tab[j + 1, 1] - tab[j, 1]) * t
+        b = tab[j, 2] + (tab[j + 1, 2] - tab[j, 2]) * t
+        z0 = tab[j, 3] + (tab[j + 1, 3] - tab[j, 3]) * t
+        w[0, k] = abs(yc) / a
+        w[1, k] = abs(zc - z0) / b
+        w[2, k] = tab[j, 4] + (tab[j + 1, 4] - tab[j, 4]) * t
+        w[3, k], w[4, k], w[5, k] = x, a, b
+    for k in range(K):
+        w[6, k] = w[0, k] ** w[2, k]
+        w[7, k] = w[1, k] ** w[2, k]
+    x0, x1 = xs[0], xs[len(xs) - 1]
+    for k in range(K):
+        u, v, n, pu, pv = w[0, k], w[1, k], w[2, k], w[6, k], w[7, k]
+        S = max(pu + pv, 1e-30)
+        G = S ** (1.0 / n)
+        gy = pu / max(u, 1e-30) / w[4, k]
+        gz = pv / max(v, 1e-30) / w[5, k]
+        grad = (G / S) * math.sqrt(gy * gy + gz * gz)
+        val = _with_caps((G - 1.0) / max(grad, 1e-30), w[3, k], x0, x1) - r
+        F[off + k] = np.inf if math.isnan(val) else val
+
+
+@numba.njit(cache=True)
+def _coarse_members(q, i, fr, ct, st, mem, mem_ex, xs, F, off):
+    """Coarse member clearances of one steer slice of item i: F[off + k] = _value(MEMBERS, True, ...)."""
+    r = q[i, R]
+    for k in range(len(ct)):
+        x, y, z = _point_cs(q, i, fr, ct[k], st[k])
+        v = _members_value(mem, mem_ex, i, x, y, z, xs) - r
+        F[off + k] = np.inf if math.isnan(v) else v
 
 
 @numba.njit(cache=True)
@@ -320,6 +388,7 @@ def search(mode, q, sg, K, refine_iterations, any_steer, reach, tab, outlines, c
     n_exact = min(3, refine_iterations)
     nfin = max(refine_iterations - 1, 0)
     F = np.empty(S * K)
+    scratch = np.empty((8, K))
     theta, ct, st = np.empty(K), np.empty(K), np.empty(K)
     for k in range(K):
         theta[k] = 2 * math.pi * k / K
@@ -331,15 +400,19 @@ def search(mode, q, sg, K, refine_iterations, any_steer, reach, tab, outlines, c
         si, ki = 0, 0
         for s in range(S):
             fr = _frame(q, i, dmax * sg[s])
+            if mode == SHELL_SUPERELLIPSE:
+                _coarse_superellipse(q, i, fr, ct, st, tab, F, s * K, scratch)
+            elif mode == MEMBERS:
+                _coarse_members(q, i, fr, ct, st, mem, mem_ex, xs, F, s * K)
+            else:
+                for k in range(K):
+                    x, y, z = _point_cs(q, i, fr, ct[k], st[k])
+                    v = _value(mode, mode == MEMBERS, q, i, x, y, z, tab, outlines, coarse, coarse_err, mem,
+                               mem_ex, xs)
+                    F[s * K + k] = np.inf if math.isnan(v) else v
             for k in range(K):
-                x, y, z = _point_cs(q, i, fr, ct[k], st[k])
-                v = _value(mode, mode == MEMBERS, q, i, x, y, z, tab, outlines, coarse, coarse_err, mem,
-                           mem_ex, xs)
-                if math.isnan(v):
-                    v = np.inf
-                F[s * K + k] = v
-                if v < best:
-                    best = v
+                if F[s * K + k] < best:
+                    best = F[s * K + k]
                     si, ki = s, k
         hd0 = dmax / max(S - 1, 1) if dmax > 0 else 0.0
         db = dmax * sg[si]
