@@ -56,28 +56,86 @@ def _newton(Z, u, v, a, b, n, inv_n, zmax, ab, ab_b):
 
 
 @numba.njit(cache=True)
-def _chart(u, v, a, b, n, inv_n, G, lim):
-    """kinematics.shell._chart for one point (G and lim = 0.9^(1/n) shared by both charts)."""
-    zmax = b * lim
-    Z = min(max(min(v, v / max(G, 1e-12)), 0.0), zmax)
-    ab = a / b
-    ab_b = ab / b
-    for _ in range(_NEWTON_ITERATIONS):
-        Zn = _newton(Z, u, v, a, b, n, inv_n, zmax, ab, ab_b)
-        if Zn == Z:
-            break                      # the fixed point of the iteration: further steps change nothing
-        Z = Zn
-    t = Z / b
-    Y = a * (1.0 - t ** n) ** inv_n
-    return (Y - u) ** 2 + (Z - v) ** 2
-
-
-@numba.njit(cache=True)
 def _box2(u, v, u0, u1, v0, v1):
     """Squared distance of (u, v) to the box [u0, u1] x [v0, v1]."""
     du = max(u0 - u, 0.0, u - u1)
     dv = max(v0 - v, 0.0, v - v1)
     return du * du + dv * dv
+
+
+@numba.njit(cache=True)
+def _chart_pair(c1, on1, c2, on2):
+    """kinematics.shell._chart of two points side by side (their Newton steps interleave).
+
+    c1, c2 : (u, v, a, b, n, inv_n, G, lim) of each chart, G the gauge^(1/n) and lim = 0.9^(1/n)
+    (shared by the two charts of a point). Returns the squared distances, inf where not ``on``.
+    A chart whose step leaves Z unchanged has reached the fixed point of its iteration: its
+    remaining steps would change nothing, so they are skipped.
+    """
+    u1, v1, a1, b1, n1, i1, G1, l1 = c1
+    u2, v2, a2, b2, n2, i2, G2, l2 = c2
+    zm1, zm2 = b1 * l1, b2 * l2
+    Z1 = min(max(min(v1, v1 / max(G1, 1e-12)), 0.0), zm1)
+    Z2 = min(max(min(v2, v2 / max(G2, 1e-12)), 0.0), zm2)
+    ab1, ab2 = a1 / b1, a2 / b2
+    abb1, abb2 = ab1 / b1, ab2 / b2
+    done1, done2 = not on1, not on2
+    for _ in range(_NEWTON_ITERATIONS):
+        if not done1:
+            Zn = _newton(Z1, u1, v1, a1, b1, n1, i1, zm1, ab1, abb1)
+            done1 = Zn == Z1
+            Z1 = Zn
+        if not done2:
+            Zn = _newton(Z2, u2, v2, a2, b2, n2, i2, zm2, ab2, abb2)
+            done2 = Zn == Z2
+            Z2 = Zn
+        if done1 and done2:
+            break
+    d1 = d2 = np.inf
+    if on1:
+        t = Z1 / b1
+        d1 = (a1 * (1.0 - t ** n1) ** i1 - u1) ** 2 + (Z1 - v1) ** 2
+    if on2:
+        t = Z2 / b2
+        d2 = (a2 * (1.0 - t ** n2) ** i2 - u2) ** 2 + (Z2 - v2) ** 2
+    return d1, d2
+
+
+@numba.njit(cache=True)
+def _chart(c):
+    """kinematics.shell._chart for one point: (u, v, a, b, n, inv_n, G, lim) -> squared distance."""
+    return _chart_pair(c, True, c, False)[0]
+
+
+@numba.njit(cache=True)
+def _charts_of(y, z, a, b, n):
+    """The two charts of one point, likelier first, and the box test data (see superellipse_distance)."""
+    u, v = abs(y), abs(z)
+    inv_n = 1.0 / n
+    gauge = (u / a) ** n + (v / b) ** n
+    G = max(gauge, 1e-300) ** inv_n
+    lim = _CHART_LIMIT ** inv_n
+    low = _CHART_LOW ** inv_n
+    side = (u, v, a, b, n, inv_n, G, lim)
+    top = (v, u, b, a, n, inv_n, G, lim)
+    if v * a <= u * b:
+        return side, top, (0.0, a * lim, b * low, b), gauge
+    return top, side, (a * low, a, 0.0, b * lim), gauge
+
+
+@numba.njit(cache=True)
+def superellipse_distance_pair(y1, z1, a1, b1, n1, y2, z2, a2, b2, n2):
+    """superellipse_distance of two points, their Newton steps side by side (the same values)."""
+    f1, o1, box1, g1 = _charts_of(y1, z1, a1, b1, n1)
+    f2, o2, box2, g2 = _charts_of(y2, z2, a2, b2, n2)
+    d1, d2 = _chart_pair(f1, True, f2, True)
+    need1 = _box2(abs(y1), abs(z1), box1[0], box1[1], box1[2], box1[3]) < d1
+    need2 = _box2(abs(y2), abs(z2), box2[0], box2[1], box2[2], box2[3]) < d2
+    if need1 or need2:
+        e1, e2 = _chart_pair(o1, need1, o2, need2)
+        d1, d2 = min(d1, e1), min(d2, e2)
+    d1, d2 = math.sqrt(d1), math.sqrt(d2)
+    return -d1 if g1 < 1.0 else d1, -d2 if g2 < 1.0 else d2
 
 
 @numba.njit(cache=True)
@@ -89,20 +147,10 @@ def superellipse_distance(y, z, a, b, n):
     is no nearer than the first chart's point, the other chart cannot give the minimum and is not
     run, which leaves the result as it is.
     """
-    u, v = abs(y), abs(z)
-    inv_n = 1.0 / n
-    gauge = (u / a) ** n + (v / b) ** n                 # the same sum in both charts
-    G = max(gauge, 1e-300) ** inv_n
-    lim = _CHART_LIMIT ** inv_n
-    low = _CHART_LOW ** inv_n                            # below the far end of the other chart's arc
-    if v * a <= u * b:                                   # nearer the side: the chart with z free first
-        d = _chart(u, v, a, b, n, inv_n, G, lim)
-        if _box2(u, v, 0.0, a * lim, b * low, b) < d:
-            d = min(d, _chart(v, u, b, a, n, inv_n, G, lim))
-    else:
-        d = _chart(v, u, b, a, n, inv_n, G, lim)
-        if _box2(u, v, a * low, a, 0.0, b * lim) < d:
-            d = min(_chart(u, v, a, b, n, inv_n, G, lim), d)
+    first, other, box, gauge = _charts_of(y, z, a, b, n)
+    d = _chart(first)
+    if _box2(abs(y), abs(z), box[0], box[1], box[2], box[3]) < d:
+        d = min(d, _chart(other))
     d = math.sqrt(d)
     return -d if gauge < 1.0 else d
 
@@ -231,6 +279,36 @@ def _value(mode, exact, q, i, x, y, z, tab, outlines, coarse, coarse_err, mem, m
     else:
         d = polygon_shell_distance(tab[:, 0], coarse, yc, zc, x, coarse_err)
     return d - q[i, R]
+
+
+@numba.njit(cache=True)
+def _params(tab, x):
+    """Superellipse section (a, b, zc, n) at x, as kinematics.shell.superellipse_params."""
+    i, t = _segment(tab[:, 0], x)
+    return (tab[i, 1] + (tab[i + 1, 1] - tab[i, 1]) * t, tab[i, 2] + (tab[i + 1, 2] - tab[i, 2]) * t,
+            tab[i, 3] + (tab[i + 1, 3] - tab[i, 3]) * t, tab[i, 4] + (tab[i + 1, 4] - tab[i, 4]) * t)
+
+
+@numba.njit(cache=True)
+def _chassis(q, i, y, z):
+    dy, dz = y - q[i, TY], z - q[i, TZ]
+    c, s = q[i, CL], q[i, SL]
+    return c * dy - s * dz, s * dy + c * dz
+
+
+@numba.njit(cache=True)
+def _pair(mode, exact, q, i, p1, p2, tab, outlines, coarse, coarse_err, mem, mem_ex, xs):
+    """_value of two world points of item i; exact superellipse distances side by side."""
+    if mode == SHELL_SUPERELLIPSE and exact:
+        y1, z1 = _chassis(q, i, p1[1], p1[2])
+        y2, z2 = _chassis(q, i, p2[1], p2[2])
+        a1, b1, c1, n1 = _params(tab, p1[0])
+        a2, b2, c2, n2 = _params(tab, p2[0])
+        d1, d2 = superellipse_distance_pair(y1, z1 - c1, a1, b1, n1, y2, z2 - c2, a2, b2, n2)
+        x0, x1 = tab[0, 0], tab[len(tab) - 1, 0]
+        return _with_caps(d1, p1[0], x0, x1) - q[i, R], _with_caps(d2, p2[0], x0, x1) - q[i, R]
+    return (_value(mode, exact, q, i, p1[0], p1[1], p1[2], tab, outlines, coarse, coarse_err, mem, mem_ex, xs),
+            _value(mode, exact, q, i, p2[0], p2[1], p2[2], tab, outlines, coarse, coarse_err, mem, mem_ex, xs))
 
 
 @numba.njit(cache=True)
@@ -425,10 +503,8 @@ def search(mode, q, sg, K, refine_iterations, any_steer, reach, tab, outlines, c
                 exact = True                                  # the last rounds: exact distances
                 fb = _eval(mode, exact, q, i, db, tb, tab, outlines, coarse, coarse_err, mem, mem_ex, xs)
             fr = _frame(q, i, db)
-            x, y, z = _point(q, i, fr, tb - hth)
-            f1 = _value(mode, exact, q, i, x, y, z, tab, outlines, coarse, coarse_err, mem, mem_ex, xs)
-            x, y, z = _point(q, i, fr, tb + hth)
-            f2 = _value(mode, exact, q, i, x, y, z, tab, outlines, coarse, coarse_err, mem, mem_ex, xs)
+            f1, f2 = _pair(mode, exact, q, i, _point(q, i, fr, tb - hth), _point(q, i, fr, tb + hth), tab,
+                           outlines, coarse, coarse_err, mem, mem_ex, xs)
             j = _better(f1, f2, fb)
             if j >= 0:
                 tb = tb - hth if j == 0 else tb + hth
@@ -437,10 +513,15 @@ def search(mode, q, sg, K, refine_iterations, any_steer, reach, tab, outlines, c
                 d1 = min(max(db - hd, -dmax), dmax)
                 d2 = min(max(db + hd, -dmax), dmax)
                 # a trial clipped onto the current steer is the current point: its value is fb
-                f1 = fb if d1 == db else _eval(mode, exact, q, i, d1, tb, tab, outlines, coarse, coarse_err,
-                                               mem, mem_ex, xs)
-                f2 = fb if d2 == db else _eval(mode, exact, q, i, d2, tb, tab, outlines, coarse, coarse_err,
-                                               mem, mem_ex, xs)
+                if d1 != db and d2 != db:
+                    f1, f2 = _pair(mode, exact, q, i, _point(q, i, _frame(q, i, d1), tb),
+                                   _point(q, i, _frame(q, i, d2), tb), tab, outlines, coarse, coarse_err, mem,
+                                   mem_ex, xs)
+                else:
+                    f1 = fb if d1 == db else _eval(mode, exact, q, i, d1, tb, tab, outlines, coarse, coarse_err,
+                                                   mem, mem_ex, xs)
+                    f2 = fb if d2 == db else _eval(mode, exact, q, i, d2, tb, tab, outlines, coarse, coarse_err,
+                                                   mem, mem_ex, xs)
                 j = _better(f1, f2, fb)
                 if j >= 0:
                     db = d1 if j == 0 else d2

@@ -116,6 +116,11 @@ def test_kernel_point_distances_match_the_shell_module():
         for (y, z), di, li in zip(p, d, lb):
             assert K.superellipse_distance(y, z, a, b, n) == pytest.approx(di, abs=1e-9)
             assert K.superellipse_lower_bound(y, z, a, b, n) == pytest.approx(li, abs=1e-9)
+        for j in range(len(p) - 1):       # two points side by side: each as alone
+            y1, z1 = p[j]
+            y2, z2 = p[j + 1]
+            assert K.superellipse_distance_pair(y1, z1, a, b, n, y2, z2, a, b, n * 1.1) == (
+                K.superellipse_distance(y1, z1, a, b, n), K.superellipse_distance(y2, z2, a, b, n * 1.1))
     # whole shells, end caps included: points in and beyond the station range
     for shell in (load_shell(CONFIGS / "shell_demo.toml"), _polygon_demo_shell()):
         p = rng.uniform([-2000.0, -500.0, -100.0], [800.0, 500.0, 1200.0], (400, 3))
