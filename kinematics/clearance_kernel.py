@@ -190,16 +190,20 @@ def _with_caps(d, x, x0, x1):
 
 
 @numba.njit(cache=True)
+def _params(tab, x):
+    """Superellipse section (a, b, zc, n) at x, as kinematics.shell.superellipse_params."""
+    i, t = _segment(tab[:, 0], x)
+    return (tab[i, 1] + (tab[i + 1, 1] - tab[i, 1]) * t, tab[i, 2] + (tab[i + 1, 2] - tab[i, 2]) * t,
+            tab[i, 3] + (tab[i + 1, 3] - tab[i, 3]) * t, tab[i, 4] + (tab[i + 1, 4] - tab[i, 4]) * t)
+
+
+@numba.njit(cache=True)
 def superellipse_shell_distance(tab, y, z, x, lower_bound):
     """Signed distance (chassis frame) to a superellipse shell, caps included.
 
     tab : ndarray of shape (n_stations, 5): x, half width, half height, centre z, exponent.
     """
-    i, t = _segment(tab[:, 0], x)
-    a = tab[i, 1] + (tab[i + 1, 1] - tab[i, 1]) * t
-    b = tab[i, 2] + (tab[i + 1, 2] - tab[i, 2]) * t
-    zc = tab[i, 3] + (tab[i + 1, 3] - tab[i, 3]) * t
-    n = tab[i, 4] + (tab[i + 1, 4] - tab[i, 4]) * t
+    a, b, zc, n = _params(tab, x)
     if lower_bound:
         d = superellipse_lower_bound(y, z - zc, a, b, n)
     else:
@@ -209,12 +213,8 @@ def superellipse_shell_distance(tab, y, z, x, lower_bound):
 
 # ------------------------------------------------------------------ polygons
 @numba.njit(cache=True)
-def polygon_shell_distance(xs, outlines, y, z, x, offset):
-    """Signed distance (chassis frame) to a polygon shell (sections linear in x), caps included.
-
-    kinematics.shell.polygon_distance of the section interpolated at x, less ``offset`` (the
-    thinned outline's error bound when ``outlines`` are the coarse ones), then the end caps.
-    """
+def polygon_section_distance(xs, outlines, y, z, x):
+    """kinematics.shell.polygon_distance of the section interpolated at x (clamped to the stations)."""
     i, t = _segment(xs, x)
     V = outlines.shape[1]
     best = np.inf
@@ -239,12 +239,86 @@ def polygon_shell_distance(xs, outlines, y, z, x, offset):
             if y < y0 + (z - z0) * ey / (ez if ez != 0 else 1.0):
                 crossings += 1
     d = math.sqrt(best)
-    if crossings % 2 == 1:
-        d = -d
-    return _with_caps(d - offset, x, xs[0], xs[len(xs) - 1])
+    return -d if crossings % 2 == 1 else d
+
+
+@numba.njit(cache=True)
+def polygon_shell_distance(xs, outlines, y, z, x, offset):
+    """Signed distance (chassis frame) to a polygon shell (sections linear in x), caps included.
+
+    The section distance less ``offset`` (the thinned outline's error bound when ``outlines`` are
+    the coarse ones), then the end caps, as kinematics.shell.signed_distance_yz.
+    """
+    return _with_caps(polygon_section_distance(xs, outlines, y, z, x) - offset, x, xs[0], xs[len(xs) - 1])
+
+
+@numba.njit(cache=True)
+def _level(mode, tab, outlines, y, z, x):
+    """kinematics.shell.inside_level of one chassis-frame point."""
+    if mode == SHELL_SUPERELLIPSE:
+        a, b, zc, n = _params(tab, x)
+        return abs(y / a) ** n + abs((z - zc) / b) ** n - 1.0
+    return polygon_section_distance(tab[:, 0], outlines, y, z, x)
+
+
+@numba.njit(cache=True)
+def levels(mode, tab, outlines, p, x0, out):
+    """kinematics.shell.inside_level of chassis-frame points p (N, 2) in the plane x0, into out (N,)."""
+    for j in range(len(out)):
+        out[j] = _level(mode, tab, outlines, p[j, 0], p[j, 1], x0)
+
+
+@numba.njit(cache=True)
+def root(mode, tab, outlines, a, b, ha, hb, x0, iterations, out):
+    """kinematics.clearance._root (Illinois regula falsi) entry by entry, the entries in lockstep.
+
+    a, b : ndarray of shape (N, 2)
+        Tube ends in the chassis frame; ha, hb (N,) their inside levels; x0 the plane's x.
+    out : ndarray of shape (N,)
+        Written: the crossing parameter in [0, 1] (arbitrary where ha, hb have no sign change).
+    """
+    N = len(ha)
+    lo, hi = np.zeros(N), np.ones(N)
+    flo, fhi, side = np.empty(N), np.empty(N), np.zeros(N)
+    for j in range(N):
+        bad = not (ha[j] * hb[j] < 0)
+        flo[j] = -1.0 if bad else ha[j]
+        fhi[j] = 1.0 if bad else hb[j]
+    for _ in range(iterations):
+        for j in range(N):            # entries are independent: their levels' powers overlap
+            den = fhi[j] - flo[j]
+            m = hi[j] - fhi[j] * (hi[j] - lo[j]) / (1.0 if den == 0 else den)
+            if den == 0 or not math.isfinite(m):
+                m = 0.5 * (lo[j] + hi[j])
+            else:
+                m = min(max(m, lo[j]), hi[j])
+            fm = _level(mode, tab, outlines, a[j, 0] + (b[j, 0] - a[j, 0]) * m, a[j, 1] + (b[j, 1] - a[j, 1]) * m,
+                        x0)
+            if not math.isfinite(fm):
+                fm = 0.0
+            same = fm * fhi[j] > 0                   # m replaces hi
+            if same and side[j] > 0:
+                flo[j] *= 0.5
+            if not same and side[j] < 0:
+                fhi[j] *= 0.5
+            if same:
+                hi[j], fhi[j] = m, fm
+            else:
+                lo[j], flo[j] = m, fm
+            side[j] = 1.0 if same else -1.0
+    for j in range(N):
+        out[j] = lo[j] if abs(flo[j]) < abs(fhi[j]) else hi[j]
 
 
 # ------------------------------------------------------------------ one point of one item
+@numba.njit(cache=True)
+def _chassis(q, i, y, z):
+    """World (y, z) of item i in the chassis frame (kinematics.shell.to_chassis_frame)."""
+    dy, dz = y - q[i, TY], z - q[i, TZ]
+    c, s = q[i, CL], q[i, SL]
+    return c * dy - s * dz, s * dy + c * dz
+
+
 @numba.njit(cache=True)
 def _members_value(mem, mem_ex, i, x, y, z, xs):
     """Least distance of point (x, y, z) to the capsules of item i (kinematics.clearance._segment_distance)."""
@@ -269,9 +343,7 @@ def _value(mode, exact, q, i, x, y, z, tab, outlines, coarse, coarse_err, mem, m
     """Clearance (distance minus crown radius) of world crown point (x, y, z) of item i."""
     if mode == MEMBERS:
         return _members_value(mem, mem_ex, i, x, y, z, xs) - q[i, R]
-    dy, dz = y - q[i, TY], z - q[i, TZ]
-    c, s = q[i, CL], q[i, SL]
-    yc, zc = c * dy - s * dz, s * dy + c * dz
+    yc, zc = _chassis(q, i, y, z)
     if mode == SHELL_SUPERELLIPSE:
         d = superellipse_shell_distance(tab, yc, zc, x, not exact)
     elif exact:
@@ -279,21 +351,6 @@ def _value(mode, exact, q, i, x, y, z, tab, outlines, coarse, coarse_err, mem, m
     else:
         d = polygon_shell_distance(tab[:, 0], coarse, yc, zc, x, coarse_err)
     return d - q[i, R]
-
-
-@numba.njit(cache=True)
-def _params(tab, x):
-    """Superellipse section (a, b, zc, n) at x, as kinematics.shell.superellipse_params."""
-    i, t = _segment(tab[:, 0], x)
-    return (tab[i, 1] + (tab[i + 1, 1] - tab[i, 1]) * t, tab[i, 2] + (tab[i + 1, 2] - tab[i, 2]) * t,
-            tab[i, 3] + (tab[i + 1, 3] - tab[i, 3]) * t, tab[i, 4] + (tab[i + 1, 4] - tab[i, 4]) * t)
-
-
-@numba.njit(cache=True)
-def _chassis(q, i, y, z):
-    dy, dz = y - q[i, TY], z - q[i, TZ]
-    c, s = q[i, CL], q[i, SL]
-    return c * dy - s * dz, s * dy + c * dz
 
 
 @numba.njit(cache=True)
@@ -362,20 +419,15 @@ def _coarse_superellipse(q, i, fr, ct, st, tab, F, off, w):
     w : scratch of shape (8, K).
     """
     K = len(ct)
-    r, ty, tz, c, s = q[i, R], q[i, TY], q[i, TZ], q[i, CL], q[i, SL]
+    r = q[i, R]
     xs = tab[:, 0]
     for k in range(K):
         x, y, z = _point_cs(q, i, fr, ct[k], st[k])
-        dy, dz = y - ty, z - tz
-        yc, zc = c * dy - s * dz, s * dy + c * dz
-        j, t = _segment(xs, x)
-        a = tab[j, 1] + (tab[j + 1, 1] - tab[j, 1]) * t
-        b = tab[j, 2] + (tab[j + 1, 2] - tab[j, 2]) * t
-        z0 = tab[j, 3] + (tab[j + 1, 3] - tab[j, 3]) * t
+        yc, zc = _chassis(q, i, y, z)
+        a, b, z0, n = _params(tab, x)
         w[0, k] = abs(yc) / a
         w[1, k] = abs(zc - z0) / b
-        w[2, k] = tab[j, 4] + (tab[j + 1, 4] - tab[j, 4]) * t
-        w[3, k], w[4, k], w[5, k] = x, a, b
+        w[2, k], w[3, k], w[4, k], w[5, k] = n, x, a, b
     for k in range(K):
         w[6, k] = w[0, k] ** w[2, k]
         w[7, k] = w[1, k] ** w[2, k]

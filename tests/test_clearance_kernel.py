@@ -144,3 +144,25 @@ def test_kernel_point_distances_match_the_shell_module():
 def test_kernel_setting_is_checked():
     with pytest.raises(ValueError, match="kernel"):
         ClearanceSettings(kernel="gpu")
+
+
+@pytest.mark.parametrize("shell_kind", ["superellipse", "polygon"])
+def test_compiled_slot_root_and_levels_match_numpy(shell_kind):
+    from kinematics.clearance import _level_compiled, _root, _root_compiled
+    from kinematics.shell import inside_level
+
+    shell = load_shell(CONFIGS / "shell_demo.toml") if shell_kind == "superellipse" else _polygon_demo_shell()
+    rng = np.random.default_rng(11)
+    a = rng.uniform([-150.0, 300.0], [150.0, 700.0], (60, 4, 2))      # tube ends inside the section ...
+    b = rng.uniform([-500.0, 0.0], [500.0, 1000.0], (60, 4, 2))       # ... and anywhere around it
+    ha, hb = inside_level(shell, a, 0.0), inside_level(shell, b, 0.0)
+    np.testing.assert_allclose(_level_compiled(shell, a, 0.0), ha, rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(_level_compiled(shell, b, 0.0), hb, rtol=1e-12, atol=1e-12)
+    cross = ha * hb < 0
+    assert cross.mean() > 0.3
+    ref = _root(shell, a, b, ha, hb, 0.0, 20)
+    got = _root_compiled(shell, a, b, ha, hb, 0.0, 20)
+    np.testing.assert_allclose(got[cross], ref[cross], rtol=0, atol=1e-12)
+    # the crossing is on the outline (level zero to the root finder's accuracy)
+    p = a + (b - a) * got[..., None]
+    assert np.max(np.abs(inside_level(shell, p, 0.0)[cross])) < 1e-6
