@@ -241,6 +241,28 @@ def parse_polygon_csv(text: str, src: str = "<memory>") -> Shell:
                  coarse_error_mm=err, name=Path(src).stem if src != "<memory>" else "shell", notes=notes, source=src)
 
 
+def polygon_sections(shell: Shell, vertices) -> Shell:
+    """A superellipse shell's station sections as polygons (what a CAD export of it would give).
+
+    vertices : int or sequence of int, one per station: outline points, at equal steps of the
+    superellipse's angle parameter. Between stations the polygon shell interpolates its vertices,
+    not the superellipse parameters, so it differs from the original between stations by a little.
+    """
+    counts = np.broadcast_to(np.asarray(vertices, int), shell.x.shape)
+    rows = ["x_mm,y_mm,z_mm"]
+    for x, V in zip(shell.x, counts):
+        a, b, zc, n = (float(v) for v in superellipse_params(shell, np.array(x)))
+        pts = _superellipse_points(a, b, zc, n, np.linspace(0.0, 2 * math.pi, int(V), endpoint=False))
+        rows += [f"{float(x)!r},{float(y)!r},{float(z)!r}" for y, z in pts]
+    return parse_polygon_csv("\n".join(rows) + "\n", f"{shell.name} as polygons")
+
+
+def _superellipse_points(a, b, zc, n, psi):
+    """Points (m, 2) of the outline |y/a|^n + |(z-zc)/b|^n = 1 at parameters psi (m,)."""
+    c, s = np.cos(psi), np.sin(psi)
+    return np.stack([a * np.sign(c) * np.abs(c) ** (2.0 / n), zc + b * np.sign(s) * np.abs(s) ** (2.0 / n)], -1)
+
+
 _COARSE_VERTICES = 48
 
 
@@ -556,9 +578,7 @@ def outline_table(shell: Shell, x_mm: float):
     """
     if shell.kind == "superellipse":
         a, b, zc, n = (float(v) for v in superellipse_params(shell, np.array(x_mm)))
-        psi = np.linspace(-math.pi, math.pi, _OUTLINE_TABLE, endpoint=False)
-        c, s = np.cos(psi), np.sin(psi)
-        pts = np.stack([a * np.sign(c) * np.abs(c) ** (2.0 / n), zc + b * np.sign(s) * np.abs(s) ** (2.0 / n)], -1)
+        pts = _superellipse_points(a, b, zc, n, np.linspace(-math.pi, math.pi, _OUTLINE_TABLE, endpoint=False))
         centre = np.array([0.0, zc])
     else:
         poly = _polygon_at(shell, np.array(float(x_mm)))

@@ -8,7 +8,6 @@ are built from the coarse samples, agree to 1e-3 mm, and the reached minima to r
 """
 from __future__ import annotations
 
-import math
 import tomllib
 
 import numpy as np
@@ -18,8 +17,8 @@ from kinematics import clearance_kernel as K
 from kinematics.clearance import ClearanceSettings, _shell_tables, evaluate_clearance
 from kinematics.mechanism import parse_mechanism
 from kinematics.model import Model
-from kinematics.shell import (load_shell, parse_polygon_csv, polygon_distance, shell_signed_distance,
-                              superellipse_distance, superellipse_distance_lower_bound, superellipse_params)
+from kinematics.shell import (load_shell, polygon_distance, polygon_sections, shell_signed_distance,
+                              superellipse_distance, superellipse_distance_lower_bound)
 from kinematics.sweep import sweep
 
 from conftest import CONFIGS
@@ -51,16 +50,7 @@ def demo():
 
 def _polygon_demo_shell(vertices=(160, 200, 160, 120)):
     """The demo shell's superellipse sections as CAD-like polygons, with different vertex counts."""
-    shell = load_shell(CONFIGS / "shell_demo.toml")
-    rows = ["x_mm,y_mm,z_mm"]
-    for x, V in zip(shell.x, vertices):
-        a, b, zc, n = (float(v) for v in superellipse_params(shell, np.array(x)))
-        psi = np.linspace(0.0, 2 * math.pi, V, endpoint=False)
-        c, s = np.cos(psi), np.sin(psi)
-        y = a * np.sign(c) * np.abs(c) ** (2 / n)
-        z = zc + b * np.sign(s) * np.abs(s) ** (2 / n)
-        rows += [f"{float(x)!r},{float(yi)!r},{float(zi)!r}" for yi, zi in zip(y, z)]
-    return parse_polygon_csv("\n".join(rows) + "\n", "<polygon demo>")
+    return polygon_sections(load_shell(CONFIGS / "shell_demo.toml"), vertices)
 
 
 def _compare(a, b, min_share=1.0):
