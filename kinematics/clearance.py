@@ -63,8 +63,8 @@ import numpy as np
 from . import clearance_kernel as _kernel
 from .mechanism import split_ref
 from .model import Geometry, Model
-from .shell import (Shell, inside_level, outline_position, section_distance, shell_signed_distance,
-                    signed_distance_yz, support, to_chassis_frame)
+from .shell import (Shell, inside_level, outline_position, polygon_section_edges, section_distance,
+                    shell_signed_distance, signed_distance_yz, support, to_chassis_frame)
 
 _REACH = 6            # initial local-search step, in coarse half-spacings (covers +-3 cells)
 _NEAREST_MEMBERS = 3   # members searched per (state, wheel); the rest only enter through their bound
@@ -845,22 +845,19 @@ def _root(shell: Shell, a, b, ha, hb, x0, iterations):
 
 
 def _level_compiled(shell: Shell, p, x0):
-    """:func:`kinematics.shell.inside_level` of points p (..., 2) in the plane x0, by the compiled kernel."""
-    mode, tab, outlines, _, _ = _shell_tables(shell)
+    """:func:`kinematics.shell.inside_level` of points p (..., 2) on a polygon shell, by the compiled kernel."""
     out = np.empty(p.shape[:-1])
-    _kernel.levels(mode, tab, outlines, np.ascontiguousarray(p.reshape(-1, 2), float), float(x0), out.reshape(-1))
+    _kernel.levels(polygon_section_edges(shell, x0), np.ascontiguousarray(p.reshape(-1, 2), float), out.reshape(-1))
     return out
 
 
 def _root_compiled(shell: Shell, a, b, ha, hb, x0, iterations):
-    """:func:`_root` by the compiled kernel (the same iteration, entry by entry)."""
-    mode, tab, outlines, _, _ = _shell_tables(shell)
-    shape = ha.shape
+    """:func:`_root` on a polygon shell by the compiled kernel (the same iteration, entry by entry)."""
     out = np.empty(ha.size)
-    _kernel.root(mode, tab, outlines, np.ascontiguousarray(a.reshape(-1, 2), float),
+    _kernel.root(polygon_section_edges(shell, x0), np.ascontiguousarray(a.reshape(-1, 2), float),
                  np.ascontiguousarray(b.reshape(-1, 2), float), np.ascontiguousarray(ha.ravel(), float),
-                 np.ascontiguousarray(hb.ravel(), float), float(x0), iterations, out)
-    return out.reshape(shape)
+                 np.ascontiguousarray(hb.ravel(), float), iterations, out)
+    return out.reshape(ha.shape)
 
 
 def _circular_range(pos: np.ndarray, perimeter: float) -> np.ndarray:

@@ -253,27 +253,48 @@ def polygon_shell_distance(xs, outlines, y, z, x, offset):
 
 
 @numba.njit(cache=True)
-def _level(mode, tab, outlines, y, z, x):
-    """kinematics.shell.inside_level of one chassis-frame point."""
-    if mode == SHELL_SUPERELLIPSE:
-        a, b, zc, n = _params(tab, x)
-        return abs(y / a) ** n + abs((z - zc) / b) ** n - 1.0
-    return polygon_section_distance(tab[:, 0], outlines, y, z, x)
+def edges_distance(E, y, z):
+    """Signed distance (positive outside) of (y, z) to a closed polygon given by its edges.
+
+    E : ndarray of shape (n_edges, 6)
+        Per edge: start (y, z), direction (end - start), 1 / max(squared length, 1e-300) and the
+        end's z, as
+        kinematics.shell.polygon_section_edges gives them for one section: the section is
+        interpolated once, not at every point. The same sums as kinematics.shell.polygon_distance,
+        with the division by the squared length done as a product.
+    """
+    best = np.inf
+    crossings = 0
+    for k in range(E.shape[0]):
+        y0, z0, ey, ez = E[k, 0], E[k, 1], E[k, 2], E[k, 3]
+        wy, wz = y - y0, z - z0
+        s = min(max((wy * ey + wz * ez) * E[k, 4], 0.0), 1.0)
+        dy, dz = wy - s * ey, wz - s * ez
+        d2 = dy * dy + dz * dz
+        if d2 < best:
+            best = d2
+        if (z0 > z) != (E[k, 5] > z):
+            if y < y0 + (z - z0) * ey / (ez if ez != 0 else 1.0):
+                crossings += 1
+    d = math.sqrt(best)
+    return -d if crossings % 2 == 1 else d
 
 
 @numba.njit(cache=True)
-def levels(mode, tab, outlines, p, x0, out):
-    """kinematics.shell.inside_level of chassis-frame points p (N, 2) in the plane x0, into out (N,)."""
+def levels(E, p, out):
+    """edges_distance of points p (N, 2) into out (N,): the inside level of a polygon section."""
     for j in range(len(out)):
-        out[j] = _level(mode, tab, outlines, p[j, 0], p[j, 1], x0)
+        out[j] = edges_distance(E, p[j, 0], p[j, 1])
 
 
 @numba.njit(cache=True)
-def root(mode, tab, outlines, a, b, ha, hb, x0, iterations, out):
-    """kinematics.clearance._root (Illinois regula falsi) entry by entry, the entries in lockstep.
+def root(E, a, b, ha, hb, iterations, out):
+    """kinematics.clearance._root (Illinois regula falsi) on a polygon section, the entries in lockstep.
 
+    E : ndarray of shape (n_edges, 6)
+        The section (see edges_distance).
     a, b : ndarray of shape (N, 2)
-        Tube ends in the chassis frame; ha, hb (N,) their inside levels; x0 the plane's x.
+        Tube ends in the chassis frame; ha, hb (N,) their inside levels.
     out : ndarray of shape (N,)
         Written: the crossing parameter in [0, 1] (arbitrary where ha, hb have no sign change).
     """
@@ -285,15 +306,14 @@ def root(mode, tab, outlines, a, b, ha, hb, x0, iterations, out):
         flo[j] = -1.0 if bad else ha[j]
         fhi[j] = 1.0 if bad else hb[j]
     for _ in range(iterations):
-        for j in range(N):            # entries are independent: their levels' powers overlap
+        for j in range(N):
             den = fhi[j] - flo[j]
             m = hi[j] - fhi[j] * (hi[j] - lo[j]) / (1.0 if den == 0 else den)
             if den == 0 or not math.isfinite(m):
                 m = 0.5 * (lo[j] + hi[j])
             else:
                 m = min(max(m, lo[j]), hi[j])
-            fm = _level(mode, tab, outlines, a[j, 0] + (b[j, 0] - a[j, 0]) * m, a[j, 1] + (b[j, 1] - a[j, 1]) * m,
-                        x0)
+            fm = edges_distance(E, a[j, 0] + (b[j, 0] - a[j, 0]) * m, a[j, 1] + (b[j, 1] - a[j, 1]) * m)
             if not math.isfinite(fm):
                 fm = 0.0
             same = fm * fhi[j] > 0                   # m replaces hi

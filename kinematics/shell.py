@@ -443,6 +443,22 @@ def polygon_distance(y, z, verts):
     return np.where(inside, -d, d)
 
 
+def polygon_section_edges(shell: Shell, x_mm: float) -> np.ndarray:
+    """The polygon section at x (clamped to the stations) as edges, for repeated distance queries.
+
+    Returns
+    -------
+    ndarray of shape (n_vertices, 6)
+        Per edge (vertex k to k + 1): start (y, z), direction, 1 / max(squared length, 1e-300) and
+        the end's z.
+    """
+    v0 = _polygon_at(shell, np.array(float(x_mm)))
+    v1 = np.roll(v0, -1, axis=0)
+    e = v1 - v0
+    inv = 1.0 / np.maximum(e[:, 0] * e[:, 0] + e[:, 1] * e[:, 1], 1e-300)
+    return np.ascontiguousarray(np.concatenate([v0, e, inv[:, None], v1[:, 1:]], 1))
+
+
 def section_distance(shell: Shell, yz: np.ndarray, x_mm, *, lower_bound: bool = False) -> np.ndarray:
     """Signed distance within the cross-section at x (no end caps; x clamped to the stations).
 

@@ -67,8 +67,10 @@ def _compare(a, b, min_share=1.0):
         same = np.isclose(va, vb, rtol=0, atol=VALUE_TOL) & np.isclose(ea, eb, rtol=0, atol=ERROR_TOL)
         assert same.mean() >= min_share, (k, same.mean())
         assert np.all(np.abs(va - vb) <= np.maximum(ea, eb) + VALUE_TOL), k
-    for k in ("ground_mm", "overall_width_mm", "slot_length_mm", "inside_violation_mm", "outside_violation_mm"):
+    for k in ("ground_mm", "overall_width_mm", "inside_violation_mm", "outside_violation_mm"):
         np.testing.assert_array_equal(getattr(a, k), getattr(b, k), err_msg=k)
+    # slots: the compiled root finder on polygon sections differs from numpy's by rounding only
+    np.testing.assert_allclose(a.slot_length_mm, b.slot_length_mm, rtol=0, atol=VALUE_TOL)
     if min_share == 1.0:
         np.testing.assert_array_equal(a.wheel_link_member, b.wheel_link_member)
         # a steer may differ only where the clearance does not depend on it (a tie of the two paths)
@@ -136,12 +138,11 @@ def test_kernel_setting_is_checked():
         ClearanceSettings(kernel="gpu")
 
 
-@pytest.mark.parametrize("shell_kind", ["superellipse", "polygon"])
-def test_compiled_slot_root_and_levels_match_numpy(shell_kind):
+def test_compiled_slot_root_and_levels_match_numpy_on_a_polygon_shell():
     from kinematics.clearance import _level_compiled, _root, _root_compiled
     from kinematics.shell import inside_level
 
-    shell = load_shell(CONFIGS / "shell_demo.toml") if shell_kind == "superellipse" else _polygon_demo_shell()
+    shell = _polygon_demo_shell()
     rng = np.random.default_rng(11)
     a = rng.uniform([-150.0, 300.0], [150.0, 700.0], (60, 4, 2))      # tube ends inside the section ...
     b = rng.uniform([-500.0, 0.0], [500.0, 1000.0], (60, 4, 2))       # ... and anywhere around it
