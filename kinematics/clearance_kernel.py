@@ -585,15 +585,19 @@ def search(mode, q, sg, K, refine_iterations, any_steer, reach, tab, outlines, c
                 d1 = min(max(db - hd, -dmax), dmax)
                 d2 = min(max(db + hd, -dmax), dmax)
                 # a trial clipped onto the current steer is the current point: its value is fb
+                ctb, stb = math.cos(tb), math.sin(tb)           # the crown angle both trials share
                 if d1 != db and d2 != db:
-                    f1, f2 = _pair(mode, exact, q, i, _point(q, i, _frame(q, i, d1), tb),
-                                   _point(q, i, _frame(q, i, d2), tb), tab, outlines, coarse, coarse_err, mem,
-                                   mem_ex, xs)
+                    f1, f2 = _pair(mode, exact, q, i, _point_cs(q, i, _frame(q, i, d1), ctb, stb),
+                                   _point_cs(q, i, _frame(q, i, d2), ctb, stb), tab, outlines, coarse, coarse_err,
+                                   mem, mem_ex, xs)
                 else:
-                    f1 = fb if d1 == db else _eval(mode, exact, q, i, d1, tb, tab, outlines, coarse, coarse_err,
-                                                   mem, mem_ex, xs)
-                    f2 = fb if d2 == db else _eval(mode, exact, q, i, d2, tb, tab, outlines, coarse, coarse_err,
-                                                   mem, mem_ex, xs)
+                    f1, f2 = fb, fb
+                    if d1 != db:
+                        x, y, z = _point_cs(q, i, _frame(q, i, d1), ctb, stb)
+                        f1 = _value(mode, exact, q, i, x, y, z, tab, outlines, coarse, coarse_err, mem, mem_ex, xs)
+                    if d2 != db:
+                        x, y, z = _point_cs(q, i, _frame(q, i, d2), ctb, stb)
+                        f2 = _value(mode, exact, q, i, x, y, z, tab, outlines, coarse, coarse_err, mem, mem_ex, xs)
                 j = _better(f1, f2, fb)
                 if j >= 0:
                     db = d1 if j == 0 else d2
