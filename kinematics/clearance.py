@@ -64,7 +64,7 @@ from . import clearance_kernel as _kernel
 from .mechanism import split_ref
 from .model import Geometry, Model
 from .shell import (Shell, inside_level, outline_position, polygon_section_edges, section_distance,
-                    shell_signed_distance, signed_distance_yz, support, to_chassis_frame)
+                    shell_signed_distance, signed_distance_yz, superellipse_params, support, to_chassis_frame)
 
 _REACH = 6            # initial local-search step, in coarse half-spacings (covers +-3 cells)
 _NEAREST_MEMBERS = 3   # members searched per (state, wheel); the rest only enter through their bound
@@ -824,6 +824,7 @@ def _root(shell: Shell, a, b, ha, hb, x0, iterations):
 
     Entries without a sign change get an arbitrary value (callers mask them).
     """
+    level = _line_level(shell, a, b, x0)
     lo, hi = np.zeros(ha.shape), np.ones(ha.shape)
     bad = ~(ha * hb < 0)
     flo = np.where(bad, -1.0, ha)
@@ -832,8 +833,8 @@ def _root(shell: Shell, a, b, ha, hb, x0, iterations):
     for _ in range(iterations):
         den = fhi - flo
         m = hi - fhi * (hi - lo) / np.where(den == 0, 1.0, den)
-        m = np.where((den == 0) | ~np.isfinite(m), 0.5 * (lo + hi), np.clip(m, lo, hi))
-        fm = inside_level(shell, a + (b - a) * m[..., None], x0)
+        m = np.where((den == 0) | ~np.isfinite(m), 0.5 * (lo + hi), np.minimum(np.maximum(m, lo), hi))
+        fm = level(m)
         fm = np.where(np.isfinite(fm), fm, 0.0)
         same = fm * fhi > 0                      # m replaces hi
         flo = np.where(same & (side > 0), 0.5 * flo, flo)
@@ -842,6 +843,36 @@ def _root(shell: Shell, a, b, ha, hb, x0, iterations):
         lo, flo = np.where(same, lo, m), np.where(same, flo, fm)
         side = np.where(same, 1.0, -1.0)
     return np.where(np.abs(flo) < np.abs(fhi), lo, hi)
+
+
+def _line_level(shell: Shell, a, b, x0):
+    """m -> :func:`kinematics.shell.inside_level` at ``a + (b - a) m`` in the plane x0 (the same sums).
+
+    a, b : ndarray of shape (..., 2); m of shape (...). For a superellipse shell the section is
+    looked up once and y, z are kept apart (no stacking of points at every call).
+    """
+    ay, az = np.ascontiguousarray(a[..., 0]), np.ascontiguousarray(a[..., 1])
+    dy, dz = b[..., 0] - ay, b[..., 1] - az
+    if shell.kind != "superellipse":
+        return lambda m: inside_level(shell, np.stack([ay + dy * m, az + dz * m], -1), x0)
+    sa, sb, zc, n = superellipse_params(shell, np.asarray(x0, float))
+
+    def level(m):
+        y = dy * m
+        y += ay
+        y /= sa
+        np.abs(y, out=y)
+        np.power(y, n, out=y)
+        z = dz * m
+        z += az
+        z -= zc
+        z /= sb
+        np.abs(z, out=z)
+        np.power(z, n, out=z)
+        y += z
+        y -= 1.0
+        return y
+    return level
 
 
 def _level_compiled(shell: Shell, p, x0):
