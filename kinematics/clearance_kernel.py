@@ -12,6 +12,16 @@ a few thousand items; the arithmetic is the same, in double precision throughout
 evaluates the coarse grid in single precision, so a coarse near-tie may pick a neighbouring basin;
 both results are reached distances within their error estimates).
 
+The superellipse distance is bound by the latency of the powers in its Newton steps, so work that
+does not depend on other work is laid side by side: the coarse samples of a steer slice in passes,
+the two trials of a refinement step together (:func:`superellipse_distance_pair`). Shortcuts leave
+every result as it is: the chart of the superellipse distance that cannot give the minimum is not
+run, a Newton chart stops at its fixed point, and a steer trial clipped onto the current steer is
+the current point.
+
+Also here: the slot root finder and the inside levels of a polygon section (:func:`root`,
+:func:`levels`, on the section's edges interpolated once, :func:`edges_distance`).
+
 Item data are packed in one array ``q`` of shape (n_items, N_COLUMNS), columns named below.
 """
 from __future__ import annotations
