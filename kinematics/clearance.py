@@ -46,9 +46,10 @@ the same way along the tube; slot crossings are found by root finding on
 the outline (to about 1e-6 mm).
 
 The wheel searches run item by item in the compiled kernel of
-:mod:`kinematics.clearance_kernel` (numba); ``ClearanceSettings(kernel='numpy')``
-runs the batched numpy reference (:func:`_search`) instead, the same search
-with the same results to rounding.
+:mod:`kinematics.clearance_kernel` (numba), and so does the slot root finding
+on polygon shells; ``ClearanceSettings(kernel='numpy')`` runs the batched numpy
+reference (:func:`_search`, :func:`_root`) instead, the same search with the
+same results to rounding.
 
 States that did not converge give NaN everywhere, and a candidate with any
 such state gets NaN in every entry of :meth:`ClearanceResult.summary`.
@@ -83,7 +84,8 @@ class ClearanceSettings:
     tube_samples : samples along a tube for its inside / outside check.
     root_iterations : iterations of the slot crossing root finder.
     kernel : {'compiled', 'numpy'}
-        How the wheel searches run: the compiled per-item loop of
+        How the wheel searches (and, for polygon shells, the slot root
+        finding) run: the compiled per-item loops of
         :mod:`kinematics.clearance_kernel` (default), or the numpy reference
         path (same search, same results to rounding; slower).
     """
