@@ -12,7 +12,15 @@ configs/shell_demo.toml, over the default envelope of ``tiltopt clearance`` (lea
 * ``sweep_ms_per_candidate``: the kinematic sweep of the same envelope;
 * ``clearance_share``: clearance / (clearance + sweep), the share of a candidate's evaluation
   time the clearance check takes (``clearance_to_sweep_ratio``: clearance / sweep);
-* ``target_ms_per_candidate``: 2.0, and ``meets_target``.
+* ``target_ms_per_candidate``: 2.0, and ``meets_target``;
+* ``numpy_clearance_ms_per_candidate``: the same check by the numpy reference path
+  (``ClearanceSettings(kernel="numpy")``), and ``compiled_speedup`` over it;
+* ``polygon_*``: the same check with the demo shell's stations as 240-vertex polygons
+  (``kinematics.shell.polygon_sections``, as from a CAD export), ``--polygon-candidates`` of them,
+  by the compiled kernel and by the numpy path.
+
+The first call compiles the kernel (numba caches it in ``kinematics/__pycache__``); the timed runs
+come after a warm-up.
 
 Run ``python benchmarks/clearance.py``. Pin to one core with ``taskset -c 0`` for a clean
 single-core figure.
@@ -40,7 +48,7 @@ sys.path.insert(0, str(ROOT))
 from kinematics.clearance import ClearanceSettings, evaluate_clearance  # noqa: E402
 from kinematics.mechanism import parse_mechanism  # noqa: E402
 from kinematics.model import Model  # noqa: E402
-from kinematics.shell import load_shell  # noqa: E402
+from kinematics.shell import load_shell, polygon_sections  # noqa: E402
 from kinematics.sweep import sweep  # noqa: E402
 
 TARGET_MS = 2.0
@@ -81,6 +89,7 @@ def main(argv=None) -> dict:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--candidates", type=int, default=100)
     ap.add_argument("--repeat", type=int, default=5)
+    ap.add_argument("--polygon-candidates", type=int, default=20)
     args = ap.parse_args(argv)
 
     model = Model(demo_mechanism())
@@ -101,6 +110,19 @@ def main(argv=None) -> dict:
     res = clearance()  # warm-up
     t_clear, w_clear = best_of(clearance, args.repeat)
     ms = 1e3 * t_clear / C
+    numpy_settings = dataclasses.replace(settings, kernel="numpy")
+    t_numpy, _ = best_of(lambda: evaluate_clearance(model, geom, dataclasses.replace(sr, _points=None), shell,
+                                                    numpy_settings), max(1, args.repeat // 2))
+
+    poly = polygon_sections(shell, 240)
+    Cp = args.polygon_candidates
+    geom_p = model.batch_geometry(candidates(model, Cp, seed=1))
+    sr_p = sweep(model, geom_p, leans, travels)
+    evaluate_clearance(model, geom_p, sr_p, poly, settings)   # warm-up
+    t_poly, _ = best_of(lambda: evaluate_clearance(model, geom_p, dataclasses.replace(sr_p, _points=None), poly,
+                                                   settings), args.repeat)
+    t_poly_np, _ = best_of(lambda: evaluate_clearance(model, geom_p, dataclasses.replace(sr_p, _points=None), poly,
+                                                      numpy_settings), 1)
     summ = res.summary()
     out = {
         "benchmark": "clearance",
@@ -120,6 +142,12 @@ def main(argv=None) -> dict:
         "clearance_to_sweep_ratio": t_clear / t_sweep,
         "target_ms_per_candidate": TARGET_MS,
         "meets_target": bool(ms < TARGET_MS),
+        "numpy_clearance_ms_per_candidate": 1e3 * t_numpy / C,
+        "compiled_speedup": t_numpy / t_clear,
+        "polygon_shell": "configs/shell_demo.toml stations as 240-vertex polygons",
+        "polygon_candidates": Cp,
+        "polygon_clearance_ms_per_candidate": 1e3 * t_poly / Cp,
+        "polygon_numpy_clearance_ms_per_candidate": 1e3 * t_poly_np / Cp,
         "median_min_wheel_shell_error_mm": float(np.nanmedian(summ["min_wheel_shell_error_mm"])),
         "threads": os.environ.get("OMP_NUM_THREADS"),
     }

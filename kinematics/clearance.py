@@ -45,6 +45,12 @@ Tubes against the shell are sampled at ``tube_samples`` points and refined
 the same way along the tube; slot crossings are found by root finding on
 the outline (to about 1e-6 mm).
 
+The wheel searches run item by item in the compiled kernel of
+:mod:`kinematics.clearance_kernel` (numba), and so does the slot root finding
+on polygon shells; ``ClearanceSettings(kernel='numpy')`` runs the batched numpy
+reference (:func:`_search`, :func:`_root`) instead, the same search with the
+same results to rounding.
+
 States that did not converge give NaN everywhere, and a candidate with any
 such state gets NaN in every entry of :meth:`ClearanceResult.summary`.
 """
@@ -55,10 +61,11 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from . import clearance_kernel as _kernel
 from .mechanism import split_ref
 from .model import Geometry, Model
-from .shell import (Shell, inside_level, outline_position, section_distance, shell_signed_distance,
-                    signed_distance_yz, support, to_chassis_frame)
+from .shell import (Shell, inside_level, outline_position, polygon_section_edges, section_distance,
+                    shell_signed_distance, signed_distance_yz, superellipse_params, support, to_chassis_frame)
 
 _REACH = 6            # initial local-search step, in coarse half-spacings (covers +-3 cells)
 _NEAREST_MEMBERS = 3   # members searched per (state, wheel); the rest only enter through their bound
@@ -76,6 +83,11 @@ class ClearanceSettings:
     refine_iterations : halvings of the local coordinate search after the coarse grid.
     tube_samples : samples along a tube for its inside / outside check.
     root_iterations : iterations of the slot crossing root finder.
+    kernel : {'compiled', 'numpy'}
+        How the wheel searches (and, for polygon shells, the slot root
+        finding) run: the compiled per-item loops of
+        :mod:`kinematics.clearance_kernel` (default), or the numpy reference
+        path (same search, same results to rounding; slower).
     """
 
     crown_samples: int = 24
@@ -83,6 +95,7 @@ class ClearanceSettings:
     refine_iterations: int = 8
     tube_samples: int = 9
     root_iterations: int = 20
+    kernel: str = "compiled"
 
     def __post_init__(self):
         for k in ("crown_samples", "steer_samples", "refine_iterations", "tube_samples", "root_iterations"):
@@ -93,6 +106,8 @@ class ClearanceSettings:
             raise ValueError("crown_samples must be at least 4")
         if self.tube_samples < 2:
             raise ValueError("tube_samples must be at least 2")
+        if self.kernel not in ("compiled", "numpy"):
+            raise ValueError(f"kernel must be 'compiled' or 'numpy'; got {self.kernel!r}")
 
 
 @dataclass(frozen=True)
@@ -507,6 +522,60 @@ def _estimate(W, fb, db, tb, flat, si, ki, S, K, hth0, hd0, st):
     return fb, db, tb, err
 
 
+def _shell_tables(shell: Shell):
+    """The shell as the compiled kernel reads it: (mode, stations, outlines, thinned outlines, their bound)."""
+    if shell.kind == "superellipse":
+        tab = np.stack([shell.x, shell.half_width, shell.half_height, shell.centre_z, shell.exponent], 1)
+        return _kernel.SHELL_SUPERELLIPSE, tab, _NO_OUTLINES, _NO_OUTLINES, 0.0
+    tab = np.zeros((len(shell.x), 5))
+    tab[:, 0] = shell.x
+    coarse = shell.coarse_outlines
+    err = shell.coarse_error_mm if coarse is not None else 0.0
+    coarse = shell.outlines if coarse is None else coarse
+    return (_kernel.SHELL_POLYGON, tab, np.ascontiguousarray(shell.outlines, float),
+            np.ascontiguousarray(coarse, float), float(err))
+
+
+_NO_OUTLINES = np.zeros((2, 3, 2))
+_NO_MEMBERS = (np.zeros((1, 1, 6)), np.ones((1, 1), bool))
+
+
+def _search_compiled(W: _Wheels, st: ClearanceSettings, it_trans, shell: Shell | None = None, members=None,
+                     xs: float = 0.0):
+    """:func:`_search` by the compiled kernel: the clearance to the shell, or (``members``) to capsules.
+
+    members : (first ends (n, k, 2), second ends (n, k, 2), radius (n, k), left out (n, k) of bool), or None.
+    Returns the reached minimum, its steer and crown angle (rad) and the error estimate, each (n,).
+    """
+    n = len(W.rho)
+    q = np.empty((n, _kernel.N_COLUMNS))
+    for col, v in ((_kernel.CX, W.cx), (_kernel.CY, W.cy), (_kernel.CZ, W.cz), (_kernel.PX, W.px),
+                   (_kernel.PY, W.py), (_kernel.PZ, W.pz), (_kernel.EX, W.ex), (_kernel.EY, W.ey),
+                   (_kernel.EZ, W.ez), (_kernel.SG, W.sg), (_kernel.CG, W.cg), (_kernel.RHO, W.rho),
+                   (_kernel.R, W.r), (_kernel.DMAX, W.delta_max), (_kernel.ARM, W.arm),
+                   (_kernel.TY, it_trans[:, 0]), (_kernel.TZ, it_trans[:, 1]), (_kernel.CL, np.cos(W.lean)),
+                   (_kernel.SL, np.sin(W.lean))):
+        q[:, col] = v
+    any_steer = bool((W.delta_max > 0).any())
+    S = st.steer_samples if any_steer else 1
+    sg = np.linspace(-1.0, 1.0, S) if S > 1 else np.zeros(1)
+    if members is None:
+        mode, tab, outlines, coarse, err = _shell_tables(shell)
+        mem, mem_ex = _NO_MEMBERS
+    else:
+        mode, tab, outlines, coarse, err = _kernel.MEMBERS, np.zeros((2, 5)), _NO_OUTLINES, _NO_OUTLINES, 0.0
+        a, b, rad, excluded = members
+        e = b - a
+        inv = 1.0 / np.maximum(e[..., 0] * e[..., 0] + e[..., 1] * e[..., 1], 1e-30)
+        mem = np.ascontiguousarray(np.concatenate([a, e, inv[..., None], rad[..., None]], -1), float)
+        mem_ex = np.ascontiguousarray(excluded, bool)
+    out = np.empty((n, 4))
+    if n:
+        _kernel.search(mode, q, sg, st.crown_samples, st.refine_iterations, any_steer, _REACH, tab, outlines,
+                       coarse, err, mem, mem_ex, float(xs), out)
+    return out[:, 0], out[:, 1], out[:, 2], out[:, 3]
+
+
 def _segment_distance(px, py, pz, ay, az, by, bz, x0):
     """Distance of points (n, m) to segments (n, M) in the plane x = x0; returns (n, m, M)."""
     ey, ez = (by - ay)[:, None, :], (bz - az)[:, None, :]
@@ -583,9 +652,13 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
                                       lower_bound=lower_bound) - W.r[idx][:, None].astype(dt)
         return f
 
-    grid = _coarse_grid(W, st)
-    cheap = shell_fun(True)
-    ws_val, ws_steer, _, ws_err = _search(W, shell_fun(False), cheap, st, grid, early_pfun=cheap)
+    compiled = st.kernel == "compiled"
+    if compiled:
+        ws_val, ws_steer, _, ws_err = _search_compiled(W, st, it_trans, shell)
+    else:
+        grid = _coarse_grid(W, st)
+        cheap = shell_fun(True)
+        ws_val, ws_steer, _, ws_err = _search(W, shell_fun(False), cheap, st, grid, early_pfun=cheap)
 
     if M:
         n = len(W.r)
@@ -612,7 +685,11 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
             d = np.where(kex[idx][:, None, :], np.inf, d - krad[idx][:, None, :].astype(dt))
             return np.min(d, axis=-1) - W.r[idx][:, None].astype(dt)
 
-        wl_val, wl_steer, wl_theta, wl_err = _search(W, link_fun, link_fun, st, grid)
+        if compiled:
+            wl_val, wl_steer, wl_theta, wl_err = _search_compiled(
+                W, st, it_trans, members=(ka, kb, krad, kex), xs=xs)
+        else:
+            wl_val, wl_steer, wl_theta, wl_err = _search(W, link_fun, link_fun, st, grid)
         # members left out of the search can only lower the minimum down to their bound
         if drop.shape[1]:
             lb_drop = np.min(np.take_along_axis(lb, drop, 1), axis=1)
@@ -656,11 +733,12 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
     right = scatter(np.max(ccy + half, axis=1))
     left = scatter(np.min(ccy - half, axis=1))
     ty, tz = trans[..., 0], trans[..., 1]
-    sh_right = ty + support(shell, np.stack([cl, sl], -1))
-    sh_left = ty - support(shell, np.stack([-cl, -sl], -1))
+    cl1, sl1 = np.cos(np.radians(sr.lean_deg)), np.sin(np.radians(sr.lean_deg))   # (L,): the shell's
+    sh_right = ty + support(shell, np.stack([cl1, sl1], -1))                # extents depend on the lean only
+    sh_left = ty - support(shell, np.stack([-cl1, -sl1], -1))
     width = np.maximum(np.max(right, -1), sh_right) - np.minimum(np.min(left, -1), sh_left)
     width = np.where(conv, width, np.nan)
-    ground_shell = tz - support(shell, np.stack([sl, -cl], -1))
+    ground_shell = tz - support(shell, np.stack([sl1, -cl1], -1))
     if M:
         za, zb = pts[..., mem.ia, 1], pts[..., mem.ib, 1]
         ground_tubes = np.min(np.minimum(za, zb) - mem.radius, axis=-1)
@@ -692,9 +770,13 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
         if through:
             tk = np.array(through)
             a, b = A[..., tk, :], B[..., tk, :]
-            ha, hb = inside_level(shell, a, xs), inside_level(shell, b, xs)
+            # polygon levels are distances to many edges: the compiled loops are far quicker there; the
+            # superellipse level is two powers, which numpy's vector loops do faster
+            fast = st.kernel == "compiled" and shell.kind == "polygon"
+            level = _level_compiled if fast else inside_level
+            ha, hb = level(shell, a, xs), level(shell, b, xs)
             cross = (ha * hb < 0) & np.isfinite(ha) & np.isfinite(hb)
-            s = _root(shell, a, b, ha, hb, xs, st.root_iterations)
+            s = (_root_compiled if fast else _root)(shell, a, b, ha, hb, xs, st.root_iterations)
             p = a + (b - a) * s[..., None]
             pos, perim = outline_position(shell, xs, p)
             slot_pos = np.where(cross, pos, np.nan)
@@ -744,6 +826,7 @@ def _root(shell: Shell, a, b, ha, hb, x0, iterations):
 
     Entries without a sign change get an arbitrary value (callers mask them).
     """
+    level = _line_level(shell, a, b, x0)
     lo, hi = np.zeros(ha.shape), np.ones(ha.shape)
     bad = ~(ha * hb < 0)
     flo = np.where(bad, -1.0, ha)
@@ -752,8 +835,8 @@ def _root(shell: Shell, a, b, ha, hb, x0, iterations):
     for _ in range(iterations):
         den = fhi - flo
         m = hi - fhi * (hi - lo) / np.where(den == 0, 1.0, den)
-        m = np.where((den == 0) | ~np.isfinite(m), 0.5 * (lo + hi), np.clip(m, lo, hi))
-        fm = inside_level(shell, a + (b - a) * m[..., None], x0)
+        m = np.where((den == 0) | ~np.isfinite(m), 0.5 * (lo + hi), np.minimum(np.maximum(m, lo), hi))
+        fm = level(m)
         fm = np.where(np.isfinite(fm), fm, 0.0)
         same = fm * fhi > 0                      # m replaces hi
         flo = np.where(same & (side > 0), 0.5 * flo, flo)
@@ -762,6 +845,52 @@ def _root(shell: Shell, a, b, ha, hb, x0, iterations):
         lo, flo = np.where(same, lo, m), np.where(same, flo, fm)
         side = np.where(same, 1.0, -1.0)
     return np.where(np.abs(flo) < np.abs(fhi), lo, hi)
+
+
+def _line_level(shell: Shell, a, b, x0):
+    """m -> :func:`kinematics.shell.inside_level` at ``a + (b - a) m`` in the plane x0 (the same sums).
+
+    a, b : ndarray of shape (..., 2); m of shape (...). For a superellipse shell the section is
+    looked up once and y, z are kept apart (no stacking of points at every call).
+    """
+    ay, az = np.ascontiguousarray(a[..., 0]), np.ascontiguousarray(a[..., 1])
+    dy, dz = b[..., 0] - ay, b[..., 1] - az
+    if shell.kind != "superellipse":
+        return lambda m: inside_level(shell, np.stack([ay + dy * m, az + dz * m], -1), x0)
+    sa, sb, zc, n = superellipse_params(shell, np.asarray(x0, float))
+
+    def level(m):
+        y = dy * m
+        y += ay
+        y /= sa
+        np.abs(y, out=y)
+        np.power(y, n, out=y)
+        z = dz * m
+        z += az
+        z -= zc
+        z /= sb
+        np.abs(z, out=z)
+        np.power(z, n, out=z)
+        y += z
+        y -= 1.0
+        return y
+    return level
+
+
+def _level_compiled(shell: Shell, p, x0):
+    """:func:`kinematics.shell.inside_level` of points p (..., 2) on a polygon shell, by the compiled kernel."""
+    out = np.empty(p.shape[:-1])
+    _kernel.levels(polygon_section_edges(shell, x0), np.ascontiguousarray(p.reshape(-1, 2), float), out.reshape(-1))
+    return out
+
+
+def _root_compiled(shell: Shell, a, b, ha, hb, x0, iterations):
+    """:func:`_root` on a polygon shell by the compiled kernel (the same iteration, entry by entry)."""
+    out = np.empty(ha.size)
+    _kernel.root(polygon_section_edges(shell, x0), np.ascontiguousarray(a.reshape(-1, 2), float),
+                 np.ascontiguousarray(b.reshape(-1, 2), float), np.ascontiguousarray(ha.ravel(), float),
+                 np.ascontiguousarray(hb.ravel(), float), iterations, out)
+    return out.reshape(ha.shape)
 
 
 def _circular_range(pos: np.ndarray, perimeter: float) -> np.ndarray:

@@ -241,6 +241,28 @@ def parse_polygon_csv(text: str, src: str = "<memory>") -> Shell:
                  coarse_error_mm=err, name=Path(src).stem if src != "<memory>" else "shell", notes=notes, source=src)
 
 
+def polygon_sections(shell: Shell, vertices) -> Shell:
+    """A superellipse shell's station sections as polygons (what a CAD export of it would give).
+
+    vertices : int or sequence of int, one per station: outline points, at equal steps of the
+    superellipse's angle parameter. Between stations the polygon shell interpolates its vertices,
+    not the superellipse parameters, so it differs from the original between stations by a little.
+    """
+    counts = np.broadcast_to(np.asarray(vertices, int), shell.x.shape)
+    rows = ["x_mm,y_mm,z_mm"]
+    for x, V in zip(shell.x, counts):
+        a, b, zc, n = (float(v) for v in superellipse_params(shell, np.array(x)))
+        pts = _superellipse_points(a, b, zc, n, np.linspace(0.0, 2 * math.pi, int(V), endpoint=False))
+        rows += [f"{float(x)!r},{float(y)!r},{float(z)!r}" for y, z in pts]
+    return parse_polygon_csv("\n".join(rows) + "\n", f"{shell.name} as polygons")
+
+
+def _superellipse_points(a, b, zc, n, psi):
+    """Points (m, 2) of the outline |y/a|^n + |(z-zc)/b|^n = 1 at parameters psi (m,)."""
+    c, s = np.cos(psi), np.sin(psi)
+    return np.stack([a * np.sign(c) * np.abs(c) ** (2.0 / n), zc + b * np.sign(s) * np.abs(s) ** (2.0 / n)], -1)
+
+
 _COARSE_VERTICES = 48
 
 
@@ -421,6 +443,22 @@ def polygon_distance(y, z, verts):
     return np.where(inside, -d, d)
 
 
+def polygon_section_edges(shell: Shell, x_mm: float) -> np.ndarray:
+    """The polygon section at x (clamped to the stations) as edges, for repeated distance queries.
+
+    Returns
+    -------
+    ndarray of shape (n_vertices, 6)
+        Per edge (vertex k to k + 1): start (y, z), direction, 1 / max(squared length, 1e-300) and
+        the end's z.
+    """
+    v0 = _polygon_at(shell, np.array(float(x_mm)))
+    v1 = np.roll(v0, -1, axis=0)
+    e = v1 - v0
+    inv = 1.0 / np.maximum(e[:, 0] * e[:, 0] + e[:, 1] * e[:, 1], 1e-300)
+    return np.ascontiguousarray(np.concatenate([v0, e, inv[:, None], v1[:, 1:]], 1))
+
+
 def section_distance(shell: Shell, yz: np.ndarray, x_mm, *, lower_bound: bool = False) -> np.ndarray:
     """Signed distance within the cross-section at x (no end caps; x clamped to the stations).
 
@@ -497,11 +535,11 @@ def signed_distance_yz(shell: Shell, y, z, x_mm, *, lower_bound: bool = False) -
 def inside_level(shell: Shell, yz: np.ndarray, x_mm) -> np.ndarray:
     """A function with the same zero set and sign as the section distance, cheap (for root finding)."""
     yz = np.asarray(yz, float)
-    x = np.broadcast_to(np.asarray(x_mm, float), yz.shape[:-1])
+    x = np.asarray(x_mm, float)
     if shell.kind == "superellipse":
-        a, b, zc, n = superellipse_params(shell, x)
+        a, b, zc, n = superellipse_params(shell, x)    # once when x is one value (tubes in the linkage plane)
         return np.abs(yz[..., 0] / a) ** n + np.abs((yz[..., 1] - zc) / b) ** n - 1.0
-    return section_distance(shell, yz, x)
+    return section_distance(shell, yz, np.broadcast_to(x, yz.shape[:-1]))
 
 
 # ------------------------------------------------------------ extents
@@ -556,9 +594,7 @@ def outline_table(shell: Shell, x_mm: float):
     """
     if shell.kind == "superellipse":
         a, b, zc, n = (float(v) for v in superellipse_params(shell, np.array(x_mm)))
-        psi = np.linspace(-math.pi, math.pi, _OUTLINE_TABLE, endpoint=False)
-        c, s = np.cos(psi), np.sin(psi)
-        pts = np.stack([a * np.sign(c) * np.abs(c) ** (2.0 / n), zc + b * np.sign(s) * np.abs(s) ** (2.0 / n)], -1)
+        pts = _superellipse_points(a, b, zc, n, np.linspace(-math.pi, math.pi, _OUTLINE_TABLE, endpoint=False))
         centre = np.array([0.0, zc])
     else:
         poly = _polygon_at(shell, np.array(float(x_mm)))

@@ -15,9 +15,9 @@ from scipy.optimize import minimize_scalar
 
 from kinematics.errors import InputError
 from kinematics.mechanism import load_mechanism, mechanism_to_toml, mirror, parse_mechanism
-from kinematics.shell import (load_shell, outline_position, parse_polygon_csv, shell_signed_distance,
-                              superellipse_distance, superellipse_distance_lower_bound, superellipse_shell, support,
-                              to_chassis_frame)
+from kinematics.shell import (load_shell, outline_position, parse_polygon_csv, polygon_distance, polygon_sections,
+                              shell_signed_distance, superellipse_distance, superellipse_distance_lower_bound,
+                              superellipse_params, superellipse_shell, support, to_chassis_frame)
 
 from conftest import CONFIGS, twin_beam
 
@@ -108,6 +108,29 @@ def test_polygon_sections_with_different_counts_are_resampled_and_said_so():
     shell = parse_polygon_csv(_csv([(0.0, A), (500.0, B)]))
     assert "resampled" in shell.notes
     assert shell.outlines.shape == (2, 24, 2)
+
+
+def test_polygon_sections_of_a_superellipse_shell_keep_its_distances_at_the_stations():
+    # exact: at a station the polygon is inscribed in the convex section, so for a point outside the
+    # distance to the polygon is at least the distance to the section and at most that plus the
+    # Hausdorff distance h of the two outlines (h from a dense sampling of the section)
+    se = load_shell(CONFIGS / "shell_demo.toml")
+    poly = polygon_sections(se, 720)
+    assert poly.kind == "polygon" and poly.outlines.shape == (4, 720, 2) and poly.notes == ""
+    rng = np.random.default_rng(2)
+    for k, x in enumerate(se.x):
+        a, b, zc, n = (float(v) for v in superellipse_params(se, np.array(x)))
+        psi = np.linspace(0.0, 2 * math.pi, 720 * 16, endpoint=False)
+        c, s_ = np.cos(psi), np.sin(psi)
+        dense = np.stack([a * np.sign(c) * np.abs(c) ** (2 / n), zc + b * np.sign(s_) * np.abs(s_) ** (2 / n)], -1)
+        h = float(np.max(np.abs(polygon_distance(dense[:, 0], dense[:, 1], poly.outlines[k]))))
+        assert h < 0.5
+        p = rng.uniform([-600.0, -100.0], [600.0, 1300.0], (300, 2))
+        d_se = shell_signed_distance(se, p, x)
+        d_po = shell_signed_distance(poly, p, x)
+        out = d_se > 1.0
+        assert np.all(d_po[out] >= d_se[out] - 1e-6) and np.all(d_po[out] <= d_se[out] + h * 1.01 + 1e-6)
+    assert "resampled" in polygon_sections(se, (100, 120, 100, 80)).notes
 
 
 # -------------------------------------------------------------- closed forms
