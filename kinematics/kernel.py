@@ -184,7 +184,8 @@ def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray,
     n0 = b.n0 if b.n0.shape[1] else np.zeros((Nb, 0, 2))
     _newton(q, np.ascontiguousarray(lean, dtype=float), tgt, items, hold, st,
             np.ascontiguousarray(b.V, dtype=np.complex128), np.ascontiguousarray(b.U, dtype=np.complex128),
-            np.ascontiguousarray(b.R), np.ascontiguousarray(b.r), np.ascontiguousarray(b.gamma0),
+            np.ascontiguousarray(b.R), np.ascontiguousarray(b.r),
+            np.stack([np.sin(b.gamma0), np.cos(b.gamma0)], -1),
             np.ascontiguousarray(b.Lc), np.ascontiguousarray(b.L_link.reshape(Nb, len(model.eq_link))),
             np.ascontiguousarray(n0, dtype=float), np.ascontiguousarray(b.zc0),
             np.ascontiguousarray(b.col_scale),
@@ -313,7 +314,7 @@ def _add_point(J, n, r, j, cy, cz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coo
 
 
 @numba.njit(cache=True, error_model="numpy")
-def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0, zc0, scale,
+def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, sc0, Lc, L_link, n0, zc0, scale,
             n_pts, src_col, ang_coord, pk_src, p_start, p_col, ty, tz, sl_pk, sl_pt, sl_coord, eq_pin, eq_slider,
             sl_src, eq_link, eq_spring, eq_wheel, usrc, angle_col, tol, max_iter, max_step, chord_below, final_jacobian,
             status, resid, iters, J, tan, det):
@@ -346,7 +347,7 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
         ang[0] = lean_n
         for k in range(ang_coord.shape[0]):
             ang[k + 1] = Q[n, ang_coord[k]]
-        for k in range(ang.shape[0]):
+        for k in range(1, ang.shape[0]):     # cs[0]: the lean's, set once per state
             cs[k, 0] = np.cos(ang[k])
             cs[k, 1] = np.sin(ang[k])
         for k in range(V.shape[1]):
@@ -408,9 +409,11 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
         lat = 0.0
         for k in range(2):
             j = eq_wheel[k]
-            g = gamma0[i, k] + ang[usrc[k]]
+            # sin, cos of the camber gamma0 + a from those of the static camber and the angle a
+            c, s = cs[usrc[k], 0], cs[usrc[k], 1]
             Rr = R[i, k] - r[i, k]
-            gsc[k, 0], gsc[k, 1] = np.sin(g), np.cos(g)
+            gsc[k, 0] = sc0[i, k, 0] * c + sc0[i, k, 1] * s
+            gsc[k, 1] = sc0[i, k, 1] * c - sc0[i, k, 0] * s
             F[r0 + k] = x[j, 1] - Rr * gsc[k, 1] - r[i, k]
             lat += x[j, 0] - Rr * gsc[k, 0]
         F[r0 + 2] = 0.5 * lat
@@ -474,6 +477,8 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, gamma0, Lc, L_link, n0,
         Jm = J[it_]
         prev = np.inf
         st = _MAX_ITER
+        cs[0, 0] = np.cos(lean[it_])
+        cs[0, 1] = np.sin(lean[it_])
         stepped = False         # tan[it_] and det[it_] hold those of the last step's Jacobian
         chord_ok = False        # factors of an earlier step may be reused (a chord step)
         was_chord = False
