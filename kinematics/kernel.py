@@ -158,7 +158,8 @@ def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray,
     J : ndarray of shape (N, m, n_q + 1)
         Jacobian (see ``final_jacobian``), the lean column last.
     tangent : ndarray of shape (N, n_q)
-        Least-squares dq/dphi (the solution of ``J_q t = -J_phi``) of that Jacobian.
+        The path tangent of that Jacobian (least squares): dq/dphi (``J_q t = -J_phi``) in the
+        lean stage, dq/ds (``J_q t = -dF/ds``) in the travel stage.
     det_sign : ndarray of shape (N,)
         Sign of det(J_q) for a square system (0 when singular), else 0.
     """
@@ -191,7 +192,7 @@ def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray,
             np.ascontiguousarray(b.col_scale),
             t["n_pts"], t["src_col"], t["ang_coord"], t["pk_src"], t["p_start"], t["p_col"], t["ty"], t["tz"],
             t["sl_pk"], t["sl_pt"], t["sl_coord"], t["eq_pin"], t["eq_slider"], t["sl_src"], t["eq_link"],
-            t["eq_spring"], t["eq_wheel"], t["usrc"], t["angle_col"],
+            t["eq_spring"], t["eq_wheel"], t["usrc"], t["angle_col"], model.n_loop_rows + len(model.eq_link),
             float(settings.tol_mm), int(settings.max_iter), float(settings.max_angle_step_rad),
             float(settings.chord_below_mm), bool(final_jacobian), status, resid, iters, J, tan, det)
     return q, status, resid, iters, J, tan, det
@@ -316,7 +317,7 @@ def _add_point(J, n, r, j, cy, cz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coo
 @numba.njit(cache=True, error_model="numpy")
 def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, sc0, Lc, L_link, n0, zc0, scale,
             n_pts, src_col, ang_coord, pk_src, p_start, p_col, ty, tz, sl_pk, sl_pt, sl_coord, eq_pin, eq_slider,
-            sl_src, eq_link, eq_spring, eq_wheel, usrc, angle_col, tol, max_iter, max_step, chord_below, final_jacobian,
+            sl_src, eq_link, eq_spring, eq_wheel, usrc, angle_col, r_travel, tol, max_iter, max_step, chord_below, final_jacobian,
             status, resid, iters, J, tan, det):
     N, nq = Q.shape
     rows = J.shape[1]
@@ -527,7 +528,7 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, sc0, Lc, L_link, n0, zc
             # the step and, from the same factors, the lean tangent of their Jacobian
             for k in range(rows):
                 rhs[k, 0] = -F[k]
-                rhs[k, 1] = -Jm[k, nq]
+                rhs[k, 1] = -Jm[k, nq] if stage == 0 else (1.0 if r_travel <= k < r_travel + 2 else 0.0)
             if ok:
                 _ls_apply(Jm, rows, nq, scale[i], A, piv, normal, rhs, B)
             big = 0.0
@@ -555,7 +556,7 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, sc0, Lc, L_link, n0, zc
             # the Jacobian, lean tangent and det(J) sign at the returned state
             jacobian(i, it_)
             for k in range(rows):
-                rhs[k, 0] = -Jm[k, nq]
+                rhs[k, 0] = -Jm[k, nq] if stage == 0 else (1.0 if r_travel <= k < r_travel + 2 else 0.0)
                 rhs[k, 1] = 0.0
             ok, sign, normal = _ls_factor(Jm, rows, nq, scale[i], A, piv)
             if ok:
@@ -641,3 +642,51 @@ def _branch_test(q1, t1, q0, t0, p0, p1, col_scale, items, ratio, turned):
             dot += t0[i, c] * t1[i, c] * s * s
         ratio[i] = np.sqrt(mis) / max(np.sqrt(sec2) + np.sqrt(mean2), 1e-12) if dphi != 0.0 else 0.0
         turned[i] = dot < 0.0
+
+
+def contacts(model: Model, x: np.ndarray, ang: np.ndarray, b, items: np.ndarray):
+    """Camber, tyre contact points and spring lengths of solved states (DOMAIN.md).
+
+    Parameters
+    ----------
+    x : ndarray of shape (N, n_needed, 2)
+        Positions of the equation points (:func:`positions`).
+    ang : ndarray of shape (N, n_ang)
+        Angle sources of the states.
+    b : Batch
+        Wheel data per row; ``items`` (N,) gives each state's row.
+
+    Returns
+    -------
+    gamma : ndarray of shape (N, 2)
+        Camber of the [left, right] wheel, rad: static camber plus the upright's angle.
+    contact : ndarray of shape (N, 2, 2)
+        Contact point [y, z] per wheel, mm: ``y_c - (R - r) sin(gamma)``, ``z_c - (R - r) cos(gamma) - r``.
+    spring_len : ndarray of shape (N, n_springs)
+        Spring lengths, mm.
+    """
+    N = x.shape[0]
+    gamma, contact = np.empty((N, 2)), np.empty((N, 2, 2))
+    spring_len = np.empty((N, len(model.eq_spring)))
+    t = tables(model)
+    c = np.ascontiguousarray
+    _contacts(c(x), c(ang), t["usrc"], t["eq_wheel"], t["eq_spring"], c(b.gamma0), c(b.R), c(b.r),
+              c(items, dtype=np.int64), gamma, contact, spring_len)
+    return gamma, contact, spring_len
+
+
+@numba.njit(cache=True, error_model="numpy")
+def _contacts(x, ang, usrc, eq_wheel, eq_spring, gamma0, R, r, items, gamma, contact, spring_len):
+    for n in range(x.shape[0]):
+        i = items[n]
+        for w in range(2):
+            g = gamma0[i, w] + ang[n, usrc[w]]
+            gamma[n, w] = g
+            Rr = R[i, w] - r[i, w]
+            j = eq_wheel[w]
+            contact[n, w, 0] = x[n, j, 0] - Rr * np.sin(g)
+            contact[n, w, 1] = x[n, j, 1] - Rr * np.cos(g) - r[i, w]
+        for e in range(eq_spring.shape[0]):
+            dy = x[n, eq_spring[e, 0], 0] - x[n, eq_spring[e, 1], 0]
+            dz = x[n, eq_spring[e, 0], 1] - x[n, eq_spring[e, 1], 1]
+            spring_len[n, e] = np.sqrt(dy * dy + dz * dz)

@@ -413,7 +413,7 @@ def _newton_numpy(model: Model, b: Batch, q0, lean, target, stage: str, settings
 def solve_states(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.ndarray, stage: str,
                  settings: SolveSettings = SolveSettings(), items: np.ndarray | None = None,
                  final_jacobian: bool = True):
-    """:func:`newton`, plus the lean tangent and the det(J) sign.
+    """:func:`newton`, plus the path tangent and the det(J) sign.
 
     Parameters
     ----------
@@ -428,8 +428,9 @@ def solve_states(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, targe
     Returns
     -------
     q, status, resid, iters, J : as :func:`newton` (J as ``final_jacobian`` says)
-    lean_tangent : ndarray of shape (N, n_q)
-        dq/dphi of that Jacobian (least squares of ``J_q t = -J_phi``).
+    path_tangent : ndarray of shape (N, n_q)
+        The path tangent of that Jacobian (least squares of ``J_q t = -dF``): dq/dphi in the
+        lean stage (dF = J_phi), dq/ds in the travel stage (dF = dF/ds, -1 on the travel rows).
     det_sign : ndarray of shape (N,)
         Sign of det(J_q) for a square system (0 when singular); 0 otherwise.
     """
@@ -441,10 +442,20 @@ def solve_states(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, targe
     q, st, res, it, J, Jstep = _newton_numpy(model, b, q0, lean, target, stage, settings, False)
     if not final_jacobian:
         J = np.where((it > 0)[:, None, None], Jstep, J)
-    t = tangent(model, J, J[..., model.n_q], b.col_scale)
+    t = tangent(model, J, path_derivative(model, J, stage), b.col_scale)
     with np.errstate(invalid="ignore"):       # a non-finite item has sign NaN; its status says why
         sign = np.linalg.slogdet(J[..., :model.n_q])[0] if J.shape[1] == model.n_q else np.zeros(len(q))
     return q, st, res, it, J, t, sign
+
+
+def path_derivative(model: Model, J: np.ndarray, stage: str) -> np.ndarray:
+    """dF along the stage's path (N, m): the lean column of J, or dF/ds of the travel rows."""
+    if stage == "lean":
+        return J[..., model.n_q]
+    dF = np.zeros(J.shape[:2])
+    off = model.n_loop_rows + len(model.eq_link)
+    dF[:, off:off + 2] = -1.0
+    return dF
 
 
 def tangent(model: Model, J: np.ndarray, dF: np.ndarray, col_scale: np.ndarray,

@@ -23,7 +23,7 @@ import numpy as np
 from . import kernel
 from .model import Geometry, Model
 from .solver import (CONVERGED, FOLD, SKIPPED, STATUS_TEXT, Batch, SolveSettings, hold_free_directions, n_rows,
-                     newton, residual, solve_states, tangent)
+                     solve_states)
 
 
 @dataclass
@@ -190,15 +190,6 @@ def _positions(model: Model, engine: str, q, lean, b: Batch, items):
     return x, ang
 
 
-def _spring_lengths(model: Model, b: Batch, q):
-    """Spring lengths (N, n_springs) and their Jacobian (N, n_springs, n_q) at lean 0."""
-    N = q.shape[0]
-    ns = len(model.eq_spring)
-    F, J = residual(model, b, q, np.zeros(N), np.zeros((N, ns)), "lean")
-    off = model.n_loop_rows + len(model.eq_link)
-    return F[:, off:off + ns], J[:, off:off + ns, :model.n_q]
-
-
 #: trapezoid test of a continuation step: |secant - mean end tangent| / (|secant| + |mean tangent|)
 #: above this marks a possible jump to another assembly branch; the step is then redone in
 #: substeps. On 100 random demo linkages the ratio has a median of 0.001 and a 99th percentile of
@@ -242,40 +233,21 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     zero = np.zeros(N)
     K = max(1, math.ceil(np.max(np.abs(travel)) / settings.max_travel_step_mm - 1e-9))
     tstatus = np.zeros(N, dtype=np.int8)
-    J = None
+    t_resid = np.full(N, np.nan)          # residual of each item's last travel solve
+    dq_ds = np.zeros((N, nq))             # travel path tangent at the solved state
     s_prev = np.zeros(N)
     for k in range(1, K + 1):
         s_k = s_item * (k / K)
         ok = np.flatnonzero(tstatus == CONVERGED)
         if len(ok) == 0:
             break
-        sub = bt.take(ok)
-        q_guess = q[ok]
-        if J is not None:
-            dF = np.zeros((len(ok), J.shape[1]))
-            dF[:, model.n_loop_rows + len(model.eq_link):model.n_loop_rows + len(model.eq_link) + 2] = -1.0
-            q_guess = q_guess + tangent(model, J[ok], dF, sub.col_scale) * (s_k - s_prev)[ok, None]
-        qs, st, res, it, Js = newton(model, sub, q_guess, zero[ok], s_k[ok], "travel", settings.solve)
-        q[ok] = qs
-        tstatus[ok] = st
-        if J is None:
-            J = np.zeros((N,) + Js.shape[1:])
-        J[ok] = Js
+        q_guess = q[ok] + dq_ds[ok] * (s_k - s_prev)[ok, None]
+        qs, st, res, _, _, t_s, _ = solve_states(model, bt, q_guess, zero[ok], s_k[ok], "travel", settings.solve, ok)
+        q[ok], tstatus[ok], t_resid[ok], dq_ds[ok] = qs, st, res, t_s
         s_prev = s_k
-    t_res = residual(model, bt, q, zero, s_item, "travel", jac=False)[0]
-    t_resid = np.max(np.abs(t_res), axis=1)
-
-    # held spring lengths and motion ratios at lean 0
-    if ns:
-        Ls, dLs = _spring_lengths(model, bt, q)
-        dF = np.zeros((N, J.shape[1]))
-        off = model.n_loop_rows + len(model.eq_link)
-        dF[:, off:off + 2] = -1.0
-        dq_ds = tangent(model, J, dF, bt.col_scale)
-        motion_ratio = -np.einsum("nkq,nq->nk", dLs, dq_ds)
-    else:
-        Ls = np.zeros((N, 0))
-        motion_ratio = np.zeros((N, 0))
+    # positions at lean 0 (references of the lean metrics) and the spring lengths held from here
+    x0, ang0 = _positions(model, settings.solve.engine, q, zero, bt, np.arange(N))
+    g0, contact0, Ls = kernel.contacts(model, x0, ang0, bt, np.arange(N))
 
     # ------------------------------------------------------------------ lean
     lean_rad = np.radians(lean_deg)
@@ -304,7 +276,11 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     square = n_rows(model, "lean") == nq
     # the path tangent and det(J) sign at lean 0 (no iteration: the state is solved)
     at0 = dataclasses.replace(settings.solve, max_iter=0)
-    *_, T0, sign0 = solve_states(model, bl, Q[:, 0], np.zeros(M), held, "lean", at0)
+    *_, J0, T0, sign0 = solve_states(model, bl, Q[:, 0], np.zeros(M), held, "lean", at0)
+    # motion ratios: spring shortening per mm of travel, from the spring rows of J at lean 0
+    off = model.n_loop_rows + len(model.eq_link)
+    dLs = J0[np.arange(N) * nb, off:off + ns, :nq]
+    motion_ratio = -np.einsum("nkq,nq->nk", dLs, dq_ds)
 
     def advance(idx, hist_q, hist_phi, hist_t, phi_new):
         """One continuation step of items ``idx`` from their last states.
@@ -391,22 +367,10 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     item_nl = np.repeat(np.arange(N), L)
     x_np, ang = _positions(model, settings.solve.engine, flat_q, flat_lean, bt, item_nl)
     body_angle = model.body_angles(ang)
-    gamma = bt.gamma0[item_nl] + body_angle[:, model.wheel_upright]
-    Rr = (bt.R - bt.r)[item_nl]
-    wc = x_np[:, model.eq_wheel]                                     # (NL, 2, 2)
-    contact = np.stack([wc[..., 0] - Rr * np.sin(gamma), wc[..., 1] - Rr * np.cos(gamma) - bt.r[item_nl]], -1)
-    if ns:
-        sl = x_np[:, model.eq_spring[:, 0]] - x_np[:, model.eq_spring[:, 1]]
-        spring_len = np.linalg.norm(sl, axis=-1)
-    else:
-        spring_len = np.zeros((NL, 0))
+    gamma, contact, spring_len = kernel.contacts(model, x_np, ang, bt, item_nl)
 
     # references at lean 0 of the same travel
-    x0, ang0 = _positions(model, settings.solve.engine, q_ref, np.zeros(N), bt, np.arange(N))
-    g0 = bt.gamma0 + model.body_angles(ang0)[:, model.wheel_upright]
-    Rr0 = bt.R - bt.r
-    c0 = x0[:, model.eq_wheel, 0] - Rr0 * np.sin(g0)
-    track0 = c0[:, 1] - c0[:, 0]
+    track0 = contact0[:, 1, 0] - contact0[:, 0, 0]
     zO0 = q_ref[:, 1]
 
     shape = (C, T, L)
