@@ -162,6 +162,8 @@ def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray,
         lean stage, dq/ds (``J_q t = -dF/ds``) in the travel stage.
     det_sign : ndarray of shape (N,)
         Sign of det(J_q) for a square system (0 when singular), else 0.
+    x : ndarray of shape (N, n_needed, 2)
+        Positions of the equation points at the returned q, mm.
     """
     t = tables(model)
     N, Nb = q0.shape[0], len(b.cand)
@@ -182,6 +184,7 @@ def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray,
     J = np.empty((N, rows, model.n_q + 1))
     tan = np.empty((N, model.n_q))
     det = np.zeros(N)
+    X = np.empty((N, t["n_pts"], 2))
     n0 = b.n0 if b.n0.shape[1] else np.zeros((Nb, 0, 2))
     _newton(q, np.ascontiguousarray(lean, dtype=float), tgt, items, hold, st,
             np.ascontiguousarray(b.V, dtype=np.complex128), np.ascontiguousarray(b.U, dtype=np.complex128),
@@ -194,8 +197,9 @@ def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray,
             t["sl_pk"], t["sl_pt"], t["sl_coord"], t["eq_pin"], t["eq_slider"], t["sl_src"], t["eq_link"],
             t["eq_spring"], t["eq_wheel"], t["usrc"], t["angle_col"], model.n_loop_rows + len(model.eq_link),
             float(settings.tol_mm), int(settings.max_iter), float(settings.max_angle_step_rad),
-            float(settings.chord_below_mm), bool(final_jacobian), status, resid, iters, J, tan, det)
-    return q, status, resid, iters, J, tan, det
+            float(settings.chord_below_mm), bool(final_jacobian), status, resid, iters, J, tan, det, X)
+    from .solver import Solved  # noqa: PLC0415
+    return Solved(q, status, resid, iters, J, tan, det, X)
 
 
 @numba.njit(cache=True, error_model="numpy")
@@ -318,7 +322,7 @@ def _add_point(J, n, r, j, cy, cz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coo
 def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, sc0, Lc, L_link, n0, zc0, scale,
             n_pts, src_col, ang_coord, pk_src, p_start, p_col, ty, tz, sl_pk, sl_pt, sl_coord, eq_pin, eq_slider,
             sl_src, eq_link, eq_spring, eq_wheel, usrc, angle_col, r_travel, tol, max_iter, max_step, chord_below, final_jacobian,
-            status, resid, iters, J, tan, det):
+            status, resid, iters, J, tan, det, X):
     N, nq = Q.shape
     rows = J.shape[1]
     ang = np.empty(ang_coord.shape[0] + 1)
@@ -552,6 +556,9 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, sc0, Lc, L_link, n0, zc
             for c in range(nq):
                 q[c] += B[c, 0] * scale[i, c] * f
         status[it_] = st
+        for j in range(x.shape[0]):     # positions at the returned state (its last residual)
+            X[it_, j, 0] = x[j, 0]
+            X[it_, j, 1] = x[j, 1]
         if final_jacobian or not stepped:
             # the Jacobian, lean tangent and det(J) sign at the returned state
             jacobian(i, it_)

@@ -18,6 +18,7 @@ parallelogram, whose redundant equation stays consistent).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
@@ -410,6 +411,19 @@ def _newton_numpy(model: Model, b: Batch, q0, lean, target, stage: str, settings
     return q, status, resid, iters, Jout, Jstep
 
 
+class Solved(NamedTuple):
+    """Result of :func:`solve_states` (the first five fields are those of :func:`newton`)."""
+
+    q: np.ndarray            # (N, n_q)
+    status: np.ndarray       # (N,) int8, see STATUS_TEXT
+    resid: np.ndarray        # (N,) largest absolute equation residual, mm
+    iters: np.ndarray        # (N,) Newton steps
+    J: np.ndarray            # (N, m, n_q + 1) Jacobian, the lean column last
+    tangent: np.ndarray      # (N, n_q) path tangent (dq/dphi lean stage, dq/ds travel stage)
+    det_sign: np.ndarray     # (N,) sign of det(J_q) for a square system, else 0
+    x: np.ndarray            # (N, n_needed, 2) positions of the equation points at q, mm
+
+
 def solve_states(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, target: np.ndarray, stage: str,
                  settings: SolveSettings = SolveSettings(), items: np.ndarray | None = None,
                  final_jacobian: bool = True):
@@ -433,6 +447,10 @@ def solve_states(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, targe
         lean stage (dF = J_phi), dq/ds in the travel stage (dF = dF/ds, -1 on the travel rows).
     det_sign : ndarray of shape (N,)
         Sign of det(J_q) for a square system (0 when singular); 0 otherwise.
+    x : ndarray of shape (N, n_needed, 2)
+        Positions of the equation points at the returned q.
+
+    The result is a :class:`Solved` named tuple.
     """
     if settings.engine == "compiled":
         from . import kernel  # noqa: PLC0415 (numba loads on first use)
@@ -445,7 +463,8 @@ def solve_states(model: Model, b: Batch, q0: np.ndarray, lean: np.ndarray, targe
     t = tangent(model, J, path_derivative(model, J, stage), b.col_scale)
     with np.errstate(invalid="ignore"):       # a non-finite item has sign NaN; its status says why
         sign = np.linalg.slogdet(J[..., :model.n_q])[0] if J.shape[1] == model.n_q else np.zeros(len(q))
-    return q, st, res, it, J, t, sign
+    x = model.positions(q, lean, b.V, b.U, model._np)[0]
+    return Solved(q, st, res, it, J, t, sign, x)
 
 
 def path_derivative(model: Model, J: np.ndarray, stage: str) -> np.ndarray:

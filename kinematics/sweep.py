@@ -182,12 +182,9 @@ def _lean_paths(lean_rad: np.ndarray, max_step: float):
     return paths, index
 
 
-def _positions(model: Model, engine: str, q, lean, b: Batch, items):
-    """Positions (N, n_needed, 2) and angle sources (N, n_ang) of states of batch items ``items``."""
-    if engine == "compiled":
-        return kernel.positions(model, q, lean, b.V, b.U, items)
-    x, _, ang = model.positions(q, lean, b.V[items], b.U[items], model._np)
-    return x, ang
+def _angles(model: Model, q: np.ndarray, lean: np.ndarray) -> np.ndarray:
+    """Angle sources (N, n_ang) of states: the lean, then the angle coordinates."""
+    return np.concatenate([np.asarray(lean, float).reshape(-1, 1), q[:, model.ang_coord]], axis=1)
 
 
 #: trapezoid test of a continuation step: |secant - mean end tangent| / (|secant| + |mean tangent|)
@@ -235,6 +232,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     tstatus = np.zeros(N, dtype=np.int8)
     t_resid = np.full(N, np.nan)          # residual of each item's last travel solve
     dq_ds = np.zeros((N, nq))             # travel path tangent at the solved state
+    x0 = np.full((N, model._np["n"], 2), np.nan)    # equation points at the solved state
     s_prev = np.zeros(N)
     for k in range(1, K + 1):
         s_k = s_item * (k / K)
@@ -242,12 +240,11 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
         if len(ok) == 0:
             break
         q_guess = q[ok] + dq_ds[ok] * (s_k - s_prev)[ok, None]
-        qs, st, res, _, _, t_s, _ = solve_states(model, bt, q_guess, zero[ok], s_k[ok], "travel", settings.solve, ok)
-        q[ok], tstatus[ok], t_resid[ok], dq_ds[ok] = qs, st, res, t_s
+        r = solve_states(model, bt, q_guess, zero[ok], s_k[ok], "travel", settings.solve, ok)
+        q[ok], tstatus[ok], t_resid[ok], dq_ds[ok], x0[ok] = r.q, r.status, r.resid, r.tangent, r.x
         s_prev = s_k
-    # positions at lean 0 (references of the lean metrics) and the spring lengths held from here
-    x0, ang0 = _positions(model, settings.solve.engine, q, zero, bt, np.arange(N))
-    g0, contact0, Ls = kernel.contacts(model, x0, ang0, bt, np.arange(N))
+    # lean-0 references of the lean metrics, and the spring lengths held from here
+    g0, contact0, Ls = kernel.contacts(model, x0, _angles(model, q, zero), bt, np.arange(N))
 
     # ------------------------------------------------------------------ lean
     lean_rad = np.radians(lean_deg)
@@ -276,7 +273,8 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     square = n_rows(model, "lean") == nq
     # the path tangent and det(J) sign at lean 0 (no iteration: the state is solved)
     at0 = dataclasses.replace(settings.solve, max_iter=0)
-    *_, J0, T0, sign0 = solve_states(model, bl, Q[:, 0], np.zeros(M), held, "lean", at0)
+    r0 = solve_states(model, bl, Q[:, 0], np.zeros(M), held, "lean", at0)
+    J0, T0, sign0 = r0.J, r0.tangent, r0.det_sign
     # motion ratios: spring shortening per mm of travel, from the spring rows of J at lean 0
     off = model.n_loop_rows + len(model.eq_link)
     dLs = J0[np.arange(N) * nb, off:off + ns, :nq]
@@ -293,19 +291,21 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
         """
         guess = kernel.predict(hist_q, hist_t, hist_phi, phi_new)
         # tangent and det sign of each state's last Newton step (saves a factorisation per state)
-        qs, st, res, it, _, t_new, det_sign = solve_states(model, bl, guess, phi_new, held[idx], "lean",
-                                                           settings.solve, idx, final_jacobian=False)
+        r = solve_states(model, bl, guess, phi_new, held[idx], "lean", settings.solve, idx, final_jacobian=False)
+        qs, st, res, it, t_new = r.q, r.status, r.resid, r.iters, r.tangent
         # trapezoid test of the step, and the tangent may not turn by more than a right angle
         ratio, turned = kernel.branch_test(qs, t_new, hist_q[-1], hist_t[-1], hist_phi[-1], phi_new,
                                            bl.col_scale, idx)
         suspect = (st == CONVERGED) & ((ratio > BRANCH_JUMP_RATIO) | turned)
         if square:
-            suspect |= (st == CONVERGED) & (det_sign != sign0[idx])
-        return qs, st, res, it, suspect, t_new
+            suspect |= (st == CONVERGED) & (r.det_sign != sign0[idx])
+        return qs, st, res, it, suspect, t_new, r.x
 
     n_sub = 4
     TQ = np.zeros((M, Kl, nq))          # path tangent at every solved node
     TQ[:, 0] = T0
+    XQ = np.zeros((M, Kl) + x0.shape[1:])      # equation points of every solved node
+    XQ[:, 0] = x0[item_ct]
     for k in range(1, Kl):
         ok = np.flatnonzero(alive)
         if len(ok) == 0:
@@ -315,7 +315,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
         ht = [TQ[ok, j] for j in range(lo, k)]
         hp = [paths[item_branch[ok], j] for j in range(lo, k)]
         phi = paths[item_branch[ok], k]
-        qs, st, res, it, suspect, tn = advance(ok, hq, hp, ht, phi)
+        qs, st, res, it, suspect, tn, xs = advance(ok, hq, hp, ht, phi)
         if suspect.any():
             # redo the suspect items' step in substeps
             si = np.flatnonzero(suspect)
@@ -325,27 +325,28 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
             sp = [h[si] for h in hp]
             live = np.ones(len(si), bool)
             fst = np.full(len(si), CONVERGED, dtype=np.int8)
-            fq, fres, fit = qs[si].copy(), res[si].copy(), it[si].copy()
+            fq, fres, fit, fx = qs[si].copy(), res[si].copy(), it[si].copy(), xs[si].copy()
             phi0, phi1 = paths[item_branch[idx], k - 1], paths[item_branch[idx], k]
             for j in range(1, n_sub + 1):
                 li = np.flatnonzero(live)
                 if len(li) == 0:
                     break
                 pj = phi0[li] + (phi1[li] - phi0[li]) * (j / n_sub)
-                q2, s2, r2, i2, sus2, t2 = advance(idx[li], [h[li] for h in sq], [h[li] for h in sp],
+                q2, s2, r2, i2, sus2, t2, x2 = advance(idx[li], [h[li] for h in sq], [h[li] for h in sp],
                                                    [h[li] for h in st_], pj)
                 failed = (s2 != CONVERGED) | sus2
                 fst[li[failed]] = np.where(s2[failed] == CONVERGED, FOLD, s2[failed])
                 live[li[failed]] = False
                 good = li[~failed]
                 fq[good], fres[good], fit[good] = q2[~failed], r2[~failed], fit[good] + i2[~failed]
+                fx[good] = x2[~failed]
                 new_q, new_p, new_t = sq[-1].copy(), sp[-1].copy(), st_[-1].copy()
                 new_q[good], new_p[good], new_t[good] = q2[~failed], pj[~failed], t2[~failed]
                 sq, sp, st_ = (sq + [new_q])[-2:], (sp + [new_p])[-2:], (st_ + [new_t])[-2:]
-            qs[si], st[si], res[si], it[si] = fq, fst, fres, fit
+            qs[si], st[si], res[si], it[si], xs[si] = fq, fst, fres, fit, fx
             tn[si] = st_[-1]
         Q[ok, k], S[ok, k], RES[ok, k], IT[ok, k] = qs, st, res, it
-        TQ[ok, k] = tn
+        TQ[ok, k], XQ[ok, k] = tn, xs
         alive[ok] = st == CONVERGED
 
     # ----------------------------------------------------- gather requested
@@ -365,7 +366,8 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     flat_q = q_out.reshape(NL, nq)
     flat_lean = np.broadcast_to(lean_rad, (N, L)).reshape(NL)
     item_nl = np.repeat(np.arange(N), L)
-    x_np, ang = _positions(model, settings.solve.engine, flat_q, flat_lean, bt, item_nl)
+    x_np = XQ[rows, sel_k[None, :]].reshape((NL,) + x0.shape[1:])
+    ang = _angles(model, flat_q, flat_lean)
     body_angle = model.body_angles(ang)
     gamma, contact, spring_len = kernel.contacts(model, x_np, ang, bt, item_nl)
 
