@@ -22,6 +22,7 @@ import numba
 import numpy as np
 
 from .model import ANGLE, Model
+from .solver import Solved, _layout, n_rows   # solver imports this module only inside functions
 
 _STAGE = {"lean": 0, "travel": 1}
 _CONVERGED, _STALLED, _MAX_ITER, _NONFINITE = 0, 1, 2, 3
@@ -32,7 +33,6 @@ def tables(model: Model) -> dict:
     cache = model.__dict__.get("_kernel_tables")
     if cache is not None:
         return cache
-    from .solver import _layout  # noqa: PLC0415 (solver imports this module lazily)
 
     m, tab = model, model._np
     src_col = np.r_[m.n_q, m.ang_coord].astype(np.int64)     # angle source -> Jacobian column
@@ -135,6 +135,15 @@ def _positions(Q, lean, V, U, cand, ang_coord, pk_src, pk_point, ty, tz, sl_pk, 
             X[i, j, 1] += c * w[k].imag - s * w[k].real
 
 
+def _static_camber_sc(b) -> np.ndarray:
+    """sin and cos of each item's static camber, (N, 2, 2), kept on the batch after the first use."""
+    sc = b.__dict__.get("_static_camber_sc")
+    if sc is None or len(sc) != len(b.gamma0):
+        sc = np.ascontiguousarray(np.stack([np.sin(b.gamma0), np.cos(b.gamma0)], -1))
+        b.__dict__["_static_camber_sc"] = sc
+    return sc
+
+
 def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray, stage: str, settings,
           items: np.ndarray | None = None, final_jacobian: bool = True):
     """Compiled Newton solve of a batch of states; see :func:`kinematics.solver.solve_states`.
@@ -175,7 +184,6 @@ def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray,
     else:
         tgt = np.ascontiguousarray(np.asarray(target, float).reshape(N, len(model.eq_spring)))
         hold = np.zeros((Nb, 0, model.n_q))
-    from .solver import n_rows  # noqa: PLC0415
     rows = n_rows(model, stage, hold.shape[1] if st == 1 else 0)
     q = np.ascontiguousarray(q0, dtype=float).copy()
     status = np.empty(N, np.int8)
@@ -189,7 +197,7 @@ def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray,
     _newton(q, np.ascontiguousarray(lean, dtype=float), tgt, items, hold, st,
             np.ascontiguousarray(b.V, dtype=np.complex128), np.ascontiguousarray(b.U, dtype=np.complex128),
             np.ascontiguousarray(b.R), np.ascontiguousarray(b.r),
-            np.stack([np.sin(b.gamma0), np.cos(b.gamma0)], -1),
+            _static_camber_sc(b),
             np.ascontiguousarray(b.Lc), np.ascontiguousarray(b.L_link.reshape(Nb, len(model.eq_link))),
             np.ascontiguousarray(n0, dtype=float), np.ascontiguousarray(b.zc0),
             np.ascontiguousarray(b.col_scale),
@@ -198,7 +206,6 @@ def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray,
             t["eq_spring"], t["eq_wheel"], t["usrc"], t["angle_col"], model.n_loop_rows + len(model.eq_link),
             float(settings.tol_mm), int(settings.max_iter), float(settings.max_angle_step_rad),
             float(settings.chord_below_mm), bool(final_jacobian), status, resid, iters, J, tan, det, X)
-    from .solver import Solved  # noqa: PLC0415
     return Solved(q, status, resid, iters, J, tan, det, X)
 
 
