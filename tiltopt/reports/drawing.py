@@ -19,9 +19,9 @@ import html
 import math
 from typing import Sequence
 
+import numba
 import numpy as np
 
-from kinematics.mechanism import split_ref
 
 # Our own palette ("harbour"): bodies take these in order, the chassis is slate.
 CHASSIS_COLOUR = "#3b4a5a"
@@ -229,6 +229,86 @@ def _poly_seg_gap(poly, a, b):
     return np.minimum(np.min(d1, axis=(-1, -2)), np.min(d2, axis=(-1, -2)))
 
 
+def poly_seg_gap(poly, a, b) -> np.ndarray:
+    """Smallest distance between closed polylines and sets of segments, compiled, over any leading axes.
+
+    poly (..., k, 2), a and b (..., s, 2) with broadcastable leading axes; returns (...): the
+    distance between the outline and the segments (as :func:`_poly_seg_gap`, the numpy
+    reference), 0 where a segment crosses the outline.
+    """
+    lead = np.broadcast_shapes(poly.shape[:-2], a.shape[:-2], b.shape[:-2])
+
+    def flat(x):
+        return np.ascontiguousarray(np.broadcast_to(x, lead + x.shape[-2:]).reshape((-1,) + x.shape[-2:]),
+                                    dtype=float)
+
+    P, A, B = flat(poly), flat(a), flat(b)
+    out = np.empty(P.shape[0])
+    _poly_seg_gap_kernel(P, A, B, out)
+    return out.reshape(lead)
+
+
+@numba.njit(cache=True, error_model="numpy")
+def _seg_dist1(py, pz, ay, az, by, bz):
+    """Distance of a point to a segment (as :func:`_seg_dist`)."""
+    aby, abz = by - ay, bz - az
+    L2 = max(aby * aby + abz * abz, 1e-12)
+    t = min(max(((py - ay) * aby + (pz - az) * abz) / L2, 0.0), 1.0)
+    dy, dz = py - (ay + aby * t), pz - (az + abz * t)
+    return np.sqrt(dy * dy + dz * dz)
+
+
+@numba.njit(cache=True, error_model="numpy")
+def _cross(p1, p2, q1, q2):
+    """Whether segments p1-p2 and q1-q2 cross (each one's ends strictly on both sides of the other)."""
+    ry, rz = p2[0] - p1[0], p2[1] - p1[1]
+    sy, sz = q2[0] - q1[0], q2[1] - q1[1]
+    d1 = sy * (p1[1] - q1[1]) - sz * (p1[0] - q1[0])
+    d2 = sy * (p2[1] - q1[1]) - sz * (p2[0] - q1[0])
+    d3 = ry * (q1[1] - p1[1]) - rz * (q1[0] - p1[0])
+    d4 = ry * (q2[1] - p1[1]) - rz * (q2[0] - p1[0])
+    return d1 * d2 < 0.0 and d3 * d4 < 0.0
+
+
+@numba.njit(cache=True, error_model="numpy")
+def _poly_seg_gap_kernel(P, A, B, out):
+    n, k, s = P.shape[0], P.shape[1], A.shape[1]
+    for i in range(n):
+        best = np.inf
+        for p in range(k):                  # polyline vertices to the segments
+            for j in range(s):
+                best = min(best, _seg_dist1(P[i, p, 0], P[i, p, 1], A[i, j, 0], A[i, j, 1], B[i, j, 0], B[i, j, 1]))
+        for j in range(s):                  # segment ends to the polyline's edges
+            for p in range(k):              # a segment crossing an edge: no gap
+                q = (p + 1) % k
+                if _cross(P[i, p], P[i, q], A[i, j], B[i, j]):
+                    best = 0.0
+            for e in range(2):
+                ey = A[i, j, 0] if e == 0 else B[i, j, 0]
+                ez = A[i, j, 1] if e == 0 else B[i, j, 1]
+                for p in range(k):
+                    q = (p + 1) % k
+                    best = min(best, _seg_dist1(ey, ez, P[i, p, 0], P[i, p, 1], P[i, q, 0], P[i, q, 1]))
+        out[i] = best
+
+
+def _by_chunks(fn, *arrays, budget: int = 1 << 18):
+    """``fn(*arrays)`` over the leading axes in chunks of about ``budget`` point pairs.
+
+    Each array is (..., n_i, 2) with broadcastable leading axes; ``fn`` returns (n_lead, ...)
+    for flattened inputs. The pairwise temporaries of ``fn`` (lead x n_i x n_j) stay small
+    enough for the cache, instead of gigabytes for a whole front's states.
+    """
+    lead = np.broadcast_shapes(*(a.shape[:-2] for a in arrays))
+    flat = [np.broadcast_to(a, lead + a.shape[-2:]).reshape((-1,) + a.shape[-2:]) for a in arrays]
+    n = flat[0].shape[0]
+    pairs = max(1, int(np.prod([a.shape[-2] for a in flat[:2]])))
+    step = max(1, budget // pairs)
+    parts = [fn(*(a[i:i + step] for a in flat)) for i in range(0, n, step)] or [fn(*flat)]
+    out = np.concatenate(parts)
+    return out.reshape(lead + out.shape[1:])
+
+
 def _closest_pair(poly, A, B):
     """Closest pair (distance, point on poly, point on segments) for one state; poly (k, 2), A/B (s, 2)."""
     d1, q1 = _seg_dist(poly[:, None, :], A[None], B[None])
@@ -286,7 +366,7 @@ def front_view_gaps(spec: dict, points, camber, pose=None, shell_poly=None) -> d
             continue
         a = P[..., [s[0] for s in sel], :]
         b = P[..., [s[1] for s in sel], :]
-        gaps.append(_poly_seg_gap(tyres[w_i], a, b))
+        gaps.append(poly_seg_gap(tyres[w_i], a, b))
     out["wheel_link_mm"] = np.min(np.stack(gaps), 0) if gaps else np.full(lead, np.nan)
     if shell_poly is not None and pose is not None:
         pose = np.asarray(pose, float)
@@ -299,8 +379,8 @@ def front_view_gaps(spec: dict, points, camber, pose=None, shell_poly=None) -> d
         A, B = G, np.roll(G, -1, axis=-2)
         best = np.full(lead, np.inf)
         for tyre in tyres:
-            dmin = _poly_seg_gap(tyre, A, B)
-            inside = _inside(tyre, G)
+            dmin = poly_seg_gap(tyre, A, B)
+            inside = _by_chunks(_inside, tyre, G)
             best = np.minimum(best, np.where(np.any(inside, -1), -dmin, dmin))
         out["wheel_shell_mm"] = best
     else:
@@ -496,7 +576,7 @@ def _dim_h(x1, x2, y, text, lw, fs, ext_from=None):
 
 def _dimensions(spec, P, tyres, lw, fs, span, vb):
     out = []
-    wl, wr = spec["wheels"][0], spec["wheels"][1]
+    wl = spec["wheels"][0]
     # contacts: lowest point of each tyre outline
     cl = tyres[0][np.argmin(tyres[0][:, 1])]
     cr = tyres[1][np.argmin(tyres[1][:, 1])]
@@ -515,7 +595,6 @@ def _dimensions(spec, P, tyres, lw, fs, span, vb):
                      {round(float(P[wl["centre"], 1]), 1)})
     x = vb[0] + 0.09 * span
     a = lw * 4
-    prev = 0.0
     for k, h in enumerate(heights):
         xk = x + (k % 2) * 0.035 * span
         out.append(f'<g class="dim" stroke="#222" stroke-width="{_f(lw * 0.7)}" fill="none">'
@@ -526,7 +605,6 @@ def _dimensions(spec, P, tyres, lw, fs, span, vb):
         tx, anchor = (xk + lw * 2, "start") if k % 2 else (xk - lw * 2, "end")
         out.append(f'<text x="{_f(tx)}" y="{_f(-h - lw * 2)}" font-size="{_f(fs * 0.85)}" '
                    f'text-anchor="{anchor}" fill="#222">{h:.1f}</text>')
-        prev = h
     out.append(f'<text x="{_f(x)}" y="{_f(fs * 1.4)}" font-size="{_f(fs * 0.8)}" fill="#222" text-anchor="middle">'
                f'z, mm</text>')
     return out
