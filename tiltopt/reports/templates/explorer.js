@@ -88,7 +88,7 @@
   function splomTrace(idx, extra) {
     return Object.assign({
       type: "splom",
-      dimensions: dims.map((k) => ({ label: withUnit(colLookup[k]), values: idx.map((i) => D.values[k][i]) })),
+      dimensions: dims.map((k) => ({ label: axisLabel(withUnit(colLookup[k])), values: idx.map((i) => D.values[k][i]) })),
       text: idx.map(hoverText), hovertemplate: "%{text}<extra></extra>",
       diagonal: { visible: false }, showupperhalf: false,
     }, extra);
@@ -110,6 +110,13 @@
                            marker: { size: 18, symbol: "diamond-open", color: "#c8553d", line: { width: 2.5, color: "#c8553d" } } }));
     traceRows.push(s);
     return t;
+  }
+  // Long axis titles of the matrix take two lines (the unit on the second), so that narrow
+  // panels do not run neighbouring titles together.
+  function axisLabel(text) {
+    if (text.length <= 18) return text;
+    const cut = text.lastIndexOf(" [");
+    return cut > 0 ? `${text.slice(0, cut)}<br>${text.slice(cut + 1)}` : text;
   }
   function matrixLayout() {
     const lay = { margin: { l: 70, r: 30, t: 20, b: 60 }, hovermode: "closest", dragmode: "select", showlegend: false,
