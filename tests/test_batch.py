@@ -128,12 +128,17 @@ def test_local_and_dask_batches_give_the_same_fronts(tmp_path):
     assert mtimes == {it.run_id: os.stat(Path(it.run_dir) / "front.parquet").st_mtime_ns for it in local.items}
 
 
-def test_killed_worker_is_retried_and_resumes(tmp_path):
-    (tmp_path / "z.toml").write_text(CONFIG.replace("generations = 8", "generations = 30")
+
+def _slow_batch(tmp_path, name: str, generations: int, seeds: list[int]):
+    """A batch of one slowed-down config (30 ms per evaluation), so a test can act mid-run."""
+    (tmp_path / "z.toml").write_text(CONFIG.replace("generations = 8", f"generations = {generations}")
                                      .replace('n_var = 6', 'n_var = 6\neval_delay_s = 0.03'))
-    (tmp_path / "batch.toml").write_text('[batch]\nname = "k"\noutput = "res"\n[[runs]]\nconfig = "z.toml"\n'
-                                         'seeds = [4]\n')
-    b = load_batch(tmp_path / "batch.toml")
+    (tmp_path / "batch.toml").write_text(f'[batch]\nname = "{name}"\noutput = "res"\n[[runs]]\n'
+                                         f'config = "z.toml"\nseeds = {seeds}\n')
+    return load_batch(tmp_path / "batch.toml")
+
+def test_killed_worker_is_retried_and_resumes(tmp_path):
+    b = _slow_batch(tmp_path, "k", 30, [4])
     run_dir = Path(b.items[0].run_dir)
     killed = []
 
@@ -209,11 +214,7 @@ def test_cli_batch_and_merge(tmp_path):
 def test_dask_worker_killed_mid_run_is_retried(tmp_path):
     from distributed import Client, LocalCluster
 
-    (tmp_path / "z.toml").write_text(CONFIG.replace("generations = 8", "generations = 30")
-                                     .replace('n_var = 6', 'n_var = 6\neval_delay_s = 0.03'))
-    (tmp_path / "batch.toml").write_text('[batch]\nname = "dk"\noutput = "res"\n[[runs]]\nconfig = "z.toml"\n'
-                                         'seeds = [4]\n')
-    b = load_batch(tmp_path / "batch.toml")
+    b = _slow_batch(tmp_path, "dk", 30, [4])
     run_dir = Path(b.items[0].run_dir)
     # one worker process under a nanny on loopback: killing it loses the task; the nanny starts a new one
     with LocalCluster(n_workers=1, threads_per_worker=1, processes=True, protocol="tcp://", host="127.0.0.1",
@@ -242,11 +243,7 @@ def test_ctrl_c_stops_a_local_batch_and_a_restart_finishes_it(tmp_path):
     import subprocess
     import sys
 
-    (tmp_path / "z.toml").write_text(CONFIG.replace("generations = 8", "generations = 40")
-                                     .replace('n_var = 6', 'n_var = 6\neval_delay_s = 0.03'))
-    (tmp_path / "batch.toml").write_text('[batch]\nname = "c"\noutput = "res"\n[[runs]]\nconfig = "z.toml"\n'
-                                         'seeds = [1, 2]\n')
-    b = load_batch(tmp_path / "batch.toml")
+    b = _slow_batch(tmp_path, "c", 40, [1, 2])
     cmd = [sys.executable, "-c", "from tiltopt.cli import main; main()", "batch", str(tmp_path / "batch.toml"),
            "--workers", "2"]
     # a session of its own, so Ctrl-C goes to the batch and its workers as a terminal would send it
