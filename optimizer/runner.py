@@ -247,12 +247,9 @@ class Runner:
             u[f"obj.{o}"] = self.info.objective_units.get(o, "1")
         for c in self.info.constraints:
             u[f"con.{c}"] = self.info.constraint_units.get(c, "1")
-        try:
-            from problems.problem import METRIC_UNITS
+        from problems.problem import METRIC_UNITS
 
-            u.update(METRIC_UNITS)
-        except ImportError:
-            pass
+        u.update(METRIC_UNITS)
         return u
 
     def _new_algorithm(self):

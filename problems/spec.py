@@ -311,11 +311,8 @@ def _constraint_names(limits: Limits, has_shell: bool) -> tuple[str, ...]:
 
 
 def _load_shell(path: Path, src: str):
-    try:
-        from kinematics.shell import load_shell
-    except ImportError:
-        raise InputError("a body shell needs kinematics.shell, which this installation does not have.", src,
-                         "shell") from None
+    from kinematics.shell import load_shell
+
     return load_shell(path)
 
 
@@ -326,11 +323,8 @@ def _load_loads(data: dict, src: str, base_dir: Path):
                          src, embedded[0])
     if "loads" not in data and not embedded:
         return None, None
-    try:
-        from kinematics.loads import load_loads, parse_loads
-    except ImportError:
-        raise InputError("loads need kinematics.loads, which this installation does not have.", src,
-                         "loads" if "loads" in data else embedded[0]) from None
+    from kinematics.loads import load_loads, parse_loads
+
     if "loads" in data:
         p = _path(data["loads"], src, "loads", base_dir)
         return load_loads(p), p

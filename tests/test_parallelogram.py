@@ -6,7 +6,6 @@ docstrings below from plane geometry.
 """
 from __future__ import annotations
 
-import math
 
 import numpy as np
 import pytest

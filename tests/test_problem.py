@@ -2,7 +2,6 @@
 kinematic objectives against a closed form of the twin-beam parallelogram."""
 from __future__ import annotations
 
-import math
 
 import numpy as np
 import pytest

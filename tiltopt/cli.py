@@ -34,14 +34,7 @@ def main():
 
 
 def _register():
-    from .commands import kin  # noqa: F401  (each module adds its commands to main)
-
-    for name in ("clearance", "loads", "runs", "reports"):
-        try:
-            __import__(f"tiltopt.commands.{name}")
-        except ModuleNotFoundError as exc:  # a part that has not landed yet
-            if exc.name != f"tiltopt.commands.{name}":
-                raise
+    from .commands import clearance, kin, loads, reports, runs  # noqa: F401  (each adds its commands to main)
 
 
 _register()

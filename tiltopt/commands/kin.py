@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import click
 
-from kinematics.errors import InputError, read_toml
+from kinematics.errors import read_toml
 from kinematics.safety import SAFETY_CAUTION
 from kinematics.mechanism import load_mechanism
 from kinematics.model import Model
@@ -90,10 +90,8 @@ def _file_kind(path: str) -> str:
 def check_cmd(file):
     """Check a mechanism file (mobility, lean, travel) or a run config (problem size, run time)."""
     if _file_kind(file) == "config":
-        try:
-            from optimizer.config import check_config_lines
-        except ModuleNotFoundError:
-            raise InputError("this looks like a run config, but run configs are not supported yet.", file) from None
+        from optimizer.config import check_config_lines
+
         for line in check_config_lines(file):
             click.echo(line)
         return

@@ -95,18 +95,12 @@ def sheet_cmd(source, candidate, output, jig_datum, sag_mm, corner_load_n, loads
     src = Path(source)
     extra = {}
     if loads_file:
-        try:
-            from kinematics.loads import load_loads
-        except ModuleNotFoundError:
-            raise InputError("--loads needs the sizing part (kinematics.loads), which is not installed.",
-                             key="--loads") from None
+        from kinematics.loads import load_loads
+
         extra["loads"] = load_loads(loads_file)
     if shell_file:
-        try:
-            from kinematics.shell import load_shell
-        except ModuleNotFoundError:
-            raise InputError("--shell needs the clearance part (kinematics.shell), which is not installed.",
-                             key="--shell") from None
+        from kinematics.shell import load_shell
+
         extra["shell"] = load_shell(shell_file)
     if src.is_file():
         from kinematics.mechanism import load_mechanism

@@ -93,13 +93,8 @@ def demo_cmd(config, output, quiet):
 
     o = run_demo(config, output, progress=not quiet)
     _report_outcome(o)
-    try:
-        from tiltopt.reports import demo_outputs
-    except ModuleNotFoundError as exc:   # the report writers have not landed in this installation
-        if exc.name != "tiltopt.reports":
-            raise
-        demo_outputs = None
-    if demo_outputs is not None:
-        for name, path in demo_outputs(o.run_dir).items():
-            click.echo(f"{name}: {Path(path)}")
+    from tiltopt.reports import demo_outputs
+
+    for name, path in demo_outputs(o.run_dir).items():
+        click.echo(f"{name}: {Path(path)}")
     _caution()

@@ -88,11 +88,8 @@ def analyse(model: Model, geom: Geometry, lean_deg, travel_mm, *, shell=None, lo
     shell_poly = None
     x_mm = model.mech.station_x_mm if station_x_mm is None else station_x_mm
     if shell is not None:
-        try:
-            shell_poly = shell_outline(shell, x_mm)
-        except ModuleNotFoundError:
-            notes.append("The shell section is not drawn: the clearance part (kinematics.shell) is not installed.")
-        if shell is not None and shell_poly is None and not notes:
+        shell_poly = shell_outline(shell, x_mm)
+        if shell_poly is None:
             notes.append(f"The body shell has no section at the linkage station x = {x_mm:g} mm.")
     else:
         notes.append("No body shell given: the drawing has no shell section and the shell clearances are absent.")
@@ -102,25 +99,19 @@ def analyse(model: Model, geom: Geometry, lean_deg, travel_mm, *, shell=None, lo
         notes.append(f"3-D clearances are not precomputed for this many designs ({geom.n_candidates}); the "
                      f"clearance curve is the front-view gap. The build sheet gives the 3-D figures.")
     elif shell is not None:
-        try:
-            from kinematics.clearance import evaluate_clearance
-        except ModuleNotFoundError:
-            notes.append("3-D clearances not computed: the clearance part (kinematics.clearance) is not installed.")
-        else:
-            clearance_result = evaluate_clearance(model, geom, res, shell)
-            clearance = {k: np.asarray(v, float) for k, v in clearance_result.summary().items()
-                         if not k.endswith("_state")}
+        from kinematics.clearance import evaluate_clearance
+
+        clearance_result = evaluate_clearance(model, geom, res, shell)
+        clearance = {k: np.asarray(v, float) for k, v in clearance_result.summary().items()
+                     if not k.endswith("_state")}
     sizing = None
     if want_sizing:
         if loads is None:
             notes.append("No loads given: member sizes, masses, utilisation and tilt-lock torque are absent.")
         else:
-            try:
-                from kinematics.sizing import size_linkage
-            except ModuleNotFoundError:
-                notes.append("Member sizing not computed: the sizing part (kinematics.sizing) is not installed.")
-            else:
-                sizing = size_linkage(model, geom, loads)
+            from kinematics.sizing import size_linkage
+
+            sizing = size_linkage(model, geom, loads)
     return Analysis(model=model, geom=geom, sweep=res, spec=spec, pose=pose, gaps=gaps, shell_poly=shell_poly,
                     clearance=clearance, clearance_result=clearance_result, sizing=sizing, notes=notes)
 

@@ -94,14 +94,10 @@ def versions() -> dict:
 
     from tiltopt import __version__
 
-    out = {"tiltopt": __version__, "numpy": numpy.__version__, "plotly": plotly.__version__}
-    try:
-        import ezdxf
+    import ezdxf
 
-        out["ezdxf"] = ezdxf.__version__
-    except ImportError:
-        pass
-    return out
+    return {"tiltopt": __version__, "numpy": numpy.__version__, "plotly": plotly.__version__,
+            "ezdxf": ezdxf.__version__}
 
 
 # ---------------------------------------------------------------- runs

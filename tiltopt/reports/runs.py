@@ -14,12 +14,9 @@ from .common import run_envelope, run_loads, run_shell, run_units, versions
 
 
 def load(run_dir):
-    """``optimizer.results.load_run`` (an InputError when the optimiser part is missing)."""
-    try:
-        from optimizer.results import load_run
-    except ModuleNotFoundError:
-        raise InputError("reading a results folder needs the optimizer part (optimizer.results), which is not "
-                         "installed. Give a mechanism .toml file instead.", str(run_dir)) from None
+    """``optimizer.results.load_run``."""
+    from optimizer.results import load_run
+
     return load_run(run_dir)
 
 
