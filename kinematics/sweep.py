@@ -20,7 +20,6 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import kernel
 from .model import Geometry, Model
 from .solver import (CONVERGED, FOLD, SKIPPED, STATUS_TEXT, Batch, SolveSettings, hold_free_directions, n_rows,
                      solve_states)
@@ -88,6 +87,7 @@ class SweepResult:
             V, U = m.design_vectors(self.geometry, m._all)
             cand = np.repeat(np.arange(C), T * L)
             if self.engine == "compiled":
+                from . import kernel  # noqa: PLC0415 (numba loads on first solve, not at start-up)
                 x, _ = kernel.positions(m, q, lean, V, U, cand, "all")
             else:
                 x, _, _ = m.positions(q, lean, V[cand], U[cand], m._all)
@@ -211,6 +211,8 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     SweepResult
         Arrays of shape (n_candidates, n_travel, n_lean, ...).
     """
+    from . import kernel  # noqa: PLC0415 (numba loads on first solve, not at start-up)
+
     settings = settings or SweepSettings()
     geom = geom or model.default_geometry
     lean_deg = np.atleast_1d(np.asarray(lean_deg, dtype=float))
