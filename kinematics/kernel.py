@@ -43,15 +43,12 @@ def tables(model: Model) -> dict:
         a = np.ascontiguousarray(np.asarray(a, dtype=np.int64))
         return a.reshape(shape) if shape is not None else a
 
+    pt = _point_tables(model, "needed")    # ang_coord, pk_src, pk_point, ty, tz, sl_pk, sl_coord
     t = dict(
-        n_q=m.n_q, n_pts=tab["n"],
-        ang_coord=i64(m.ang_coord), src_col=src_col,
-        pk_src=i64(tab["pk_src"]),
+        pt, n_q=m.n_q, n_pts=tab["n"], src_col=src_col,
         p_start=i64(np.r_[tab["starts"], len(tab["pk_src"])]),    # pairs of point j: p_start[j]:p_start[j+1]
-        p_col=src_col[np.asarray(tab["pk_src"], dtype=np.int64)],  # Jacobian column of each pair
-        sl_pt=i64(np.asarray(tab["pk_point"])[tab["sl_pk"]]),     # point of each slide term
-        ty=i64(tab["ty"]), tz=i64(tab["tz"]),
-        sl_pk=i64(tab["sl_pk"]), sl_coord=i64(tab["sl_coord"]),
+        p_col=src_col[pt["pk_src"]],                              # Jacobian column of each pair
+        sl_pt=pt["pk_point"][pt["sl_pk"]],                        # point of each slide term
         eq_pin=i64(m.eq_pin, (-1, 2)), eq_slider=i64(m.eq_slider, (-1, 3)),
         sl_src=i64(np.stack([sa, sb], -1) if len(sa) else np.zeros((0, 2)), (-1, 2)),
         eq_link=i64(m.eq_link, (-1, 2)), eq_spring=i64(m.eq_spring, (-1, 2)),
