@@ -16,7 +16,7 @@ configs/shell_demo.toml, over the default envelope of ``tiltopt clearance`` (lea
 * ``numpy_clearance_ms_per_candidate``: the same check by the numpy reference path
   (``ClearanceSettings(kernel="numpy")``), and ``compiled_speedup`` over it;
 * ``polygon_*``: the same check with the demo shell's stations as 240-vertex polygons
-  (``kinematics.shell.polygon_sections``, as from a CAD export), ``--polygon-candidates`` of them,
+  (``tiltopt.kinematics.shell.polygon_sections``, as from a CAD export), ``--polygon-candidates`` of them,
   by the compiled kernel and by the numpy path.
 
 The first call compiles the kernel (numba caches it in ``kinematics/__pycache__``); the timed runs
@@ -45,11 +45,11 @@ import numpy as np  # noqa: E402
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from kinematics.clearance import ClearanceSettings, evaluate_clearance  # noqa: E402
-from kinematics.mechanism import parse_mechanism  # noqa: E402
-from kinematics.model import Model  # noqa: E402
-from kinematics.shell import load_shell, polygon_sections  # noqa: E402
-from kinematics.sweep import sweep  # noqa: E402
+from tiltopt.kinematics.clearance import ClearanceSettings, evaluate_clearance  # noqa: E402
+from tiltopt.kinematics.mechanism import parse_mechanism  # noqa: E402
+from tiltopt.kinematics.model import Model  # noqa: E402
+from tiltopt.kinematics.shell import load_shell, polygon_sections  # noqa: E402
+from tiltopt.kinematics.sweep import sweep  # noqa: E402
 
 TARGET_MS = 2.0
 

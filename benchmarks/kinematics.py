@@ -7,7 +7,7 @@ Measures, on the wishbone-rocker demo mechanism (c):
   all candidates and travels together, states warm-started along the lean
   sweep;
 * ``scalar_states_per_s``: the same kind of states solved one at a time by
-  the scalar scipy loop of :mod:`kinematics.reference` (a subset of the
+  the scalar scipy loop of :mod:`tests.reference_solver` (a subset of the
   candidates; states per second is what is compared). The batch and the
   scalar loop are timed in turns over ``--repeat`` rounds, so both see the
   same machine, and each figure is its best round;
@@ -32,9 +32,9 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from kinematics import Model, load_mechanism, sweep  # noqa: E402
-from kinematics.reference import reference_sweep  # noqa: E402
-from kinematics.solver import n_rows  # noqa: E402
+from tiltopt.kinematics import Model, load_mechanism, sweep  # noqa: E402
+from tests.reference_solver import reference_sweep  # noqa: E402
+from tiltopt.kinematics.solver import n_rows  # noqa: E402
 
 
 def candidates(model: Model, n: int, seed: int = 0) -> np.ndarray:

@@ -21,12 +21,12 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from kinematics.forces import ForceModel  # noqa: E402
-from kinematics.loads import load_loads  # noqa: E402
-from kinematics.mechanism import load_mechanism  # noqa: E402
-from kinematics.model import Model  # noqa: E402
-from kinematics.sizing import size_linkage  # noqa: E402
-from kinematics.sweep import sweep  # noqa: E402
+from tiltopt.kinematics.forces import ForceModel  # noqa: E402
+from tiltopt.kinematics.loads import load_loads  # noqa: E402
+from tiltopt.kinematics.mechanism import load_mechanism  # noqa: E402
+from tiltopt.kinematics.model import Model  # noqa: E402
+from tiltopt.kinematics.sizing import size_linkage  # noqa: E402
+from tiltopt.kinematics.sweep import sweep  # noqa: E402
 
 
 def candidates(model: Model, n: int, spread_mm: float, seed: int = 1):

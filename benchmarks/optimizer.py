@@ -21,9 +21,9 @@ from pathlib import Path
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from optimizer.config import load_config  # noqa: E402
-from optimizer.results import load_run  # noqa: E402
-from optimizer.runner import Runner, config_record  # noqa: E402
+from tiltopt.optimizer.config import load_config  # noqa: E402
+from tiltopt.optimizer.results import load_run  # noqa: E402
+from tiltopt.optimizer.runner import Runner, config_record  # noqa: E402
 
 
 def _measure(cfg, population: int, generations: int, out: Path) -> dict:

@@ -1,5 +1,5 @@
 """Planar kinematics of tilting twin-wheel linkages: mechanism files, the batched solver, sweeps and metrics."""
-from .errors import InputError
+from tiltopt.base.errors import InputError
 from .mechanism import Mechanism, load_mechanism, parse_mechanism, mechanism_to_toml, mirror
 from .model import Geometry, Model
 from .sweep import SweepResult, SweepSettings, sweep

@@ -1,6 +1,6 @@
 """Batched 3-D clearance of wheels, tubes, body shell and ground over a sweep's envelope.
 
-For every state of a :class:`kinematics.sweep.SweepResult` (lean x travel,
+For every state of a :class:`tiltopt.kinematics.sweep.SweepResult` (lean x travel,
 many candidates of one topology at once) and the steer envelope of the
 mechanism file, this computes:
 
@@ -40,13 +40,13 @@ below it: it uses that the squared distance to any set is semiconcave
 refined neighbourhood and to the final refinement steps; so a coarse grid
 reports a large error rather than a falsely fine one. For shells whose
 section changes along x, distances are measured in each point's own
-section (see :mod:`kinematics.shell`), which the estimate does not cover.
+section (see :mod:`tiltopt.kinematics.shell`), which the estimate does not cover.
 Tubes against the shell are sampled at ``tube_samples`` points and refined
 the same way along the tube; slot crossings are found by root finding on
 the outline (to about 1e-6 mm).
 
 The wheel searches run item by item in the compiled kernel of
-:mod:`kinematics.clearance_kernel` (numba), and so does the slot root finding
+:mod:`tiltopt.kinematics.clearance_kernel` (numba), and so does the slot root finding
 on polygon shells; ``ClearanceSettings(kernel='numpy')`` runs the batched numpy
 reference (:func:`_search`, :func:`_root`) instead, the same search with the
 same results to rounding.
@@ -86,7 +86,7 @@ class ClearanceSettings:
     kernel : {'compiled', 'numpy'}
         How the wheel searches (and, for polygon shells, the slot root
         finding) run: the compiled per-item loops of
-        :mod:`kinematics.clearance_kernel` (default), or the numpy reference
+        :mod:`tiltopt.kinematics.clearance_kernel` (default), or the numpy reference
         path (same search, same results to rounding; slower).
     """
 
@@ -848,7 +848,7 @@ def _root(shell: Shell, a, b, ha, hb, x0, iterations):
 
 
 def _line_level(shell: Shell, a, b, x0):
-    """m -> :func:`kinematics.shell.inside_level` at ``a + (b - a) m`` in the plane x0 (the same sums).
+    """m -> :func:`tiltopt.kinematics.shell.inside_level` at ``a + (b - a) m`` in the plane x0 (the same sums).
 
     a, b : ndarray of shape (..., 2); m of shape (...). For a superellipse shell the section is
     looked up once and y, z are kept apart (no stacking of points at every call).
@@ -878,7 +878,7 @@ def _line_level(shell: Shell, a, b, x0):
 
 
 def _level_compiled(shell: Shell, p, x0):
-    """:func:`kinematics.shell.inside_level` of points p (..., 2) on a polygon shell, by the compiled kernel."""
+    """:func:`tiltopt.kinematics.shell.inside_level` of points p (..., 2) on a polygon shell, by the compiled kernel."""
     out = np.empty(p.shape[:-1])
     _kernel.levels(polygon_section_edges(shell, x0), np.ascontiguousarray(p.reshape(-1, 2), float), out.reshape(-1))
     return out

@@ -1,9 +1,9 @@
 """Compiled per-item kernel of the clearance search (numba).
 
 :func:`search` runs, for each (state, wheel) item in one compiled loop, the same search as the
-numpy reference :func:`kinematics.clearance._search` (the coarse grid, the coordinate refinement,
-and the error estimate of :func:`kinematics.clearance._estimate`) with the same distance
-functions as :mod:`kinematics.shell` and :func:`kinematics.clearance._segment_distance`, written
+numpy reference :func:`tiltopt.kinematics.clearance._search` (the coarse grid, the coordinate refinement,
+and the error estimate of :func:`tiltopt.kinematics.clearance._estimate`) with the same distance
+functions as :mod:`tiltopt.kinematics.shell` and :func:`tiltopt.kinematics.clearance._segment_distance`, written
 here for one point at a time. The numpy path stays the reference: ``tests/test_clearance_kernel.py``
 checks both against each other and against closed forms.
 
@@ -38,7 +38,7 @@ N_COLUMNS = 19
 # what the item's clearance is measured to
 SHELL_SUPERELLIPSE, SHELL_POLYGON, MEMBERS = 0, 1, 2
 
-_NEWTON_ITERATIONS = 5      # as kinematics.shell
+_NEWTON_ITERATIONS = 5      # as tiltopt.kinematics.shell
 _CHART_LIMIT = 0.9
 _CHART_LOW = 0.0999         # < 1 - _CHART_LIMIT: where the other chart's arc ends, with room to spare
 
@@ -46,7 +46,7 @@ _CHART_LOW = 0.0999         # < 1 - _CHART_LIMIT: where the other chart's arc en
 # ------------------------------------------------------------------ superellipse
 @numba.njit(cache=True)
 def _newton(Z, u, v, a, b, n, inv_n, zmax, ab, ab_b):
-    """One step of kinematics.shell._chart's Newton iteration on the arc Y = a (1 - (Z/b)^n)^(1/n).
+    """One step of tiltopt.kinematics.shell._chart's Newton iteration on the arc Y = a (1 - (Z/b)^n)^(1/n).
 
     ab = a / b and ab_b = ab / b are the chart's constants (the same values numpy computes).
     """
@@ -75,7 +75,7 @@ def _box2(u, v, u0, u1, v0, v1):
 
 @numba.njit(cache=True)
 def _chart_pair(c1, on1, c2, on2):
-    """kinematics.shell._chart of two points side by side (their Newton steps interleave).
+    """tiltopt.kinematics.shell._chart of two points side by side (their Newton steps interleave).
 
     c1, c2 : (u, v, a, b, n, inv_n, G, lim) of each chart, G the gauge^(1/n) and lim = 0.9^(1/n)
     (shared by the two charts of a point). Returns the squared distances, inf where not ``on``.
@@ -113,7 +113,7 @@ def _chart_pair(c1, on1, c2, on2):
 
 @numba.njit(cache=True)
 def _chart(c):
-    """kinematics.shell._chart for one point: (u, v, a, b, n, inv_n, G, lim) -> squared distance."""
+    """tiltopt.kinematics.shell._chart for one point: (u, v, a, b, n, inv_n, G, lim) -> squared distance."""
     return _chart_pair(c, True, c, False)[0]
 
 
@@ -150,7 +150,7 @@ def superellipse_distance_pair(y1, z1, a1, b1, n1, y2, z2, a2, b2, n2):
 
 @numba.njit(cache=True)
 def superellipse_distance(y, z, a, b, n):
-    """kinematics.shell.superellipse_distance for one point.
+    """tiltopt.kinematics.shell.superellipse_distance for one point.
 
     The same two Newton charts; the likelier one first. The other chart's arc lies in a box (its
     free coordinate within the chart limit, the other between the two charts' ends): when that box
@@ -167,7 +167,7 @@ def superellipse_distance(y, z, a, b, n):
 
 @numba.njit(cache=True)
 def superellipse_lower_bound(y, z, a, b, n):
-    """kinematics.shell.superellipse_distance_lower_bound for one point."""
+    """tiltopt.kinematics.shell.superellipse_distance_lower_bound for one point."""
     u, v = abs(y) / a, abs(z) / b
     pu, pv = u ** n, v ** n
     S = max(pu + pv, 1e-30)
@@ -180,7 +180,7 @@ def superellipse_lower_bound(y, z, a, b, n):
 
 @numba.njit(cache=True)
 def _segment(xs, x):
-    """Bay index and fraction of x between the stations xs (x clamped), as kinematics.shell."""
+    """Bay index and fraction of x between the stations xs (x clamped), as tiltopt.kinematics.shell."""
     m = len(xs)
     xc = min(max(x, xs[0]), xs[m - 1])
     i = 0
@@ -191,7 +191,7 @@ def _segment(xs, x):
 
 @numba.njit(cache=True)
 def _with_caps(d, x, x0, x1):
-    """kinematics.shell.signed_distance_yz: the section distance d with the flat end caps."""
+    """tiltopt.kinematics.shell.signed_distance_yz: the section distance d with the flat end caps."""
     beyond = max(x0 - x, x - x1)
     if beyond > 0:
         return math.hypot(beyond, d) if d > 0 else beyond
@@ -201,7 +201,7 @@ def _with_caps(d, x, x0, x1):
 
 @numba.njit(cache=True)
 def _params(tab, x):
-    """Superellipse section (a, b, zc, n) at x, as kinematics.shell.superellipse_params."""
+    """Superellipse section (a, b, zc, n) at x, as tiltopt.kinematics.shell.superellipse_params."""
     i, t = _segment(tab[:, 0], x)
     return (tab[i, 1] + (tab[i + 1, 1] - tab[i, 1]) * t, tab[i, 2] + (tab[i + 1, 2] - tab[i, 2]) * t,
             tab[i, 3] + (tab[i + 1, 3] - tab[i, 3]) * t, tab[i, 4] + (tab[i + 1, 4] - tab[i, 4]) * t)
@@ -224,7 +224,7 @@ def superellipse_shell_distance(tab, y, z, x, lower_bound):
 # ------------------------------------------------------------------ polygons
 @numba.njit(cache=True)
 def polygon_section_distance(xs, outlines, y, z, x):
-    """kinematics.shell.polygon_distance of the section interpolated at x (clamped to the stations)."""
+    """tiltopt.kinematics.shell.polygon_distance of the section interpolated at x (clamped to the stations)."""
     i, t = _segment(xs, x)
     V = outlines.shape[1]
     best = np.inf
@@ -257,7 +257,7 @@ def polygon_shell_distance(xs, outlines, y, z, x, offset):
     """Signed distance (chassis frame) to a polygon shell (sections linear in x), caps included.
 
     The section distance less ``offset`` (the thinned outline's error bound when ``outlines`` are
-    the coarse ones), then the end caps, as kinematics.shell.signed_distance_yz.
+    the coarse ones), then the end caps, as tiltopt.kinematics.shell.signed_distance_yz.
     """
     return _with_caps(polygon_section_distance(xs, outlines, y, z, x) - offset, x, xs[0], xs[len(xs) - 1])
 
@@ -269,8 +269,8 @@ def edges_distance(E, y, z):
     E : ndarray of shape (n_edges, 6)
         Per edge: start (y, z), direction (end - start), 1 / max(squared length, 1e-300) and the
         end's z, as
-        kinematics.shell.polygon_section_edges gives them for one section: the section is
-        interpolated once, not at every point. The same sums as kinematics.shell.polygon_distance,
+        tiltopt.kinematics.shell.polygon_section_edges gives them for one section: the section is
+        interpolated once, not at every point. The same sums as tiltopt.kinematics.shell.polygon_distance,
         with the division by the squared length done as a product.
     """
     best = np.inf
@@ -299,7 +299,7 @@ def levels(E, p, out):
 
 @numba.njit(cache=True)
 def root(E, a, b, ha, hb, iterations, out):
-    """kinematics.clearance._root (Illinois regula falsi) on a polygon section, the entries in lockstep.
+    """tiltopt.kinematics.clearance._root (Illinois regula falsi) on a polygon section, the entries in lockstep.
 
     E : ndarray of shape (n_edges, 6)
         The section (see edges_distance).
@@ -343,7 +343,7 @@ def root(E, a, b, ha, hb, iterations, out):
 # ------------------------------------------------------------------ one point of one item
 @numba.njit(cache=True)
 def _chassis(q, i, y, z):
-    """World (y, z) of item i in the chassis frame (kinematics.shell.to_chassis_frame)."""
+    """World (y, z) of item i in the chassis frame (tiltopt.kinematics.shell.to_chassis_frame)."""
     dy, dz = y - q[i, TY], z - q[i, TZ]
     c, s = q[i, CL], q[i, SL]
     return c * dy - s * dz, s * dy + c * dz
@@ -351,7 +351,7 @@ def _chassis(q, i, y, z):
 
 @numba.njit(cache=True)
 def _members_value(mem, mem_ex, i, x, y, z, xs):
-    """Least distance of point (x, y, z) to the capsules of item i (kinematics.clearance._segment_distance)."""
+    """Least distance of point (x, y, z) to the capsules of item i (tiltopt.kinematics.clearance._segment_distance)."""
     best = np.inf
     for m in range(mem.shape[1]):
         if mem_ex[i, m]:
@@ -400,7 +400,7 @@ def _pair(mode, exact, q, i, p1, p2, tab, outlines, coarse, coarse_err, mem, mem
 
 @numba.njit(cache=True)
 def _rotate(vx, vy, vz, ex, ey, ez, c, s):
-    """kinematics.clearance._rotate for one vector."""
+    """tiltopt.kinematics.clearance._rotate for one vector."""
     dot = (ex * vx + ey * vy + ez * vz) * (1.0 - c)
     cx = ey * vz - ez * vy
     cy = ez * vx - ex * vz
@@ -485,7 +485,7 @@ def _coarse_members(q, i, fr, ct, st, mem, mem_ex, xs, F, off):
 
 @numba.njit(cache=True)
 def _lower(D, rho, arm, h_t, h_d):
-    """kinematics.clearance._lower for one sample."""
+    """tiltopt.kinematics.clearance._lower for one sample."""
     s_lip = rho * h_t + arm * h_d
     Dm = max(D + s_lip, 0.0)
     A = 2 * (rho * h_t) ** 2 + 2 * (arm * h_d) ** 2 + Dm * (rho * h_t ** 2 + arm * h_d ** 2)
@@ -524,7 +524,7 @@ def search(mode, q, sg, K, refine_iterations, any_steer, reach, tab, outlines, c
     any_steer : bool
         Whether any item of the batch steers (the numpy path then makes steer moves for all).
     reach : int
-        Initial local step in coarse half-spacings (``kinematics.clearance._REACH``).
+        Initial local step in coarse half-spacings (``tiltopt.kinematics.clearance._REACH``).
     tab : ndarray of shape (n_stations, 5)
         Shell stations: x, then the superellipse a, b, zc, n (only x is used for polygons).
     outlines, coarse : ndarray of shape (n_stations, n_vertices, 2)
@@ -533,7 +533,7 @@ def search(mode, q, sg, K, refine_iterations, any_steer, reach, tab, outlines, c
         Error bound of the thinned outlines.
     mem : ndarray of shape (n, k, 6)
         Members nearest each item (MEMBERS mode): first end (ay, az), axis (by - ay, bz - az), the
-        reciprocal of its squared length (as kinematics.clearance._segment_distance), tube radius.
+        reciprocal of its squared length (as tiltopt.kinematics.clearance._segment_distance), tube radius.
     mem_ex : ndarray of shape (n, k) of bool
         Members left out (they carry the wheel).
     xs : float
@@ -613,7 +613,7 @@ def search(mode, q, sg, K, refine_iterations, any_steer, reach, tab, outlines, c
                     db = d1 if j == 0 else d2
                     fb = f1 if j == 0 else f2
             hth, hd = hth / 2, hd / 2
-        # error estimate (kinematics.clearance._estimate)
+        # error estimate (tiltopt.kinematics.clearance._estimate)
         r, rho, arm = q[i, R], q[i, RHO], q[i, ARM]
         Db = fb + r
         s_lip = rho * hth0 + arm * hd0

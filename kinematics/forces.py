@@ -29,7 +29,7 @@ Rows (multiplier, sign convention of the result):
   chassis and the lock body, N*m.
 
 Equilibrium is ``J^T lambda + Q = 0`` with ``Q`` the generalized applied
-forces (the front and rear loads on the chassis, see :mod:`kinematics.loads`).
+forces (the front and rear loads on the chassis, see :mod:`tiltopt.kinematics.loads`).
 With ``m`` rows and ``n = 3 n_bodies`` columns, a properly constrained
 mechanism has ``rank J = n``. If ``m > n`` (over-constrained, e.g. the rigid
 parallelogram: one redundant pin) the internal forces are statically
@@ -70,7 +70,7 @@ class StateLoads:
     """Applied loads per item (state of a candidate).
 
     All arrays have shape (N,).
-    front_load_n, rear_load_n : N (see kinematics.loads.LoadState)
+    front_load_n, rear_load_n : N (see tiltopt.kinematics.loads.LoadState)
     side_ratio : tyre side force / vertical load
     brake_g : longitudinal deceleration, g
     locked : bool, tilt lock engaged
@@ -235,7 +235,7 @@ class ForceModel:
         m = self.model
         if name is not None:
             if name not in m.body_names or name == m.mech.chassis:
-                from .errors import InputError
+                from tiltopt.base.errors import InputError
                 raise InputError(f"the tilt lock body {name!r} is not a body of mechanism '{m.mech.name}' other "
                                  f"than the chassis. Bodies: {', '.join(m.body_names)}.", key="tilt_lock.body")
             return m.body_names.index(name)
@@ -514,7 +514,7 @@ def analyse_forces(model: Model, geom: Geometry, loads, sweep_result=None, force
     model : Model
     geom : Geometry
         n_candidates candidates.
-    loads : kinematics.loads.LoadsSpec
+    loads : tiltopt.kinematics.loads.LoadsSpec
     sweep_result : SweepResult, optional
         A sweep whose lean x travel grid holds every load-case state.
 
@@ -524,7 +524,7 @@ def analyse_forces(model: Model, geom: Geometry, loads, sweep_result=None, force
     forces : ForceResult
         Items in candidate-major order: item ``c * S + s``.
     status : ndarray of shape (C, S)
-        Solver status of each state (kinematics.solver.STATUS_TEXT).
+        Solver status of each state (tiltopt.kinematics.solver.STATUS_TEXT).
     force_model : ForceModel
         The tables used (pass it back in to skip rebuilding them).
     """

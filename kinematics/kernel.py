@@ -1,7 +1,7 @@
-"""Compiled Newton corrector: the batched solve of :mod:`kinematics.solver`, one item per loop pass.
+"""Compiled Newton corrector: the batched solve of :mod:`tiltopt.kinematics.solver`, one item per loop pass.
 
 At the optimizer's batch sizes (a few hundred items of ten unknowns) the
-numpy path of :func:`kinematics.solver.newton` spends most of its time in
+numpy path of :func:`tiltopt.kinematics.solver.newton` spends most of its time in
 array-call overhead and in passes over the (N, m, n_q + 1) Jacobian. This
 module runs the same iteration per item in code compiled by numba, with the
 item's point positions, point Jacobian, residual and LU factors in small
@@ -143,7 +143,7 @@ def _static_camber_sc(b) -> np.ndarray:
 
 def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray, stage: str, settings,
           items: np.ndarray | None = None, final_jacobian: bool = True):
-    """Compiled Newton solve of a batch of states; see :func:`kinematics.solver.solve_states`.
+    """Compiled Newton solve of a batch of states; see :func:`tiltopt.kinematics.solver.solve_states`.
 
     items : ndarray of shape (N,), optional
         Rows of ``b`` the states belong to (default: all, in order); saves
@@ -265,7 +265,7 @@ def _ls_factor(Jm, rows, n, scale, A, piv):
     """Factor the least-squares step of ``(Jm[:, :n] * scale) y = rhs``.
 
     Square: the LU factors of the scaled Jacobian, or, if it is exactly
-    singular, of the damped normal equations (as :func:`kinematics.solver._ls_step`);
+    singular, of the damped normal equations (as :func:`tiltopt.kinematics.solver._ls_step`);
     otherwise the normal equations with a vanishing Tikhonov term.
     Returns (ok, det_sign, normal): det_sign 0 unless square and not singular.
     """
@@ -351,7 +351,7 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, sc0, Lc, L_link, n0, zc
     # pair vectors, slide directions and positions in the scratch arrays; jacobian() writes
     # J[n] from them, so a converged state needs no Jacobian unless it is asked for.
     def residual(i, n, lean_n):
-        """Residual F (m,) of state n, constants in row i (kinematics.solver.residual)."""
+        """Residual F (m,) of state n, constants in row i (tiltopt.kinematics.solver.residual)."""
         nq = Q.shape[1]
         ang[0] = lean_n
         for k in range(ang_coord.shape[0]):

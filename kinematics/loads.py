@@ -48,7 +48,7 @@ Default load cases and their sources:
   ``m a h / wheelbase`` onto the front axle.
 - ``parked``: 1 g at the parked lean, the tilt lock holding the chassis.
 
-Front-view load model (see :mod:`kinematics.forces`): the front axle's
+Front-view load model (see :mod:`tiltopt.kinematics.forces`): the front axle's
 vertical load ``W_f = m g (front_share n_z + brake_g h / wheelbase)`` acts at
 the centre of mass (a chassis point ``(0, com_height_mm)`` in the design
 position, leaning with the chassis). The rear of the vehicle is one wheel on
@@ -69,17 +69,17 @@ from typing import Any
 
 import numpy as np
 
-from .errors import InputError, check_keys, read_text, read_toml
+from tiltopt.base.errors import InputError, check_keys, read_text, read_toml
+from tiltopt.base.resources import data_path
 
 G = 9.80665  # standard gravity, m/s^2
-DATA = Path(__file__).parent / "data"
 KINDS = ("static", "bump", "cornering", "braking", "parked")
 DEFAULT_SAFETY_FACTOR = 2.0
 DEFAULT_PIVOT_ALLOWANCE_G = 60.0
 DEFAULT_PIVOT_BASE_MM = 50.0
 DEFAULT_BUMP_G = 3.0       # De Lorenzo & Hull (see module docs)
 DEFAULT_BRAKE_G = 0.7      # common practice, no source
-from .safety import SAFETY_CAUTION  # noqa: E402,F401  (re-exported: loads output carries it)
+from tiltopt.base.safety import SAFETY_CAUTION  # noqa: E402,F401  (re-exported: loads output carries it)
 
 
 @dataclass(frozen=True)
@@ -236,7 +236,7 @@ def _read_toml(path: Path, what: str) -> dict:
 # ----------------------------------------------------------------- materials
 def load_materials(path: str | Path | None = None) -> dict[str, Material]:
     """Read a materials TOML file (default: the built-in ``kinematics/data/materials.toml``)."""
-    path = Path(path) if path else DATA / "materials.toml"
+    path = Path(path) if path else data_path("materials.toml")
     return parse_materials(_read_toml(path, "materials"), str(path))
 
 
@@ -265,7 +265,7 @@ def load_catalogue(path: str | Path | None = None) -> Catalogue:
 
     Columns ``material, outer_diameter_mm, wall_mm``; lines starting with ``#`` are comments.
     """
-    path = Path(path) if path else DATA / "tubes.csv"
+    path = Path(path) if path else data_path("tubes.csv")
     src = str(path)
     text = read_text(path, "tube catalogue .csv")
     lines = [ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#")]

@@ -3,7 +3,7 @@
 A mechanism is bodies with named points (front view, ``[y, z]`` in mm, design
 position, global coordinates), joined by pins, links, springs and sliders,
 with exactly two wheels. This module reads and writes the TOML file and
-checks it; it never solves anything (see :mod:`kinematics.model`).
+checks it; it never solves anything (see :mod:`tiltopt.kinematics.model`).
 
 File format (all lengths mm, angles degrees)::
 
@@ -15,7 +15,7 @@ File format (all lengths mm, angles degrees)::
     datum = [0.0, 0.0]
     [[pins]]    a = "body.point"  b = "body.point"  name = "..." (optional)
                 base_mm (optional): bearing spacing of the pivot along x, for
-                the out-of-plane (braking) load model of kinematics.forces
+                the out-of-plane (braking) load model of tiltopt.kinematics.forces
     [[links]]   a, b, name (optional)
     [[springs]] name, a, b, rate_n_per_mm, free_length_mm, preload_n (optional)
     [[sliders]] name (optional), a_from, a_to (a line on one body), b (a point
@@ -24,7 +24,7 @@ File format (all lengths mm, angles degrees)::
     [[wheels]]  name = "left" | "right", upright, centre, outer_radius_mm,
                 crown_radius_mm, static_camber_deg
 
-Keys for the 3-D clearance check (all optional; see :mod:`kinematics.clearance`)::
+Keys for the 3-D clearance check (all optional; see :mod:`tiltopt.kinematics.clearance`)::
 
     [[wheels]]  kingpin_inclination_deg = 0.0   # front view, top of the axis inboard
                 caster_deg = 0.0                # side view, top of the axis rearward
@@ -51,7 +51,7 @@ from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Iterable
 
-from .errors import InputError, check_keys, read_toml
+from tiltopt.base.errors import InputError, check_keys, read_toml
 
 PIN_TOLERANCE_MM = 0.01
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")

@@ -28,7 +28,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .errors import InputError
+from tiltopt.base.errors import InputError
 from .mechanism import Mechanism, split_ref
 
 # coordinate kinds

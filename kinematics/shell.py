@@ -47,7 +47,7 @@ from pathlib import Path
 
 import numpy as np
 
-from .errors import InputError, read_text
+from tiltopt.base.errors import InputError, read_text
 
 _NEWTON_ITERATIONS = 5
 _CHART_LIMIT = 0.9     # each Newton chart covers |t|^n <= 0.9 of its free coordinate

@@ -31,7 +31,7 @@ state. Linkage mass = all members + ``pivot_allowance_g`` per pivot (pins,
 both ends of each link and spring, sliders); springs themselves are bought
 parts and not included.
 
-Default safety factor 2.0 (``kinematics.loads.DEFAULT_SAFETY_FACTOR``): the
+Default safety factor 2.0 (``tiltopt.kinematics.loads.DEFAULT_SAFETY_FACTOR``): the
 aerospace factor of safety on limit loads is 1.5 (14 CFR 25.303), used where
 loads are well known and the structure is tested; here the loads are
 quasi-static estimates, fatigue is not checked and welded joints of a
@@ -284,7 +284,7 @@ def size_linkage(model: Model, geom: Geometry | None, loads: LoadsSpec, sweep_re
         mat = loads.materials[mb.material]
         rows = np.flatnonzero(mats == mb.material)
         if not len(rows):
-            from .errors import InputError
+            from tiltopt.base.errors import InputError
             raise InputError(f"the tube catalogue {cat.source} has no tubes of {mb.material!r} (member "
                              f"'{mb.name}'). Add rows for it or choose another material.", loads.source,
                              f"members.{mb.name}.material")

@@ -1,6 +1,6 @@
 """Batched Newton (Gauss-Newton) solve of the assembly equations.
 
-Equations, all in mm (see DOMAIN.md and :mod:`kinematics.model`):
+Equations, all in mm (see DOMAIN.md and :mod:`tiltopt.kinematics.model`):
 
 - loop pins: ``x(a) - x(b) = 0`` (2 rows each);
 - loop sliders: offset of the runner point from the guide line, and the
@@ -57,7 +57,7 @@ class SolveSettings:
         cut the residual tenfold stops chord steps for that item. 0 disables it.
     engine : {'compiled', 'numpy'}
         'compiled' runs the iteration per item in numba-compiled code
-        (:mod:`kinematics.kernel`); 'numpy' is the array-at-a-time reference
+        (:mod:`tiltopt.kinematics.kernel`); 'numpy' is the array-at-a-time reference
         path. Both solve the same equations with the same step rule.
     """
 

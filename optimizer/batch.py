@@ -36,7 +36,7 @@ from typing import Any
 
 import pandas as pd
 
-from kinematics.errors import InputError
+from tiltopt.base.errors import InputError
 
 from . import results as R
 from .config import parse_config, read_toml

@@ -1,11 +1,11 @@
-"""Run configs: a ``[run]`` table plus the problem tables of :func:`problems.spec.parse_problem`.
+"""Run configs: a ``[run]`` table plus the problem tables of :func:`tiltopt.problems.spec.parse_problem`.
 
 ::
 
     [run]
     name = "harbourline-demo"   # run ids start with it
     seed = 1                    # same config and seed: the same front
-    algorithm = "nsga2"         # {'nsga2', 'nsga3'} (problems.registry.ALGORITHMS)
+    algorithm = "nsga2"         # {'nsga2', 'nsga3'} (tiltopt.problems.registry.ALGORITHMS)
     population = 40
     generations = 30
     output = "../results"       # folder for results/<run-id>/, relative to this config
@@ -13,7 +13,7 @@
     nsga3_partitions = 6        # optional: reference-direction partitions for nsga3
 
 Instead of the problem tables, a ``[benchmark]`` table selects a published test
-problem (:mod:`optimizer.reference_problems`), for checking the optimiser.
+problem (:mod:`tiltopt.optimizer.reference_problems`), for checking the optimiser.
 """
 from __future__ import annotations
 
@@ -26,7 +26,7 @@ from typing import Any
 
 import numpy as np
 
-from kinematics.errors import InputError, read_toml as _read_toml
+from tiltopt.base.errors import InputError, read_toml as _read_toml
 
 ALGORITHM_NAMES = ("nsga2", "nsga3")
 RUN_KEYS = ("name", "seed", "algorithm", "population", "generations", "output", "checkpoint_every",
@@ -73,7 +73,7 @@ class RunConfig:
     Attributes
     ----------
     run : RunSettings
-    spec : problems.spec.ProblemSpec or None
+    spec : tiltopt.problems.spec.ProblemSpec or None
         None for a ``[benchmark]`` config.
     benchmark : dict or None
         The ``[benchmark]`` table.
@@ -98,7 +98,7 @@ class RunConfig:
             from .reference_problems import parse_benchmark
 
             return parse_benchmark(self.benchmark, self.source)
-        from problems.problem import TiltProblem
+        from tiltopt.problems.problem import TiltProblem
 
         return TiltProblem(self.spec)
 
@@ -186,7 +186,7 @@ def parse_config(data: dict, src: str = "<memory>", base_dir: str | Path | None 
 
         parse_benchmark(data["benchmark"], src)
         return RunConfig(run=run, spec=None, benchmark=dict(data["benchmark"]), data=data, source=src, base_dir=base)
-    from problems.spec import parse_problem
+    from tiltopt.problems.spec import parse_problem
 
     spec = parse_problem(data, src, base)
     return RunConfig(run=run, spec=spec, benchmark=None, data=data, source=src, base_dir=base)

@@ -1,27 +1,28 @@
-"""``tiltopt demo``: a short run of configs/demo.toml (the Harbourline parcel trike)."""
+"""``tiltopt demo``: a short run of the built-in demo config (the Harbourline parcel trike)."""
 from __future__ import annotations
 
 from pathlib import Path
 
-from kinematics.errors import InputError
+from tiltopt.base.resources import config_path
 
 DEMO_CONFIG = "demo.toml"
+DEMO_OUTPUT = "results"   # relative to the current folder
 
 
 def demo_config_path() -> Path:
-    """configs/demo.toml of the source tree (an editable install), else of the current folder."""
-    here = Path(__file__).resolve().parents[1] / "configs" / DEMO_CONFIG
-    for p in (here, Path.cwd() / "configs" / DEMO_CONFIG):
-        if p.is_file():
-            return p
-    raise InputError(f"the demo config was not found at {here}. Run tiltopt demo from a clone of the project "
-                     "(pip install -e .), or give a config: tiltopt demo --config CONFIG.", "demo")
+    """The built-in ``configs/demo.toml`` (package data, so any install has it)."""
+    return config_path(DEMO_CONFIG)
 
 
 def run_demo(config: str | Path | None = None, output: str | Path | None = None, progress: bool = True):
-    """Run the demo config (replacing an earlier demo run) and return its :class:`RunOutcome`."""
+    """Run the demo config (replacing an earlier demo run) and return its :class:`RunOutcome`.
+
+    Results go to ``output`` (default ``./results/`` of the current folder), never into the
+    installed package.
+    """
     from .config import load_config
     from .runner import start_run
 
     cfg = load_config(config or demo_config_path())
-    return start_run(cfg, output=output, overwrite=True, progress=progress)
+    out = Path(output) if output is not None else (Path.cwd() / DEMO_OUTPUT if config is None else None)
+    return start_run(cfg, output=out, overwrite=True, progress=progress)

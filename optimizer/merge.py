@@ -6,7 +6,7 @@ from pathlib import Path
 
 import pandas as pd
 
-from kinematics.errors import InputError
+from tiltopt.base.errors import InputError
 
 from . import results as R
 from .pareto import nondominated_mask

@@ -1,4 +1,4 @@
-"""Published test problems with the ``evaluate_designs`` interface of :class:`problems.problem.TiltProblem`.
+"""Published test problems with the ``evaluate_designs`` interface of :class:`tiltopt.problems.problem.TiltProblem`.
 
 They check the optimiser itself (runner, result files, batches) against
 fronts known in closed form, independent of the linkage kinematics. A run
@@ -16,8 +16,8 @@ import time
 import numpy as np
 from pymoo.core.problem import Problem
 
-from kinematics.errors import InputError
-from problems.problem import Evaluation  # the same result type as the linkage problem's
+from tiltopt.base.errors import InputError
+from tiltopt.problems.problem import Evaluation  # the same result type as the linkage problem's
 
 BENCHMARKS = {
     "zdt1": "ZDT1: convex front f2 = 1 - sqrt(f1), 2 objectives (Zitzler, Deb and Thiele 2000)",

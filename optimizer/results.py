@@ -37,11 +37,11 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from kinematics.errors import InputError
+from tiltopt.base.errors import InputError
 
 FRONT, EVALUATIONS, GENERATIONS, RUN_JSON, CHECKPOINT = (
     "front.parquet", "evaluations.parquet", "generations.parquet", "run.json", "checkpoint.pkl")
-from kinematics.safety import SAFETY_CAUTION
+from tiltopt.base.safety import SAFETY_CAUTION
 PARTS_DIR = "evaluations.parts"
 META_KEY = b"tiltopt"
 CAUTION = SAFETY_CAUTION
@@ -183,7 +183,7 @@ class Run:
 
     @cached_property
     def config(self):
-        """The :class:`~optimizer.config.RunConfig` as run (parsed again from run.json)."""
+        """The :class:`~tiltopt.optimizer.config.RunConfig` as run (parsed again from run.json)."""
         from .config import parse_config
 
         cfg = self.meta.get("config")
@@ -194,12 +194,12 @@ class Run:
 
     @cached_property
     def template(self):
-        """The :class:`problems.templates.Template` the run searched."""
+        """The :class:`tiltopt.problems.templates.Template` the run searched."""
         d = self.meta.get("template")
         if not d:
             raise InputError("this run has no mechanism template (it ran a benchmark problem).",
                              str(self.run_dir / RUN_JSON), "template")
-        from problems.templates import Template
+        from tiltopt.problems.templates import Template
 
         return Template.from_dict(d, str(self.run_dir / RUN_JSON))
 

@@ -10,7 +10,7 @@ Any object works as the problem if it has ``n_var``, ``n_obj``,
 ``n_ieq_constr``, ``xl``, ``xu`` and ``evaluate_designs(X)`` returning an
 object with ``F``, ``G``, ``feasible``, ``violation``, ``reason``,
 ``metrics``, ``objective_names`` and ``constraint_names``
-(:class:`problems.problem.TiltProblem`, :class:`optimizer.reference_problems.ZDTProblem`).
+(:class:`tiltopt.problems.problem.TiltProblem`, :class:`tiltopt.optimizer.reference_problems.ZDTProblem`).
 """
 from __future__ import annotations
 
@@ -32,7 +32,7 @@ from pymoo.core.evaluator import Evaluator
 from pymoo.core.problem import Problem
 from pymoo.problems.static import StaticProblem
 
-from kinematics.errors import InputError
+from tiltopt.base.errors import InputError
 
 from . import results as R
 from .config import RunConfig, RunSettings, parse_config
@@ -247,7 +247,7 @@ class Runner:
             u[f"obj.{o}"] = self.info.objective_units.get(o, "1")
         for c in self.info.constraints:
             u[f"con.{c}"] = self.info.constraint_units.get(c, "1")
-        from problems.problem import METRIC_UNITS
+        from tiltopt.problems.problem import METRIC_UNITS
 
         u.update(METRIC_UNITS)
         return u

@@ -2,10 +2,10 @@
 
 :class:`TiltProblem` is a vectorized pymoo ``Problem`` (``elementwise=False``).
 Each call maps the whole population to geometry with the template, checks it
-(:meth:`Template.check_geometry`), runs :func:`kinematics.sweep.sweep` once over
+(:meth:`Template.check_geometry`), runs :func:`tiltopt.kinematics.sweep.sweep` once over
 all valid candidates x travels x leans, then, when the spec asks for them,
-:func:`kinematics.clearance.evaluate_clearance` and
-:func:`kinematics.sizing.size_linkage` once each, and writes ``out["F"]``
+:func:`tiltopt.kinematics.clearance.evaluate_clearance` and
+:func:`tiltopt.kinematics.sizing.size_linkage` once each, and writes ``out["F"]``
 (minimised) and ``out["G"]`` (feasible where ``G <= 0``).
 
 Failures are data: a candidate whose geometry is invalid, or that fails to
@@ -34,8 +34,8 @@ from typing import Callable
 import numpy as np
 from pymoo.core.problem import Problem
 
-from kinematics.solver import SKIPPED, STATUS_TEXT
-from kinematics.sweep import SweepSettings, sweep
+from tiltopt.kinematics.solver import SKIPPED, STATUS_TEXT
+from tiltopt.kinematics.sweep import SweepSettings, sweep
 
 from .registry import CONSTRAINTS, OBJECTIVES
 from .spec import ProblemSpec
@@ -95,12 +95,12 @@ class Evaluation:
 
 
 class TiltProblem(Problem):
-    """The pymoo problem of a :class:`~problems.spec.ProblemSpec` (see module docs).
+    """The pymoo problem of a :class:`~tiltopt.problems.spec.ProblemSpec` (see module docs).
 
     Parameters
     ----------
     spec : ProblemSpec
-    sweep_settings : kinematics.sweep.SweepSettings, optional
+    sweep_settings : tiltopt.kinematics.sweep.SweepSettings, optional
 
     Attributes
     ----------
@@ -235,8 +235,8 @@ class TiltProblem(Problem):
                     f"{env.lean_deg[l]:g} deg, travel {env.travel_mm[t]:g} mm: {STATUS_TEXT[int(sr.status[j, t, l])]})")
 
             if spec.needs_clearance:
-                from kinematics.clearance import evaluate_clearance
-                from kinematics.shell import shell_signed_distance
+                from tiltopt.kinematics.clearance import evaluate_clearance
+                from tiltopt.kinematics.shell import shell_signed_distance
                 summ = evaluate_clearance(model, g, sr, spec.shell).summary()
                 for k in CLEARANCE_KEYS:
                     if k in summ:   # +-inf (nothing to measure, e.g. no links) is reported as NaN
@@ -249,7 +249,7 @@ class TiltProblem(Problem):
                                               tpl.mechanism.station_x_mm)
                     metrics["pivot_shell_distance_mm"][idx] = np.max(d, axis=1)
             if spec.needs_sizing:
-                from kinematics.sizing import size_linkage
+                from tiltopt.kinematics.sizing import size_linkage
                 sz = size_linkage(model, g, spec.loads)
                 metrics["linkage_mass_kg"][idx] = np.where(ok, sz.linkage_mass_kg, np.nan)
                 metrics["max_utilisation"][idx] = np.where(ok, sz.max_utilisation, np.nan)

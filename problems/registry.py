@@ -3,8 +3,8 @@
 The CLI, the config checker and the docs list these same dicts, so they
 never disagree. Each entry says its unit and which part of the evaluation it
 needs: ``"sweep"`` (kinematics only), ``"clearance"`` (a body shell and
-:mod:`kinematics.clearance`) or ``"sizing"`` (loads and
-:mod:`kinematics.sizing`).
+:mod:`tiltopt.kinematics.clearance`) or ``"sizing"`` (loads and
+:mod:`tiltopt.kinematics.sizing`).
 """
 from __future__ import annotations
 

@@ -2,13 +2,13 @@
 
 Tables (TOML, our own format; lengths mm, angles degrees)::
 
-    objectives = ["overall_width", "max_scrub", "max_heave"]   # problems.registry.OBJECTIVES
+    objectives = ["overall_width", "max_scrub", "max_heave"]   # tiltopt.problems.registry.OBJECTIVES
     shell = "shell.toml"            # optional body shell (relative to the config)
     loads = "loads.toml"            # optional loads file, or embed [vehicle], [sizing],
-                                    # [members.*], [tilt_lock], [[load_cases]] (kinematics.loads)
+                                    # [members.*], [tilt_lock], [[load_cases]] (tiltopt.kinematics.loads)
 
     [template]
-    name = "twin_beam"              # a built-in (problems.registry.TEMPLATES), or
+    name = "twin_beam"              # a built-in (tiltopt.problems.registry.TEMPLATES), or
     mechanism = "my_linkage.toml"   # any symmetric mechanism file, with [[template.variables]]
     variables = ["outer_pivot_y", "wheel_offset"]   # built-in: the active subset (optional)
     bounds = { outer_pivot_y = [250.0, 400.0] }     # optional bound overrides
@@ -53,8 +53,8 @@ from typing import Any
 
 import numpy as np
 
-from kinematics.errors import InputError, check_keys
-from kinematics.mechanism import load_mechanism
+from tiltopt.base.errors import InputError, check_keys
+from tiltopt.kinematics.mechanism import load_mechanism
 
 from .registry import CLEARANCE, CONSTRAINTS, OBJECTIVES, SIZING, TEMPLATES
 from .templates import Template, get_template, template_from_mechanism
@@ -117,13 +117,13 @@ class ProblemSpec:
         With bounds, active subset, fixed values and steer envelope applied.
     envelope : Envelope
     objectives : tuple of str
-        Names from :data:`problems.registry.OBJECTIVES`.
+        Names from :data:`tiltopt.problems.registry.OBJECTIVES`.
     constraints : tuple of str
-        Names from :data:`problems.registry.CONSTRAINTS`, in G column order.
+        Names from :data:`tiltopt.problems.registry.CONSTRAINTS`, in G column order.
     limits : Limits
     shell_path, loads_path : Path or None
-    shell : kinematics.shell.Shell or None
-    loads : kinematics.loads.LoadsSpec or None
+    shell : tiltopt.kinematics.shell.Shell or None
+    loads : tiltopt.kinematics.loads.LoadsSpec or None
     source : str
     """
 
@@ -311,7 +311,7 @@ def _constraint_names(limits: Limits, has_shell: bool) -> tuple[str, ...]:
 
 
 def _load_shell(path: Path, src: str):
-    from kinematics.shell import load_shell
+    from tiltopt.kinematics.shell import load_shell
 
     return load_shell(path)
 
@@ -323,7 +323,7 @@ def _load_loads(data: dict, src: str, base_dir: Path):
                          src, embedded[0])
     if "loads" not in data and not embedded:
         return None, None
-    from kinematics.loads import load_loads, parse_loads
+    from tiltopt.kinematics.loads import load_loads, parse_loads
 
     if "loads" in data:
         p = _path(data["loads"], src, "loads", base_dir)

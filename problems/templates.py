@@ -46,11 +46,11 @@ from typing import Callable, Iterable, Mapping, Sequence
 
 import numpy as np
 
-from kinematics.errors import InputError, read_toml
-from kinematics.mechanism import Mechanism, load_mechanism, mechanism_to_toml, parse_mechanism, split_ref
-from kinematics.model import Geometry, Model
+from tiltopt.base.errors import InputError, read_toml
+from tiltopt.base.resources import config_path
+from tiltopt.kinematics.mechanism import Mechanism, load_mechanism, mechanism_to_toml, parse_mechanism, split_ref
+from tiltopt.kinematics.model import Geometry, Model
 
-CONFIGS = Path(__file__).resolve().parents[1] / "configs"
 SYMMETRY_TOLERANCE_MM = 0.01
 MIN_MEMBER_MM = 1.0
 TEMPLATE_FORMAT = "tiltopt.template/1"
@@ -173,7 +173,7 @@ class Template:
                 raise InputError(
                     f"a template must be symmetric left/right: point {r} at [{y}, {z}] needs a mirror partner "
                     f"{mr} at [{-y}, {z}]" + (" (no such point)." if j is None else f" (it is at {list(P0[j])}).")
-                    + " Make the mechanism symmetric (kinematics.mechanism.mirror helps).", self.source)
+                    + " Make the mechanism symmetric (tiltopt.kinematics.mechanism.mirror helps).", self.source)
             partner[i] = j
         # pin groups (union-find)
         parent = list(range(n_pts))
@@ -613,7 +613,7 @@ def load_template_entry(path: str | Path) -> TemplateEntry:
 def _builtin_entries() -> dict[str, TemplateEntry]:
     out = {}
     for name in BUILTIN_NAMES:
-        e = load_template_entry(CONFIGS / f"{name}_template.toml")
+        e = load_template_entry(config_path(f"{name}_template.toml"))
         if e.name != name:
             raise InputError(f"expected template = {name!r}. Got {e.name!r}.", str(e.path), "template")
         out[name] = e

@@ -16,9 +16,9 @@ import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 
-from kinematics.errors import InputError
-from optimizer.batch import load_batch, run_dask, run_local
-from optimizer.merge import merge_fronts
+from tiltopt.base.errors import InputError
+from tiltopt.optimizer.batch import load_batch, run_dask, run_local
+from tiltopt.optimizer.merge import merge_fronts
 
 CONFIG = """
 [run]
@@ -187,8 +187,8 @@ name = "twin_beam"
 [envelope]
 lean_step_deg = 15.0
 """)
-    from optimizer.config import load_config
-    from optimizer.runner import start_run
+    from tiltopt.optimizer.config import load_config
+    from tiltopt.optimizer.runner import start_run
 
     t = start_run(load_config(tmp_path / "t.toml"), progress=False)
     with pytest.raises(InputError, match="same objectives"):

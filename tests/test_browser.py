@@ -9,7 +9,7 @@ import shutil
 
 import pytest
 
-from test_explorer import fixture_run
+from tests.helpers import fixture_run
 
 ARGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
         "--disable-background-networking", "--disable-component-update", "--disable-sync"]
@@ -33,9 +33,9 @@ def page(tmp_path_factory):
 
     folder = tmp_path_factory.mktemp("page")
     try:   # a real tiny run of the optimiser when that part is installed, else the fixture run
-        from optimizer.results import load_run
+        from tiltopt.optimizer.results import load_run
 
-        from test_explorer import make_tiny_run
+        from tests.helpers import make_tiny_run
         from tiltopt.reports.runs import explore_runs
 
         run_dir = make_tiny_run(folder)
@@ -160,7 +160,7 @@ def test_colour_by_selector(page):
 def test_sheet_prints_within_the_paper_width(page, tmp_path, paper, width_mm):
     """Print-emulated, the sheet fits the printable width of A4 and of letter paper (page margins 11 mm each
     side, from the sheet's own @page rule); and the browser's PDF of it has pages of that paper size."""
-    from test_explorer import LEAN_LIMIT, TRAVEL, fixture_run
+    from tests.helpers import LEAN_LIMIT, TRAVEL, fixture_run
     from tiltopt.reports.sheet import SheetInputs, write_sheet
 
     pg, errors, requests, front = page

@@ -1,6 +1,6 @@
 """Batched clearance checks against exact geometry derived here, and the ``tiltopt clearance`` command.
 
-Mechanism: the ideal parallelogram twin beam of tests/conftest.py (beam half length w = 330 mm,
+Mechanism: the ideal parallelogram twin beam of tests/helpers.py (beam half length w = 330 mm,
 hubs at y = +-330 mm, z = 250 mm; R = 250 mm, r = 23 mm, so the crown circle radius is 227 mm).
 In it the uprights keep the chassis' orientation, so in the chassis frame each wheel plane stays
 vertical at a lateral offset w cos(phi) from the centre plane.
@@ -17,14 +17,14 @@ import pytest
 from click.testing import CliRunner
 from scipy.optimize import minimize_scalar
 
-from kinematics.clearance import ClearanceSettings, evaluate_clearance
-from kinematics.mechanism import load_mechanism, mechanism_to_toml, parse_mechanism
-from kinematics.model import Model
-from kinematics.shell import load_shell, superellipse_shell
-from kinematics.sweep import sweep
+from tiltopt.kinematics.clearance import ClearanceSettings, evaluate_clearance
+from tiltopt.kinematics.mechanism import load_mechanism, mechanism_to_toml, parse_mechanism
+from tiltopt.kinematics.model import Model
+from tiltopt.kinematics.shell import load_shell, superellipse_shell
+from tiltopt.kinematics.sweep import sweep
 from tiltopt.cli import main
 
-from conftest import CONFIGS, twin_beam
+from tests.helpers import CONFIGS, twin_beam
 
 RHO = 227.0          # crown circle radius R - r
 R_CROWN = 23.0
@@ -283,7 +283,7 @@ def test_steer_axis_rotation_closed_form(kpi, caster):
     # Exact rotation (Rodrigues) of the front crown point c + rho f about the steering axis through the
     # hub, for a quarter turn: f' = (e x f) + e (e . f), e the design axis of the right wheel
     # (top inboard by the kingpin inclination, rearward by the caster), unit.
-    from kinematics.clearance import _Wheels
+    from tiltopt.kinematics.clearance import _Wheels
 
     d = twin_beam()
     d["wheels"][1].update(kingpin_inclination_deg=kpi, caster_deg=caster)

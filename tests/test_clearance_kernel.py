@@ -13,15 +13,15 @@ import tomllib
 import numpy as np
 import pytest
 
-from kinematics import clearance_kernel as K
-from kinematics.clearance import ClearanceSettings, _shell_tables, evaluate_clearance
-from kinematics.mechanism import parse_mechanism
-from kinematics.model import Model
-from kinematics.shell import (load_shell, polygon_distance, polygon_sections, shell_signed_distance,
+from tiltopt.kinematics import clearance_kernel as K
+from tiltopt.kinematics.clearance import ClearanceSettings, _shell_tables, evaluate_clearance
+from tiltopt.kinematics.mechanism import parse_mechanism
+from tiltopt.kinematics.model import Model
+from tiltopt.kinematics.shell import (load_shell, polygon_distance, polygon_sections, shell_signed_distance,
                               superellipse_distance, superellipse_distance_lower_bound)
-from kinematics.sweep import sweep
+from tiltopt.kinematics.sweep import sweep
 
-from conftest import CONFIGS
+from tests.helpers import CONFIGS
 
 VALUE_TOL = 1e-9      # mm: reached minima (same arithmetic, rounding only)
 ERROR_TOL = 1e-3      # mm: error estimates (numpy's coarse grid is single precision)
@@ -127,7 +127,7 @@ def test_kernel_point_distances_match_the_shell_module():
             else:
                 got = K.polygon_shell_distance(tab[:, 0], outlines, y, z, x, 0.0)
             assert got == pytest.approx(r, abs=1e-9)
-    # one polygon section against kinematics.shell.polygon_distance (itself checked against shapely)
+    # one polygon section against tiltopt.kinematics.shell.polygon_distance (itself checked against shapely)
     shell = _polygon_demo_shell((40, 40, 40, 40))
     p = rng.uniform([-400.0, 0.0], [400.0, 1100.0], (200, 2))
     ref = polygon_distance(p[:, 0], p[:, 1], shell.outlines[1])
@@ -142,8 +142,8 @@ def test_kernel_setting_is_checked():
 
 
 def test_compiled_slot_root_and_levels_match_numpy_on_a_polygon_shell():
-    from kinematics.clearance import _level_compiled, _root, _root_compiled
-    from kinematics.shell import inside_level
+    from tiltopt.kinematics.clearance import _level_compiled, _root, _root_compiled
+    from tiltopt.kinematics.shell import inside_level
 
     shell = _polygon_demo_shell()
     rng = np.random.default_rng(11)
@@ -164,9 +164,9 @@ def test_compiled_slot_root_and_levels_match_numpy_on_a_polygon_shell():
 
 @pytest.mark.parametrize("steer,kpi,caster", [(None, 0.0, 0.0), (15.0, 8.0, 5.0)])
 def test_compiled_kernel_matches_the_numpy_path_on_the_twin_beam(steer, kpi, caster):
-    # the ideal parallelogram twin beam of tests/conftest.py with a post and tubes to clear; with no
+    # the ideal parallelogram twin beam of tests/helpers.py with a post and tubes to clear; with no
     # steer the search has one steer sample, with kingpin inclination and caster the axis is tilted
-    from conftest import twin_beam
+    from tests.helpers import twin_beam
 
     d = twin_beam()
     for w in d["wheels"]:

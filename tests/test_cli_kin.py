@@ -2,7 +2,7 @@
 
 References: the JSON contract of issue 2 (keys per state, null metrics where a
 state did not converge), Python's json and csv modules as the parsers, and the
-independent reference solver (kinematics.reference) for the numbers.
+independent reference solver (tests.reference_solver) for the numbers.
 """
 from __future__ import annotations
 
@@ -13,9 +13,9 @@ import json
 import pytest
 from click.testing import CliRunner
 
-from conftest import CONFIGS, twin_beam
-from kinematics.mechanism import load_mechanism
-from kinematics.reference import reference_sweep
+from tests.helpers import CONFIGS, twin_beam
+from tiltopt.kinematics.mechanism import load_mechanism
+from tests.reference_solver import reference_sweep
 from tiltopt.cli import main
 
 ISSUE_KEYS = {"lean_deg", "travel_mm", "converged", "residual_mm", "track_mm", "track_change_mm", "scrub_mm",
@@ -56,7 +56,7 @@ def test_json_numbers_match_reference_solver():
     for a, b in zip(rows, ref):
         assert a["converged"] and b["converged"]
         for k in METRICS[:7]:
-            assert a[k] == pytest.approx(b[k], abs=1e-6), k       # kinematics.reference
+            assert a[k] == pytest.approx(b[k], abs=1e-6), k       # tests.reference_solver
         for n, v in b["spring_lengths_mm"].items():
             assert a["spring_lengths_mm"][n] == pytest.approx(v, abs=1e-6)
 

@@ -1,4 +1,4 @@
-"""Run configs: strict [run] table, problem part delegated to problems.spec, `tiltopt check` and the
+"""Run configs: strict [run] table, problem part delegated to tiltopt.problems.spec, `tiltopt check` and the
 CLI commands. Expected sizes are derived in the test from the config's own numbers (closed form)."""
 from __future__ import annotations
 
@@ -9,9 +9,9 @@ from pathlib import Path
 import pytest
 from click.testing import CliRunner
 
-from kinematics.errors import InputError
-from optimizer.config import check_config_lines, load_config, parse_config
-from problems.templates import get_template
+from tiltopt.base.errors import InputError
+from tiltopt.optimizer.config import check_config_lines, load_config, parse_config
+from tiltopt.problems.templates import get_template
 from tiltopt.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -56,7 +56,7 @@ def test_problem_tables_go_to_problems_spec(tmp_path):
     assert cfg.run.output == (ROOT / "results").resolve() and cfg.run.algorithm == data["run"]["algorithm"]
     assert cfg.spec.objectives == tuple(data["objectives"])
     assert cfg.spec.shell_path == (ROOT / "configs" / data["shell"]).resolve()
-    data["envelope"]["lean_stepp_deg"] = 5.0       # a typo in a problem table: problems.spec names it
+    data["envelope"]["lean_stepp_deg"] = 5.0       # a typo in a problem table: tiltopt.problems.spec names it
     with pytest.raises(InputError) as e:
         parse_config(data, "demo.toml", ROOT / "configs")
     assert e.value.key == "envelope.lean_stepp_deg"

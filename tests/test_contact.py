@@ -12,10 +12,10 @@ import numpy as np
 import pytest
 from scipy.optimize import minimize
 
-from conftest import hub_height, mech_of, twin_beam
-from kinematics.errors import InputError
-from kinematics.model import Model
-from kinematics.sweep import sweep
+from tests.helpers import hub_height, mech_of, twin_beam
+from tiltopt.base.errors import InputError
+from tiltopt.kinematics.model import Model
+from tiltopt.kinematics.sweep import sweep
 
 
 def torus_point(u, v, R, r, gamma):

@@ -14,76 +14,12 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from kinematics.mechanism import load_mechanism
-from kinematics.model import Model
-from kinematics.sweep import sweep
+from tiltopt.kinematics.mechanism import load_mechanism
+from tiltopt.kinematics.model import Model
+from tiltopt.kinematics.sweep import sweep
 
-CONFIGS = Path(__file__).resolve().parents[1] / "configs"
-LEAN_LIMIT = 25.0
-TRAVEL = (-30.0, 0.0, 30.0)
+from tests.helpers import CONFIGS, LEAN_LIMIT, TRAVEL, fixture_run, make_tiny_run
 
-
-# ----------------------------------------------------------------- fixture run
-def _moved(mech, dz_upper: float, dz_lower: float, dy_outer: float):
-    """A symmetric variant: inner pivots raised, outer joints (and hubs) moved out."""
-    pts = {}
-    for side, sgn in (("left", -1.0), ("right", 1.0)):
-        for ref in (f"chassis.upper_{side}_pivot", f"upper_arm_{side}.inner"):
-            y, z = mech.point(ref)
-            pts[ref] = (y, z + dz_upper)
-        for ref in (f"chassis.lower_{side}_pivot", f"lower_arm_{side}.inner"):
-            y, z = mech.point(ref)
-            pts[ref] = (y, z + dz_lower)
-        for ref in (f"upper_arm_{side}.outer", f"upright_{side}.upper_joint", f"lower_arm_{side}.outer",
-                    f"upright_{side}.lower_joint", f"upright_{side}.hub"):
-            y, z = mech.point(ref)
-            pts[ref] = (y + sgn * dy_outer, z)
-    return mech.with_points(pts)
-
-
-def fixture_run(n: int = 8, n_bad: int = 3, seed: int = 3):
-    """(ExplorerRun, dict of candidate_id -> Mechanism, front DataFrame) from a seeded set of variants."""
-    from tiltopt.reports.explorer import ExplorerRun
-
-    base = load_mechanism(CONFIGS / "wishbone_rocker.toml")
-    model = Model(base)
-    rng = np.random.default_rng(seed)
-    X = np.column_stack([rng.uniform(-40, 40, n + n_bad), rng.uniform(-30, 30, n + n_bad),
-                         rng.uniform(-20, 40, n + n_bad)])
-    mechs = {}
-    ids = [f"g{1 + k // 4:03d}-{k:04d}" for k in range(n + n_bad)]
-    for cid, x in zip(ids, X):
-        mechs[cid] = _moved(base, *x)
-    geom = model.batch_geometry(np.stack([model.geometry_from(mechs[c]).points[0] for c in ids]))
-    lean = np.linspace(0.0, LEAN_LIMIT, 11)
-    res = sweep(model, geom, lean, TRAVEL)
-    ok = res.converged.all(axis=(1, 2))
-    max_scrub = np.nanmax(np.abs(res.scrub), axis=(1, 2))
-    max_heave = np.nanmax(np.abs(res.heave), axis=(1, 2))
-    cam = np.degrees(np.nanmax(np.abs(res.camber_error), axis=(1, 2, 3)))
-    width = np.nanmax(res.contact[:, 1, :, 1, 0] - res.contact[:, 1, :, 0, 0], axis=1) + 2 * 23.0
-    df = pd.DataFrame({
-        "candidate_id": ids, "generation": [1 + k // 4 for k in range(n + n_bad)],
-        "feasible": [bool(o) for o in ok[:n]] + [False] * n_bad,
-        "violation": [0.0] * n + [5.0 + k for k in range(n_bad)],
-        "reason": [""] * n + ["min_ground_mm below margin"] * n_bad,
-        "var.upper_pivot_dz": X[:, 0], "var.lower_pivot_dz": X[:, 1], "var.outer_dy": X[:, 2],
-        "obj.max_scrub": max_scrub, "obj.max_heave": max_heave, "obj.max_camber_error": cam,
-        "max_scrub_mm": max_scrub, "max_heave_mm": max_heave, "max_camber_error_deg": cam,
-        "overall_width_mm": width,
-    })
-    units = {"var.upper_pivot_dz": "mm", "var.lower_pivot_dz": "mm", "var.outer_dy": "mm",
-             "obj.max_scrub": "mm", "obj.max_heave": "mm", "obj.max_camber_error": "deg"}
-    front = df.iloc[:n].reset_index(drop=True)
-
-    def geometry_for(rows):
-        return model.batch_geometry(np.stack([model.geometry_from(mechs[c]).points[0] for c in rows["candidate_id"]]))
-
-    run = ExplorerRun(run_id="fixture-a", front=front, model=model, geometry_for=geometry_for,
-                      lean_limit_deg=LEAN_LIMIT, travel_mm=TRAVEL, lean_step_deg=2.5, evaluations=df,
-                      template="wishbone_rocker", units=units, run_dir="results/fixture-a",
-                      meta={"seed": seed, "config": "tests/fixture"})
-    return run, mechs, front, res
 
 
 # ----------------------------------------------------------------- tests
@@ -175,7 +111,7 @@ def test_best_compromise_is_nearest_the_ideal_point():
 
 
 class _FakeTemplate:
-    """Stands in for problems.templates.Template (CONTRACTS.md) until the real one lands."""
+    """Stands in for tiltopt.problems.templates.Template (CONTRACTS.md) until the real one lands."""
 
     def __init__(self, model, mechs, ids, X):
         self.name, self.model = "wishbone_rocker", model
@@ -195,7 +131,7 @@ class _FakeTemplate:
 
 
 class _FakeRun:
-    """Stands in for optimizer.results.Run (CONTRACTS.md) until the real one lands."""
+    """Stands in for tiltopt.optimizer.results.Run (CONTRACTS.md) until the real one lands."""
 
     def __init__(self):
         run, mechs, front, res = fixture_run()
@@ -276,41 +212,9 @@ def test_cli_explore_and_sheet(tmp_path, monkeypatch):
 
 
 # ----------------------------------------------------------------- a real tiny run
-TINY_CONFIG = """
-objectives = ["overall_width", "max_scrub", "max_heave"]
-[run]
-name = "tiny"
-seed = 2
-algorithm = "nsga2"
-population = 16
-generations = 3
-output = "out"
-checkpoint_every = 1
-[template]
-name = "wishbone_rocker"
-[envelope]
-lean_limit_deg = 30.0
-lean_step_deg = 5.0
-travel_mm = [-30.0, 0.0, 30.0]
-[constraints]
-max_width_mm = 900.0
-"""
-
-
-def make_tiny_run(folder: Path) -> Path:
-    """A real run of the optimiser (16 x 3 evaluations of the wishbone-rocker template, seeded)."""
-    from optimizer.config import load_config
-    from optimizer.runner import start_run
-
-    cfg = folder / "tiny.toml"
-    cfg.write_text(TINY_CONFIG, encoding="utf-8")
-    out = start_run(load_config(cfg), overwrite=True, progress=False)
-    return Path(out.run_dir)
-
-
 @pytest.fixture(scope="module")
 def tiny(tmp_path_factory):
-    from optimizer.results import load_run
+    from tiltopt.optimizer.results import load_run
 
     run_dir = make_tiny_run(tmp_path_factory.mktemp("tiny"))
     return run_dir, load_run(run_dir)
@@ -328,7 +232,7 @@ def test_explorer_of_a_real_run(tiny, tmp_path):
     assert data["runs"][0]["lean_deg"][-1] == 30.0 and data["runs"][0]["travel_mm"] == [-30.0, 0.0, 30.0]
     assert {c["key"]: c["unit"] for c in data["columns"]}["obj.max_scrub"] == "mm"
     # the precomputed drawing of the first front design is the template's geometry swept by the kinematics
-    from kinematics.sweep import sweep
+    from tiltopt.kinematics.sweep import sweep
 
     x = run.candidate_x(data["ids"][0])
     res = sweep(run.template.model, run.template.geometry(x[None]), [0.0], [0.0])

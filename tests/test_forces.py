@@ -1,4 +1,4 @@
-"""Force analysis (kinematics.forces) against closed forms and the solver itself."""
+"""Force analysis (tiltopt.kinematics.forces) against closed forms and the solver itself."""
 from __future__ import annotations
 
 import math
@@ -6,12 +6,12 @@ import math
 import numpy as np
 import pytest
 
-from conftest import CONFIGS, mech_of, sprung_twin_beam, twin_beam, wishbone_rocker
-from kinematics.forces import analyse_forces
-from kinematics.loads import G, load_loads, parse_loads
-from kinematics.mechanism import load_mechanism
-from kinematics.model import Model
-from kinematics.solver import Batch, newton
+from tests.helpers import CONFIGS, mech_of, sprung_twin_beam, tie_link_beam, twin_beam, wishbone_rocker
+from tiltopt.kinematics.forces import analyse_forces
+from tiltopt.kinematics.loads import G, load_loads, parse_loads
+from tiltopt.kinematics.mechanism import load_mechanism
+from tiltopt.kinematics.model import Model
+from tiltopt.kinematics.solver import Batch, newton
 
 DEMO_LOADS = CONFIGS / "loads_demo.toml"
 
@@ -29,16 +29,6 @@ def _spec_cases(cases, **vehicle):
     return parse_loads({"vehicle": {k: getattr(v, k) for k in ("total_mass_kg", "com_height_mm", "front_share",
                                                                  "wheelbase_mm", "lean_limit_deg")},
                         "cases": cases}, "<test>")
-
-
-def tie_link_beam(e=50.0) -> dict:
-    """twin_beam with the lower beam replaced by two links from one chassis pivot (a determinate linkage)."""
-    d = twin_beam(e_left=e, e_right=e, name="tie_link")
-    del d["bodies"]["lower_beam"]
-    d["pins"] = [p for p in d["pins"] if "lower_beam" not in p["a"] + p["b"]]
-    d["links"] = [{"name": "tie_left", "a": "chassis.lower_pivot", "b": "upright_left.bottom"},
-                  {"name": "tie_right", "a": "chassis.lower_pivot", "b": "upright_right.bottom"}]
-    return d
 
 
 @pytest.mark.parametrize("name", ["twin_beam", "twin_beam_sprung", "wishbone_rocker"])
@@ -103,7 +93,7 @@ def test_spring_force_is_derivative_of_load_potential(builder, lean):
     L0 = _spring_lengths(model, x)
     b = Batch(model, model.default_geometry, np.zeros(1, dtype=int))
     # the solved pose's reduced coordinates: solve at the held lengths (start from the design)
-    from kinematics.sweep import sweep
+    from tiltopt.kinematics.sweep import sweep
 
     sw = sweep(model, lean_deg=[lean], travel_mm=[0.0])
     q0 = sw.q[0, 0, 0][None]
@@ -150,7 +140,7 @@ def test_over_constrained_parallelogram_flagged_and_min_norm():
     assert f.redundant == 1 and f.free == 0 and f.indeterminate
     # rebuild J for the parked state and compare with numpy's minimum-norm least squares
     i = [s.name for s in states].index("parked")
-    from kinematics.forces import state_loads
+    from tiltopt.kinematics.forces import state_loads
 
     sl = state_loads(states, _spec().vehicle, 1)
     J = fm.assemble(f.positions, f.contact, sl.side_ratio)

@@ -17,10 +17,10 @@ import math
 import numpy as np
 import pytest
 
-from conftest import mech_of
-from kinematics.model import Model
-from kinematics.reference import reference_sweep
-from kinematics.sweep import sweep
+from tests.helpers import mech_of
+from tiltopt.kinematics.model import Model
+from tests.reference_solver import reference_sweep
+from tiltopt.kinematics.sweep import sweep
 
 # Norton, Design of Machinery, Example 4-1 (link lengths from memory): crank a, coupler b,
 # rocker c, ground d.

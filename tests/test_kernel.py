@@ -1,6 +1,6 @@
 """The compiled Newton kernel against the numpy path of the same solver.
 
-Independent check: kinematics.kernel re-implements positions, residual,
+Independent check: tiltopt.kinematics.kernel re-implements positions, residual,
 Jacobian and step per item in compiled scalar code; the numpy path
 (SolveSettings(engine="numpy")) assembles them array-at-a-time through the
 constant maps of Model.functional_map. Both must give the same states,
@@ -13,12 +13,12 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from conftest import CONFIGS
-from kinematics.mechanism import load_mechanism
-from kinematics.model import Model
-from kinematics.solver import (CONVERGED, NONFINITE, Batch, SolveSettings, hold_free_directions, residual,
+from tests.helpers import CONFIGS
+from tiltopt.kinematics.mechanism import load_mechanism
+from tiltopt.kinematics.model import Model
+from tiltopt.kinematics.solver import (CONVERGED, NONFINITE, Batch, SolveSettings, hold_free_directions, residual,
                                solve_states)
-from kinematics.sweep import SweepSettings, sweep
+from tiltopt.kinematics.sweep import SweepSettings, sweep
 
 NUMPY = SolveSettings(engine="numpy")
 COMPILED = SolveSettings(engine="compiled")
@@ -153,7 +153,7 @@ def test_jacobian_matches_finite_differences(case):
 
 
 def test_positions_agree(case):
-    from kinematics import kernel
+    from tiltopt.kinematics import kernel
 
     name, model, geom = case
     C = geom.n_candidates

@@ -1,6 +1,6 @@
 """The batched solver against an independent scalar solve of the same states.
 
-Outside reference: kinematics.reference, written from DOMAIN.md alone with a
+Outside reference: tests.reference_solver, written from DOMAIN.md alone with a
 different formulation (absolute body coordinates, one state at a time with
 scipy.optimize.least_squares, Levenberg-Marquardt), sharing only the file
 reader with the batched code.
@@ -12,11 +12,11 @@ import math
 import numpy as np
 import pytest
 
-from conftest import CONFIGS, mech_of, sprung_twin_beam, twin_beam, wishbone_rocker
-from kinematics.mechanism import load_mechanism
-from kinematics.model import Model
-from kinematics.reference import free_modes, prepare, reference_solve_state, reference_sweep, residuals
-from kinematics.sweep import SweepSettings, sweep
+from tests.helpers import CONFIGS, mech_of, sprung_twin_beam, twin_beam, wishbone_rocker
+from tiltopt.kinematics.mechanism import load_mechanism
+from tiltopt.kinematics.model import Model
+from tests.reference_solver import free_modes, prepare, reference_solve_state, reference_sweep, residuals
+from tiltopt.kinematics.sweep import SweepSettings, sweep
 
 LENGTH_KEYS = ["track_mm", "track_change_mm", "scrub_mm", "heave_mm", "lean_point_offset_mm"]
 ANGLE_KEYS = ["camber_error_left_deg", "camber_error_right_deg"]
@@ -49,9 +49,9 @@ def compare(mech, leans, travels, atol=1e-6, tolerate_fold_jumps=False):
             assert all(b[k] is None for k in LENGTH_KEYS + ANGLE_KEYS)
             continue
         n_ok += 1
-        for k in LENGTH_KEYS:                       # kinematics.reference, 1e-6 mm
+        for k in LENGTH_KEYS:                       # tests.reference_solver, 1e-6 mm
             assert b[k] == pytest.approx(a[k], abs=atol), (k, a["lean_deg"], a["travel_mm"])
-        for k in ANGLE_KEYS:                        # kinematics.reference, 1e-6 deg
+        for k in ANGLE_KEYS:                        # tests.reference_solver, 1e-6 deg
             assert b[k] == pytest.approx(a[k], abs=atol), (k, a["lean_deg"], a["travel_mm"])
         for side in ("contact_left_mm", "contact_right_mm"):
             assert b[side] == pytest.approx(a[side], abs=atol)
@@ -132,7 +132,7 @@ def test_reference_reports_unreachable_travel():
 # ------------------------------------------------------------ more topologies
 def with_static_camber(d: dict, camber_deg: float) -> dict:
     """Left wheel top out by camber_deg (negative camber in the lean sense), right mirrored."""
-    from conftest import hub_height
+    from tests.helpers import hub_height
     for w in d["wheels"]:
         c = -camber_deg if w["name"] == "left" else camber_deg
         w["static_camber_deg"] = c
@@ -208,7 +208,7 @@ def test_batch_of_candidates_matches_reference_per_candidate():
         ref = reference_sweep(mech, leans, travels)
         got = res.records(c)
         for a, b in zip(ref, got):
-            for k in LENGTH_KEYS + ANGLE_KEYS:      # kinematics.reference
+            for k in LENGTH_KEYS + ANGLE_KEYS:      # tests.reference_solver
                 assert b[k] == pytest.approx(a[k], abs=1e-6), (c, k, a["lean_deg"], a["travel_mm"])
 
 
@@ -222,7 +222,7 @@ def test_lean_order_and_repeats_do_not_change_states(leans):
     assert [r["lean_deg"] for r in got] == leans
     for b in got:
         a = by_lean[b["lean_deg"]]
-        for k in LENGTH_KEYS + ANGLE_KEYS:          # kinematics.reference
+        for k in LENGTH_KEYS + ANGLE_KEYS:          # tests.reference_solver
             assert b[k] == pytest.approx(a[k], abs=1e-6), k
 
 
@@ -271,7 +271,7 @@ def test_bump_metrics_match_reference(name):
     design, at, up, down = ref[0], ref[1:4], ref[4:7], ref[7:10]
     for b, a, p, m in zip(bump, at, up, down):
         assert b["converged"] and a["converged"]
-        # kinematics.reference: lean-0 states against the design position
+        # tests.reference_solver: lean-0 states against the design position
         assert b["track_change_mm"] == pytest.approx(a["track_mm"] - design["track_mm"], abs=1e-6)
         assert b["camber_change_left_deg"] == pytest.approx(a["camber_left_deg"] - design["camber_left_deg"],
                                                             abs=1e-6)
@@ -397,5 +397,5 @@ def test_failing_candidate_in_a_batch_does_not_touch_the_others():
     for c in (0, 2):
         ref = reference_sweep(mechs[c], leans, [0.0])
         for a, b in zip(ref, res.records(c)):
-            for k in LENGTH_KEYS + ANGLE_KEYS:      # kinematics.reference
+            for k in LENGTH_KEYS + ANGLE_KEYS:      # tests.reference_solver
                 assert b[k] == pytest.approx(a[k], abs=1e-6), (c, k)

@@ -1,4 +1,4 @@
-"""Loads input (kinematics.loads), the pin base_mm key and the ``tiltopt loads`` command."""
+"""Loads input (tiltopt.kinematics.loads), the pin base_mm key and the ``tiltopt loads`` command."""
 from __future__ import annotations
 
 import json
@@ -8,10 +8,10 @@ import tomllib
 import pytest
 from click.testing import CliRunner
 
-from conftest import CONFIGS, mech_of, twin_beam
-from kinematics.errors import InputError
-from kinematics.loads import G, load_catalogue, load_loads, load_materials, parse_loads
-from kinematics.mechanism import mechanism_to_toml, mirror, parse_mechanism
+from tests.helpers import CONFIGS, mech_of, twin_beam
+from tiltopt.base.errors import InputError
+from tiltopt.kinematics.loads import G, load_catalogue, load_loads, load_materials, parse_loads
+from tiltopt.kinematics.mechanism import mechanism_to_toml, mirror, parse_mechanism
 from tiltopt.cli import main
 
 DEMO_LOADS = CONFIGS / "loads_demo.toml"
@@ -164,8 +164,8 @@ def test_pin_base_mm_round_trip_and_validation():
 def test_base_mm_changes_bearing_force():
     # The bearing couple force of the braking model is M / base (closed form): doubling the base
     # halves it, the moment stays.
-    from kinematics.forces import analyse_forces
-    from kinematics.model import Model
+    from tiltopt.kinematics.forces import analyse_forces
+    from tiltopt.kinematics.model import Model
 
     spec = parse_loads({"vehicle": VEHICLE, "cases": [{"name": "b", "kind": "braking"}]}, "<test>")
     out = []

@@ -13,9 +13,9 @@ import tomllib
 import pytest
 from click.testing import CliRunner
 
-from conftest import CONFIGS, twin_beam
-from kinematics.errors import InputError
-from kinematics.mechanism import load_mechanism
+from tests.helpers import CONFIGS, twin_beam
+from tiltopt.base.errors import InputError
+from tiltopt.kinematics.mechanism import load_mechanism
 from tiltopt.cli import main
 
 

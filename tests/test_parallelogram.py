@@ -11,11 +11,11 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
-from conftest import mech_of, twin_beam
-from kinematics.model import Model
-from kinematics.reference import reference_sweep
-from kinematics.solver import CONVERGED
-from kinematics.sweep import sweep
+from tests.helpers import mech_of, twin_beam
+from tiltopt.kinematics.model import Model
+from tests.reference_solver import reference_sweep
+from tiltopt.kinematics.solver import CONVERGED
+from tiltopt.kinematics.sweep import sweep
 from tiltopt.cli import main
 
 LEANS = np.arange(0.0, 45.0 + 1e-9, 5.0)

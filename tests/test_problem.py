@@ -8,13 +8,13 @@ import pytest
 from pymoo.core.evaluator import Evaluator
 from pymoo.core.population import Population
 
-from kinematics.errors import InputError
-from kinematics.mechanism import Link, load_mechanism
-from problems.problem import TiltProblem
-from problems.registry import ALGORITHMS, CONSTRAINTS, OBJECTIVES, TEMPLATES, names
-from problems.spec import lean_grid, parse_problem
-from problems.templates import template_from_mechanism
-from tests.conftest import CONFIGS
+from tiltopt.base.errors import InputError
+from tiltopt.kinematics.mechanism import Link, load_mechanism
+from tiltopt.problems.problem import TiltProblem
+from tiltopt.problems.registry import ALGORITHMS, CONSTRAINTS, OBJECTIVES, TEMPLATES, names
+from tiltopt.problems.spec import lean_grid, parse_problem
+from tiltopt.problems.templates import template_from_mechanism
+from tests.helpers import CONFIGS
 
 
 def _cfg(**kw):
@@ -153,7 +153,7 @@ def _locked_problem():
 
 def test_locked_design_is_infeasible_with_reason():
     mech = _locked_problem()
-    from problems.spec import Envelope, Limits, ProblemSpec
+    from tiltopt.problems.spec import Envelope, Limits, ProblemSpec
     t = template_from_mechanism(mech, [
         {"name": "pivot_y", "points": ["upper_beam.right_end", "lower_beam.right_end"], "axis": "y",
          "lower": 250.0, "upper": 350.0}])
@@ -192,7 +192,7 @@ def test_invalid_geometry_is_infeasible_not_an_exception():
     mech = load_mechanism(CONFIGS / "twin_beam_sprung.toml")
     t = template_from_mechanism(mech, [
         {"name": "runner_y", "points": ["leg_right.runner"], "axis": "y", "lower": 280.0, "upper": 320.0}])
-    from problems.spec import Envelope, Limits, ProblemSpec
+    from tiltopt.problems.spec import Envelope, Limits, ProblemSpec
     env = Envelope(10.0, 10.0, np.array([0.0, 10.0]), np.array([0.0]))
     p = TiltProblem(ProblemSpec(t, env, ("max_scrub",), ("converged",), Limits()))
     ev = p.evaluate_designs(np.array([[300.0], [315.0]]))

@@ -10,8 +10,8 @@ from pymoo.algorithms.moo.nsga2 import NSGA2
 from pymoo.indicators.hv import HV
 from pymoo.optimize import minimize
 
-from problems.problem import TiltProblem
-from problems.spec import parse_problem
+from tiltopt.problems.problem import TiltProblem
+from tiltopt.problems.spec import parse_problem
 
 
 def _non_dominated(F: np.ndarray) -> np.ndarray:
@@ -61,8 +61,8 @@ def test_ideal_parallelogram_is_found():
 
 
 # ------------------------------------------------------------------ clearance (other branch)
-HAS_CLEARANCE = importlib.util.find_spec("kinematics.clearance") is not None
-HAS_SIZING = importlib.util.find_spec("kinematics.sizing") is not None
+HAS_CLEARANCE = importlib.util.find_spec("tiltopt.kinematics.clearance") is not None
+HAS_SIZING = importlib.util.find_spec("tiltopt.kinematics.sizing") is not None
 
 
 def _shell_file(tmp_path, radius=300.0, centre_z=450.0):
@@ -75,11 +75,11 @@ def _shell_file(tmp_path, radius=300.0, centre_z=450.0):
     return path
 
 
-@pytest.mark.skipif(not HAS_CLEARANCE, reason="kinematics.clearance is not on this branch yet (lands from "
+@pytest.mark.skipif(not HAS_CLEARANCE, reason="tiltopt.kinematics.clearance is not on this branch yet (lands from "
                     "branch 'clearance'); the clearance objectives cannot be evaluated without it")
 def test_clearance_objectives_and_pivot_constraint(tmp_path):
-    from kinematics.clearance import evaluate_clearance
-    from kinematics.sweep import sweep
+    from tiltopt.kinematics.clearance import evaluate_clearance
+    from tiltopt.kinematics.sweep import sweep
     _shell_file(tmp_path)
     spec = parse_problem({"template": {"name": "twin_beam"}, "shell": "shell.toml",
                           "objectives": ["overall_width", "min_clearance", "slot_length"],
@@ -114,10 +114,10 @@ VEHICLE = {"total_mass_kg": 205.0, "com_height_mm": 620.0, "front_share": 0.45, 
            "lean_limit_deg": 30.0}   # the invented Harbourline parcel trike of the demo loads
 
 
-@pytest.mark.skipif(not HAS_SIZING, reason="kinematics.sizing is not on this branch yet (lands from branch "
+@pytest.mark.skipif(not HAS_SIZING, reason="tiltopt.kinematics.sizing is not on this branch yet (lands from branch "
                     "'loads'); the linkage mass objective cannot be evaluated without it")
 def test_linkage_mass_objective_and_stress_constraint():
-    from kinematics.sizing import size_linkage
+    from tiltopt.kinematics.sizing import size_linkage
     spec = parse_problem({"template": {"name": "twin_beam"}, "vehicle": VEHICLE,
                           "objectives": ["linkage_mass", "max_scrub"], "envelope": {"lean_step_deg": 15.0}}, "c")
     assert spec.constraints == ("converged", "stress")
@@ -135,10 +135,10 @@ def test_linkage_mass_objective_and_stress_constraint():
     np.testing.assert_array_equal(stress_ok[ok], np.asarray(sz.feasible)[ok])
 
 
-@pytest.mark.skipif(not HAS_CLEARANCE, reason="kinematics.clearance is not on this branch yet (lands from "
+@pytest.mark.skipif(not HAS_CLEARANCE, reason="tiltopt.kinematics.clearance is not on this branch yet (lands from "
                     "branch 'clearance' with the steer envelope keys of the mechanism format)")
 def test_steer_envelope_override_survives_the_template_record():
-    from problems.templates import Template
+    from tiltopt.problems.templates import Template
     spec = parse_problem({"template": {"name": "twin_beam"}, "objectives": ["max_scrub"],
                           "envelope": {"steer": {"lean_deg": [0.0, 20.0], "max_steer_deg": [30.0, 8.0]}}}, "c")
     assert tuple(spec.template.mechanism.steer_envelope) == ((0.0, 30.0), (20.0, 8.0))

@@ -14,10 +14,10 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from conftest import hub_height, mech_of, sprung_twin_beam, twin_beam, wishbone_rocker
-from kinematics.mechanism import mechanism_to_toml, mirror, parse_mechanism
-from kinematics.model import Model
-from kinematics.sweep import sweep
+from tests.helpers import hub_height, mech_of, sprung_twin_beam, twin_beam, wishbone_rocker
+from tiltopt.kinematics.mechanism import mechanism_to_toml, mirror, parse_mechanism
+from tiltopt.kinematics.model import Model
+from tiltopt.kinematics.sweep import sweep
 
 FAST = settings(max_examples=25, deadline=None)
 
@@ -197,7 +197,7 @@ def test_round_trip_of_descriptions_with_control_characters(description):
 @given(st.one_of(twin_beams(), twin_beams(sprung=True)))
 def test_random_twin_beams_match_reference_solver(data):
     """Random (asymmetric) twin beams at ride height against the independent scalar solver."""
-    from test_kinematics_reference import compare
+    from tests.test_kinematics_reference import compare
     assert compare(mech_of(data), [-20.0, 0.0, 15.0, 30.0], [0.0], tolerate_fold_jumps=True) >= 1
 
 
@@ -205,5 +205,5 @@ def test_random_twin_beams_match_reference_solver(data):
 @given(wishbones())
 def test_random_wishbones_match_reference_solver(data):
     """Random symmetric wishbone-rocker linkages with travel against the independent scalar solver."""
-    from test_kinematics_reference import compare
+    from tests.test_kinematics_reference import compare
     assert compare(mech_of(data), [-15.0, 0.0, 10.0, 25.0], [-10.0, 0.0, 10.0], tolerate_fold_jumps=True) >= 1

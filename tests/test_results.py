@@ -10,10 +10,10 @@ import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 
-from kinematics.errors import InputError
-from optimizer.config import load_config
-from optimizer.results import CAUTION, load_run, write_parquet
-from optimizer.runner import start_run
+from tiltopt.base.errors import InputError
+from tiltopt.optimizer.config import load_config
+from tiltopt.optimizer.results import CAUTION, load_run, write_parquet
+from tiltopt.optimizer.runner import start_run
 
 TILT_CONFIG = """
 objectives = ["overall_width", "max_scrub"]
@@ -126,9 +126,9 @@ def test_atomic_write_keeps_old_file_on_failure(tmp_path):
 
 
 def test_evaluations_of_an_unfinished_run(tmp_path):
-    from optimizer.config import RunSettings
-    from optimizer.reference_problems import ZDTProblem
-    from optimizer.runner import run_problem
+    from tiltopt.optimizer.config import RunSettings
+    from tiltopt.optimizer.reference_problems import ZDTProblem
+    from tiltopt.optimizer.runner import run_problem
 
     s = RunSettings(name="u", seed=1, algorithm="nsga2", population=10, generations=9, output=tmp_path,
                     checkpoint_every=2)

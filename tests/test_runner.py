@@ -18,10 +18,10 @@ import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 
-from optimizer.config import RunSettings, load_config
-from optimizer.progress import Progress
-from optimizer.reference_problems import ZDTProblem
-from optimizer.runner import resume_run, run_problem, start_run
+from tiltopt.optimizer.config import RunSettings, load_config
+from tiltopt.optimizer.progress import Progress
+from tiltopt.optimizer.reference_problems import ZDTProblem
+from tiltopt.optimizer.runner import resume_run, run_problem, start_run
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -152,7 +152,7 @@ def test_killed_run_leaves_readable_parquet_and_resumes(tmp_path):
 
 
 def test_existing_run_folder_is_an_input_error(tmp_path):
-    from kinematics.errors import InputError
+    from tiltopt.base.errors import InputError
 
     cfg = load_config(_config(tmp_path, gens=2))
     start_run(cfg, progress=False)

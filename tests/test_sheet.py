@@ -9,11 +9,11 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from kinematics.mechanism import load_mechanism
-from kinematics.model import Model
-from kinematics.sweep import sweep
+from tiltopt.kinematics.mechanism import load_mechanism
+from tiltopt.kinematics.model import Model
+from tiltopt.kinematics.sweep import sweep
 
-from test_explorer import LEAN_LIMIT, TRAVEL, fixture_run
+from tests.helpers import LEAN_LIMIT, TRAVEL, fixture_run
 
 
 @pytest.fixture(scope="module")
@@ -172,8 +172,8 @@ def test_front_view_gaps_against_shapely():
 
 def test_sizing_section_when_the_part_is_present(tmp_path):
     """With the sizing part installed and a loads file, the sheet shows its member sizes and tilt-lock torque."""
-    loads_mod = importlib.import_module("kinematics.loads")
-    sizing_mod = importlib.import_module("kinematics.sizing")
+    loads_mod = importlib.import_module("tiltopt.kinematics.loads")
+    sizing_mod = importlib.import_module("tiltopt.kinematics.sizing")
     from tiltopt.reports.sheet import SheetInputs, write_sheet
 
     root = Path(__file__).resolve().parents[1]
@@ -194,7 +194,7 @@ def test_sizing_section_when_the_part_is_present(tmp_path):
 
 def test_clearance_section_when_the_part_is_present(tmp_path):
     """With the clearance part installed and a shell, the sheet shows the 3-D clearance figures."""
-    shell_mod = importlib.import_module("kinematics.shell")
+    shell_mod = importlib.import_module("tiltopt.kinematics.shell")
     from tiltopt.reports.sheet import SheetInputs, write_sheet
 
     root = Path(__file__).resolve().parents[1]
@@ -211,9 +211,9 @@ def test_clearance_section_when_the_part_is_present(tmp_path):
 # ----------------------------------------------------------------- from a real tiny run
 @pytest.fixture(scope="module")
 def real_sheet(tmp_path_factory):
-    from test_explorer import make_tiny_run
+    from tests.helpers import make_tiny_run
 
-    from optimizer.results import load_run
+    from tiltopt.optimizer.results import load_run
     from tiltopt.reports.runs import sheet_from_run
 
     run_dir = make_tiny_run(tmp_path_factory.mktemp("tiny"))

@@ -13,13 +13,13 @@ import numpy as np
 import pytest
 from scipy.optimize import minimize_scalar
 
-from kinematics.errors import InputError
-from kinematics.mechanism import load_mechanism, mechanism_to_toml, mirror, parse_mechanism
-from kinematics.shell import (load_shell, outline_position, parse_polygon_csv, polygon_distance, polygon_sections,
+from tiltopt.base.errors import InputError
+from tiltopt.kinematics.mechanism import load_mechanism, mechanism_to_toml, mirror, parse_mechanism
+from tiltopt.kinematics.shell import (load_shell, outline_position, parse_polygon_csv, polygon_distance, polygon_sections,
                               shell_signed_distance, superellipse_distance, superellipse_distance_lower_bound,
                               superellipse_params, superellipse_shell, support, to_chassis_frame)
 
-from conftest import CONFIGS, twin_beam
+from tests.helpers import CONFIGS, twin_beam
 
 
 # ----------------------------------------------------------- superellipse vs scipy
@@ -181,7 +181,7 @@ def test_outline_position_on_a_circle_is_radius_times_angle():
 def test_demo_shell_is_400_mm_wide_at_the_linkage_station():
     shell = load_shell(CONFIGS / "shell_demo.toml")
     mech = load_mechanism(CONFIGS / "wishbone_rocker.toml")
-    from kinematics.shell import superellipse_params
+    from tiltopt.kinematics.shell import superellipse_params
     a, b, zc, n = superellipse_params(shell, np.array(mech.station_x_mm))
     assert 2 * a == pytest.approx(400.0)
     # the inboard chassis pivots of the demo mechanism lie inside the shell

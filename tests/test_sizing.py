@@ -1,4 +1,4 @@
-"""Member sizing (kinematics.sizing) against textbook values and hand checks."""
+"""Member sizing (tiltopt.kinematics.sizing) against textbook values and hand checks."""
 from __future__ import annotations
 
 import math
@@ -6,12 +6,12 @@ import math
 import numpy as np
 import pytest
 
-from conftest import CONFIGS, mech_of, twin_beam
-from kinematics.loads import load_catalogue, load_loads, parse_loads
-from kinematics.mechanism import load_mechanism
-from kinematics.model import Model
-from kinematics.sizing import critical_stress, euler_load, size_linkage, tube_section
-from test_forces import tie_link_beam
+from tests.helpers import CONFIGS, mech_of, twin_beam
+from tiltopt.kinematics.loads import load_catalogue, load_loads, parse_loads
+from tiltopt.kinematics.mechanism import load_mechanism
+from tiltopt.kinematics.model import Model
+from tiltopt.kinematics.sizing import critical_stress, euler_load, size_linkage, tube_section
+from tests.helpers import tie_link_beam
 
 DEMO_LOADS = CONFIGS / "loads_demo.toml"
 VEHICLE = dict(total_mass_kg=120.0, com_height_mm=600.0, front_share=1.0, wheelbase_mm=1400.0, lean_limit_deg=20.0)
@@ -148,7 +148,7 @@ def test_unreached_state_makes_candidate_infeasible():
 def test_batched_matches_one_by_one_and_reuses_sweep():
     # Batch consistency: sizing three candidates at once equals sizing each alone; a given sweep
     # holding the states gives the same answer as the internal sweep.
-    from kinematics.sweep import sweep
+    from tiltopt.kinematics.sweep import sweep
 
     mech = load_mechanism(CONFIGS / "wishbone_rocker.toml")
     model = Model(mech)

@@ -10,9 +10,9 @@ import numpy as np
 import pyarrow.parquet as pq
 from pymoo.indicators.hv import HV
 
-from optimizer.config import load_config
-from optimizer.runner import start_run
-from problems.problem import TiltProblem
+from tiltopt.optimizer.config import load_config
+from tiltopt.optimizer.runner import start_run
+from tiltopt.problems.problem import TiltProblem
 
 CONFIG = """
 objectives = ["overall_width", "max_heave"]

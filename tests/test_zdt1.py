@@ -10,10 +10,10 @@ import pyarrow.parquet as pq
 from pymoo.indicators.hv import HV
 from pymoo.problems.multi.zdt import ZDT1 as PymooZDT1
 
-from optimizer.config import load_config
-from optimizer.pareto import hypervolume, nondominated_mask
-from optimizer.reference_problems import ZDTProblem
-from optimizer.runner import start_run
+from tiltopt.optimizer.config import load_config
+from tiltopt.optimizer.pareto import hypervolume, nondominated_mask
+from tiltopt.optimizer.reference_problems import ZDTProblem
+from tiltopt.optimizer.runner import start_run
 
 ZDT1_CONFIG = """
 [run]

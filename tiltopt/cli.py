@@ -10,7 +10,7 @@ import sys
 
 import click
 
-from kinematics.errors import InputError
+from tiltopt.base.errors import InputError
 
 from . import __version__
 

@@ -5,15 +5,15 @@ import math
 
 import click
 
-from kinematics.errors import InputError
-from kinematics.mechanism import load_mechanism
-from kinematics.model import Model
-from kinematics.units import parse_values
+from tiltopt.base.errors import InputError
+from tiltopt.kinematics.mechanism import load_mechanism
+from tiltopt.kinematics.model import Model
+from tiltopt.base.units import parse_values
 
 from ..cli import main
 from ..output import flatten, table, to_csv, to_json
 
-from kinematics.safety import SAFETY_CAUTION as CAUTION  # noqa: E402
+from tiltopt.base.safety import SAFETY_CAUTION as CAUTION  # noqa: E402
 
 COLUMNS = [
     ("lean_deg", "lean_deg"), ("travel_mm", "travel_mm"), ("steer_deg", "steer_deg"), ("converged", "ok"),
@@ -27,9 +27,9 @@ COLUMNS = [
 def clearance_run(mech_path: str, shell_path: str, lean: str, travel: str, crown_samples: int | None = None,
                   steer_samples: int | None = None):
     """Load, sweep and check one mechanism; returns (mech, shell, clearance result)."""
-    from kinematics.clearance import ClearanceSettings, evaluate_clearance
-    from kinematics.shell import load_shell
-    from kinematics.sweep import sweep
+    from tiltopt.kinematics.clearance import ClearanceSettings, evaluate_clearance
+    from tiltopt.kinematics.shell import load_shell
+    from tiltopt.kinematics.sweep import sweep
 
     mech = load_mechanism(mech_path)
     shell = load_shell(shell_path)

@@ -4,11 +4,11 @@ from __future__ import annotations
 
 import click
 
-from kinematics.errors import read_toml
-from kinematics.safety import SAFETY_CAUTION
-from kinematics.mechanism import load_mechanism
-from kinematics.model import Model
-from kinematics.units import parse_values
+from tiltopt.base.errors import read_toml
+from tiltopt.base.safety import SAFETY_CAUTION
+from tiltopt.kinematics.mechanism import load_mechanism
+from tiltopt.kinematics.model import Model
+from tiltopt.base.units import parse_values
 
 from ..cli import main
 from ..output import table, to_csv, to_json
@@ -22,7 +22,7 @@ SWEEP_COLUMNS = [
 
 
 def sweep_rows(mech_path: str, lean: str, travel: str):
-    from kinematics.sweep import sweep
+    from tiltopt.kinematics.sweep import sweep
 
     mech = load_mechanism(mech_path)
     leans = parse_values(lean, "--lean", "deg")
@@ -90,12 +90,12 @@ def _file_kind(path: str) -> str:
 def check_cmd(file):
     """Check a mechanism file (mobility, lean, travel) or a run config (problem size, run time)."""
     if _file_kind(file) == "config":
-        from optimizer.config import check_config_lines
+        from tiltopt.optimizer.config import check_config_lines
 
         for line in check_config_lines(file):
             click.echo(line)
         return
-    from kinematics.mobility import analyse, describe
+    from tiltopt.kinematics.mobility import analyse, describe
 
     mech = load_mechanism(file)
     model = Model(mech)

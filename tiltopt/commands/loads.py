@@ -6,9 +6,9 @@ import math
 import click
 import numpy as np
 
-from kinematics.loads import SAFETY_CAUTION, check_loads_for, load_loads
-from kinematics.mechanism import load_mechanism
-from kinematics.model import Model
+from tiltopt.kinematics.loads import SAFETY_CAUTION, check_loads_for, load_loads
+from tiltopt.kinematics.mechanism import load_mechanism
+from tiltopt.kinematics.model import Model
 
 from ..cli import main
 from ..output import table, to_json
@@ -21,8 +21,8 @@ def _f(v):
 
 def loads_report(mech_path: str, loads_path: str) -> dict:
     """Everything ``tiltopt loads`` prints, as a JSON-ready dict (nulls where a state was not reached)."""
-    from kinematics.sizing import size_linkage
-    from kinematics.solver import STATUS_TEXT
+    from tiltopt.kinematics.sizing import size_linkage
+    from tiltopt.kinematics.solver import STATUS_TEXT
 
     mech = load_mechanism(mech_path)
     spec = load_loads(loads_path)

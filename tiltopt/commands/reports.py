@@ -9,7 +9,7 @@ from pathlib import Path
 
 import click
 
-from kinematics.errors import InputError
+from tiltopt.base.errors import InputError
 
 from ..cli import main
 
@@ -95,16 +95,16 @@ def sheet_cmd(source, candidate, output, jig_datum, sag_mm, corner_load_n, loads
     src = Path(source)
     extra = {}
     if loads_file:
-        from kinematics.loads import load_loads
+        from tiltopt.kinematics.loads import load_loads
 
         extra["loads"] = load_loads(loads_file)
     if shell_file:
-        from kinematics.shell import load_shell
+        from tiltopt.kinematics.shell import load_shell
 
         extra["shell"] = load_shell(shell_file)
     if src.is_file():
-        from kinematics.mechanism import load_mechanism
-        from kinematics.units import parse_values
+        from tiltopt.kinematics.mechanism import load_mechanism
+        from tiltopt.base.units import parse_values
 
         from ..reports.sheet import SheetInputs, write_sheet
 

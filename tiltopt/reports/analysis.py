@@ -11,8 +11,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from kinematics.model import Geometry, Model
-from kinematics.sweep import SweepResult, sweep
+from tiltopt.kinematics.model import Geometry, Model
+from tiltopt.kinematics.sweep import SweepResult, sweep
 
 from .drawing import drawing_spec, front_view_gaps, shell_outline
 
@@ -99,7 +99,7 @@ def analyse(model: Model, geom: Geometry, lean_deg, travel_mm, *, shell=None, lo
         notes.append(f"3-D clearances are not precomputed for this many designs ({geom.n_candidates}); the "
                      f"clearance curve is the front-view gap. The build sheet gives the 3-D figures.")
     elif shell is not None:
-        from kinematics.clearance import evaluate_clearance
+        from tiltopt.kinematics.clearance import evaluate_clearance
 
         clearance_result = evaluate_clearance(model, geom, res, shell)
         clearance = {k: np.asarray(v, float) for k, v in clearance_result.summary().items()
@@ -109,7 +109,7 @@ def analyse(model: Model, geom: Geometry, lean_deg, travel_mm, *, shell=None, lo
         if loads is None:
             notes.append("No loads given: member sizes, masses, utilisation and tilt-lock torque are absent.")
         else:
-            from kinematics.sizing import size_linkage
+            from tiltopt.kinematics.sizing import size_linkage
 
             sizing = size_linkage(model, geom, loads)
     return Analysis(model=model, geom=geom, sweep=res, spec=spec, pose=pose, gaps=gaps, shell_poly=shell_poly,

@@ -9,7 +9,7 @@ import re
 import tempfile
 from pathlib import Path
 
-from kinematics.safety import SAFETY_CAUTION as SAFETY  # noqa: E402
+from tiltopt.base.safety import SAFETY_CAUTION as SAFETY  # noqa: E402
 
 _UNIT_SUFFIX = [("_mm", "mm"), ("_deg", "deg"), ("_kg", "kg"), ("_nm", "N·m"), ("_n", "N"), ("_mpa", "MPa"),
                 ("_pct", "%"), ("_n_per_mm", "N/mm")]

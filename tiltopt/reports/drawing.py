@@ -182,12 +182,12 @@ def chassis_transform(yz, pose) -> np.ndarray:
 def shell_outline(shell, x_mm: float, n_rays: int = 96, reach_mm: float = 4000.0):
     """Section outline of a body shell at station ``x_mm``, chassis frame, design position.
 
-    Works with any shell through ``kinematics.shell.shell_signed_distance``
+    Works with any shell through ``tiltopt.kinematics.shell.shell_signed_distance``
     (positive outside): rays from an inside point, bisected to the surface.
     Returns an ndarray of shape (n_rays, 2) in mm, or None when the section is
     empty at that station.
     """
-    from kinematics.shell import shell_signed_distance
+    from tiltopt.kinematics.shell import shell_signed_distance
 
     probe = np.stack([np.zeros(81), np.linspace(0.0, 3000.0, 81)], -1)
     d = np.asarray(shell_signed_distance(shell, probe, x_mm), float).reshape(-1)
@@ -327,7 +327,7 @@ def front_view_gaps(spec: dict, points, camber, pose=None, shell_poly=None) -> d
     """Front-view (2-D, in the linkage plane) gaps of every state, batched.
 
     These are drawing measurements at the linkage station, not the 3-D
-    clearance of :mod:`kinematics.clearance`; the pages label them so.
+    clearance of :mod:`tiltopt.kinematics.clearance`; the pages label them so.
 
     Parameters
     ----------

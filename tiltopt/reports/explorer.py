@@ -9,7 +9,7 @@ its curves and its tables without a server.
 Python API
 ----------
 - :class:`ExplorerRun` - what the page needs of one run.
-- :func:`run_from_results` - an :class:`ExplorerRun` from ``optimizer.results.load_run``.
+- :func:`run_from_results` - an :class:`ExplorerRun` from ``tiltopt.optimizer.results.load_run``.
 - :func:`build_explorer` - the page as a string; :func:`write_explorer` writes it atomically.
 """
 from __future__ import annotations
@@ -27,7 +27,7 @@ from typing import Callable, Sequence
 import numpy as np
 import pandas as pd
 
-from kinematics.model import Geometry, Model
+from tiltopt.kinematics.model import Geometry, Model
 
 from .analysis import analyse, lean_grid, state_clearance
 from .common import SAFETY, atomic_write_text, column_label, column_unit, versions
@@ -76,7 +76,7 @@ class ExplorerRun:
 
 
 def run_from_results(run, run_dir: str | Path | None = None) -> ExplorerRun:
-    """Adapter from ``optimizer.results.Run`` (see CONTRACTS.md)."""
+    """Adapter from ``tiltopt.optimizer.results.Run`` (see CONTRACTS.md)."""
     from .common import run_envelope, run_shell, run_units
 
     tpl = run.template

@@ -1,4 +1,4 @@
-"""Reports from results runs (``optimizer.results.load_run``, see CONTRACTS.md)."""
+"""Reports from results runs (``tiltopt.optimizer.results.load_run``, see CONTRACTS.md)."""
 from __future__ import annotations
 
 import shlex
@@ -8,14 +8,14 @@ from typing import Sequence
 import numpy as np
 import pandas as pd
 
-from kinematics.errors import InputError
+from tiltopt.base.errors import InputError
 
 from .common import run_envelope, run_loads, run_shell, run_units, versions
 
 
 def load(run_dir):
-    """``optimizer.results.load_run``."""
-    from optimizer.results import load_run
+    """``tiltopt.optimizer.results.load_run``."""
+    from tiltopt.optimizer.results import load_run
 
     return load_run(run_dir)
 

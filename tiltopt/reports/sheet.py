@@ -20,8 +20,8 @@ from typing import Sequence
 
 import numpy as np
 
-from kinematics.mechanism import Mechanism, mechanism_to_toml, split_ref
-from kinematics.model import Model
+from tiltopt.kinematics.mechanism import Mechanism, mechanism_to_toml, split_ref
+from tiltopt.kinematics.model import Model
 
 from .analysis import Analysis, analyse, envelope_mask, lean_grid
 from .common import SAFETY, atomic_write_text, column_label, column_unit, versions

@@ -1,6 +1,6 @@
 """An independent scalar reference solver for the kinematics engine.
 
-This module exists to check :mod:`kinematics.solver` and :mod:`kinematics.sweep`
+This module exists to check :mod:`tiltopt.kinematics.solver` and :mod:`tiltopt.kinematics.sweep`
 from outside: it shares only the mechanism file reader with them and is
 written from DOMAIN.md alone, with a different formulation:
 
@@ -39,7 +39,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.optimize import least_squares
 
-from .mechanism import Mechanism, split_ref
+from tiltopt.kinematics.mechanism import Mechanism, split_ref
 
 #: largest equation residual (mm) of a state reported as converged
 REFERENCE_TOL_MM = 1e-8

@@ -1,0 +1,1 @@
+"""The tiltopt test suite (a package, so its modules import shared helpers as ``tests.helpers``)."""
