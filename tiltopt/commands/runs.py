@@ -5,13 +5,13 @@ from pathlib import Path
 
 import click
 
-from kinematics.errors import InputError
+from tiltopt.base.errors import InputError
 
 from ..cli import main
 
 
 def _caution():
-    from optimizer.results import CAUTION
+    from tiltopt.optimizer.results import CAUTION
 
     click.echo(CAUTION)
 
@@ -33,8 +33,8 @@ def _report_outcome(o):
 @click.option("--quiet", is_flag=True, help="No progress line.")
 def run_cmd(config, resume, output, run_id, overwrite, quiet):
     """Optimise a run config (NSGA-II/III); Ctrl-C stops cleanly with a checkpoint."""
-    from optimizer.config import load_config
-    from optimizer.runner import resume_run, start_run
+    from tiltopt.optimizer.config import load_config
+    from tiltopt.optimizer.runner import resume_run, start_run
 
     if resume:
         if config or output or run_id or overwrite:
@@ -55,7 +55,7 @@ def run_cmd(config, resume, output, run_id, overwrite, quiet):
 @click.option("--scheduler", default=None, help="Address of a Dask distributed scheduler (tcp://host:8786).")
 def batch_cmd(batch_file, workers, scheduler):
     """Run many configs / seeds / grid points; finished runs are kept on restart."""
-    from optimizer.batch import SUMMARY, load_batch, run_dask, run_local
+    from tiltopt.optimizer.batch import SUMMARY, load_batch, run_dask, run_local
 
     b = load_batch(batch_file)
     click.echo(f"batch {b.name}: {len(b.items)} runs in {b.batch_dir}")
@@ -76,7 +76,7 @@ def batch_cmd(batch_file, workers, scheduler):
               help="Folder for the merged front.parquet and run.json.")
 def merge_cmd(run_dirs, out):
     """Non-dominated union of several runs' fronts (same objectives)."""
-    from optimizer.merge import merge_fronts
+    from tiltopt.optimizer.merge import merge_fronts
 
     d, df = merge_fronts(run_dirs, out)
     click.echo(f"merged {len(run_dirs)} fronts: {len(df)} non-dominated designs in {d / 'front.parquet'}")
@@ -85,11 +85,11 @@ def merge_cmd(run_dirs, out):
 
 @main.command("demo")
 @click.option("--config", type=click.Path(dir_okay=False), default=None, help="Another config instead of the demo.")
-@click.option("--output", type=click.Path(file_okay=False), default=None, help="Folder for the run folder.")
+@click.option("--output", type=click.Path(file_okay=False), default=None, help="Folder for the run folder (default: ./results).")
 @click.option("--quiet", is_flag=True, help="No progress line.")
 def demo_cmd(config, output, quiet):
     """Short optimisation of the Harbourline parcel trike demo config; prints where the results are."""
-    from optimizer.demo import run_demo
+    from tiltopt.optimizer.demo import run_demo
 
     o = run_demo(config, output, progress=not quiet)
     _report_outcome(o)
@@ -98,3 +98,33 @@ def demo_cmd(config, output, quiet):
     for name, path in demo_outputs(o.run_dir).items():
         click.echo(f"{name}: {Path(path)}")
     _caution()
+
+
+@main.command("examples")
+@click.argument("folder", type=click.Path(file_okay=False), default="tiltopt-examples")
+def examples_cmd(folder):
+    """Copy the built-in files (mechanisms, templates, shell, loads, demo config) into FOLDER.
+
+    The copies are a starting point for your own files; every command works on them
+    (for example ``tiltopt sweep FOLDER/wishbone_rocker.toml``). Existing files are never replaced.
+    """
+    from importlib import resources
+
+    from tiltopt.base.resources import CONFIGS_PACKAGE
+
+    out = Path(folder)
+    out.mkdir(parents=True, exist_ok=True)
+    written, kept = [], []
+    for entry in sorted(resources.files(CONFIGS_PACKAGE).iterdir(), key=lambda e: e.name):
+        if not entry.is_file() or not entry.name.endswith((".toml", ".csv")):
+            continue
+        target = out / entry.name
+        if target.exists():
+            kept.append(entry.name)
+            continue
+        target.write_bytes(entry.read_bytes())
+        written.append(entry.name)
+    click.echo(f"{out}: wrote {len(written)} files" + (f", kept {len(kept)} existing ({', '.join(kept)})"
+                                                       if kept else ""))
+    for name in written:
+        click.echo(f"  {name}")
