@@ -16,7 +16,7 @@ mechanism file, this computes:
 * ground clearance of the shell and of every tube; overall width
   (outermost tyre or shell extent) and track.
 
-Geometry and frames (DOMAIN.md): x forward, y right, z up; every link,
+Geometry and frames (docs/domain.md): x forward, y right, z up; every link,
 segment and upright point lies in the linkage plane ``x = station_x_mm``.
 
 Wheel and steer. The tyre is the crown circle (radius R - r, in the wheel

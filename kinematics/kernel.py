@@ -656,7 +656,7 @@ def _branch_test(q1, t1, q0, t0, p0, p1, col_scale, items, ratio, turned):
 
 
 def contacts(model: Model, x: np.ndarray, ang: np.ndarray, b, items: np.ndarray):
-    """Camber, tyre contact points and spring lengths of solved states (DOMAIN.md).
+    """Camber, tyre contact points and spring lengths of solved states (docs/domain.md).
 
     Parameters
     ----------

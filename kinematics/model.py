@@ -6,7 +6,7 @@ chassis, so each tree body has one coordinate (its angle behind a pin, its
 slide behind a slider). Pins and sliders that close loops, links, springs,
 the wheel-ground contacts and the lateral reference become equations.
 
-Pose conventions (see DOMAIN.md): ``R(a) = [[cos a, sin a], [-sin a, cos a]]``
+Pose conventions (see docs/domain.md): ``R(a) = [[cos a, sin a], [-sin a, cos a]]``
 rotates a front-view vector ``(y, z)`` by ``a`` in the lean sense (a point
 above the origin moves toward +y). A body angle is its rotation from the
 design position. A design point ``p`` of body ``b`` is at
@@ -48,7 +48,7 @@ class Geometry:
     crown_radius : ndarray of shape (n_candidates, 2)
         Tyre crown radius r, mm.
     static_camber : ndarray of shape (n_candidates, 2)
-        Static camber, radians, DOMAIN.md sign (positive = top toward +y).
+        Static camber, radians, docs/domain.md sign (positive = top toward +y).
     """
 
     points: np.ndarray

@@ -312,7 +312,7 @@ def to_chassis_frame(yz: np.ndarray, translation: np.ndarray, lean: np.ndarray) 
     translation : ndarray of shape (..., 2)
         World position of the chassis datum, broadcastable to ``yz``.
     lean : ndarray of shape (...)
-        Chassis lean, radians (DOMAIN.md sign).
+        Chassis lean, radians (docs/domain.md sign).
     """
     c, s = np.cos(lean), np.sin(lean)
     dy = yz[..., 0] - translation[..., 0]

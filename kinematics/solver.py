@@ -1,6 +1,6 @@
 """Batched Newton (Gauss-Newton) solve of the assembly equations.
 
-Equations, all in mm (see DOMAIN.md and :mod:`tiltopt.kinematics.model`):
+Equations, all in mm (see docs/domain.md and :mod:`tiltopt.kinematics.model`):
 
 - loop pins: ``x(a) - x(b) = 0`` (2 rows each);
 - loop sliders: offset of the runner point from the guide line, and the

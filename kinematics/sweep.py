@@ -1,4 +1,4 @@
-"""The sweep procedure of DOMAIN.md and the per-state metrics.
+"""The sweep procedure of docs/domain.md and the per-state metrics.
 
 1. Each travel ``s`` is solved at lean 0 (both wheel centres displaced by
    ``s`` relative to the chassis), by continuation from the design position.

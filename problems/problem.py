@@ -13,7 +13,7 @@ converge at any envelope state, gets ``G[converged] > 0`` and a reason, and
 penalty objectives (finite, fixed per problem, worse than any real design:
 multiples of the template's extent ``size_mm``); F and G never hold inf or NaN.
 
-Definitions (see also DOMAIN.md):
+Definitions (see also docs/domain.md):
 
 - ``overall_width_mm``: the largest, over every envelope state, lateral extent
   of the two tyres' front-view outlines. A tyre (torus R, r) seen from the

@@ -67,7 +67,7 @@ OBJECTIVES: dict[str, ObjectiveSpec] = {o.name: o for o in [
     ObjectiveSpec("overall_width", "mm",
                   "largest lateral extent of the vehicle over the envelope: the tyres' front-view outlines "
                   "(and the leaning body shell, when a shell is given)", SWEEP, "overall_width_mm"),
-    ObjectiveSpec("max_scrub", "mm", "largest |tyre scrub| over the envelope (DOMAIN.md scrub)", SWEEP,
+    ObjectiveSpec("max_scrub", "mm", "largest |tyre scrub| over the envelope (docs/domain.md scrub)", SWEEP,
                   "max_scrub_mm"),
     ObjectiveSpec("max_heave", "mm", "largest |heave| of the chassis datum over the envelope", SWEEP,
                   "max_heave_mm"),

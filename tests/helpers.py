@@ -66,7 +66,7 @@ def _wheel(name, upright, R, r, camber_deg=0.0):
 
 
 def hub_height(R: float, r: float, camber_deg: float = 0.0) -> float:
-    """DOMAIN.md: a toroidal tyre touches the ground with its centre at (R - r) cos(gamma) + r."""
+    """docs/domain.md: a toroidal tyre touches the ground with its centre at (R - r) cos(gamma) + r."""
     return (R - r) * math.cos(math.radians(camber_deg)) + r
 
 

@@ -2,7 +2,7 @@
 
 This module exists to check :mod:`tiltopt.kinematics.solver` and :mod:`tiltopt.kinematics.sweep`
 from outside: it shares only the mechanism file reader with them and is
-written from DOMAIN.md alone, with a different formulation:
+written from docs/domain.md alone, with a different formulation:
 
 * absolute body coordinates: per body the global position of a reference
   point (the chassis: its datum, the design-position origin; any other body:
@@ -18,8 +18,8 @@ written from DOMAIN.md alone, with a different formulation:
   changed by the travel ``s`` (2);
 * one state at a time with :func:`scipy.optimize.least_squares`
   (Levenberg-Marquardt with an analytic Jacobian, tight tolerances),
-  warm-started along the sweep procedure of DOMAIN.md;
-* two choices DOMAIN.md leaves open, made here on their own grounds: at
+  warm-started along the sweep procedure of docs/domain.md;
+* two choices docs/domain.md leaves open, made here on their own grounds: at
   lean 0 a lean mode that only the springs hold is kept at its design value
   to first order (:func:`free_modes`), and a lean path that passes a fold
   (the linkage toggles) fails there (:func:`path_tangent`).
@@ -83,7 +83,7 @@ def prepare(mech: Mechanism) -> ReferenceMechanism:
     origin = []
     for b in names:
         if b == mech.chassis:
-            origin.append((0.0, 0.0))  # DOMAIN.md: the chassis datum O is the design origin
+            origin.append((0.0, 0.0))  # docs/domain.md: the chassis datum O is the design origin
         else:
             pts = np.array(list(mech.bodies[b].values()), dtype=float)
             origin.append(tuple(pts.mean(axis=0)))
@@ -164,7 +164,7 @@ def _wheel(ev: _Evaluator, w):
     th, gt = ev.theta(w.upright)
     gamma = math.radians(w.static_camber_deg) + th
     Rr = w.outer_radius_mm - w.crown_radius_mm
-    cy = hub[0] - Rr * math.sin(gamma)            # DOMAIN.md: contact (R - r) sin(gamma) toward -y
+    cy = hub[0] - Rr * math.sin(gamma)            # docs/domain.md: contact (R - r) sin(gamma) toward -y
     gcy = gh[0] - Rr * math.cos(gamma) * gt
     return hub, gh, gamma, gt, cy, gcy
 
@@ -316,7 +316,7 @@ def free_modes(ref: ReferenceMechanism, x: np.ndarray, rel_tol: float = 1e-9) ->
 
     At lean 0 the springs are free, so a lean mode that only the springs hold
     (beams of a sprung twin beam, a tilt rocker) has no equation there.
-    DOMAIN.md leaves that mode open; this solver holds it at its value in the
+    docs/domain.md leaves that mode open; this solver holds it at its value in the
     design position to first order: the returned rows span the null space of
     the travel-stage Jacobian at ``x`` (orthonormal, shape (k, 3 * n_bodies)),
     or None when there is none. On a mirror-symmetric mechanism that picks the
@@ -389,7 +389,7 @@ def _lean_nodes(leans: list[float], max_step: float) -> list[float]:
 
 def reference_sweep(mech: Mechanism, lean_deg, travel_mm, *, max_lean_step_deg: float = 1.0,
                     max_travel_step_mm: float = 5.0, with_body_angles: bool = False) -> list[dict]:
-    """The sweep of DOMAIN.md, one state at a time.
+    """The sweep of docs/domain.md, one state at a time.
 
     Each travel is reached at lean 0 by continuation from the design position,
     the spring lengths there are held, and the mechanism is leaned from 0 to

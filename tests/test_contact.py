@@ -1,4 +1,4 @@
-"""Toroidal tyre contact: the DOMAIN.md formula against a direct minimisation over the torus.
+"""Toroidal tyre contact: the docs/domain.md formula against a direct minimisation over the torus.
 
 Outside reference: scipy.optimize minimising the height of a point moving over
 the torus surface (R, r) of a cambered wheel, i.e. the lowest point of the
@@ -48,7 +48,7 @@ def lowest_point(R, r, gamma):
 def test_contact_formula_matches_torus_minimum(camber_deg, R, r):
     g = math.radians(camber_deg)
     p = lowest_point(R, r, g)
-    # scipy.optimize direct minimisation over the torus vs DOMAIN.md:
+    # scipy.optimize direct minimisation over the torus vs docs/domain.md:
     # centre height (R - r) cos(gamma) + r, contact (R - r) sin(gamma) toward -y
     assert -p[2] == pytest.approx((R - r) * math.cos(g) + r, abs=1e-7)
     assert p[1] == pytest.approx(-(R - r) * math.sin(g), abs=1e-5)

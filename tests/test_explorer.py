@@ -1,6 +1,6 @@
 """The explorer page: data, offline plotly, non-dominated front; and the shared fixture run.
 
-The fixture (``fixture_run``) builds a run in the CONTRACTS.md column layout from
+The fixture (``fixture_run``) builds a run in the docs/formats.md column layout from
 perturbed copies of configs/wishbone_rocker.toml, with metrics computed by the
 kinematics sweep, so the report writers can be tested without the optimiser.
 """
@@ -111,7 +111,7 @@ def test_best_compromise_is_nearest_the_ideal_point():
 
 
 class _FakeTemplate:
-    """Stands in for tiltopt.problems.templates.Template (CONTRACTS.md) until the real one lands."""
+    """Stands in for tiltopt.problems.templates.Template (docs/formats.md) until the real one lands."""
 
     def __init__(self, model, mechs, ids, X):
         self.name, self.model = "wishbone_rocker", model
@@ -131,7 +131,7 @@ class _FakeTemplate:
 
 
 class _FakeRun:
-    """Stands in for tiltopt.optimizer.results.Run (CONTRACTS.md) until the real one lands."""
+    """Stands in for tiltopt.optimizer.results.Run (docs/formats.md) until the real one lands."""
 
     def __init__(self):
         run, mechs, front, res = fixture_run()

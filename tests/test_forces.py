@@ -112,7 +112,7 @@ def test_spring_force_is_derivative_of_load_potential(builder, lean):
 
 
 def test_tilt_lock_torque_hand_model():
-    # Hand-derived: the ideal parallelogram (DOMAIN.md: zero heave, wheels lean with the chassis)
+    # Hand-derived: the ideal parallelogram (docs/domain.md: zero heave, wheels lean with the chassis)
     # parked at lean phi. The datum O rises r (1 - cos phi), so the front load W_f at the centre of
     # mass (height h above O) has potential W_f (r (1 - cos phi) + h cos phi); the rear load W_r is a
     # couple on the chassis with arm h sin phi. The beams stay level, so the lock angle moves with

@@ -1,6 +1,6 @@
 """The batched solver against an independent scalar solve of the same states.
 
-Outside reference: tests.reference_solver, written from DOMAIN.md alone with a
+Outside reference: tests.reference_solver, written from docs/domain.md alone with a
 different formulation (absolute body coordinates, one state at a time with
 scipy.optimize.least_squares, Levenberg-Marquardt), sharing only the file
 reader with the batched code.
@@ -175,7 +175,7 @@ def test_more_topologies_match_reference(build):
 
 
 def test_upper_links_parallelogram_is_ideal():
-    """Links parallel to the lower beam make the same parallelogram: zero scrub and heave (DOMAIN.md)."""
+    """Links parallel to the lower beam make the same parallelogram: zero scrub and heave (docs/domain.md)."""
     res = sweep(Model(mech_of(with_upper_links(twin_beam()))), lean_deg=LEANS, travel_mm=[0.0])
     assert res.converged.all()
     np.testing.assert_allclose(res.scrub, 0.0, atol=1e-9)
@@ -183,7 +183,7 @@ def test_upper_links_parallelogram_is_ideal():
 
 
 def test_static_camber_error_is_camber_minus_lean():
-    """DOMAIN.md: camber error = gamma - phi, with gamma including the static camber."""
+    """docs/domain.md: camber error = gamma - phi, with gamma including the static camber."""
     mech = mech_of(with_static_camber(twin_beam(), 3.0))
     recs = reference_sweep(mech, [0.0, 20.0], [0.0])
     res = sweep(Model(mech), lean_deg=[0.0, 20.0], travel_mm=[0.0]).records()

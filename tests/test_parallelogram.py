@@ -1,6 +1,6 @@
 """Twin-beam parallelograms against exact closed forms, and locked detection.
 
-Sources: DOMAIN.md ("the ideal linkage ... has zero scrub and zero heave at
+Sources: docs/domain.md ("the ideal linkage ... has zero scrub and zero heave at
 every lean; use that as an exact check") and closed forms derived in the
 docstrings below from plane geometry.
 """
@@ -23,7 +23,7 @@ LEANS = np.arange(0.0, 45.0 + 1e-9, 5.0)
 
 @pytest.mark.parametrize("crown", [0.0, 23.0], ids=["knife_edge", "round_crown"])
 def test_ideal_parallelogram_has_zero_scrub_and_heave(crown):
-    """Ideal linkage of DOMAIN.md: parallel equal beams, outer pivots on the wheel planes.
+    """Ideal linkage of docs/domain.md: parallel equal beams, outer pivots on the wheel planes.
 
     Closed form (derived here): the uprights stay parallel to the chassis
     (gamma = phi) and, both hubs needing the same centre height, the beams stay
@@ -40,7 +40,7 @@ def test_ideal_parallelogram_has_zero_scrub_and_heave(crown):
     res = sweep(Model(mech), lean_deg=np.concatenate([-LEANS[1:], LEANS]), travel_mm=[0.0])
     assert res.converged.all()
     phi = np.radians(np.concatenate([-LEANS[1:], LEANS]))
-    # DOMAIN.md exact check: zero scrub and zero heave at every lean
+    # docs/domain.md exact check: zero scrub and zero heave at every lean
     np.testing.assert_allclose(res.scrub[0, 0], 0.0, atol=1e-9)
     np.testing.assert_allclose(res.heave[0, 0], 0.0, atol=1e-9)
     # closed form derived in the docstring

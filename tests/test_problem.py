@@ -122,7 +122,7 @@ def test_kinematic_objectives_match_closed_form():
     scrub, width = _twin_beam_closed_form(a, e, s.envelope.lean_deg[None])
     np.testing.assert_allclose(ev.metrics["max_scrub_mm"], np.abs(scrub).max(1), atol=1e-6)
     np.testing.assert_allclose(ev.metrics["overall_width_mm"], width.max(1), atol=1e-6)
-    np.testing.assert_allclose(ev.metrics["max_heave_mm"], 0.0, atol=1e-6)            # DOMAIN.md: parallelogram
+    np.testing.assert_allclose(ev.metrics["max_heave_mm"], 0.0, atol=1e-6)            # docs/domain.md: parallelogram
     np.testing.assert_allclose(ev.metrics["max_camber_error_deg"], 0.0, atol=1e-6)
     np.testing.assert_allclose(ev.metrics["design_track_mm"], 2 * (X[:, 0] + X[:, 1]), atol=1e-9)
     np.testing.assert_allclose(ev.F[:, 0], ev.metrics["overall_width_mm"])

@@ -44,7 +44,7 @@ def test_nsga2_front_reaches_grid_hypervolume():
 
 
 def test_ideal_parallelogram_is_found():
-    # DOMAIN.md: the ideal linkage (parallel, equal arms, outer pivots on the wheel planes above the
+    # docs/domain.md: the ideal linkage (parallel, equal arms, outer pivots on the wheel planes above the
     # contacts) has zero scrub and zero heave at every lean. The twin-beam template's bounds contain
     # it (wheel_offset = 0); with no shell in the way the NSGA-II front must hold a design with
     # max scrub and max heave under 1 mm, and that design has its pivots on the wheel plane

@@ -126,7 +126,7 @@ def test_suggested_spring_rate_closed_form(sheet_dir):
 
 def test_tyre_outline_is_the_torus_silhouette():
     """Front view of a torus (R, r) upright: height 2R, width 2r; tilted by camber g, the lowest point
-    lies (R - r) sin g from the centre toward -y and at z_c - (R - r) cos g - r (DOMAIN.md contact formula)."""
+    lies (R - r) sin g from the centre toward -y and at z_c - (R - r) cos g - r (docs/domain.md contact formula)."""
     from tiltopt.reports.drawing import tyre_outline
 
     R, r, g = 250.0, 23.0, math.radians(12.0)

@@ -148,7 +148,7 @@ def test_prism_distance_and_end_caps_closed_form():
 
 
 def test_leaning_frame_sign_and_support_closed_form():
-    # DOMAIN.md: R(a) = [[cos a, sin a], [-sin a, cos a]]; a chassis point (0, h) leaned by phi > 0 moves to +y
+    # docs/domain.md: R(a) = [[cos a, sin a], [-sin a, cos a]]; a chassis point (0, h) leaned by phi > 0 moves to +y
     phi, h = math.radians(30.0), 500.0
     world = np.array([h * math.sin(phi), h * math.cos(phi)])
     np.testing.assert_allclose(to_chassis_frame(world, np.zeros(2), phi), [0.0, h], atol=1e-9)

@@ -79,7 +79,7 @@ lean_step_deg = 10.0
 
 
 def test_front_contains_the_ideal_geometry(tmp_path):
-    # DOMAIN.md (exact): the ideal linkage - parallel, equal arms whose outer pivots sit on the wheel
+    # docs/domain.md (exact): the ideal linkage - parallel, equal arms whose outer pivots sit on the wheel
     # planes above the contact points - has zero scrub and zero heave at every lean. In the twin_beam
     # template that is wheel_offset = 0, inside the bounds, so the front must reach it.
     (tmp_path / "ideal.toml").write_text(IDEAL_CONFIG)

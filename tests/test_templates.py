@@ -24,7 +24,7 @@ def _random_x(t: Template, n: int, seed: int = 0) -> np.ndarray:
 @pytest.mark.parametrize("name", ALL)
 def test_geometry_matches_mechanism_for(name):
     # Independent path: mechanism_for(x) -> the mechanism file's own validator (pins coincide,
-    # tyres touch the ground: DOMAIN.md z_c = (R - r) cos(gamma) + r) -> Model.geometry_from.
+    # tyres touch the ground: docs/domain.md z_c = (R - r) cos(gamma) + r) -> Model.geometry_from.
     t = get_template(name, variables=None)
     X = _random_x(t, 6)
     g = t.geometry(X)
@@ -65,7 +65,7 @@ def test_symmetric_design_leans_mirrored():
 
 @pytest.mark.parametrize("name", ALL)
 def test_pin_partners_coincide(name):
-    # DOMAIN.md: the two points of a pin coincide in the design position, for every candidate.
+    # docs/domain.md: the two points of a pin coincide in the design position, for every candidate.
     t = get_template(name)
     g = t.geometry(_random_x(t, 30, seed=5))
     idx = t.model.point_index
@@ -76,7 +76,7 @@ def test_pin_partners_coincide(name):
 def test_twin_beam_variables_closed_form():
     # Exact by the variable definitions: outer pivots at +-outer_pivot_y, hubs at
     # +-(outer_pivot_y + wheel_offset); the design track is 2 (outer_pivot_y + wheel_offset) for
-    # zero camber (DOMAIN.md contact point under the hub).
+    # zero camber (docs/domain.md contact point under the hub).
     t = get_template("twin_beam")
     names = t.names
     x = t.defaults
@@ -94,7 +94,7 @@ def test_twin_beam_variables_closed_form():
 
 
 def test_wheel_radius_keeps_tyre_on_ground():
-    # DOMAIN.md: a toroidal tyre touches flat ground with its centre at (R - r) cos(gamma) + r.
+    # docs/domain.md: a toroidal tyre touches flat ground with its centre at (R - r) cos(gamma) + r.
     t = get_template("twin_beam", variables=["outer_pivot_y", "wheel_radius"])
     x = np.array([[300.0, 203.0], [320.0, 330.0]])
     g = t.geometry(x)

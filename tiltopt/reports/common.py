@@ -14,7 +14,7 @@ from tiltopt.base.safety import SAFETY_CAUTION as SAFETY  # noqa: E402
 _UNIT_SUFFIX = [("_mm", "mm"), ("_deg", "deg"), ("_kg", "kg"), ("_nm", "N·m"), ("_n", "N"), ("_mpa", "MPa"),
                 ("_pct", "%"), ("_n_per_mm", "N/mm")]
 
-# units of the objectives (CONTRACTS.md names), as minimised
+# units of the objectives (docs/formats.md names), as minimised
 OBJECTIVE_UNITS = {"overall_width": "mm", "max_scrub": "mm", "max_heave": "mm", "min_clearance": "mm",
                    "linkage_mass": "kg", "slot_length": "mm", "max_camber_error": "deg"}
 

@@ -48,7 +48,7 @@ class ExplorerRun:
     ----------
     run_id : str
     front : pandas.DataFrame
-        The run's non-dominated designs, CONTRACTS.md columns.
+        The run's non-dominated designs, docs/formats.md columns.
     model : kinematics.Model
         The template's topology.
     geometry_for : callable
@@ -76,7 +76,7 @@ class ExplorerRun:
 
 
 def run_from_results(run, run_dir: str | Path | None = None) -> ExplorerRun:
-    """Adapter from ``tiltopt.optimizer.results.Run`` (see CONTRACTS.md)."""
+    """Adapter from ``tiltopt.optimizer.results.Run`` (see docs/formats.md)."""
     from .common import run_envelope, run_shell, run_units
 
     tpl = run.template

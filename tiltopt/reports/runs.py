@@ -1,4 +1,4 @@
-"""Reports from results runs (``tiltopt.optimizer.results.load_run``, see CONTRACTS.md)."""
+"""Reports from results runs (``tiltopt.optimizer.results.load_run``, see docs/formats.md)."""
 from __future__ import annotations
 
 import shlex
