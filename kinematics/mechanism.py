@@ -26,16 +26,28 @@ File format (all lengths mm, angles degrees)::
 
 Keys for the 3-D clearance check (all optional; see :mod:`tiltopt.kinematics.clearance`)::
 
+    tube_od_mm = 25.4                           # top level: tube diameter of every link and body
+                                                # tube that gives none (default 25.4, a 1 in tube)
     [[wheels]]  kingpin_inclination_deg = 0.0   # front view, top of the axis inboard
                 caster_deg = 0.0                # side view, top of the axis rearward
                 steer_axis_point = "upright.hub"   # point of the upright on the axis
                                                 # (default: the wheel centre)
-    [[links]]   tube_od_mm = 0.0                # tube diameter (0 = a line)
+                steer_axis = ["upright.top", "upright.bottom"]   # or: the axis through two points
+                                                # of the upright (front view; replaces the two above
+                                                # in the front view, caster_deg still tilts it)
+                steered = true                  # false: the wheel does not steer
+                hub_width_mm = 70.0             # the wheel solid: hub width at the axle, tapering
+                hub_radius_mm = 35.0            # to the tyre width at the crown circle; the hub
+                                                # zone (radius) where the members that carry the
+                                                # wheel hold its stub axle
+    [[links]]   tube_od_mm                      # tube diameter (default: the top-level one; 0 = a line)
                 shell = "through"               # "inside" | "outside" | "through"
     [[segments]] body, a, b (point names of that body), name (optional),
-                tube_od_mm = 0.0, shell = "through"   # a body's tube, as a capsule
-    [steer_envelope]                            # default: no steer
-    lean_deg = [0.0, 20.0, 40.0]                # rows, ascending, >= 0
+                tube_od_mm, shell = "through"   # a body's tube, as a capsule; a body with
+                                                # segments has only those, every other body gets
+                                                # default tubes (see body_tubes)
+    [steer_envelope]                            # default: DEFAULT_STEER_ENVELOPE when a wheel steers
+    lean_deg = [0.0, 20.0, 40.0]                # rows, ascending, >= 0; an empty table: no steer
     max_steer_deg = [30.0, 12.0, 5.0]           # largest steer at that |lean|;
                                                 # linear between rows, held beyond
 
@@ -56,6 +68,19 @@ from tiltopt.base.errors import InputError, check_keys, read_toml
 PIN_TOLERANCE_MM = 0.01
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
 SHELL_ROLES = ("inside", "outside", "through")
+
+#: tube diameter of a member the file gives none for: a 1 in (25.4 mm) tube, a usual size of
+#: trike linkage arms (common practice, no source)
+DEFAULT_TUBE_OD_MM = 25.4
+#: the wheel solid (docs/domain.md): hub width at the axle and the hub zone's radius, for a small
+#: stub-axle wheel hub (common practice, no source; a hub motor needs larger values)
+DEFAULT_HUB_WIDTH_MM = 70.0
+DEFAULT_HUB_RADIUS_MM = 35.0
+#: steer envelope of a file that gives none while a wheel steers: (|lean| deg, max steer deg) rows.
+#: Full lock 30 deg at walking pace, tapering with lean (common practice, no source); held beyond
+#: the last row. It holds the steer of a balanced turn, delta ~ L g tan(lean) / v^2, of a 1.1 m
+#: wheelbase at 5 m/s up to 30 deg of lean (4.4, 9.0 and 14.3 deg at 10, 20 and 30 deg).
+DEFAULT_STEER_ENVELOPE = ((0.0, 30.0), (15.0, 20.0), (30.0, 15.0))
 
 
 @dataclass(frozen=True)
@@ -87,7 +112,7 @@ class Segment:
     body: str
     a: str
     b: str
-    tube_od_mm: float = 0.0
+    tube_od_mm: float = DEFAULT_TUBE_OD_MM
     shell: str = "through"
 
 
@@ -129,6 +154,10 @@ class Wheel:
     kingpin_inclination_deg: float = 0.0
     caster_deg: float = 0.0
     steer_axis_point: str | None = None   # "upright.point" on the steering axis; None = the wheel centre
+    steer_axis: tuple[str, str] | None = None   # two upright points the axis runs through (front view)
+    steered: bool = True
+    hub_width_mm: float = DEFAULT_HUB_WIDTH_MM
+    hub_radius_mm: float = DEFAULT_HUB_RADIUS_MM
 
 
 @dataclass(frozen=True)
@@ -152,7 +181,10 @@ class Mechanism:
     description: str = ""
     station_x_mm: float = 0.0
     segments: tuple[Segment, ...] = ()
-    steer_envelope: tuple[tuple[float, float], ...] = ()   # (lean_deg, max_steer_deg) rows
+    #: (lean_deg, max_steer_deg) rows; None = not given (DEFAULT_STEER_ENVELOPE where a wheel
+    #: steers), () = given empty (no steer)
+    steer_envelope: tuple[tuple[float, float], ...] | None = None
+    tube_od_mm: float = DEFAULT_TUBE_OD_MM
     source: str = field(default="<memory>", compare=False)
 
     # ------------------------------------------------------------------ lookup
@@ -174,6 +206,13 @@ class Mechanism:
         """Every point as ``body.point``, in file order."""
         return [f"{b}.{p}" for b, pts in self.bodies.items() for p in pts]
 
+    @property
+    def steer_rows(self) -> tuple[tuple[float, float], ...]:
+        """The steer envelope in force: the file's rows, the default where a wheel steers, else none."""
+        if self.steer_envelope is not None:
+            return self.steer_envelope
+        return DEFAULT_STEER_ENVELOPE if any(w.steered for w in self.wheels) else ()
+
     def with_points(self, points: dict[str, tuple[float, float]]) -> "Mechanism":
         """A copy with some points moved (``{"body.point": (y, z)}``)."""
         bodies = {b: dict(pts) for b, pts in self.bodies.items()}
@@ -186,6 +225,73 @@ class Mechanism:
 def split_ref(ref: str) -> tuple[str, str]:
     body, _, point = ref.partition(".")
     return body, point
+
+
+# ---------------------------------------------------------------------- tubes
+def spanning_tree(points) -> list[tuple[int, int]]:
+    """Edges (i, j) of the Euclidean minimum spanning tree of points (Prim's algorithm), in order."""
+    pts = [tuple(map(float, p)) for p in points]
+    n = len(pts)
+    if n < 2:
+        return []
+    inside, edges = [0], []
+    best = {j: (math.dist(pts[0], pts[j]), 0) for j in range(1, n)}
+    while best:
+        j = min(best, key=lambda k: (best[k][0], k))
+        _, i = best.pop(j)
+        edges.append((i, j))
+        inside.append(j)
+        for k in best:
+            d = math.dist(pts[j], pts[k])
+            if d < best[k][0]:
+                best[k] = (d, j)
+    return edges
+
+
+def joint_points(mech: "Mechanism") -> dict[str, list[str]]:
+    """Per body, its points where a pin, link, spring or slider attaches (file order, no repeats)."""
+    refs = []
+    for p in mech.pins:
+        refs += [p.a, p.b]
+    for j in (*mech.links, *mech.springs):
+        refs += [j.a, j.b]
+    for s in mech.sliders:
+        refs += [s.a_from, s.a_to, s.b]
+    out: dict[str, list[str]] = {b: [] for b in mech.bodies}
+    order = {r: k for k, r in enumerate(mech.point_refs)}
+    for r in sorted(set(refs), key=order.get):
+        body, pt = split_ref(r)
+        out[body].append(pt)
+    return out
+
+
+def body_tubes(mech: "Mechanism") -> tuple[Segment, ...]:
+    """Every body's tubes for the clearance checks.
+
+    A body with declared ``[[segments]]`` has exactly those. Every other body (the chassis included)
+    gets default tubes: the minimum spanning tree of its joint points (:func:`joint_points`; a
+    wheel centre is not one: the stub axle from the upright to the hub is not a tube), plus the
+    mirror image of each tree edge within the body (names with left and right swapped) so that a
+    symmetric body gets symmetric tubes; each of the file's ``tube_od_mm`` and shell role "through",
+    named ``body.a~b``. A body with fewer than two joint points has none.
+    """
+    declared = {g.body for g in mech.segments}
+    out = list(mech.segments)
+    for body, pts in joint_points(mech).items():
+        if body in declared or len(pts) < 2:
+            continue
+        xy = [mech.bodies[body][p] for p in pts]
+        edges = [(pts[i], pts[j]) for i, j in spanning_tree(xy)]
+        seen = {frozenset(e) for e in edges}
+        for a, b in list(edges):
+            m = (_swap_lr(a), _swap_lr(b))
+            if m[0] in pts and m[1] in pts and frozenset(m) not in seen:
+                seen.add(frozenset(m))
+                edges.append(m)
+        for a, b in edges:
+            if math.dist(mech.bodies[body][a], mech.bodies[body][b]) >= 1.0:
+                out.append(Segment(f"{body}.{a}~{b}", body, a, b, mech.tube_od_mm))
+    return tuple(out)
 
 
 # ---------------------------------------------------------------------- reading
@@ -234,12 +340,13 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
     _check_keys(
         data,
         ["name", "chassis", "description", "station_x_mm", "bodies", "pins", "links", "springs",
-         "sliders", "wheels", "segments", "steer_envelope"],
+         "sliders", "wheels", "segments", "steer_envelope", "tube_od_mm"],
         ["name", "chassis", "bodies", "wheels"], src, "")
     name = _string(data["name"], src, "name")
     chassis = _string(data["chassis"], src, "chassis")
     description = _string(data.get("description", ""), src, "description")
     station_x = _number(data.get("station_x_mm", 0.0), src, "station_x_mm")
+    default_od = _number(data.get("tube_od_mm", DEFAULT_TUBE_OD_MM), src, "tube_od_mm", nonneg=True)
 
     raw_bodies = data["bodies"]
     if not isinstance(raw_bodies, dict) or not raw_bodies:
@@ -310,7 +417,7 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
         a, b = ref(t["a"], w + ".a"), ref(t["b"], w + ".b")
         _check_length(bodies, a, b, src, w)
         links.append(Link(a, b, unique(_string(t.get("name", f"{a}~{b}"), src, w + ".name"), w + ".name"),
-                          *_tube(t, src, w)))
+                          *_tube(t, src, w, default_od)))
 
     segments = []
     for i, t in enumerate(_list_of_tables(data, "segments", src)):
@@ -328,7 +435,7 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
         if math.hypot(pa[0] - pb[0], pa[1] - pb[1]) < 1.0:
             raise InputError("the two ends are less than 1 mm apart.", src, w)
         nm = unique(_string(t.get("name", f"{body}.{t['a']}~{t['b']}"), src, w + ".name"), w + ".name")
-        segments.append(Segment(nm, body, t["a"], t["b"], *_tube(t, src, w)))
+        segments.append(Segment(nm, body, t["a"], t["b"], *_tube(t, src, w, default_od)))
 
     springs = []
     for i, t in enumerate(_list_of_tables(data, "springs", src)):
@@ -370,7 +477,8 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
     for i, t in enumerate(raw_wheels):
         w = f"wheels[{i}]"
         _check_keys(t, ["name", "upright", "centre", "outer_radius_mm", "crown_radius_mm", "static_camber_deg",
-                        "kingpin_inclination_deg", "caster_deg", "steer_axis_point"],
+                        "kingpin_inclination_deg", "caster_deg", "steer_axis_point", "steer_axis", "steered",
+                        "hub_width_mm", "hub_radius_mm"],
                     ["name", "upright", "centre", "outer_radius_mm", "crown_radius_mm"], src, w)
         nm = _string(t["name"], src, w + ".name")
         if nm not in ("left", "right"):
@@ -411,7 +519,35 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
                 raise InputError(f"the steering axis point must be a point of the upright '{up}'. Got {sp!r}.",
                                  src, w + ".steer_axis_point")
             steer["steer_axis_point"] = sp
-        wheels.append(Wheel(nm, up, centre, big, small, camber, **steer))
+        if "steer_axis" in t:
+            ax = t["steer_axis"]
+            if not (isinstance(ax, list) and len(ax) == 2):
+                raise InputError(f"expected two point references of the upright, [\"{up}.a\", \"{up}.b\"]. "
+                                 f"Got {ax!r} instead.", src, w + ".steer_axis")
+            refs = tuple(ref(a, f"{w}.steer_axis[{k}]") for k, a in enumerate(ax))
+            if any(split_ref(r)[0] != up for r in refs):
+                raise InputError(f"the steering axis points must be points of the upright '{up}'. Got {ax!r}.",
+                                 src, w + ".steer_axis")
+            pa, pb = (bodies[up][split_ref(r)[1]] for r in refs)
+            if math.hypot(pa[0] - pb[0], pa[1] - pb[1]) < 1.0:
+                raise InputError("the two steering axis points are less than 1 mm apart.", src, w + ".steer_axis")
+            if abs(pa[1] - pb[1]) < 1e-9:
+                raise InputError("the steering axis through these points is horizontal; it must rise.", src,
+                                 w + ".steer_axis")
+            if "steer_axis_point" in t or "kingpin_inclination_deg" in t:
+                raise InputError("give either steer_axis (two points) or steer_axis_point / "
+                                 "kingpin_inclination_deg, not both.", src, w + ".steer_axis")
+            steer["steer_axis"] = refs
+        if "steered" in t:
+            if not isinstance(t["steered"], bool):
+                raise InputError(f"expected true or false. Got {t['steered']!r} instead.", src, w + ".steered")
+            steer["steered"] = t["steered"]
+        hub_w = _number(t.get("hub_width_mm", DEFAULT_HUB_WIDTH_MM), src, w + ".hub_width_mm", positive=True)
+        hub_r = _number(t.get("hub_radius_mm", DEFAULT_HUB_RADIUS_MM), src, w + ".hub_radius_mm", nonneg=True)
+        if hub_r >= big - small:
+            raise InputError(f"hub_radius_mm must be smaller than the crown circle radius (outer_radius_mm - "
+                             f"crown_radius_mm = {big - small:g}). Got {hub_r:g} instead.", src, w + ".hub_radius_mm")
+        wheels.append(Wheel(nm, up, centre, big, small, camber, hub_width_mm=hub_w, hub_radius_mm=hub_r, **steer))
     names = sorted(w.name for w in wheels)
     if names != ["left", "right"]:
         raise InputError(f"expected exactly two wheels, named 'left' and 'right'. Got {names or 'none'}.",
@@ -421,24 +557,26 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
     return Mechanism(name=name, chassis=chassis, bodies=bodies, pins=tuple(pins), links=tuple(links),
                      springs=tuple(springs), sliders=tuple(sliders), wheels=tuple(wheels),
                      description=description, station_x_mm=station_x, segments=tuple(segments),
-                     steer_envelope=_steer_envelope(data, src), source=src)
+                     steer_envelope=_steer_envelope(data, src), tube_od_mm=default_od, source=src)
 
 
-def _tube(t: dict, src: str, where: str) -> tuple[float, str]:
-    od = _number(t.get("tube_od_mm", 0.0), src, where + ".tube_od_mm", nonneg=True)
+def _tube(t: dict, src: str, where: str, default_od: float = DEFAULT_TUBE_OD_MM) -> tuple[float, str]:
+    od = _number(t.get("tube_od_mm", default_od), src, where + ".tube_od_mm", nonneg=True)
     role = _string(t.get("shell", "through"), src, where + ".shell")
     if role not in SHELL_ROLES:
         raise InputError(f"expected one of {', '.join(SHELL_ROLES)}. Got {role!r} instead.", src, where + ".shell")
     return od, role
 
 
-def _steer_envelope(data: dict, src: str) -> tuple[tuple[float, float], ...]:
+def _steer_envelope(data: dict, src: str) -> tuple[tuple[float, float], ...] | None:
     if "steer_envelope" not in data:
-        return ()
+        return None
     env = data["steer_envelope"]
     if not isinstance(env, dict):
         raise InputError("expected a table [steer_envelope] with lean_deg and max_steer_deg lists.", src,
                          "steer_envelope")
+    if not env or (env.get("lean_deg") == [] and env.get("max_steer_deg") == [] and len(env) == 2):
+        return ()   # an explicit empty envelope: no steer
     _check_keys(env, ["lean_deg", "max_steer_deg"], ["lean_deg", "max_steer_deg"], src, "steer_envelope")
     rows = []
     for k in ("lean_deg", "max_steer_deg"):
@@ -500,6 +638,8 @@ def mechanism_to_toml(mech: Mechanism, header: str = "") -> str:
     if mech.description:
         out.append(f"description = {_q(mech.description)}")
     out.append(f"station_x_mm = {_fmt(mech.station_x_mm)}")
+    if mech.tube_od_mm != DEFAULT_TUBE_OD_MM:
+        out.append(f"tube_od_mm = {_fmt(mech.tube_od_mm)}")
     for b, pts in mech.bodies.items():
         out += ["", f"[bodies.{b}]"]
         out += [f"{p} = [{_fmt(y)}, {_fmt(z)}]" for p, (y, z) in pts.items()]
@@ -508,10 +648,10 @@ def mechanism_to_toml(mech: Mechanism, header: str = "") -> str:
         if p.base_mm is not None:
             out.append(f"base_mm = {_fmt(p.base_mm)}")
     for l in mech.links:
-        out += ["", "[[links]]", f"name = {_q(l.name)}", f"a = {_q(l.a)}", f"b = {_q(l.b)}"] + _tube_lines(l)
+        out += ["", "[[links]]", f"name = {_q(l.name)}", f"a = {_q(l.a)}", f"b = {_q(l.b)}"] + _tube_lines(l, mech)
     for g in mech.segments:
         out += ["", "[[segments]]", f"name = {_q(g.name)}", f"body = {_q(g.body)}", f"a = {_q(g.a)}",
-                f"b = {_q(g.b)}"] + _tube_lines(g)
+                f"b = {_q(g.b)}"] + _tube_lines(g, mech)
     for s in mech.springs:
         out += ["", "[[springs]]", f"name = {_q(s.name)}", f"a = {_q(s.a)}", f"b = {_q(s.b)}"]
         for k in ("rate_n_per_mm", "free_length_mm", "preload_n"):
@@ -530,16 +670,25 @@ def mechanism_to_toml(mech: Mechanism, header: str = "") -> str:
                 out.append(f"{k} = {_fmt(getattr(w, k))}")
         if w.steer_axis_point is not None:
             out.append(f"steer_axis_point = {_q(w.steer_axis_point)}")
-    if mech.steer_envelope:
-        out += ["", "[steer_envelope]",
-                "lean_deg = [" + ", ".join(_fmt(r[0]) for r in mech.steer_envelope) + "]",
-                "max_steer_deg = [" + ", ".join(_fmt(r[1]) for r in mech.steer_envelope) + "]"]
+        if w.steer_axis is not None:
+            out.append(f"steer_axis = [{_q(w.steer_axis[0])}, {_q(w.steer_axis[1])}]")
+        if not w.steered:
+            out.append("steered = false")
+        if w.hub_width_mm != DEFAULT_HUB_WIDTH_MM:
+            out.append(f"hub_width_mm = {_fmt(w.hub_width_mm)}")
+        if w.hub_radius_mm != DEFAULT_HUB_RADIUS_MM:
+            out.append(f"hub_radius_mm = {_fmt(w.hub_radius_mm)}")
+    if mech.steer_envelope is not None:
+        out += ["", "[steer_envelope]"]
+        if mech.steer_envelope:
+            out += ["lean_deg = [" + ", ".join(_fmt(r[0]) for r in mech.steer_envelope) + "]",
+                    "max_steer_deg = [" + ", ".join(_fmt(r[1]) for r in mech.steer_envelope) + "]"]
     return "\n".join(out) + "\n"
 
 
-def _tube_lines(m) -> list[str]:
+def _tube_lines(m, mech) -> list[str]:
     out = []
-    if m.tube_od_mm != 0.0:
+    if m.tube_od_mm != mech.tube_od_mm:
         out.append(f"tube_od_mm = {_fmt(m.tube_od_mm)}")
     if m.shell != "through":
         out.append(f"shell = {_q(m.shell)}")
@@ -570,11 +719,14 @@ def mirror(mech: Mechanism) -> Mechanism:
         wheels=tuple(sorted((replace(w, name=_swap_lr(w.name), upright=_swap_lr(w.upright),
                                      centre=_swap_lr(w.centre), static_camber_deg=-w.static_camber_deg,
                                      steer_axis_point=None if w.steer_axis_point is None
-                                     else _swap_lr(w.steer_axis_point))
+                                     else _swap_lr(w.steer_axis_point),
+                                     steer_axis=None if w.steer_axis is None
+                                     else tuple(_swap_lr(r) for r in w.steer_axis))
                              for w in mech.wheels), key=lambda w: w.name)),
         description=mech.description,
         station_x_mm=mech.station_x_mm,
         segments=tuple(replace(g, name=_swap_lr(g.name), body=_swap_lr(g.body), a=_swap_lr(g.a), b=_swap_lr(g.b))
                        for g in mech.segments),
         steer_envelope=mech.steer_envelope,   # by |lean|, and KPI/caster are inboard/rearward: unchanged
+        tube_od_mm=mech.tube_od_mm,
     )
