@@ -62,7 +62,8 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from . import clearance_kernel as _kernel
-from .mechanism import split_ref
+from . import wheel_solid as _solid
+from .mechanism import body_tubes, split_ref
 from .model import Geometry, Model
 from .shell import (Shell, inside_level, outline_position, polygon_section_edges, section_distance,
                     shell_signed_distance, signed_distance_yz, superellipse_params, support, to_chassis_frame)
@@ -79,7 +80,7 @@ class ClearanceSettings:
     """Sampling density of the clearance search.
 
     crown_samples : coarse samples round the crown circle (default 24, every 15 deg).
-    steer_samples : coarse steer samples across [-max, +max] (default 3: -max, 0, +max; 1 when no steer).
+    steer_samples : coarse steer samples across [-max, +max] (default 7; 1 when no steer).
     refine_iterations : halvings of the local coordinate search after the coarse grid.
     tube_samples : samples along a tube for its inside / outside check.
     root_iterations : iterations of the slot crossing root finder.
@@ -91,7 +92,7 @@ class ClearanceSettings:
     """
 
     crown_samples: int = 24
-    steer_samples: int = 3
+    steer_samples: int = 7
     refine_iterations: int = 8
     tube_samples: int = 9
     root_iterations: int = 20
@@ -112,7 +113,7 @@ class ClearanceSettings:
 
 @dataclass(frozen=True)
 class Members:
-    """Links and body segments as capsules.
+    """Links and body tubes as capsules.
 
     Attributes
     ----------
@@ -123,10 +124,12 @@ class Members:
         Tube radius, mm.
     role : ndarray of shape (n_members,) of str
         'inside', 'outside' or 'through'.
+    own : ndarray of shape (2, n_members) of bool
+        True where the member is a tube of the [left, right] wheel's upright: it turns with the
+        wheel when it steers and holds the stub axle (the hub zone is left out of its check).
     carries : ndarray of shape (2, n_members) of bool
-        True where the member carries the [left, right] wheel (left out of
-        that wheel's check): one of its ends is a point of the wheel's upright
-        or is pinned to it.
+        True where the member carries the [left, right] wheel: a tube of its upright, or a member
+        with an end on, or pinned to, the upright (the carrier margin applies to it).
     """
 
     names: list
@@ -134,6 +137,7 @@ class Members:
     ib: np.ndarray
     radius: np.ndarray
     role: np.ndarray
+    own: np.ndarray
     carries: np.ndarray
 
     def __len__(self):
@@ -141,7 +145,8 @@ class Members:
 
 
 def members_of(model: Model) -> Members:
-    """The capsules of a model's links and ``[[segments]]``."""
+    """The capsules of a model's links and body tubes (declared ``[[segments]]`` or defaults, see
+    :func:`tiltopt.kinematics.mechanism.body_tubes`). Springs are not tubes here."""
     mech = model.mech
     pinned: dict[str, set[str]] = {}
     for p in mech.pins:
@@ -149,30 +154,35 @@ def members_of(model: Model) -> Members:
         pinned.setdefault(p.b, set()).add(split_ref(p.a)[0])
     for s in mech.sliders:
         pinned.setdefault(s.b, set()).add(split_ref(s.a_from)[0])
-    names, ia, ib, rad, role, car = [], [], [], [], [], []
-    items = [(l.name, l.a, l.b, l.tube_od_mm, l.shell) for l in mech.links]
-    items += [(g.name, f"{g.body}.{g.a}", f"{g.body}.{g.b}", g.tube_od_mm, g.shell) for g in mech.segments]
-    for nm, a, b, od, sh in items:
+    names, ia, ib, rad, role, own, car = [], [], [], [], [], [], []
+    items = [(l.name, l.a, l.b, l.tube_od_mm, l.shell, None) for l in mech.links]
+    items += [(g.name, f"{g.body}.{g.a}", f"{g.body}.{g.b}", g.tube_od_mm, g.shell, g.body)
+              for g in body_tubes(mech)]
+    # bodies a slider joins to a wheel's upright (a telescopic leg's guide) carry that wheel too
+    slid = {w.upright: {split_ref(s.a_from)[0] for s in mech.sliders if split_ref(s.b)[0] == w.upright}
+            | {split_ref(s.b)[0] for s in mech.sliders if split_ref(s.a_from)[0] == w.upright} for w in mech.wheels}
+    carrier_bodies = {w.upright: {w.upright} | slid[w.upright] for w in mech.wheels}
+    for nm, a, b, od, sh, body in items:
         names.append(nm)
         ia.append(model.point_index[a])
         ib.append(model.point_index[b])
         rad.append(0.5 * od)
         role.append(sh)
-        row = []
-        for w in mech.wheels:
-            up = w.upright
-            row.append(any(split_ref(r)[0] == up or up in pinned.get(r, ()) for r in (a, b)))
-        car.append(row)
+        own.append([body == w.upright for w in mech.wheels])
+        cb = [carrier_bodies[w.upright] for w in mech.wheels]
+        car.append([body in c or any(split_ref(r)[0] in c or pinned.get(r, set()) & c for r in (a, b)) for c in cb])
     return Members(names, np.array(ia, int), np.array(ib, int), np.array(rad, float), np.array(role, dtype=object),
-                   np.array(car, bool).reshape(-1, 2).T.copy())
+                   np.array(own, bool).reshape(-1, 2).T.copy(), np.array(car, bool).reshape(-1, 2).T.copy())
 
 
 def max_steer_deg(mech, lean_deg) -> np.ndarray:
-    """Largest steer angle (deg) at each lean from the mechanism's steer envelope (0 without one)."""
+    """Largest steer angle (deg) at each lean from the steer envelope in force (``Mechanism.steer_rows``:
+    the file's, the default where a wheel steers, or none: 0)."""
     lean = np.abs(np.asarray(lean_deg, float))
-    if not mech.steer_envelope:
+    rows = mech.steer_rows
+    if not rows:
         return np.zeros_like(lean)
-    rows = np.array(mech.steer_envelope, float)
+    rows = np.array(rows, float)
     return np.interp(lean, rows[:, 0], rows[:, 1])
 
 
@@ -196,10 +206,17 @@ class ClearanceResult:
     wheel_link_error_mm: np.ndarray
     wheel_link_steer_deg: np.ndarray
     wheel_link_member: np.ndarray          # (C, T, L, 2) index into member_names, -1 = none
+    wheel_carrier_mm: np.ndarray           # (C, T, L, 2) the wheel solid to the members that carry it
+    wheel_carrier_error_mm: np.ndarray
+    wheel_carrier_steer_deg: np.ndarray
+    wheel_carrier_member: np.ndarray
+    wheel_pair_mm: np.ndarray              # (C, T, L) the two wheel solids, straight ahead
+    member_gap_mm: np.ndarray              # (C, T, L) smallest gap between two members' tubes
     max_steer_deg: np.ndarray              # (C, T, L)
     steer_deg: np.ndarray                  # (C, T, L) steer of the state's worst wheel clearance
     ground_mm: np.ndarray                  # (C, T, L, 2) [shell, tubes]
-    overall_width_mm: np.ndarray           # (C, T, L)
+    overall_width_mm: np.ndarray           # (C, T, L) lateral extent, wheels straight ahead (the width at lean 0)
+    extent_mm: np.ndarray                  # (C, T, L) lateral extent, wheels through their steer range
     track_mm: np.ndarray                   # (C, T, L)
     inside_violation_mm: np.ndarray        # (C, T, L)
     outside_violation_mm: np.ndarray       # (C, T, L)
@@ -208,10 +225,13 @@ class ClearanceResult:
     member_names: list = field(default_factory=list)
     through_names: list = field(default_factory=list)
     settings: ClearanceSettings = field(default_factory=ClearanceSettings)
+    has_shell: bool = True
 
-    SUMMARY_KEYS = ("min_wheel_shell_mm", "min_wheel_link_mm", "min_clearance_mm", "min_ground_mm",
-                    "max_overall_width_mm", "total_slot_length_mm", "inside_violation_mm",
-                    "outside_violation_mm")
+    SUMMARY_KEYS = ("min_wheel_shell_mm", "min_wheel_link_mm", "min_wheel_carrier_mm", "min_wheel_pair_mm",
+                    "min_member_gap_mm", "min_clearance_mm", "min_ground_mm", "overall_width_mm", "lean_sweep_width_mm",
+                    "total_slot_length_mm", "inside_violation_mm", "outside_violation_mm")
+    #: searched clearances: each has an error bound and a conservative figure (value - bound)
+    SEARCHED = ("min_wheel_shell_mm", "min_wheel_link_mm", "min_wheel_carrier_mm", "min_clearance_mm")
 
     def summary(self) -> dict:
         """Envelope extremes per candidate.
@@ -223,8 +243,13 @@ class ClearanceResult:
             NaN for a candidate with any state that did not converge; and
             ``KEY + '_state'`` of shape (n_candidates, 2): the (travel index,
             lean index) where it occurs (-1 where NaN or not tied to a state).
-            Also ``min_wheel_shell_error_mm`` / ``min_wheel_link_error_mm``: the
-            error estimate at the minimum's state.
+            For the searched clearances (``SEARCHED``) also ``..._error_mm``
+            (the error bound at the minimum's state) and ``..._lower_mm``: the
+            smallest over the states of (clearance - its error bound), the
+            conservative figure margins are met by. ``overall_width_mm`` is the
+            width of the upright vehicle (lean 0, wheels straight ahead, the
+            largest over the travels), ``lean_sweep_width_mm`` the lateral
+            extent over the whole envelope (wheels through their steer range).
         """
         C = self.converged.shape[0]
         ok = self.converged.reshape(C, -1).all(axis=1)
@@ -244,16 +269,29 @@ class ClearanceResult:
                 e = err.reshape(flat.shape)
                 w = np.argmin(np.where(np.isnan(flat), np.inf, flat), axis=2)[np.arange(C), idx]
                 out[key.replace("_mm", "_error_mm")] = np.where(ok, e[np.arange(C), idx, w], np.nan)
+                low = np.min(np.where(np.isnan(flat), np.inf, flat - e).reshape(C, -1), axis=1)
+                out[key.replace("_mm", "_lower_mm")] = np.where(ok, low, np.nan)
 
         extreme("min_wheel_shell_mm", self.wheel_shell_mm, np.min, self.wheel_shell_error_mm)
         extreme("min_wheel_link_mm", self.wheel_link_mm, np.min, self.wheel_link_error_mm)
+        extreme("min_wheel_carrier_mm", self.wheel_carrier_mm, np.min, self.wheel_carrier_error_mm)
+        extreme("min_wheel_pair_mm", self.wheel_pair_mm[..., None], np.min)
+        extreme("min_member_gap_mm", self.member_gap_mm[..., None], np.min)
         both = np.minimum(out["min_wheel_shell_mm"], out["min_wheel_link_mm"])
         pick_link = out["min_wheel_link_mm"] < out["min_wheel_shell_mm"]
         out["min_clearance_mm"] = both
         out["min_clearance_mm_state"] = np.where(pick_link[:, None], out["min_wheel_link_mm_state"],
                                                  out["min_wheel_shell_mm_state"])
+        out["min_clearance_error_mm"] = np.where(pick_link, out["min_wheel_link_error_mm"],
+                                                 out["min_wheel_shell_error_mm"])
+        out["min_clearance_lower_mm"] = np.minimum(out["min_wheel_shell_lower_mm"], out["min_wheel_link_lower_mm"])
         extreme("min_ground_mm", self.ground_mm, np.min)
-        extreme("max_overall_width_mm", self.overall_width_mm[..., None], np.max)
+        upright = int(np.argmin(np.abs(self.lean_deg)))
+        w0 = np.full(self.overall_width_mm.shape, np.nan)
+        w0[:, :, upright] = self.overall_width_mm[:, :, upright]
+        extreme("overall_width_mm", w0[..., None], np.max)
+        out["overall_width_mm"] = np.where(ok, out["overall_width_mm"], np.nan)
+        extreme("lean_sweep_width_mm", self.extent_mm[..., None], np.max)
         extreme("inside_violation_mm", self.inside_violation_mm[..., None], np.max)
         extreme("outside_violation_mm", self.outside_violation_mm[..., None], np.max)
         out["total_slot_length_mm"] = np.where(ok, self.slot_length_mm.sum(axis=1), np.nan)
@@ -291,6 +329,10 @@ class ClearanceResult:
                     "wheel_link_clearance_mm": lr(self.wheel_link_mm),
                     "wheel_shell_error_mm": lr(self.wheel_shell_error_mm),
                     "wheel_link_error_mm": lr(self.wheel_link_error_mm),
+                    "wheel_carrier_clearance_mm": lr(self.wheel_carrier_mm),
+                    "wheel_carrier_error_mm": lr(self.wheel_carrier_error_mm),
+                    "wheel_pair_clearance_mm": val(self.wheel_pair_mm),
+                    "member_gap_mm": val(self.member_gap_mm),
                     "ground_clearance_mm": num(np.min(g)) if ok else None,
                     "ground_clearance_shell_mm": num(g[0]) if ok else None,
                     "ground_clearance_tubes_mm": num(g[1]) if ok else None,
@@ -299,6 +341,7 @@ class ClearanceResult:
                     "inside_violation_mm": val(self.inside_violation_mm),
                     "outside_violation_mm": val(self.outside_violation_mm),
                     "overall_width_mm": val(self.overall_width_mm),
+                    "extent_mm": val(self.extent_mm),
                     "track_mm": val(self.track_mm),
                 })
         return rows
@@ -314,10 +357,11 @@ class ClearanceResult:
             if t >= 0 and k != "total_slot_length_mm":
                 entry["lean_deg"] = float(self.lean_deg[l])
                 entry["travel_mm"] = float(self.travel_mm[t])
-            ek = k.replace("_mm", "_error_mm")
-            if ek in s:
-                e = float(s[ek][candidate])
-                entry["error_mm"] = e if math.isfinite(e) else None
+            for suffix, name in (("_error_mm", "error_mm"), ("_lower_mm", "lower_mm")):
+                ek = k.replace("_mm", suffix)
+                if ek in s:
+                    e = float(s[ek][candidate])
+                    entry[name] = e if math.isfinite(e) else None
             out[k] = entry
         out["slot_length_mm"] = {n: (float(self.slot_length_mm[candidate, k])
                                      if np.isfinite(self.slot_length_mm[candidate, k]) else None)
@@ -346,30 +390,63 @@ class _Wheels:
         xs = mech.station_x_mm
         pts = sr.points
         centre_idx = np.array(model.wheel_centre)[w_i]
-        axis_pt = np.array([model.point_index[w.steer_axis_point or w.centre] for w in mech.wheels])[w_i]
         c = pts[cand, t_i, l_i, centre_idx]
-        P = pts[cand, t_i, l_i, axis_pt]
         self.cx = np.full(len(items), xs)
         self.cy, self.cz = c[:, 0], c[:, 1]
-        self.px, self.py, self.pz = self.cx, P[:, 0], P[:, 1]
         gam = sr.camber[cand, t_i, l_i, w_i]
         self.sg, self.cg = np.sin(gam), np.cos(gam)
+        cas = np.radians([w.caster_deg for w in mech.wheels])[w_i]
+        # the steering axis: through two upright points (front view) or a point and the kingpin angle
+        two = np.array([w.steer_axis is not None for w in mech.wheels])[w_i]
+        axis_a = np.array([model.point_index[w.steer_axis[0] if w.steer_axis else (w.steer_axis_point or w.centre)]
+                           for w in mech.wheels])[w_i]
+        axis_b = np.array([model.point_index[w.steer_axis[1] if w.steer_axis else w.centre]
+                           for w in mech.wheels])[w_i]
+        P = pts[cand, t_i, l_i, axis_a]
+        Q = pts[cand, t_i, l_i, axis_b]
+        self.px, self.py, self.pz = self.cx, P[:, 0], P[:, 1]
         beta = sr.body_angle[cand, t_i, l_i, np.array(model.wheel_upright)[w_i]]
         kpi = np.radians([w.kingpin_inclination_deg for w in mech.wheels])[w_i]
-        cas = np.radians([w.caster_deg for w in mech.wheels])[w_i]
         inboard = np.array([+1.0 if w.name == "left" else -1.0 for w in mech.wheels])[w_i]
         e0x, e0y, e0z = -np.tan(cas), inboard * np.tan(kpi), np.ones(len(items))
         nrm = np.sqrt(e0x ** 2 + e0y ** 2 + 1.0)
         e0x, e0y, e0z = e0x / nrm, e0y / nrm, e0z / nrm
         cb, sb = np.cos(beta), np.sin(beta)
-        self.ex, self.ey, self.ez = e0x, cb * e0y + sb * e0z, -sb * e0y + cb * e0z
+        ex, ey, ez = e0x, cb * e0y + sb * e0z, -sb * e0y + cb * e0z
+        # two points: the front-view direction upward, then the caster's rearward tilt
+        dy, dz = Q[:, 0] - P[:, 0], Q[:, 1] - P[:, 1]
+        up = np.where(dz < 0, -1.0, 1.0)
+        fy, fz = dy * up, dz * up
+        with np.errstate(divide="ignore", invalid="ignore"):
+            tx, ty = -np.tan(cas), fy / fz
+        n2 = np.sqrt(tx * tx + ty * ty + 1.0)
+        self.ex = np.where(two, tx / n2, ex)
+        self.ey = np.where(two, ty / n2, ey)
+        self.ez = np.where(two, 1.0 / n2, ez)
         R = geom.outer_radius[cand, w_i]
+        self.R = R
         self.r = geom.crown_radius[cand, w_i]
         self.rho = R - self.r
+        self.hub_half = np.array([0.5 * w.hub_width_mm for w in mech.wheels])[w_i]
+        self.hub_zone = np.array([w.hub_radius_mm for w in mech.wheels])[w_i]
         self.lean = np.radians(sr.lean_deg)[l_i]
-        self.delta_max = np.radians(max_steer_deg(mech, sr.lean_deg))[l_i]
+        steered = np.array([w.steered for w in mech.wheels])[w_i]
+        self.delta_max = np.where(steered, np.radians(max_steer_deg(mech, sr.lean_deg))[l_i], 0.0)
         off = np.sqrt((self.cy - self.py) ** 2 + (self.cz - self.pz) ** 2)
         self.arm = off + self.rho                    # largest distance of a crown point from the axis point
+        self.reach = np.maximum(R, self.hub_half)        # largest distance of a solid point from its centre
+
+    def solid_items(self) -> np.ndarray:
+        """The item array of :func:`tiltopt.kinematics.wheel_solid.search`, shape (n, N_ITEM)."""
+        S = _solid
+        q = np.empty((len(self.r), S.N_ITEM))
+        cols = {S.CX: self.cx, S.CY: self.cy, S.CZ: self.cz, S.NX: 0.0, S.NY: self.cg, S.NZ: -self.sg,
+                S.PX: self.px, S.PY: self.py, S.PZ: self.pz, S.EX: self.ex, S.EY: self.ey, S.EZ: self.ez,
+                S.RHOC: self.rho, S.RT: self.r, S.WH: self.hub_half, S.RHOH: self.hub_zone,
+                S.DMAX: self.delta_max, S.REACH: self.reach}
+        for k, v in cols.items():
+            q[:, k] = v
+        return q
 
     def crown(self, idx, delta, theta):
         """World crown-circle points, each of shape delta.shape == theta.shape == (n, m)."""
@@ -597,7 +674,7 @@ def _segment_distance(px, py, pz, ay, az, by, bz, x0):
 
 
 # ---------------------------------------------------------------------- main
-def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell: Shell,
+def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell: Shell | None,
                        settings: ClearanceSettings | None = None) -> ClearanceResult:
     """Clearances of many candidates over their envelope, in one batch.
 
@@ -608,8 +685,9 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
         The candidates the sweep was run on (default: the mechanism itself).
     sweep_result : SweepResult
         ``sweep(model, geom, lean_deg, travel_mm)``; arrays (C, T, L, ...).
-    shell : Shell
-        The body shell, fixed to the chassis.
+    shell : Shell or None
+        The body shell, fixed to the chassis; None: no shell (the wheel solids, members, the two
+        wheels, widths and the tubes' ground clearance are still checked).
     settings : ClearanceSettings, optional
 
     Returns
@@ -653,55 +731,36 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
         return f
 
     compiled = st.kernel == "compiled"
-    if compiled:
+    if shell is None:                                   # nothing to clear the tyres of
+        ws_val, ws_steer, ws_err = np.full(len(W.r), np.inf), np.zeros(len(W.r)), np.zeros(len(W.r))
+    elif compiled:
         ws_val, ws_steer, _, ws_err = _search_compiled(W, st, it_trans, shell)
     else:
         grid = _coarse_grid(W, st)
         cheap = shell_fun(True)
         ws_val, ws_steer, _, ws_err = _search(W, shell_fun(False), cheap, st, grid, early_pfun=cheap)
 
+    n = len(W.r)
     if M:
-        n = len(W.r)
-        idx_all = np.arange(n)
-        ends_a = pts[W.cand, W.t, W.l][:, mem.ia]                          # (n, M, 2)
-        ends_b = pts[W.cand, W.t, W.l][:, mem.ib]
-        excl = mem.carries[W.w]                                            # (n, M)
-        # every crown point lies within `arm` of the steering-axis point: a lower bound per member
-        lb = _segment_distance(W.px[:, None], W.py[:, None], W.pz[:, None], ends_a[..., 0], ends_a[..., 1],
-                               ends_b[..., 0], ends_b[..., 1], xs)[:, 0] - mem.radius - (W.arm + W.r)[:, None]
-        lb = np.where(excl, np.inf, lb)
-        k = max(1, min(int(np.max(np.sum(~excl, axis=1))), _NEAREST_MEMBERS))
-        order = np.argsort(lb, axis=1)
-        keep, drop = order[:, :k], order[:, k:]
-        ka = np.take_along_axis(ends_a, keep[..., None], 1)
-        kb = np.take_along_axis(ends_b, keep[..., None], 1)
-        krad = mem.radius[keep]
-        kex = np.take_along_axis(excl, keep, 1)
-
-        def link_fun(idx, x, y, z):
-            dt = y.dtype
-            a_, b_ = ka[idx].astype(dt), kb[idx].astype(dt)
-            d = _segment_distance(x, y, z, a_[..., 0], a_[..., 1], b_[..., 0], b_[..., 1], xs)
-            d = np.where(kex[idx][:, None, :], np.inf, d - krad[idx][:, None, :].astype(dt))
-            return np.min(d, axis=-1) - W.r[idx][:, None].astype(dt)
-
-        if compiled:
-            wl_val, wl_steer, wl_theta, wl_err = _search_compiled(
-                W, st, it_trans, members=(ka, kb, krad, kex), xs=xs)
-        else:
-            wl_val, wl_steer, wl_theta, wl_err = _search(W, link_fun, link_fun, st, grid)
-        # members left out of the search can only lower the minimum down to their bound
-        if drop.shape[1]:
-            lb_drop = np.min(np.take_along_axis(lb, drop, 1), axis=1)
-            wl_err = np.where(lb_drop < wl_val, np.maximum(wl_err, wl_val - lb_drop), wl_err)
-        x, y, z = W.crown(idx_all, wl_steer[:, None], wl_theta[:, None])
-        d = _segment_distance(x, y, z, ka[..., 0], ka[..., 1], kb[..., 0], kb[..., 1], xs)[:, 0]
-        d = np.where(kex, np.inf, d - krad)
-        best = np.take_along_axis(keep, np.argmin(d, axis=1)[:, None], 1)[:, 0]
-        wl_member = np.where(np.isfinite(wl_val), best, -1)
+        # the wheel solid against every member: the other members over the steer range, the
+        # upright's own tubes straight ahead with the hub zone left out (wheel_solid module docs)
+        mem_arr = np.empty((n, M, _solid.N_MEM))
+        P_it = pts[W.cand, W.t, W.l]
+        mem_arr[..., _solid.AY], mem_arr[..., _solid.AZ] = P_it[:, mem.ia, 0], P_it[:, mem.ia, 1]
+        mem_arr[..., _solid.BY], mem_arr[..., _solid.BZ] = P_it[:, mem.ib, 0], P_it[:, mem.ib, 1]
+        mem_arr[..., _solid.RAD] = mem.radius[None, :]
+        mem_arr[..., _solid.CLS] = np.where(mem.carries[W.w], _solid.CARRIER, _solid.OTHER)
+        mem_arr[..., _solid.OWN] = mem.own[W.w]
+        mem_arr[..., _solid.IDX] = np.arange(M)[None, :]
+        sol = np.empty((n, _solid.N_CLASSES, 4))
+        if n:
+            _solid.search(W.solid_items(), mem_arr, float(xs), sol)
+        wl_val, wl_err, wl_member, wl_steer = (sol[:, _solid.OTHER, k] for k in range(4))
+        wc_val, wc_err, wc_member, wc_steer = (sol[:, _solid.CARRIER, k] for k in range(4))
+        wl_member, wc_member = wl_member.astype(int), wc_member.astype(int)
     else:
-        n = len(W.r)
         wl_val, wl_steer, wl_err, wl_member = np.full(n, np.inf), np.zeros(n), np.zeros(n), np.full(n, -1)
+        wc_val, wc_steer, wc_err, wc_member = np.full(n, np.inf), np.zeros(n), np.zeros(n), np.full(n, -1)
 
     def scatter(v, fill=np.nan, dtype=float):
         out = np.full(C * T * L * 2, fill, dtype=dtype)
@@ -719,7 +778,7 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
                          np.take_along_axis(ws_steer_deg, wsel[..., None], -1)[..., 0])
     steer_deg = np.where(conv, steer_deg, np.nan)
 
-    # ------------------------------------------------- width and ground
+    # ------------------------------------------------- widths, the two wheels, ground
     S = st.steer_samples if (W.delta_max > 0).any() else 1
     sg = np.linspace(-1.0, 1.0, S) if S > 1 else np.zeros(1)
     delta = W.delta_max[:, None] * sg                                      # (n, S)
@@ -729,22 +788,40 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
                   cd, sd)[1] + W.py[:, None]
     fy = _rotate(1.0, 0.0, 0.0, W.ex[sl_], W.ey[sl_], W.ez[sl_], cd, sd)[1]
     uy = _rotate(0.0, W.sg[sl_], W.cg[sl_], W.ex[sl_], W.ey[sl_], W.ez[sl_], cd, sd)[1]
-    half = W.rho[:, None] * np.sqrt(fy * fy + uy * uy) + W.r[:, None]
+    ny = _rotate(0.0, W.cg[sl_], -W.sg[sl_], W.ex[sl_], W.ey[sl_], W.ez[sl_], cd, sd)[1]
+    # lateral reach of the solid: the tyre (crown circle in the wheel plane, swept by r) or the hub
+    half = np.maximum(W.rho[:, None] * np.sqrt(fy * fy + uy * uy) + W.r[:, None], W.hub_half[:, None] * np.abs(ny))
     right = scatter(np.max(ccy + half, axis=1))
     left = scatter(np.min(ccy - half, axis=1))
+    reach0 = _solid.lateral_reach(W.R, W.r, W.hub_half, np.arcsin(np.clip(W.sg, -1, 1)))
+    right0, left0 = scatter(W.cy + reach0), scatter(W.cy - reach0)        # straight ahead
     ty, tz = trans[..., 0], trans[..., 1]
     cl1, sl1 = np.cos(np.radians(sr.lean_deg)), np.sin(np.radians(sr.lean_deg))   # (L,): the shell's
-    sh_right = ty + support(shell, np.stack([cl1, sl1], -1))                # extents depend on the lean only
-    sh_left = ty - support(shell, np.stack([-cl1, -sl1], -1))
-    width = np.maximum(np.max(right, -1), sh_right) - np.minimum(np.min(left, -1), sh_left)
-    width = np.where(conv, width, np.nan)
-    ground_shell = tz - support(shell, np.stack([sl1, -cl1], -1))
+    if shell is not None:                                                   # extents depend on the lean only
+        sh_right = ty + support(shell, np.stack([cl1, sl1], -1))
+        sh_left = ty - support(shell, np.stack([-cl1, -sl1], -1))
+        ground_shell = tz - support(shell, np.stack([sl1, -cl1], -1))
+    else:
+        sh_right, sh_left, ground_shell = np.full((C, T, L), -np.inf), np.full((C, T, L), np.inf), np.full(
+            (C, T, L), np.inf)
+    extent = np.maximum(np.max(right, -1), sh_right) - np.minimum(np.min(left, -1), sh_left)
+    extent = np.where(conv, extent, np.nan)
+    extent0 = np.maximum(np.max(right0, -1), sh_right) - np.minimum(np.min(left0, -1), sh_left)
+    extent0 = np.where(conv, extent0, np.nan)
+    # the two wheels against each other (front view, straight ahead: exact at one station)
+    hubs = pts[..., np.array(model.wheel_centre), :]                        # (C, T, L, 2, 2)
+    pair = _solid.pair_gap(hubs[..., 0], hubs[..., 1], sr.camber, geom.outer_radius[:, None, None, :],
+                           geom.crown_radius[:, None, None, :],
+                           np.array([0.5 * w.hub_width_mm for w in mech.wheels])[None, None, None, :])
+    pair = np.where(conv, pair, np.nan)
     if M:
         za, zb = pts[..., mem.ia, 1], pts[..., mem.ib, 1]
         ground_tubes = np.min(np.minimum(za, zb) - mem.radius, axis=-1)
     else:
         ground_tubes = np.full((C, T, L), np.inf)
     ground = np.where(conv[..., None], np.stack([ground_shell, ground_tubes], -1), np.nan)
+    member_gap, member_pair = _member_gaps(model, mem, pts)
+    member_gap = np.where(conv, member_gap, np.nan)
 
     # ------------------------------------------------- tubes and the shell
     inside_v = np.zeros((C, T, L))
@@ -752,7 +829,7 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
     through = [k for k in range(M) if mem.role[k] == "through"]
     slot_pos = np.full((C, T, L, len(through)), np.nan)
     slot_len = np.zeros((C, len(through)))
-    if M:
+    if M and shell is not None:
         A = to_chassis_frame(pts[..., mem.ia, :], trans[..., None, :], lean[..., None])   # (C, T, L, M, 2)
         B = to_chassis_frame(pts[..., mem.ib, :], trans[..., None, :], lean[..., None])
         for role, sign in (("inside", +1.0), ("outside", -1.0)):
@@ -791,11 +868,72 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
         wheel_shell_mm=wheel_shell, wheel_shell_error_mm=scatter(ws_err), wheel_shell_steer_deg=ws_steer_deg,
         wheel_link_mm=wheel_link, wheel_link_error_mm=scatter(wl_err), wheel_link_steer_deg=wl_steer_deg,
         wheel_link_member=scatter(wl_member, -1, int),
+        wheel_carrier_mm=scatter(wc_val), wheel_carrier_error_mm=scatter(wc_err),
+        wheel_carrier_steer_deg=scatter(np.degrees(wc_steer)), wheel_carrier_member=scatter(wc_member, -1, int),
+        wheel_pair_mm=pair, member_gap_mm=member_gap,
         max_steer_deg=np.where(conv, np.broadcast_to(max_steer_deg(mech, sr.lean_deg), (C, T, L)), np.nan),
-        steer_deg=steer_deg, ground_mm=ground, overall_width_mm=width,
+        steer_deg=steer_deg, ground_mm=ground, overall_width_mm=extent0, extent_mm=extent,
         track_mm=np.where(conv, sr.track, np.nan), inside_violation_mm=inside_v, outside_violation_mm=outside_v,
         slot_length_mm=slot_len, slot_position_mm=slot_pos, member_names=list(mem.names),
-        through_names=[mem.names[k] for k in through], settings=st)
+        through_names=[mem.names[k] for k in through], settings=st, has_shell=shell is not None)
+
+
+def member_pairs(model: Model, mem: Members) -> np.ndarray:
+    """Pairs (i, j) of members that must keep clear of each other. Left out: members of one body or of
+    two bodies joined by a pin or slider (they meet at the joint; the two bodies of a slider count as
+    one with each other's neighbours), a link and the bodies it attaches to, and the chassis' tubes
+    (the chassis is a frame the members pass beside). Shape (n_pairs, 2)."""
+    mech = model.mech
+    near: dict[str, set[str]] = {b: {b} for b in mech.bodies}
+    for j in (*((p.a, p.b) for p in mech.pins), *((s.a_from, s.b) for s in mech.sliders)):
+        ba, bb = split_ref(j[0])[0], split_ref(j[1])[0]
+        near[ba].add(bb)
+        near[bb].add(ba)
+    # a telescopic assembly (two bodies joined by a slider) meets its neighbours as one body: the
+    # inner tube runs inside the outer one, past the outer one's joints
+    for s_ in mech.sliders:
+        ba, bb = split_ref(s_.a_from)[0], split_ref(s_.b)[0]
+        both = near[ba] | near[bb]
+        near[ba], near[bb] = set(both), set(both)
+    links = {l.name: (split_ref(l.a)[0], split_ref(l.b)[0]) for l in mech.links}
+    touch = []
+    for k, nm in enumerate(mem.names):
+        bodies = set(links[nm]) if nm in links else {model.body_names[model.point_body[mem.ia[k]]]}
+        touch.append(bodies)
+    frame = [t == {mech.chassis} for t in touch]          # the chassis' own tubes
+    out = [(i, j) for i in range(len(mem)) for j in range(i + 1, len(mem))
+           if not (frame[i] or frame[j])
+           and not any(b in near[a] or a in near[b] for a in touch[i] for b in touch[j])]
+    return np.array(out, dtype=int).reshape(-1, 2)
+
+
+def _segments_gap(a1, a2, b1, b2):
+    """Distance between 2-D segments a1-a2 and b1-b2 (..., 2), 0 where they cross."""
+    pseg = _solid.point_segment_distance
+
+    def side(o, u, v):
+        return (u[..., 0] - o[..., 0]) * (v[..., 1] - o[..., 1]) - (u[..., 1] - o[..., 1]) * (v[..., 0] - o[..., 0])
+
+    d = np.minimum(np.minimum(pseg(a1, b1, b2), pseg(a2, b1, b2)), np.minimum(pseg(b1, a1, a2), pseg(b2, a1, a2)))
+    cross = (side(a1, a2, b1) * side(a1, a2, b2) < 0) & (side(b1, b2, a1) * side(b1, b2, a2) < 0)
+    return np.where(cross, 0.0, d)
+
+
+def _member_gaps(model: Model, mem: Members, pts):
+    """Smallest gap between the tubes of two members (:func:`member_pairs`) at every state.
+
+    Returns (gap (C, T, L): distance between the tube surfaces, negative where they overlap; +inf
+    without pairs, and the pair index of the smallest).
+    """
+    pairs = member_pairs(model, mem)
+    shape = pts.shape[:3]
+    if not len(pairs):
+        return np.full(shape, np.inf), np.full(shape, -1)
+    i, j = pairs[:, 0], pairs[:, 1]
+    d = _segments_gap(pts[..., mem.ia[i], :], pts[..., mem.ib[i], :], pts[..., mem.ia[j], :], pts[..., mem.ib[j], :])
+    d = d - mem.radius[i] - mem.radius[j]
+    k = np.argmin(d, axis=-1)
+    return np.take_along_axis(d, k[..., None], -1)[..., 0], k
 
 
 def _tube_extreme(shell: Shell, a, b, x0, sign, st: ClearanceSettings):
