@@ -249,6 +249,10 @@ def check_config_lines(path: str | Path) -> list[str]:
         lines.append(f"states per candidate: {size['states_per_candidate']} ({size.get('n_lean')} leans x "
                      f"{size.get('n_travel')} travels); clearance {'on' if size.get('clearance') else 'off'}, "
                      f"sizing {'on' if size.get('sizing') else 'off'}")
+        lines.append("requirements (constraint: limit, where it comes from):")
+        for q in cfg.spec.limits.requirements(cfg.spec.constraints):
+            lim = "" if q["limit"] is None or isinstance(q["limit"], bool) else f" {q['key']} = {q['limit']:g} {q['unit']}"
+            lines.append(f"  {q['name']}:{lim or ' on'} ({q['source']})")
     else:
         lines.append(f"problem: benchmark '{size['benchmark']}', {size['n_var']} variables, {size['n_obj']} objectives, "
                      f"{size['n_constr']} constraints; states per candidate: 1")

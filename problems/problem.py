@@ -13,17 +13,24 @@ converge at any envelope state, gets ``G[converged] > 0`` and a reason, and
 penalty objectives (finite, fixed per problem, worse than any real design:
 multiples of the template's extent ``size_mm``); F and G never hold inf or NaN.
 
-Definitions (see also docs/domain.md):
+Definitions (docs/domain.md):
 
-- ``overall_width_mm``: the largest, over every envelope state, lateral extent
-  of the two tyres' front-view outlines. A tyre (torus R, r) seen from the
-  front is the band of half-width r around its wheel-plane segment of
-  half-length R - r through the hub, so wheel k reaches
-  ``y_hub ± ((R - r)|sin camber| + r)``; with a body shell, the larger of that
-  and the clearance part's ``max_overall_width_mm`` (the leaning shell).
-  ``design_width_mm`` is the same figure at rest (lean 0, travel 0).
+- ``overall_width_mm``: the width of the upright vehicle (lean 0, wheels straight
+  ahead, the largest over the travels): the wheel solids' front-view outlines, or the
+  body shell where wider; the figure ``max_width_mm`` limits. ``design_width_mm`` is
+  the same at rest (travel 0), from the design geometry alone.
+- ``lean_sweep_width_mm``: the lateral extent of the leaning vehicle over the whole
+  envelope, wheels through their steer range.
 - ``max_scrub_mm``, ``max_heave_mm``: max |scrub|, max |heave| over the envelope.
 - ``max_camber_error_deg``: max |camber - lean| of either wheel over the envelope.
+- the clearance figures of :meth:`tiltopt.kinematics.clearance.ClearanceResult.summary`
+  (the part runs for every design, with or without a shell); margins are met by
+  their conservative ``..._lower_mm`` figures.
+
+Each constraint of :data:`tiltopt.problems.registry.CONSTRAINTS` carries its value
+(from the metrics), its reason text and a violation scale: ``G`` is the value divided
+by its scale, so the violations pymoo sums weigh millimetres, degrees and newtons
+fairly; the reason gives the value in its unit.
 """
 from __future__ import annotations
 
@@ -41,22 +48,36 @@ from .registry import CONSTRAINTS, OBJECTIVES
 from .spec import ProblemSpec
 
 #: penalty objective per name, as (multiple of the template size in mm) or a fixed value
-PENALTY_SIZE_FACTOR = {"overall_width": 4.0, "max_scrub": 2.0, "max_heave": 2.0, "min_clearance": 1.0,
-                       "slot_length": 10.0}
+PENALTY_SIZE_FACTOR = {"overall_width": 4.0, "lean_sweep_width": 4.0, "max_scrub": 2.0, "max_heave": 2.0,
+                       "min_clearance": 1.0, "slot_length": 10.0}
 PENALTY_FIXED = {"max_camber_error": 90.0, "linkage_mass": 1000.0}
 
 METRIC_UNITS = {
-    "overall_width_mm": "mm", "tyre_envelope_width_mm": "mm", "design_width_mm": "mm", "design_track_mm": "mm",
+    "overall_width_mm": "mm", "lean_sweep_width_mm": "mm", "design_width_mm": "mm", "design_track_mm": "mm",
     "max_scrub_mm": "mm", "max_heave_mm": "mm", "max_camber_error_deg": "deg", "max_track_change_mm": "mm",
-    "max_lean_point_offset_mm": "mm", "failed_state_share": "1", "max_bump_track_change_mm": "mm",
+    "max_lean_point_offset_mm": "mm", "max_bump_track_change_mm": "mm",
     "max_bump_camber_change_deg": "deg", "motion_ratio": "1",
-    "min_wheel_shell_mm": "mm", "min_wheel_link_mm": "mm", "min_clearance_mm": "mm", "min_ground_mm": "mm",
-    "max_overall_width_mm": "mm", "total_slot_length_mm": "mm", "inside_violation_mm": "mm",
-    "outside_violation_mm": "mm", "pivot_shell_distance_mm": "mm",
-    "linkage_mass_kg": "kg", "max_utilisation": "1", "tilt_lock_torque_nm": "N*m",
+    "min_wheel_shell_mm": "mm", "min_wheel_shell_error_mm": "mm", "min_wheel_shell_lower_mm": "mm",
+    "min_wheel_link_mm": "mm", "min_wheel_link_error_mm": "mm", "min_wheel_link_lower_mm": "mm",
+    "min_wheel_carrier_mm": "mm", "min_wheel_carrier_error_mm": "mm", "min_wheel_carrier_lower_mm": "mm",
+    "min_wheel_pair_mm": "mm", "min_member_gap_mm": "mm", "min_clearance_mm": "mm", "min_clearance_error_mm": "mm",
+    "min_clearance_lower_mm": "mm", "min_ground_mm": "mm", "total_slot_length_mm": "mm",
+    "inside_violation_mm": "mm", "outside_violation_mm": "mm", "pivot_shell_distance_mm": "mm",
+    "linkage_mass_kg": "kg", "max_utilisation": "1", "tilt_lock_torque_nm": "N*m", "min_wheel_load_n": "N",
 }
-CLEARANCE_KEYS = ("min_wheel_shell_mm", "min_wheel_link_mm", "min_clearance_mm", "min_ground_mm",
-                  "max_overall_width_mm", "total_slot_length_mm", "inside_violation_mm", "outside_violation_mm")
+#: scaled violation of a design that fails to assemble or converge, times (1 + share of failed states)
+FAILED_G = 1.0e4
+#: the clearance part's summary keys a problem keeps as metrics
+CLEARANCE_KEYS = ("min_wheel_shell_mm", "min_wheel_shell_error_mm", "min_wheel_shell_lower_mm",
+                  "min_wheel_link_mm", "min_wheel_link_error_mm", "min_wheel_link_lower_mm",
+                  "min_wheel_carrier_mm", "min_wheel_carrier_error_mm", "min_wheel_carrier_lower_mm",
+                  "min_wheel_pair_mm", "min_member_gap_mm", "min_clearance_mm", "min_clearance_error_mm",
+                  "min_clearance_lower_mm",
+                  "min_ground_mm", "overall_width_mm", "lean_sweep_width_mm", "total_slot_length_mm",
+                  "inside_violation_mm", "outside_violation_mm")
+SHELL_ONLY_KEYS = ("min_wheel_shell_mm", "min_wheel_shell_error_mm", "min_wheel_shell_lower_mm",
+                   "total_slot_length_mm", "inside_violation_mm", "outside_violation_mm")
+SIZING_KEYS = ("linkage_mass_kg", "max_utilisation", "tilt_lock_torque_nm", "min_wheel_load_n")
 
 
 @dataclass
@@ -128,11 +149,33 @@ class TiltProblem(Problem):
                       + [l.b for l in mech.links] + [s.a for s in mech.springs] + [s.b for s in mech.springs]
                       + [s.a_from for s in mech.sliders] + [s.a_to for s in mech.sliders])
         refs = sorted({r for r in joint_refs if r.split(".")[0] == ch}, key=self.model.point_index.get)
+        self._hub_half = np.array([0.5 * w.hub_width_mm for w in mech.wheels])
         self._chassis_joints = np.array([self.model.point_index[r] for r in refs], dtype=int)
         self._chassis_joint_refs = refs
         super().__init__(n_var=self.template.n_var, n_obj=len(self.objective_names),
                          n_ieq_constr=len(self.constraint_names), xl=self.template.xl, xu=self.template.xu,
                          elementwise=False)
+
+    #: share of the first population seeded round the base design (the rest is random in the bounds)
+    SEED_SHARE = 0.25
+    #: standard deviation of the seeded perturbations, as a share of each variable's range
+    SEED_SPREAD = 0.05
+
+    def initial_designs(self, n: int, seed: int) -> np.ndarray:
+        """The first population: the base design (a user's sketch), small perturbations of it, the rest
+        uniform in the bounds; the same for the same seed.
+
+        Returns
+        -------
+        ndarray of shape (n, n_var)
+        """
+        rng = np.random.default_rng([int(seed), 0x7111])
+        lo, hi = self.template.xl, self.template.xu
+        x0 = np.clip(self.template.defaults, lo, hi)
+        k = max(1, int(round(self.SEED_SHARE * n))) if n > 1 else 1
+        near = x0 + rng.normal(0.0, self.SEED_SPREAD, size=(k - 1, len(x0))) * (hi - lo)
+        rest = lo + rng.random((n - k, len(x0))) * (hi - lo)
+        return np.vstack([x0[None], np.clip(near, lo, hi), rest])
 
     # ---------------------------------------------------------------- pymoo
     def _evaluate(self, x, out, *args, **kwargs):
@@ -154,167 +197,25 @@ class TiltProblem(Problem):
         """
         X = np.atleast_2d(np.asarray(X, dtype=float))
         n = len(X)
-        spec, tpl, model = self.spec, self.template, self.model
-        env = spec.envelope
-        nan = lambda: np.full(n, np.nan)  # noqa: E731
-        metrics: dict[str, np.ndarray] = {}
-        geom = tpl.geometry(X)
-        geom_ok, geom_reason = tpl.check_geometry(geom)
+        geom = self.template.geometry(X)
+        geom_ok, geom_reason = self.template.check_geometry(geom)
         reasons: list[list[str]] = [[r] if r else [] for r in geom_reason]
-        failed_share = np.ones(n)
-        all_conv = np.zeros(n, dtype=bool)
-
-        # design-position figures (no solve needed)
-        R, r, g0 = geom.outer_radius, geom.crown_radius, geom.static_camber
-        hub = geom.points[:, model.wheel_centre]                       # (n, 2, 2)
-        reach = (R - r) * np.abs(np.sin(g0)) + r
-        metrics["design_width_mm"] = np.where(geom_ok, np.max(hub[..., 0] + reach, 1) - np.min(hub[..., 0] - reach, 1),
-                                              np.nan)
-        cy = hub[..., 0] - (R - r) * np.sin(g0)
-        metrics["design_track_mm"] = np.where(geom_ok, cy[:, 1] - cy[:, 0], np.nan)
-        for k in ("overall_width_mm", "tyre_envelope_width_mm", "max_scrub_mm", "max_heave_mm",
-                  "max_camber_error_deg", "max_track_change_mm", "max_lean_point_offset_mm"):
-            metrics[k] = nan()
-        sprung = bool(len(model.spring_names))
-        if sprung:
-            for k in ("max_bump_track_change_mm", "max_bump_camber_change_deg", "motion_ratio"):
-                metrics[k] = nan()
-        if spec.needs_clearance:
-            for k in CLEARANCE_KEYS + ("pivot_shell_distance_mm",):
-                metrics[k] = nan()
-        if spec.needs_sizing:
-            for k in ("linkage_mass_kg", "max_utilisation", "tilt_lock_torque_nm"):
-                metrics[k] = nan()
-        sizing_feasible = np.zeros(n, dtype=bool)
-
+        metrics = {k: np.full(n, np.nan) for k in self._metric_names()}
+        state = {"failed_share": np.ones(n), "all_conv": np.zeros(n, dtype=bool),
+                 "sizing_feasible": np.zeros(n, dtype=bool)}
+        self._design_metrics(geom, geom_ok, metrics)
         idx = np.flatnonzero(geom_ok)
         if len(idx):
             g = geom.take(idx)
-            sr = sweep(model, g, env.lean_deg, env.travel_mm, self.sweep_settings)
-            conv = sr.converged                                           # (m, T, L)
-            ok = conv.all(axis=(1, 2))
-            all_conv[idx] = ok
-            failed_share[idx] = 1.0 - conv.mean(axis=(1, 2))
-            okc = ok[:, None, None]
+            sr = sweep(self.model, g, self.spec.envelope.lean_deg, self.spec.envelope.travel_mm, self.sweep_settings)
+            ok = self._sweep_metrics(sr, idx, metrics, state, reasons)
+            self._clearance_metrics(g, sr, idx, ok, metrics)
+            if self.spec.needs_sizing:
+                self._sizing_metrics(g, idx, ok, metrics, state, reasons)
 
-            def worst(a, scale=1.0):
-                a = np.abs(a).reshape(len(idx), -1)
-                v = np.max(np.where(np.isfinite(a), a, -np.inf), axis=1) * scale
-                return np.where(ok, v, np.nan)
-
-            metrics["max_scrub_mm"][idx] = worst(sr.scrub)
-            metrics["max_heave_mm"][idx] = worst(sr.heave)
-            metrics["max_camber_error_deg"][idx] = worst(sr.camber_error, 180.0 / math.pi)
-            metrics["max_track_change_mm"][idx] = worst(sr.track_change)
-            metrics["max_lean_point_offset_mm"][idx] = worst(sr.lean_point_offset)
-            # tyre outlines over the envelope
-            hy = sr.points[..., model.wheel_centre, 0]                    # (m, T, L, 2)
-            gR, gr = g.outer_radius[:, None, None, :], g.crown_radius[:, None, None, :]
-            e = (gR - gr) * np.abs(np.sin(sr.camber)) + gr
-            w = np.max(hy + e, -1) - np.min(hy - e, -1)                   # (m, T, L)
-            tw = np.where(ok, np.max(np.where(okc, w, -np.inf).reshape(len(idx), -1), 1), np.nan)
-            metrics["tyre_envelope_width_mm"][idx] = tw
-            metrics["overall_width_mm"][idx] = tw
-            if sprung:
-                tok = np.all(np.isfinite(sr.bump_track_change), axis=1) & ok
-                metrics["max_bump_track_change_mm"][idx] = np.where(
-                    tok, np.max(np.abs(np.nan_to_num(sr.bump_track_change)), 1), np.nan)
-                metrics["max_bump_camber_change_deg"][idx] = np.where(
-                    tok, np.degrees(np.max(np.abs(np.nan_to_num(sr.bump_camber_change)).reshape(len(idx), -1), 1)),
-                    np.nan)
-                t0 = int(np.argmin(np.abs(env.travel_mm)))
-                metrics["motion_ratio"][idx] = np.where(ok, np.mean(sr.motion_ratio[:, t0], axis=-1), np.nan)
-            # first failed state of each non-converged candidate
-            for j in np.flatnonzero(~ok):
-                bad_tl = np.argwhere(~conv[j])
-                tried = bad_tl[sr.status[j][~conv[j]] != SKIPPED]   # prefer a state that was tried
-                t, l = (tried if len(tried) else bad_tl)[0]
-                k = int((~conv[j]).sum())
-                reasons[idx[j]].append(
-                    f"not converged: {k} of {conv[j].size} envelope states failed (first: lean "
-                    f"{env.lean_deg[l]:g} deg, travel {env.travel_mm[t]:g} mm: {STATUS_TEXT[int(sr.status[j, t, l])]})")
-
-            if spec.needs_clearance:
-                from tiltopt.kinematics.clearance import evaluate_clearance
-                from tiltopt.kinematics.shell import shell_signed_distance
-                summ = evaluate_clearance(model, g, sr, spec.shell).summary()
-                for k in CLEARANCE_KEYS:
-                    if k in summ:   # +-inf (nothing to measure, e.g. no links) is reported as NaN
-                        v = np.asarray(summ[k], float)
-                        metrics[k][idx] = np.where(ok & np.isfinite(v), v, np.nan)
-                shell_w = metrics["max_overall_width_mm"][idx]
-                metrics["overall_width_mm"][idx] = np.where(np.isfinite(shell_w), np.fmax(tw, shell_w), np.nan)
-                if len(self._chassis_joints):
-                    d = shell_signed_distance(spec.shell, g.points[:, self._chassis_joints],
-                                              tpl.mechanism.station_x_mm)
-                    metrics["pivot_shell_distance_mm"][idx] = np.max(d, axis=1)
-            if spec.needs_sizing:
-                from tiltopt.kinematics.sizing import size_linkage
-                sz = size_linkage(model, g, spec.loads)
-                metrics["linkage_mass_kg"][idx] = np.where(ok, sz.linkage_mass_kg, np.nan)
-                metrics["max_utilisation"][idx] = np.where(ok, sz.max_utilisation, np.nan)
-                metrics["tilt_lock_torque_nm"][idx] = np.where(ok, sz.tilt_lock_torque_nm, np.nan)
-                sizing_feasible[idx] = np.asarray(sz.feasible, bool) & ok
-                for j in np.flatnonzero(ok & ~np.asarray(sz.feasible, bool)):
-                    if "stress" in self.constraint_names or "linkage_mass" in self.objective_names:
-                        reasons[idx[j]].append(f"stress: {sz.reason[j] or 'sizing failed'}")
-
-        # -------------------------------------------------------- objectives
-        base_ok = geom_ok & all_conv
-        V = np.column_stack([OBJECTIVES[o].sign * metrics[OBJECTIVES[o].metric] for o in self.objective_names])
-        finite = np.isfinite(V)
-        bad_obj = base_ok & ~finite.all(axis=1)   # a design whose objectives are unknown is failed, not scored
-        for j in np.flatnonzero(bad_obj):
-            reasons[j].append("could not evaluate " + ", ".join(
-                o for o, f in zip(self.objective_names, finite[j]) if not f))
-        scored = base_ok & ~bad_obj
-        F = np.where(scored[:, None], np.minimum(np.nan_to_num(V, nan=0.0), self.penalty[None]), self.penalty[None])
-
-        # -------------------------------------------------------- constraints
-        G = np.zeros((n, len(self.constraint_names)))
-        lim = spec.limits
-        size = self.size_mm
-        fail = ~(geom_ok & all_conv) | bad_obj
-        for k, name in enumerate(self.constraint_names):
-            if name == "converged":
-                G[:, k] = np.where(fail, size * (1.0 + np.where(bad_obj, 1.0, failed_share)), 0.0)
-                continue
-            if name == "max_width":
-                val, msg = metrics["overall_width_mm"] - lim.max_width_mm, "overall width {v:.1f} mm over the limit"
-            elif name == "max_scrub":
-                val, msg = metrics["max_scrub_mm"] - lim.max_scrub_mm, "max scrub {v:.2f} mm over the limit"
-            elif name == "max_heave":
-                val, msg = metrics["max_heave_mm"] - lim.max_heave_mm, "max heave {v:.2f} mm over the limit"
-            elif name == "max_camber_error":
-                val, msg = (metrics["max_camber_error_deg"] - lim.max_camber_error_deg,
-                            "max camber error {v:.2f} deg over the limit")
-            elif name == "clearance":
-                val, msg = (lim.clearance_margin_mm - metrics["min_clearance_mm"],
-                            "min clearance {v:.1f} mm short of the margin")
-            elif name == "wheel_shell":
-                val, msg = (lim.wheel_shell_margin_mm - metrics["min_wheel_shell_mm"],
-                            "wheel-shell clearance {v:.1f} mm short of the margin")
-            elif name == "ground_clearance":
-                val, msg = (lim.ground_clearance_mm - metrics["min_ground_mm"],
-                            "ground clearance {v:.1f} mm short of the limit")
-            elif name == "shell_roles":
-                val = np.fmax(metrics["inside_violation_mm"], 0) + np.fmax(metrics["outside_violation_mm"], 0)
-                msg = "tubes outside their allowed side of the shell by {v:.1f} mm"
-            elif name == "pivots_inside_shell":
-                val, msg = (metrics["pivot_shell_distance_mm"] + lim.pivot_margin_mm,
-                            "a chassis pivot is {v:.1f} mm short of being inside the shell by the margin")
-            elif name == "stress":
-                u = metrics["max_utilisation"]
-                val = np.where(sizing_feasible, np.minimum(u - 1.0, 0.0),
-                               np.where(np.isfinite(u), np.maximum(u - 1.0, 0.01), 1.0))
-                msg = None   # its reason comes from the sizing part
-            else:  # pragma: no cover - the registry and this table are kept together
-                raise KeyError(name)
-            val = np.where(fail, 0.0, np.nan_to_num(val, nan=0.0, posinf=size, neginf=-size))
-            G[:, k] = val
-            if msg:
-                for j in np.flatnonzero(val > 0):
-                    reasons[j].append(f"{name}: " + msg.format(v=val[j]))
+        base_ok = geom_ok & state["all_conv"]
+        F, bad_obj = self._objectives(metrics, base_ok, reasons)
+        G = self._constraints(metrics, ~base_ok | bad_obj, state, bad_obj, reasons)
         violation = np.sum(np.maximum(G, 0.0), axis=1)
         feasible = violation <= 0.0
         reason = ["; ".join(rs) if not feasible[j] else "" for j, rs in enumerate(reasons)]
@@ -331,6 +232,131 @@ class TiltProblem(Problem):
             self.on_evaluation(ev)
         return ev
 
+    # ---------------------------------------------------------------- steps
+    def _metric_names(self) -> list[str]:
+        names = ["design_width_mm", "design_track_mm", "max_scrub_mm", "max_heave_mm", "max_camber_error_deg",
+                 "max_track_change_mm", "max_lean_point_offset_mm"]
+        if len(self.model.spring_names):
+            names += ["max_bump_track_change_mm", "max_bump_camber_change_deg", "motion_ratio"]
+        names += [k for k in CLEARANCE_KEYS if self.spec.shell is not None or k not in SHELL_ONLY_KEYS]
+        if self.spec.shell is not None:
+            names.append("pivot_shell_distance_mm")
+        if self.spec.needs_sizing:
+            names += list(SIZING_KEYS)
+        return names
+
+    def _design_metrics(self, geom, geom_ok, metrics):
+        """Figures of the design position (no solve needed): width and track at rest."""
+        from tiltopt.kinematics.wheel_solid import lateral_reach
+
+        R, r, g0 = geom.outer_radius, geom.crown_radius, geom.static_camber
+        hub = geom.points[:, self.model.wheel_centre]                      # (n, 2, 2)
+        reach = lateral_reach(R, r, self._hub_half[None, :], g0)
+        metrics["design_width_mm"] = np.where(geom_ok, np.max(hub[..., 0] + reach, 1) - np.min(hub[..., 0] - reach, 1),
+                                              np.nan)
+        cy = hub[..., 0] - (R - r) * np.sin(g0)
+        metrics["design_track_mm"] = np.where(geom_ok, cy[:, 1] - cy[:, 0], np.nan)
+
+    def _sweep_metrics(self, sr, idx, metrics, state, reasons) -> np.ndarray:
+        """Kinematic figures over the envelope; returns which of ``idx`` reached every state."""
+        env = self.spec.envelope
+        conv = sr.converged                                               # (m, T, L)
+        ok = conv.all(axis=(1, 2))
+        state["all_conv"][idx] = ok
+        state["failed_share"][idx] = 1.0 - conv.mean(axis=(1, 2))
+
+        def worst(a, scale=1.0):
+            a = np.abs(a).reshape(len(idx), -1)
+            v = np.max(np.where(np.isfinite(a), a, -np.inf), axis=1) * scale
+            return np.where(ok, v, np.nan)
+
+        metrics["max_scrub_mm"][idx] = worst(sr.scrub)
+        metrics["max_heave_mm"][idx] = worst(sr.heave)
+        metrics["max_camber_error_deg"][idx] = worst(sr.camber_error, 180.0 / math.pi)
+        metrics["max_track_change_mm"][idx] = worst(sr.track_change)
+        metrics["max_lean_point_offset_mm"][idx] = worst(sr.lean_point_offset)
+        if "motion_ratio" in metrics:
+            tok = np.all(np.isfinite(sr.bump_track_change), axis=1) & ok
+            metrics["max_bump_track_change_mm"][idx] = np.where(
+                tok, np.max(np.abs(np.nan_to_num(sr.bump_track_change)), 1), np.nan)
+            metrics["max_bump_camber_change_deg"][idx] = np.where(
+                tok, np.degrees(np.max(np.abs(np.nan_to_num(sr.bump_camber_change)).reshape(len(idx), -1), 1)),
+                np.nan)
+            t0 = int(np.argmin(np.abs(env.travel_mm)))
+            metrics["motion_ratio"][idx] = np.where(ok, np.mean(sr.motion_ratio[:, t0], axis=-1), np.nan)
+        for j in np.flatnonzero(~ok):          # the first failed state of each design that did not converge
+            bad_tl = np.argwhere(~conv[j])
+            tried = bad_tl[sr.status[j][~conv[j]] != SKIPPED]   # prefer a state that was tried
+            t, l = (tried if len(tried) else bad_tl)[0]
+            k = int((~conv[j]).sum())
+            reasons[idx[j]].append(
+                f"not converged: {k} of {conv[j].size} envelope states failed (first: lean "
+                f"{env.lean_deg[l]:g} deg, travel {env.travel_mm[t]:g} mm: {STATUS_TEXT[int(sr.status[j, t, l])]})")
+        return ok
+
+    def _clearance_metrics(self, g, sr, idx, ok, metrics):
+        """Wheel solids, members, the two wheels, widths (and with a shell: shell, slots, pivots)."""
+        from tiltopt.kinematics.clearance import evaluate_clearance
+        from tiltopt.kinematics.shell import shell_signed_distance
+
+        summ = evaluate_clearance(self.model, g, sr, self.spec.shell).summary()
+        for k in CLEARANCE_KEYS:
+            if k in metrics:   # +-inf (nothing to measure, e.g. no members) is reported as NaN
+                v = np.asarray(summ[k], float)
+                metrics[k][idx] = np.where(ok & np.isfinite(v), v, np.nan)
+        if self.spec.shell is not None and len(self._chassis_joints):
+            d = shell_signed_distance(self.spec.shell, g.points[:, self._chassis_joints],
+                                      self.template.mechanism.station_x_mm)
+            metrics["pivot_shell_distance_mm"][idx] = np.max(d, axis=1)
+
+    def _sizing_metrics(self, g, idx, ok, metrics, state, reasons):
+        from tiltopt.kinematics.sizing import size_linkage
+
+        sz = size_linkage(self.model, g, self.spec.loads)
+        for k in SIZING_KEYS:
+            metrics[k][idx] = np.where(ok, np.asarray(getattr(sz, k), float), np.nan)
+        state["sizing_feasible"][idx] = np.asarray(sz.feasible, bool) & ok
+        for j in np.flatnonzero(ok & ~np.asarray(sz.feasible, bool)):
+            if "stress" in self.constraint_names or "linkage_mass" in self.objective_names:
+                reasons[idx[j]].append(f"stress: {sz.reason[j] or 'sizing failed'}")
+
+    def _objectives(self, metrics, base_ok, reasons):
+        V = np.column_stack([OBJECTIVES[o].sign * metrics[OBJECTIVES[o].metric] for o in self.objective_names])
+        finite = np.isfinite(V)
+        bad_obj = base_ok & ~finite.all(axis=1)   # a design whose objectives are unknown is failed, not scored
+        for j in np.flatnonzero(bad_obj):
+            reasons[j].append("could not evaluate " + ", ".join(
+                o for o, f in zip(self.objective_names, finite[j]) if not f))
+        scored = base_ok & ~bad_obj
+        F = np.where(scored[:, None], np.minimum(np.nan_to_num(V, nan=0.0), self.penalty[None]), self.penalty[None])
+        return F, bad_obj
+
+    def _constraints(self, metrics, fail, state, bad_obj, reasons) -> np.ndarray:
+        """G (n, n_constr): each constraint's value divided by its scale (registry), feasible where <= 0."""
+        n = len(fail)
+        G = np.zeros((n, len(self.constraint_names)))
+        lim = self.spec.limits
+        for k, name in enumerate(self.constraint_names):
+            c = CONSTRAINTS[name]
+            if name == "converged":
+                # far above any scaled violation of a design that assembles: a failed design never
+                # outranks one that only misses a margin
+                G[:, k] = np.where(fail, FAILED_G * (1.0 + np.where(bad_obj, 1.0, state["failed_share"])), 0.0)
+                continue
+            if name == "stress":
+                u = metrics["max_utilisation"]
+                val = np.where(state["sizing_feasible"], np.minimum(u - 1.0, 0.0),
+                               np.where(np.isfinite(u), np.maximum(u - 1.0, 0.01), 1.0))
+            else:
+                val = c.value(metrics, getattr(lim, c.key) if c.key else None)
+            # unknown (NaN: nothing to measure) is no violation; a failed design is judged by `converged`
+            val = np.where(fail, 0.0, np.nan_to_num(val, nan=0.0, posinf=1e6, neginf=-1e6))
+            G[:, k] = val / c.scale
+            if c.message:
+                for j in np.flatnonzero(val > 0):
+                    reasons[j].append(f"{name}: " + c.message.format(v=val[j]))
+        return G
+
     # ---------------------------------------------------------------- info
     @property
     def objective_units(self) -> dict[str, str]:
@@ -338,4 +364,6 @@ class TiltProblem(Problem):
 
     @property
     def constraint_units(self) -> dict[str, str]:
-        return {c: CONSTRAINTS[c].unit for c in self.constraint_names}
+        """Unit of each ``G`` column: the constraint's value divided by its scale."""
+        return {c: f"1 (per {CONSTRAINTS[c].scale:g} {CONSTRAINTS[c].unit})" if CONSTRAINTS[c].unit != "1"
+                else f"1 (per {CONSTRAINTS[c].scale:g})" for c in self.constraint_names}

@@ -9,6 +9,9 @@ needs: ``"sweep"`` (kinematics only), ``"clearance"`` (a body shell and
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
 
 from .templates import TEMPLATES as _TEMPLATE_ENTRIES
 
@@ -46,14 +49,30 @@ class ConstraintSpec:
     Attributes
     ----------
     name : str
-        The constraint's name in results (``G`` columns, reasons).
+        The constraint's name in results (``con.<name>`` columns, reasons).
     unit : str
-        Unit of G.
+        Unit of the constraint's value (its G before scaling).
     description : str
     needs : {'sweep', 'clearance', 'sizing'}
+        ``clearance`` entries need the clearance part (always run: wheels, members, widths) and, where
+        ``shell_only``, a body shell.
     key : str or None
-        The ``[constraints]`` key of a run config that switches it on and sets
-        its margin or limit (None: always on, or on whenever its part is).
+        The ``[constraints]`` key of a run config that sets its margin or limit (None: always on,
+        or on whenever its part is).
+    value : callable(metrics, limit) -> ndarray, or None
+        The constraint's value in ``unit`` (feasible where <= 0) from the evaluation's metrics and
+        the limit; None for the two the problem computes itself (``converged``, ``stress``).
+    message : str
+        The reason of a violation, formatted with ``v`` (the value in ``unit``).
+    scale : float
+        The violation is divided by this (in ``unit``) before violations are summed, so that
+        millimetres, degrees, newtons and ratios weigh fairly (our choices).
+    default : float or None
+        The limit or margin every run gets when its config does not set the key; None: off unless set.
+    source : str
+        Where the default comes from.
+    shell_only : bool
+        The constraint needs a body shell.
     """
 
     name: str
@@ -61,19 +80,42 @@ class ConstraintSpec:
     description: str
     needs: str
     key: str | None
+    value: Callable | None = None
+    message: str = ""
+    scale: float = 1.0
+    default: float | None = None
+    source: str = ""
+    shell_only: bool = False
 
+
+def _m(name):
+    return lambda m, lim: m[name] - lim
+
+
+def _margin(name):
+    return lambda m, lim: lim - m[name]
+
+
+CAMBER_SOURCE = ("our choice: the wheels must lean with the body; a camber error of 1 deg changes the "
+                 "balanced lean by about as much on tyres whose camber thrust follows their camber (common "
+                 "practice, no source)")
 
 OBJECTIVES: dict[str, ObjectiveSpec] = {o.name: o for o in [
     ObjectiveSpec("overall_width", "mm",
-                  "largest lateral extent of the vehicle over the envelope: the tyres' front-view outlines "
-                  "(and the leaning body shell, when a shell is given)", SWEEP, "overall_width_mm"),
+                  "width of the upright vehicle (lean 0, wheels straight ahead, largest over the travels): the "
+                  "wheels' front-view outlines, or the body shell where wider; the figure a width limit applies "
+                  "to", SWEEP, "overall_width_mm"),
+    ObjectiveSpec("lean_sweep_width", "mm",
+                  "lateral extent of the leaning vehicle over the whole envelope (wheels through their steer "
+                  "range, the leaning shell): the room it sweeps while leaning", SWEEP, "lean_sweep_width_mm"),
     ObjectiveSpec("max_scrub", "mm", "largest |tyre scrub| over the envelope (docs/domain.md scrub)", SWEEP,
                   "max_scrub_mm"),
     ObjectiveSpec("max_heave", "mm", "largest |heave| of the chassis datum over the envelope", SWEEP,
                   "max_heave_mm"),
     ObjectiveSpec("min_clearance", "mm",
-                  "smallest clearance wheel-shell and wheel-link over the envelope, negated (so larger is better)",
-                  CLEARANCE, "min_clearance_mm", -1.0),
+                  "smallest clearance of the wheel solids to the shell and to the members that do not carry them "
+                  "over the envelope, negated in the files (so larger is better)", CLEARANCE, "min_clearance_mm",
+                  -1.0),
     ObjectiveSpec("linkage_mass", "kg", "mass of the sized linkage members plus pivot allowances", SIZING,
                   "linkage_mass_kg"),
     ObjectiveSpec("slot_length", "mm", "total length of the slots links cut in the shell over the envelope",
@@ -83,26 +125,63 @@ OBJECTIVES: dict[str, ObjectiveSpec] = {o.name: o for o in [
 ]}
 
 CONSTRAINTS: dict[str, ConstraintSpec] = {c.name: c for c in [
-    ConstraintSpec("converged", "mm",
-                   "the design assembles and every envelope state converges (G = 0); otherwise G = size x "
-                   "(1 + share of failed states), size = the template's extent", SWEEP, None),
-    ConstraintSpec("max_width", "mm", "overall width at most the limit (G = width - limit)", SWEEP, "max_width_mm"),
-    ConstraintSpec("max_scrub", "mm", "max |scrub| at most the limit", SWEEP, "max_scrub_mm"),
-    ConstraintSpec("max_heave", "mm", "max |heave| at most the limit", SWEEP, "max_heave_mm"),
-    ConstraintSpec("max_camber_error", "deg", "max |camber error| at most the limit", SWEEP, "max_camber_error_deg"),
-    ConstraintSpec("clearance", "mm", "min clearance (wheel-shell, wheel-link) at least the margin", CLEARANCE,
-                   "clearance_margin_mm"),
-    ConstraintSpec("wheel_shell", "mm", "wheels outside the shell by at least the margin (min wheel-shell "
-                   "clearance)", CLEARANCE, "wheel_shell_margin_mm"),
-    ConstraintSpec("ground_clearance", "mm", "lowest point of the shell and of every link at least this high",
-                   CLEARANCE, "ground_clearance_mm"),
+    ConstraintSpec("converged", "1",
+                   "the design is valid geometry, assembles and reaches every envelope state (G = 0); otherwise "
+                   "G = 1e4 x (1 + share of failed states) (2e4 for invalid geometry)", SWEEP, None,
+                   source="always on: a design that cannot reach a state of its envelope cannot be built to it"),
+    ConstraintSpec("max_width", "mm", "width of the upright vehicle at most the limit (G = width - limit)", SWEEP,
+                   "max_width_mm", _m("overall_width_mm"), "width {v:.1f} mm over the limit", 10.0),
+    ConstraintSpec("max_scrub", "mm", "max |scrub| at most the limit", SWEEP, "max_scrub_mm", _m("max_scrub_mm"),
+                   "max scrub {v:.2f} mm over the limit", 1.0),
+    ConstraintSpec("max_heave", "mm", "max |heave| at most the limit", SWEEP, "max_heave_mm", _m("max_heave_mm"),
+                   "max heave {v:.2f} mm over the limit", 1.0),
+    ConstraintSpec("max_camber_error", "deg", "the wheels lean with the body: max |camber error| at most the limit",
+                   SWEEP, "max_camber_error_deg", _m("max_camber_error_deg"),
+                   "max camber error {v:.2f} deg over the limit", 1.0, 1.0, CAMBER_SOURCE),
+    ConstraintSpec("clearance", "mm", "every wheel solid clear of the shell and of the members that do not carry "
+                   "it by at least the margin (conservative: clearance minus its error bound)", CLEARANCE,
+                   "clearance_margin_mm", _margin("min_clearance_lower_mm"),
+                   "clearance {v:.1f} mm short of the margin (conservative figure)", 10.0, 10.0,
+                   "our choice: a working gap for tyre growth, flex and fixings"),
+    ConstraintSpec("carrier_clearance", "mm", "every wheel solid clear of its own upright and the arms that carry it "
+                   "by at least the margin (conservative); only the stub axle enters the hub", CLEARANCE,
+                   "carrier_margin_mm", _margin("min_wheel_carrier_lower_mm"),
+                   "a member that carries the wheel is {v:.1f} mm short of the margin (through the wheel where "
+                   "the clearance is negative)", 10.0, 3.0,
+                   "our choice: a member moving rigidly with the wheel needs room only for spoke and tyre flex "
+                   "(common practice, no source)"),
+    ConstraintSpec("wheel_gap", "mm", "the two wheel solids apart by at least the margin over the envelope",
+                   CLEARANCE, "wheel_gap_mm", _margin("min_wheel_pair_mm"),
+                   "the wheels are {v:.1f} mm short of the gap between them", 10.0, 10.0,
+                   "our choice: as the clearance margin"),
+    ConstraintSpec("member_gap", "mm", "the tubes of two members (other than those joined at a pin, and the "
+                   "chassis frame) never overlap over the envelope: at least this far apart", CLEARANCE,
+                   "member_gap_mm", _margin("min_member_gap_mm"), "two member tubes are {v:.1f} mm short of the gap",
+                   10.0, 5.0, "our choice: tubes cannot pass through each other, and need room for their "
+                   "fixings and flex (common practice, no source)"),
+    ConstraintSpec("wheel_shell", "mm", "wheels outside the shell by at least the margin (conservative min "
+                   "wheel-shell clearance)", CLEARANCE, "wheel_shell_margin_mm", _margin("min_wheel_shell_lower_mm"),
+                   "wheel-shell clearance {v:.1f} mm short of the margin", 10.0, shell_only=True),
+    ConstraintSpec("ground_clearance", "mm", "lowest point of the shell and of every member at least this high",
+                   CLEARANCE, "ground_clearance_mm", _margin("min_ground_mm"),
+                   "ground clearance {v:.1f} mm short of the limit", 10.0),
     ConstraintSpec("shell_roles", "mm", "tubes marked inside/outside the shell stay there (violation depth)",
-                   CLEARANCE, None),
+                   CLEARANCE, None, lambda m, lim: np.fmax(m["inside_violation_mm"], 0)
+                   + np.fmax(m["outside_violation_mm"], 0),
+                   "tubes outside their allowed side of the shell by {v:.1f} mm", 10.0, shell_only=True,
+                   source="on with a shell"),
     ConstraintSpec("pivots_inside_shell", "mm",
                    "every chassis joint point inside the shell section by at least the margin (design position)",
-                   CLEARANCE, "pivot_margin_mm"),
+                   CLEARANCE, "pivot_margin_mm", lambda m, lim: m["pivot_shell_distance_mm"] + lim,
+                   "a chassis pivot is {v:.1f} mm short of being inside the shell by the margin", 10.0, 0.0,
+                   "our choice: the pivots are fixed to the chassis inside its body", shell_only=True),
+    ConstraintSpec("wheel_loads", "N", "every tyre keeps a vertical load of at least this in every load case "
+                   "(a wheel that lifts would tip the vehicle)", SIZING, "min_wheel_load_n",
+                   _margin("min_wheel_load_n"), "a tyre's load is {v:.1f} N short of the minimum", 100.0, 0.0,
+                   "physics: a negative tyre load means the wheel lifts"),
     ConstraintSpec("stress", "1", "every member within its allowable stress and buckling load "
-                   "(G = max utilisation - 1)", SIZING, "stress"),
+                   "(G = max utilisation - 1)", SIZING, "stress", None, "", 0.1,
+                   source="on with loads: members sized for the load cases with the safety factor"),
 ]}
 
 ALGORITHMS: dict[str, str] = {

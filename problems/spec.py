@@ -13,6 +13,7 @@ Tables (TOML, our own format; lengths mm, angles degrees)::
     variables = ["outer_pivot_y", "wheel_offset"]   # built-in: the active subset (optional)
     bounds = { outer_pivot_y = [250.0, 400.0] }     # optional bound overrides
     fixed = { wheel_radius = 230.0 }                # optional values of held variables
+    allow_crossing = false          # true: members may cross in the front view (they run at different x)
 
     [[template.variables]]          # only with `mechanism`: see template_from_mechanism
     name = "pivot_y"
@@ -31,15 +32,19 @@ Tables (TOML, our own format; lengths mm, angles degrees)::
     lean_deg = [0.0, 20.0]
     max_steer_deg = [30.0, 10.0]
 
-    [constraints]                   # every key optional
-    max_width_mm = 1000.0           # overall width limit
+    [constraints]                   # every key optional; defaults (tiltopt.problems.registry.CONSTRAINTS)
+    max_width_mm = 1000.0           # width limit of the upright vehicle
     max_scrub_mm = 5.0              # caps on kinematic figures
     max_heave_mm = 5.0
-    max_camber_error_deg = 2.0
-    clearance_margin_mm = 10.0      # with a shell: min clearance >= margin (default 10)
+    max_camber_error_deg = 1.0      # the wheels lean with the body (default 1.0)
+    clearance_margin_mm = 10.0      # wheel solids to the shell and non-carrying members (default 10)
+    carrier_margin_mm = 3.0         # wheel solids to their own upright and arms (default 3)
+    wheel_gap_mm = 10.0             # between the two wheels (default 10)
+    member_gap_mm = 5.0             # between two members' tubes (default 5)
     wheel_shell_margin_mm = 15.0    # with a shell: wheels outside the shell by >= margin
-    ground_clearance_mm = 60.0      # with a shell: lowest shell/link point >= this
+    ground_clearance_mm = 60.0      # lowest shell/member point >= this
     pivot_margin_mm = 0.0           # with a shell: chassis joint points inside by >= margin (default 0)
+    min_wheel_load_n = 0.0          # with loads: every tyre loaded in every case (default 0)
     stress = true                   # with loads: members within allowables (default true)
 
 A ``[run]`` table is the optimiser's and is skipped here.
@@ -65,9 +70,7 @@ SKIPPED_KEYS = ("run",)
 DEFAULT_LEAN_LIMIT_DEG = 30.0
 DEFAULT_LEAN_STEP_DEG = 5.0
 DEFAULT_SPRUNG_TRAVEL_MM = (-30.0, 0.0, 30.0)
-DEFAULT_CLEARANCE_MARGIN_MM = 10.0   # our own default (a working gap for tyre growth and fixings)
-_CONSTRAINT_KEYS = ("max_width_mm", "max_scrub_mm", "max_heave_mm", "max_camber_error_deg", "clearance_margin_mm",
-                    "wheel_shell_margin_mm", "ground_clearance_mm", "pivot_margin_mm", "stress")
+_CONSTRAINT_KEYS = tuple(c.key for c in CONSTRAINTS.values() if c.key is not None)
 
 
 @dataclass(frozen=True)
@@ -94,17 +97,37 @@ class Envelope:
 
 @dataclass(frozen=True)
 class Limits:
-    """Margins and limits of the ``[constraints]`` table (None = off)."""
+    """Margins and limits of the ``[constraints]`` table, defaults filled in (None = off).
+
+    ``given`` names the keys the config set itself (the rest are defaults, see
+    :data:`tiltopt.problems.registry.CONSTRAINTS`).
+    """
 
     max_width_mm: float | None = None
     max_scrub_mm: float | None = None
     max_heave_mm: float | None = None
     max_camber_error_deg: float | None = None
     clearance_margin_mm: float | None = None
+    carrier_margin_mm: float | None = None
+    wheel_gap_mm: float | None = None
+    member_gap_mm: float | None = None
     wheel_shell_margin_mm: float | None = None
     ground_clearance_mm: float | None = None
     pivot_margin_mm: float | None = None
+    min_wheel_load_n: float | None = None
     stress: bool = False
+    given: tuple[str, ...] = ()
+
+    def requirements(self, constraints) -> list[dict]:
+        """Each constraint in force with its limit and where it comes from (``tiltopt check``)."""
+        out = []
+        for name in constraints:
+            c = CONSTRAINTS[name]
+            limit = getattr(self, c.key) if c.key else None
+            src = ("set in the config" if c.key in self.given else c.source) or "on"
+            out.append({"name": name, "key": c.key, "limit": limit, "unit": c.unit, "source": src,
+                        "description": c.description})
+        return out
 
 
 @dataclass
@@ -141,11 +164,13 @@ class ProblemSpec:
 
     @property
     def needs_clearance(self) -> bool:
-        return self.shell is not None
+        """The clearance part runs for every problem: wheel solids, members, the two wheels, widths."""
+        return True
 
     @property
     def needs_sizing(self) -> bool:
-        return self.loads is not None and ("linkage_mass" in self.objectives or "stress" in self.constraints)
+        return self.loads is not None and ("linkage_mass" in self.objectives or "stress" in self.constraints
+                                           or "wheel_loads" in self.constraints)
 
     def size(self) -> dict:
         """Problem size for ``tiltopt check``: variables, objectives, constraints, states per candidate."""
@@ -192,7 +217,17 @@ def lean_grid(limit_deg: float, step_deg: float) -> np.ndarray:
 
 # ------------------------------------------------------------------ parts
 def _parse_template(t: Any, src: str, base_dir: Path) -> Template:
-    _keys(t, {"name", "mechanism", "variables", "bounds", "fixed"}, src, "template")
+    _keys(t, {"name", "mechanism", "variables", "bounds", "fixed", "allow_crossing"}, src, "template")
+    cross = t.get("allow_crossing", False)
+    if not isinstance(cross, bool):
+        raise InputError(f"expected true or false. Got {cross!r} instead.", src, "template.allow_crossing")
+    tpl = _parse_template_body(t, src, base_dir)
+    if cross:
+        tpl = Template(tpl.name, tpl.mechanism, tpl.variables, tpl.description, tpl.source, allow_crossing=True)
+    return tpl
+
+
+def _parse_template_body(t: dict, src: str, base_dir: Path) -> Template:
     bounds = t.get("bounds")
     fixed = t.get("fixed")
     for k, v in (("bounds", bounds), ("fixed", fixed)):
@@ -272,26 +307,34 @@ def _parse_constraints(c: Any, src: str, has_shell: bool, has_loads: bool) -> Li
     c = {} if c is None else c
     _keys(c, set(_CONSTRAINT_KEYS), src, "constraints")
     vals: dict[str, Any] = {}
+    by_key = {spec.key: spec for spec in CONSTRAINTS.values() if spec.key}
     for k in _CONSTRAINT_KEYS:
         if k == "stress" or k not in c:
             continue
-        lo = None if k in ("pivot_margin_mm", "clearance_margin_mm", "wheel_shell_margin_mm") else 0.0
+        lo = None if k in ("pivot_margin_mm", "clearance_margin_mm", "wheel_shell_margin_mm", "carrier_margin_mm",
+                           "wheel_gap_mm", "min_wheel_load_n", "member_gap_mm") else 0.0
         vals[k] = _num(c[k], src, f"constraints.{k}", lo=lo, lo_open=k.startswith("max_"))
-    needs_shell = [k for k in ("clearance_margin_mm", "wheel_shell_margin_mm", "ground_clearance_mm",
-                               "pivot_margin_mm") if k in vals]
+    needs_shell = [k for k in vals if by_key[k].shell_only]
     if needs_shell and not has_shell:
         raise InputError(f"{needs_shell[0]} needs a body shell. Add shell = \"shell.toml\" to the config, or remove "
                          f"the key.", src, f"constraints.{needs_shell[0]}")
-    if has_shell:
-        vals.setdefault("clearance_margin_mm", DEFAULT_CLEARANCE_MARGIN_MM)
-        vals.setdefault("pivot_margin_mm", 0.0)
+    needs_loads = [k for k in vals if by_key[k].needs == SIZING]
+    if needs_loads and not has_loads:
+        raise InputError(f"{needs_loads[0]} needs loads. Add loads = \"loads.toml\" or a [vehicle] table, or remove "
+                         f"the key.", src, f"constraints.{needs_loads[0]}")
+    given = tuple(vals)
+    for k, spec in by_key.items():          # the defaults every run gets
+        if k in vals or spec.default is None or (spec.shell_only and not has_shell) or (
+                spec.needs == SIZING and not has_loads):
+            continue
+        vals[k] = spec.default
     stress = c.get("stress", has_loads)
     if not isinstance(stress, bool):
         raise InputError(f"expected true or false. Got {stress!r} instead.", src, "constraints.stress")
     if stress and not has_loads:
         raise InputError("the stress constraint needs loads. Add loads = \"loads.toml\" or a [vehicle] table, or "
                          "set stress = false.", src, "constraints.stress")
-    return Limits(stress=stress, **vals)
+    return Limits(stress=stress, given=given + (("stress",) if "stress" in c else ()), **vals)
 
 
 def _constraint_names(limits: Limits, has_shell: bool) -> tuple[str, ...]:
@@ -305,7 +348,7 @@ def _constraint_names(limits: Limits, has_shell: bool) -> tuple[str, ...]:
         elif spec.key is not None:
             if getattr(limits, spec.key) is not None:
                 out.append(name)
-        elif spec.needs == CLEARANCE and has_shell:
+        elif spec.shell_only and has_shell:
             out.append(name)
     return tuple(out)
 
@@ -373,7 +416,7 @@ def parse_problem(data: dict, src: str = "<memory>", base_dir: str | Path | None
             raise InputError("a steer envelope needs the clearance keys of the mechanism format, which this "
                              "installation does not have.", src, "envelope.steer")
         template = Template(template.name, replace(mech, steer_envelope=envelope.steer), template.variables,
-                            template.description, template.source)
+                            template.description, template.source, template.allow_crossing)
 
     obj = data["objectives"]
     if not isinstance(obj, list) or not obj or not all(isinstance(o, str) for o in obj):
