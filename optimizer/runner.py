@@ -122,12 +122,17 @@ def cv_then_random(pop, P, random_state=None, **kwargs):
     return S[:, None].astype(int)
 
 
-def make_algorithm(settings: RunSettings, n_obj: int):
-    """The pymoo algorithm of a run: NSGA-II, or NSGA-III with Das-Dennis reference directions."""
+def make_algorithm(settings: RunSettings, n_obj: int, sampling=None):
+    """The pymoo algorithm of a run: NSGA-II, or NSGA-III with Das-Dennis reference directions.
+
+    sampling : ndarray of shape (population, n_var), optional
+        The first population (default: pymoo's random sampling in the bounds).
+    """
+    extra = {} if sampling is None else {"sampling": np.asarray(sampling, float)}
     if settings.algorithm == "nsga2":
         from pymoo.algorithms.moo.nsga2 import NSGA2
 
-        return NSGA2(pop_size=settings.population, eliminate_duplicates=True)
+        return NSGA2(pop_size=settings.population, eliminate_duplicates=True, **extra)
     from pymoo.algorithms.moo.nsga3 import NSGA3
     from pymoo.util.ref_dirs import get_reference_directions
 
@@ -136,7 +141,7 @@ def make_algorithm(settings: RunSettings, n_obj: int):
     from pymoo.operators.selection.tournament import TournamentSelection
 
     return NSGA3(pop_size=settings.population, ref_dirs=ref_dirs, eliminate_duplicates=True,
-                 selection=TournamentSelection(func_comp=cv_then_random))
+                 selection=TournamentSelection(func_comp=cv_then_random), **extra)
 
 
 @dataclass
@@ -254,7 +259,10 @@ class Runner:
 
     def _new_algorithm(self):
         p = self.problem
-        alg = make_algorithm(self.settings, p.n_obj)
+        # a problem may seed the first population (the base design and perturbations of it)
+        seed_fn = getattr(p, "initial_designs", None)
+        sampling = seed_fn(self.settings.population, self.settings.seed) if seed_fn is not None else None
+        alg = make_algorithm(self.settings, p.n_obj, sampling)
         shell = _Bounds(p.n_var, p.n_obj, p.n_ieq_constr, np.asarray(p.xl, float), np.asarray(p.xu, float))
         alg.setup(shell, termination=("n_gen", self.settings.generations), seed=self.settings.seed, verbose=False)
         return alg

@@ -137,8 +137,9 @@ class Template:
     """
 
     def __init__(self, name: str, mechanism: Mechanism, variables: Sequence[DesignVariable],
-                 description: str = "", source: str = "<memory>"):
+                 description: str = "", source: str = "<memory>", allow_crossing: bool = False):
         self.name = name
+        self.allow_crossing = bool(allow_crossing)
         self.mechanism = mechanism
         self.variables = list(variables)
         self.description = description or mechanism.description
@@ -154,6 +155,13 @@ class Template:
                 raise InputError(f"the bounds of design variable '{v.name}' must be finite with lower < upper. "
                                  f"Got [{v.lower}, {v.upper}] instead.", source, f"template.bounds.{v.name}")
         self._compile()
+        for v in self.variables:
+            if not v.lower <= v.default <= v.upper:
+                raise InputError(
+                    f"design variable '{v.name}' has the value {v.default:g} {v.unit} in the base mechanism, outside "
+                    f"its bounds [{v.lower:g}, {v.upper:g}]. Widen the bounds, or give its `default`: for a relative "
+                    f"quantity (an offset, a spacing) the value is not the first point's coordinate.", source,
+                    f"template.variables.{v.name}")
 
     # ------------------------------------------------------------ compile
     def _compile(self):
@@ -250,6 +258,14 @@ class Template:
                                  dtype=int).reshape(-1, 3)
         self._slider_names = [s.name for s in mech.sliders]
         self._hub = np.array(m.wheel_centre, dtype=int)
+        self._hub_half = np.array([0.5 * w.hub_width_mm for w in mech.wheels])
+        # member pairs whose tubes may not overlap (tiltopt.kinematics.clearance.member_pairs)
+        from tiltopt.kinematics.clearance import member_pairs, members_of
+
+        mem = members_of(model)
+        self._cross_pairs = member_pairs(model, mem)
+        self._cross_ends = (mem.ia, mem.ib, mem.radius)
+        self._member_names = list(mem.names)
 
     # ------------------------------------------------------------ props
     @property
@@ -364,10 +380,25 @@ class Template:
         bad_z = np.abs(zc - need) > 0.01
         checks.append(((bad_r | bad_z).any(1), lambda c: "invalid geometry: the tyres must touch the ground "
                        f"with R > r (hub z {zc[c].round(2).tolist()}, needed {need[c].round(2).tolist()})"))
-        cy = p[:, self._hub, 0] - (R - r) * np.sin(g0)
-        gap = cy[:, 1] - cy[:, 0] - (r[:, 0] + r[:, 1])
-        checks.append((gap <= 0, lambda c: f"invalid geometry: the tyres overlap (contact points "
-                       f"{cy[c, 1] - cy[c, 0]:.1f} mm apart, less than the tyre width)"))
+        from tiltopt.kinematics.wheel_solid import pair_gap
+
+        hub = p[:, self._hub]
+        gap = pair_gap(hub[..., 0], hub[..., 1], g0, R, r, np.broadcast_to(self._hub_half, R.shape))
+        right_side = hub[:, 1, 0] > hub[:, 0, 0]
+        checks.append(((gap <= 0) | ~right_side, lambda c: "invalid geometry: the wheels overlap (their solids "
+                       f"{gap[c]:.1f} mm apart at the design position, track "
+                       f"{hub[c, 1, 0] - hub[c, 0, 0]:.1f} mm between the hubs)"))
+        if len(self._cross_pairs) and not self.allow_crossing:
+            from tiltopt.kinematics.clearance import _segments_gap
+
+            ia, ib, rad = self._cross_ends
+            i, j = self._cross_pairs[:, 0], self._cross_pairs[:, 1]
+            over = _segments_gap(p[:, ia[i]], p[:, ib[i]], p[:, ia[j]], p[:, ib[j]]) - rad[i] - rad[j] < 0
+            checks.append((over.any(1), lambda c, over=over: "invalid geometry: member tubes overlap or cross in "
+                           "the front view at the design position (" + ", ".join(
+                               f"{self._member_names[i[k]]} and {self._member_names[j[k]]}"
+                               for k in np.flatnonzero(over[c])[:3])
+                           + "); set [template] allow_crossing = true if they run at different x"))
         bad_any = np.zeros(n, dtype=bool)
         for b, _ in checks:
             bad_any |= b
@@ -412,7 +443,7 @@ class Template:
             if v.name in bounds:
                 v = replace(v, lower=float(bounds[v.name][0]), upper=float(bounds[v.name][1]))
             new.append(v)
-        return Template(self.name, self.mechanism, new, self.description, self.source)
+        return Template(self.name, self.mechanism, new, self.description, self.source, self.allow_crossing)
 
     def subset(self, active: Iterable[str] | None = None, fixed: Mapping[str, float] | None = None,
                src: str = "<memory>") -> "Template":
@@ -448,14 +479,14 @@ class Template:
         base = self.mechanism_for(x)
         base = replace(base, description=self.mechanism.description, name=self.mechanism.name)
         vars_ = [self.variable(n) for n in active]
-        return Template(self.name, base, vars_, self.description, self.source)
+        return Template(self.name, base, vars_, self.description, self.source, self.allow_crossing)
 
     # ------------------------------------------------------------ I/O
     def to_dict(self) -> dict:
         """A JSON-able description from which :meth:`from_dict` rebuilds the same template."""
         return {"format": TEMPLATE_FORMAT, "name": self.name, "description": self.description,
                 "mechanism_toml": mechanism_to_toml(self.mechanism),
-                "variables": [v.to_dict() for v in self.variables]}
+                "variables": [v.to_dict() for v in self.variables], "allow_crossing": self.allow_crossing}
 
     @classmethod
     def from_dict(cls, d: Mapping, src: str = "<memory>") -> "Template":
@@ -464,7 +495,7 @@ class Template:
                              src, "format")
         mech = parse_mechanism(tomllib.loads(d["mechanism_toml"]), src)
         return cls(d["name"], mech, [DesignVariable.from_dict(v) for v in d["variables"]],
-                   d.get("description", ""), src)
+                   d.get("description", ""), src, bool(d.get("allow_crossing", False)))
 
     def __repr__(self) -> str:
         return f"Template({self.name!r}, n_var={self.n_var}, variables={self.names})"
