@@ -107,6 +107,22 @@ def twin_beam(*, w_left=330.0, w_right=330.0, w_left_lower=None, w_right_lower=N
     }
 
 
+def hub_centre_ideal(w=330.0, spacing=60.0, hub_radius=120.0, hub_width=46.0) -> dict:
+    """The ideal linkage of docs/domain.md built so that it clears its wheels: a twin-beam
+    parallelogram whose outer pivots lie on the wheel planes (zero scrub, heave and camber error),
+    the beams ``spacing`` apart about hub height so that the short uprights and the beam ends sit in
+    the hub zone of a hub-centre wheel: a large hub (``hub_radius``) in a disc no wider than the tyre
+    (``hub_width``), as a hub-centre steered wheel has, so that the beams, which turn against the
+    wheel by the lean, stay in the hub zone until they are clear of the disc. The members that carry
+    a wheel may meet it only there. The wheels steer about a vertical axis through their centres.
+    """
+    zc = hub_height(250.0, 23.0)
+    d = twin_beam(w_left=w, w_right=w, z_upper=zc + spacing / 2, z_lower=zc - spacing / 2, name="hub_centre_ideal")
+    for wh in d["wheels"]:
+        wh.update(hub_radius_mm=hub_radius, hub_width_mm=hub_width)
+    return d
+
+
 def sprung_twin_beam(*, leg_drop=0.0, **kw) -> dict:
     """:func:`twin_beam` with a telescopic leg on each upright: a slider along the
     upright line and a spring from the upright top cap to a seat on the leg.

@@ -31,6 +31,8 @@ R_CROWN = 23.0
 
 
 def _run(data, shell, lean, travel=(0.0,), settings=None, geom_points=None):
+    """Sweep and clearance of a mechanism dict; its wheels do not steer unless it gives a steer envelope."""
+    data = {"steer_envelope": {}, **data}
     mech = parse_mechanism(data, "<test>")
     model = Model(mech)
     geom = model.batch_geometry(geom_points) if geom_points is not None else None
@@ -55,8 +57,9 @@ def test_unsteered_wheel_in_circular_shell_exact():
         # the value is a reached distance (never below the exact minimum) and the estimate covers the gap
         assert np.all(res.wheel_shell_mm[0, 0, :, w] >= exact - 1e-6)
         assert np.all(res.wheel_shell_mm[0, 0, :, w] - exact <= res.wheel_shell_error_mm[0, 0, :, w] + 1e-6)
-    # overall width at lean 0: outer tyre faces at +-(330 + r); shell ground clearance zc - R (closed forms)
-    assert res.overall_width_mm[0, 0, 0] == pytest.approx(2 * (330.0 + R_CROWN), abs=1e-6)
+    # overall width at lean 0: the hubs (default 70 mm wide) reach past the tyres' outer faces, to
+    # +-(330 + 35); shell ground clearance zc - R (closed forms)
+    assert res.overall_width_mm[0, 0, 0] == pytest.approx(2 * (330.0 + 35.0), abs=1e-6)
     assert res.ground_mm[0, 0, 0, 0] == pytest.approx(150.0, abs=1e-6)
     np.testing.assert_allclose(res.track_mm, sr.track)
 
@@ -110,12 +113,14 @@ def test_through_link_rotating_about_the_shell_centre_slot_is_radius_times_angle
                      {"name": "post", "body": "upright_right", "a": "top", "b": "bottom"}]
     shell = _circle(200.0, 520.0)
     _, _, res = _run(d, shell, np.arange(0.0, 40.1, 5.0))
-    assert res.through_names == ["beam", "post"]
+    assert res.through_names[:2] == ["beam", "post"]      # then the default tubes of the other bodies
+    slot = dict(zip(res.through_names, res.slot_length_mm[0]))
     # exact: slot = radius x swept angle (40 deg); the upright never crosses the outline
-    np.testing.assert_allclose(res.slot_length_mm[0], [200.0 * math.radians(40.0), 0.0], atol=0.05)
+    np.testing.assert_allclose([slot["beam"], slot["post"]], [200.0 * math.radians(40.0), 0.0], atol=0.05)
     _, _, res = _run(d, shell, np.arange(-20.0, 40.1, 10.0))
-    np.testing.assert_allclose(res.slot_length_mm[0, 0], 200.0 * math.radians(60.0), atol=0.05)
-    assert res.summary()["total_slot_length_mm"][0] == pytest.approx(200.0 * math.radians(60.0), abs=0.05)
+    slot = dict(zip(res.through_names, res.slot_length_mm[0]))
+    assert slot["beam"] == pytest.approx(200.0 * math.radians(60.0), abs=0.05)
+    assert res.summary()["total_slot_length_mm"][0] == pytest.approx(sum(slot.values()), abs=1e-9)
 
 
 def test_inside_and_outside_tubes_closed_form():
@@ -133,23 +138,39 @@ def test_inside_and_outside_tubes_closed_form():
     assert res.outside_violation_mm[0, 0, 0] == pytest.approx(335.0 + 10.0 - 330.0, abs=1e-3)
 
 
-def test_wheel_to_link_closed_form_and_carrying_members_left_out():
+def test_wheel_to_link_closed_form_and_carrying_members_apart():
     d = twin_beam()
     d["bodies"]["chassis"].update({"post_lo": [150.0, 0.0], "post_hi": [150.0, 600.0]})
     d["segments"] = [{"name": "post", "body": "chassis", "a": "post_lo", "b": "post_hi", "tube_od_mm": 20.0},
                      {"name": "leg", "body": "upright_right", "a": "top", "b": "bottom", "tube_od_mm": 20.0}]
     _, _, res = _run(d, _circle(100.0, 520.0), [0.0])
-    # exact: the right crown circle (plane y = 330, z 23..477) passes 180 mm from the post axis
-    assert res.wheel_link_mm[0, 0, 0, 1] == pytest.approx(180.0 - 10.0 - R_CROWN, abs=0.5)
-    # the left wheel sees the post at 480 mm (the right leg, 660 mm away, is farther)
-    assert res.wheel_link_mm[0, 0, 0, 0] == pytest.approx(480.0 - 10.0 - R_CROWN, abs=0.5)
-    assert res.member_names[res.wheel_link_member[0, 0, 0, 1]] == "post"   # its own leg carries it
+    # exact: the wheel solid's nearest part to a vertical line inboard of it is the hub's inner face
+    # (y = 330 - 35, the default 70 mm hub; the tyre's inner face at 330 - 23 is farther), so the post
+    # (axis y = 150, radius 10) is 330 - 35 - 150 - 10 mm clear of the right wheel
+    exact = 330.0 - 35.0 - 150.0 - 10.0
+    got, err = res.wheel_link_mm[0, 0, 0, 1], res.wheel_link_error_mm[0, 0, 0, 1]
+    # a reached value, within the search tolerance (0.1 mm) and covered by its error bound
+    assert exact - 1e-9 <= got <= exact + 0.1 and got - exact <= err + 1e-9
+    assert res.member_names[res.wheel_link_member[0, 0, 0, 1]] == "post"
+    # the left wheel's nearest non-carrying member is the chassis frame's default tube on the centre
+    # line (y = 0, z 320..520, 25.4 mm; the post is farther). In the wheel's meridian plane the tube's
+    # lowest point lies rho = 70 mm from the axle and 330 mm along it; the disc's edge there is the line
+    # s = 35 - (35 - 23) rho / 227, whose distance from that point is (330 - 35 + k 70) / sqrt(1 + k^2)
+    k = 12.0 / 227.0
+    exact = (330.0 - 35.0 + k * 70.0) / math.sqrt(1.0 + k * k) - 12.7
+    assert exact - 1e-9 <= res.wheel_link_mm[0, 0, 0, 0] <= exact + 0.1
+    # both the chassis tube and the right half of the lower beam reach the point (0, 320)
+    assert res.member_names[res.wheel_link_member[0, 0, 0, 0]] in ("chassis.upper_pivot~lower_pivot",
+                                                                   "lower_beam.centre~right_end")
+    # the leg and the beams carry the wheel: the ideal beams end on the wheel plane, so the upright leg
+    # passes through the wheel (a known invalid design, reported as a negative carrier clearance)
+    assert res.wheel_carrier_mm[0, 0, 0, 1] < 0
     # tube ground clearance: lowest tube point 0 - 10 mm
     assert res.ground_mm[0, 0, 0, 1] == pytest.approx(-10.0)
 
 
 def test_many_candidates_in_one_batch_match_the_closed_form_each():
-    base = parse_mechanism(twin_beam(), "<t>")
+    base = parse_mechanism({**twin_beam(), "steer_envelope": {}}, "<t>")
     model = Model(base)
     pts = []
     for w in (300.0, 330.0, 360.0):
@@ -184,10 +205,10 @@ def test_non_converged_states_give_nan_never_numbers():
 
 
 def test_rule_of_thumb_inner_wheel_clearance_trend_on_the_demo():
-    # common practice, no source: on a 400 mm wide shell section with inboard pivots, the clearance
+    # common practice, no source: on a 380 mm wide shell section with inboard pivots, the clearance
     # between the inner wheel and the shell shrinks as lean grows, and compressing the suspension
     # makes it worse. Demo geometry: configs/wishbone_rocker.toml in configs/shell_demo.toml.
-    mech = load_mechanism(CONFIGS / "wishbone_rocker.toml")
+    mech = dataclasses.replace(load_mechanism(CONFIGS / "wishbone_rocker.toml"), steer_envelope=())   # straight
     shell = load_shell(CONFIGS / "shell_demo.toml")
     model = Model(mech)
     lean = np.arange(0.0, 40.1, 10.0)
@@ -195,7 +216,8 @@ def test_rule_of_thumb_inner_wheel_clearance_trend_on_the_demo():
     res = evaluate_clearance(model, None, sr, shell)
     assert np.all(res.converged)
     inner = res.wheel_shell_mm[0, :, :, 1]               # leaning right (phi > 0): the right wheel is inside
-    assert np.all(np.diff(inner, axis=1) < 0)            # shrinks as lean grows, at every travel
+    assert np.all(np.diff(inner[:, 1:], axis=1) < 0)     # shrinks as lean grows beyond 10 deg, at every travel
+    assert np.all(inner[:, -1] < inner[:, 0] - 50.0)     # ... by far over the envelope
     assert np.all(np.diff(inner[:, 1:], axis=0) < 0)     # more bump (compression), less clearance when leaned
 
 
@@ -223,8 +245,10 @@ def test_cli_json(demo_files):
               "wheel_link_clearance_mm", "ground_clearance_mm", "slot_length_mm", "overall_width_mm", "track_mm"):
         assert k in st, k
     assert set(st["wheel_shell_clearance_mm"]) == {"left", "right"}
-    assert set(st["slot_length_mm"]) == {"upper_arm_left_tube", "upper_arm_right_tube", "lower_arm_left_tube",
-                                         "lower_arm_right_tube"}
+    # the declared wishbone tubes, then the default tubes of the other bodies (body_tubes)
+    assert set(st["slot_length_mm"]) >= {"upper_arm_left_tube", "upper_arm_right_tube", "lower_arm_left_tube",
+                                         "lower_arm_right_tube", "rocker.pivot~left_end",
+                                         "upright_right.upper_joint~lower_joint"}
     assert abs(st["steer_deg"]) == pytest.approx(25.0) or st["steer_deg"] == 0.0
     summ = out["summary"]
     m = summ["min_wheel_shell_mm"]

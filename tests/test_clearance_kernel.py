@@ -48,7 +48,7 @@ def demo():
     return model, geom, sr
 
 
-def _polygon_demo_shell(vertices=(160, 200, 160, 120)):
+def _polygon_demo_shell(vertices=(160, 200, 200, 160, 120)):
     """The demo shell's superellipse sections as CAD-like polygons, with different vertex counts."""
     return polygon_sections(load_shell(CONFIGS / "shell_demo.toml"), vertices)
 
@@ -61,7 +61,9 @@ def _compare(a, b, min_share=1.0):
     paths may stop in different places: each is still a reached distance, and the two differ by less
     than the larger of their error estimates. ``min_share`` of the items must agree to rounding.
     """
-    for k in ("wheel_shell", "wheel_link"):
+    # (the wheel solid against members runs in one compiled search for both settings: tests/test_wheel_solid.py
+    # holds it to independent references)
+    for k in ("wheel_shell",):
         va, vb = getattr(a, k + "_mm"), getattr(b, k + "_mm")
         ea, eb = getattr(a, k + "_error_mm"), getattr(b, k + "_error_mm")
         np.testing.assert_array_equal(np.isnan(va), np.isnan(vb), err_msg=k)     # states not converged
@@ -77,7 +79,7 @@ def _compare(a, b, min_share=1.0):
     if min_share == 1.0:
         np.testing.assert_array_equal(a.wheel_link_member, b.wheel_link_member)
         # a steer may differ only where the clearance does not depend on it (a tie of the two paths)
-        for k, v in (("wheel_shell_steer_deg", "wheel_shell_mm"), ("wheel_link_steer_deg", "wheel_link_mm")):
+        for k, v in (("wheel_shell_steer_deg", "wheel_shell_mm"),):
             assert np.all(np.isclose(getattr(a, k), getattr(b, k), atol=1e-6, equal_nan=True)
                           | np.isclose(getattr(a, v), getattr(b, v), rtol=0, atol=VALUE_TOL)), k
 
@@ -128,7 +130,7 @@ def test_kernel_point_distances_match_the_shell_module():
                 got = K.polygon_shell_distance(tab[:, 0], outlines, y, z, x, 0.0)
             assert got == pytest.approx(r, abs=1e-9)
     # one polygon section against tiltopt.kinematics.shell.polygon_distance (itself checked against shapely)
-    shell = _polygon_demo_shell((40, 40, 40, 40))
+    shell = _polygon_demo_shell((40, 40, 40, 40, 40))
     p = rng.uniform([-400.0, 0.0], [400.0, 1100.0], (200, 2))
     ref = polygon_distance(p[:, 0], p[:, 1], shell.outlines[1])
     one = np.ascontiguousarray(shell.outlines[[1, 1]])

@@ -67,13 +67,18 @@ def test_check_demo_config_size_and_estimate():
     data = tomllib.loads(path.read_text())
     lines = check_config_lines(path)
     text = "\n".join(lines)
-    n_var = get_template(data["template"]["name"]).n_var
+    fixed = data["template"].get("fixed", {})
+    n_var = get_template(data["template"]["name"], fixed=fixed).n_var          # held variables leave the search
     env = data["envelope"]
     n_lean = math.floor(env["lean_limit_deg"] / env["lean_step_deg"]) + 1      # 0, step, ..., limit
     n_states = n_lean * len(env["travel_mm"])
     assert f"{n_var} variables" in text and f"{len(data['objectives'])} objectives" in text
     assert f"states per candidate: {n_states}" in text
     assert "estimated run time:" in text and "valid" in lines[0]
+    # every requirement in force is listed with its limit and where it comes from
+    assert "max_camber_error: max_camber_error_deg = 1 deg (our choice" in text
+    assert "max_width: max_width_mm = 900 mm (set in the config)" in text
+    assert "carrier_clearance: carrier_margin_mm = 3 mm" in text and "common practice, no source" in text
 
 
 def test_cli_check_run_and_errors(tmp_path):

@@ -30,7 +30,12 @@ def test_envelope_defaults():
     np.testing.assert_array_equal(s.envelope.travel_mm, [0.0])          # rigid template
     s = parse_problem(_cfg(template={"name": "twin_beam_sprung"}), "c.toml")
     np.testing.assert_array_equal(s.envelope.travel_mm, [-30.0, 0.0, 30.0])  # sprung template
-    assert s.constraints == ("converged",)
+    # the requirements every run gets (registry defaults): wheels lean with the body, wheel solids clear
+    # of members and of each other, members clear of each other
+    assert s.constraints == ("converged", "max_camber_error", "clearance", "carrier_clearance", "wheel_gap",
+                             "member_gap")
+    assert (s.limits.max_camber_error_deg, s.limits.clearance_margin_mm, s.limits.carrier_margin_mm) == (1.0, 10.0, 3.0)
+    assert s.limits.given == ()
     np.testing.assert_array_equal(lean_grid(32.0, 5.0), [0, 5, 10, 15, 20, 25, 30, 32])
     s = parse_problem(_cfg(envelope={"lean_limit_deg": 20.0, "lean_step_deg": 10.0, "both_sides": True}), "c")
     np.testing.assert_array_equal(s.envelope.lean_deg, [-20, -10, 0, 10, 20])
@@ -51,7 +56,8 @@ def test_envelope_defaults():
     (_cfg(envelope={"travel_mm": [-20.0, 0.0]}), "envelope.travel_mm"),   # rigid template cannot travel
     (_cfg(envelope={"lean_limit_deg": 30.0, "lean_step": 2.0}), "envelope.lean_step"),
     (_cfg(constraints={"max_width_mm": -5.0}), "constraints.max_width_mm"),
-    (_cfg(constraints={"clearance_margin_mm": 5.0}), "constraints.clearance_margin_mm"),  # needs a shell
+    (_cfg(constraints={"wheel_shell_margin_mm": 5.0}), "constraints.wheel_shell_margin_mm"),  # needs a shell
+    (_cfg(constraints={"min_wheel_load_n": 5.0}), "constraints.min_wheel_load_n"),            # needs loads
     (_cfg(template={"name": "bike"}), "template.name"),
 ])
 def test_strict_validation_names_the_key(data, key):
@@ -62,14 +68,19 @@ def test_strict_validation_names_the_key(data, key):
 
 def test_run_table_is_skipped_and_limits_become_constraints():
     s = parse_problem(_cfg(run={"seed": 1}, constraints={"max_width_mm": 900.0, "max_scrub_mm": 4.0}), "c.toml")
-    assert s.constraints == ("converged", "max_width", "max_scrub")
+    assert s.constraints == ("converged", "max_width", "max_scrub", "max_camber_error", "clearance",
+                             "carrier_clearance", "wheel_gap", "member_gap")
+    assert s.limits.given == ("max_width_mm", "max_scrub_mm")
     p = TiltProblem(s)
-    assert (p.n_var, p.n_obj, p.n_ieq_constr) == (4, 2, 3)
+    assert (p.n_var, p.n_obj, p.n_ieq_constr) == (4, 2, 8)
+    # a default switched off by the config? No: a default is a requirement; a config may loosen it
+    s = parse_problem(_cfg(constraints={"max_camber_error_deg": 3.0}), "c.toml")
+    assert s.limits.max_camber_error_deg == 3.0 and s.limits.given == ("max_camber_error_deg",)
 
 
 def test_registry_lists_the_contract_names():
-    assert set(OBJECTIVES) == {"overall_width", "max_scrub", "max_heave", "min_clearance", "linkage_mass",
-                               "slot_length", "max_camber_error"}
+    assert set(OBJECTIVES) == {"overall_width", "lean_sweep_width", "max_scrub", "max_heave", "min_clearance",
+                               "linkage_mass", "slot_length", "max_camber_error"}
     assert set(ALGORITHMS) == {"nsga2", "nsga3"}
     assert set(TEMPLATES) == {"twin_beam", "twin_beam_sprung", "wishbone_rocker"}
     assert names()["constraints"] == list(CONSTRAINTS)
@@ -102,13 +113,14 @@ def _twin_beam_closed_form(a, e, phi_deg, R=250.0, r=23.0):
 
     Derived here: the uprights stay parallel to the chassis (camber = lean phi); both contacts on
     the ground need the beams to rotate by beta with sin(beta) = -(e / a) sin(phi). Then
-    track = 2 a cos(beta) + 2 e cos(phi), scrub = track change (the camber terms cancel),
-    heave = 0, and the tyre outlines reach 2 a cos(beta) + 2 e cos(phi) + 2 ((R - r) sin(phi) + r).
+    track = 2 a cos(beta) + 2 e cos(phi), scrub = track change (the camber terms cancel) and
+    heave = 0. The width of the upright vehicle (lean 0) is the hub centres' 2 (a + e) plus the
+    solid's reach either side: max(half hub width, r) = max(35, 23) mm with the default 70 mm hub.
     """
     phi = np.radians(phi_deg)
     cb = np.sqrt(1.0 - (e / a * np.sin(phi)) ** 2)
     scrub = 2 * a * (cb - 1.0) + 2 * e * (np.cos(phi) - 1.0)
-    width = 2 * a * cb + 2 * e * np.cos(phi) + 2 * ((R - r) * np.abs(np.sin(phi)) + r)
+    width = 2 * (a + e) + 2 * max(35.0, r)
     return scrub, width
 
 
@@ -117,11 +129,12 @@ def test_kinematic_objectives_match_closed_form():
     p = TiltProblem(s)
     X = np.random.default_rng(7).uniform(p.xl, p.xu, (25, p.n_var))
     ev = p.evaluate_designs(X)
-    assert ev.feasible.all()
+    assert np.isfinite(ev.metrics["max_scrub_mm"]).all()      # every design reaches its envelope (rigid)
     a, e = X[:, 0][:, None], X[:, 1][:, None]
     scrub, width = _twin_beam_closed_form(a, e, s.envelope.lean_deg[None])
     np.testing.assert_allclose(ev.metrics["max_scrub_mm"], np.abs(scrub).max(1), atol=1e-6)
-    np.testing.assert_allclose(ev.metrics["overall_width_mm"], width.max(1), atol=1e-6)
+    np.testing.assert_allclose(ev.metrics["overall_width_mm"], width[:, 0], atol=1e-6)
+    np.testing.assert_allclose(ev.metrics["design_width_mm"], width[:, 0], atol=1e-6)
     np.testing.assert_allclose(ev.metrics["max_heave_mm"], 0.0, atol=1e-6)            # docs/domain.md: parallelogram
     np.testing.assert_allclose(ev.metrics["max_camber_error_deg"], 0.0, atol=1e-6)
     np.testing.assert_allclose(ev.metrics["design_track_mm"], 2 * (X[:, 0] + X[:, 1]), atol=1e-9)
@@ -135,9 +148,10 @@ def test_width_limit_constraint_value():
     X = np.array([[300.0, 50.0, 220.0, 200.0], [400.0, 100.0, 220.0, 200.0]])
     ev = p.evaluate_designs(X)
     _, width = _twin_beam_closed_form(X[:, :1], X[:, 1:2], s.envelope.lean_deg[None])
-    np.testing.assert_allclose(ev.G[:, 1], width.max(1) - 1000.0, atol=1e-6)
-    assert ev.feasible.tolist() == [True, False]
-    assert ev.reason[0] == "" and ev.reason[1].startswith("max_width: overall width")
+    # G is the value in mm divided by the constraint's scale (10 mm); the reason gives the mm
+    np.testing.assert_allclose(ev.G[:, 1], (width[:, 0] - 1000.0) / 10.0, atol=1e-6)
+    assert ev.G[0, 1] < 0 < ev.G[1, 1]
+    assert "max_width" not in ev.reason[0] and "max_width: width 70.0 mm over the limit" in ev.reason[1]
 
 
 # ------------------------------------------------------------------ failures are data
@@ -178,14 +192,18 @@ def test_F_always_written_and_finite_through_pymoo():
     X = np.random.default_rng(2).uniform(p.xl, p.xu, (40, p.n_var))
     pop = Evaluator().eval(p, Population.new(X=X))
     F, G = pop.get("F"), pop.get("G")
-    assert F.shape == (40, 2) and G.shape == (40, 1)
+    assert F.shape == (40, 2) and G.shape == (40, p.n_ieq_constr)
     assert np.isfinite(F).all() and np.isfinite(G).all()
     ev = p.last_evaluation
     bad = ~ev.feasible
-    assert bad.any() and ev.feasible.any()              # the sample holds both kinds
+    assert bad.any() and (G[:, 0] > 0).any()            # the sample holds failing designs, locked ones among them
     assert all(ev.reason[j] for j in np.flatnonzero(bad))
     assert all(ev.reason[j] == "" for j in np.flatnonzero(~bad))
-    np.testing.assert_array_equal(G[:, 0] > 0, bad)
+    np.testing.assert_array_equal((G > 0).any(1), bad)
+    # a design that does not converge always weighs more than one that only misses a margin
+    locked = G[:, 0] > 0
+    if locked.any() and (bad & ~locked).any():
+        assert ev.violation[locked].min() > ev.violation[bad & ~locked].max()
 
 
 def test_invalid_geometry_is_infeasible_not_an_exception():
@@ -198,5 +216,6 @@ def test_invalid_geometry_is_infeasible_not_an_exception():
     ev = p.evaluate_designs(np.array([[300.0], [315.0]]))
     assert ev.feasible.tolist() == [True, False]
     assert "invalid geometry" in ev.reason[1]
-    assert ev.G[1, 0] == pytest.approx(2 * p.size_mm)     # invalid geometry: the worst "converged" value
+    from tiltopt.problems.problem import FAILED_G
+    assert ev.G[1, 0] == pytest.approx(2 * FAILED_G)     # invalid geometry: the worst "converged" value
     assert np.isfinite(ev.F).all()

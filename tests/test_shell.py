@@ -116,7 +116,7 @@ def test_polygon_sections_of_a_superellipse_shell_keep_its_distances_at_the_stat
     # Hausdorff distance h of the two outlines (h from a dense sampling of the section)
     se = load_shell(CONFIGS / "shell_demo.toml")
     poly = polygon_sections(se, 720)
-    assert poly.kind == "polygon" and poly.outlines.shape == (4, 720, 2) and poly.notes == ""
+    assert poly.kind == "polygon" and poly.outlines.shape == (5, 720, 2) and poly.notes == ""
     rng = np.random.default_rng(2)
     for k, x in enumerate(se.x):
         a, b, zc, n = (float(v) for v in superellipse_params(se, np.array(x)))
@@ -130,7 +130,7 @@ def test_polygon_sections_of_a_superellipse_shell_keep_its_distances_at_the_stat
         d_po = shell_signed_distance(poly, p, x)
         out = d_se > 1.0
         assert np.all(d_po[out] >= d_se[out] - 1e-6) and np.all(d_po[out] <= d_se[out] + h * 1.01 + 1e-6)
-    assert "resampled" in polygon_sections(se, (100, 120, 100, 80)).notes
+    assert "resampled" in polygon_sections(se, (100, 120, 120, 100, 80)).notes
 
 
 # -------------------------------------------------------------- closed forms
@@ -178,12 +178,12 @@ def test_outline_position_on_a_circle_is_radius_times_angle():
 
 
 # ------------------------------------------------------------------ files
-def test_demo_shell_is_400_mm_wide_at_the_linkage_station():
+def test_demo_shell_is_380_mm_wide_at_the_linkage_station():
     shell = load_shell(CONFIGS / "shell_demo.toml")
     mech = load_mechanism(CONFIGS / "wishbone_rocker.toml")
     from tiltopt.kinematics.shell import superellipse_params
     a, b, zc, n = superellipse_params(shell, np.array(mech.station_x_mm))
-    assert 2 * a == pytest.approx(400.0)
+    assert 2 * a == pytest.approx(380.0)
     # the inboard chassis pivots of the demo mechanism lie inside the shell
     piv = np.array([mech.point(f"chassis.{p}") for p in ("upper_left_pivot", "lower_right_pivot", "rocker_pivot")])
     assert np.all(shell_signed_distance(shell, piv, 0.0) < 0)

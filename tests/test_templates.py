@@ -192,7 +192,20 @@ def test_builtin_defaults_describe_the_base_mechanisms():
         assert d["wheel_offset"] == m.point(hub)[0] - m.point("upper_beam.right_end")[0]
         assert d["lower_pivot_z"] == m.point("chassis.lower_pivot")[1]
         assert d["beam_spacing"] == m.point("chassis.upper_pivot")[1] - m.point("chassis.lower_pivot")[1]
+    # the wishbone template is built round the parallelogram: its defaults are relative quantities,
+    # read off the base mechanism here by hand
     t = get_template("wishbone_rocker")
-    for v in t.variables:
-        ax = 0 if v.moves[0].axis == "y" else 1
-        assert v.default == t.mechanism.point(v.moves[0].ref)[ax], v.name
+    m = t.mechanism
+    d = dict(zip(t.names, t.defaults))
+    li, ui = m.point("chassis.lower_right_pivot"), m.point("chassis.upper_right_pivot")
+    lo, uo = m.point("lower_arm_right.outer"), m.point("upper_arm_right.outer")
+    assert (d["lower_inner_y"], d["lower_inner_z"]) == li
+    assert (d["inner_split"], d["inner_spacing"]) == (ui[0] - li[0], ui[1] - li[1])
+    assert (d["arm_span"], d["arm_rise"]) == (lo[0] - li[0], lo[1] - li[1])
+    # the deviations from the parallelogram: the upper arm's vector minus the lower one's
+    assert (d["outer_split_delta"], d["outer_spacing_delta"]) == (uo[0] - ui[0] - (lo[0] - li[0]),
+                                                                  uo[1] - ui[1] - (lo[1] - li[1])) == (0.0, 0.0)
+    assert d["wheel_offset"] == m.point("upright_right.hub")[0] - lo[0]
+    mount = m.point("lower_arm_right.spring_mount")
+    assert (d["spring_mount_y"], d["spring_mount_z"]) == (mount[0] - li[0], mount[1] - li[1])
+    assert d["rocker_half_length"] == m.point("rocker.right_end")[0]
