@@ -879,10 +879,11 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
 
 
 def member_pairs(model: Model, mem: Members) -> np.ndarray:
-    """Pairs (i, j) of members that must keep clear of each other. Left out: members of one body or of
+    """Pairs (i, j) of members that must keep clear of each other. Left out: tubes of one body or of
     two bodies joined by a pin or slider (they meet at the joint; the two bodies of a slider count as
-    one with each other's neighbours), a link and the bodies it attaches to, and the chassis' tubes
-    (the chassis is a frame the members pass beside). Shape (n_pairs, 2)."""
+    one with each other's neighbours), a link and the tubes of the bodies it attaches to, two links
+    on one body, and the chassis' tubes (the chassis is a frame the members pass beside).
+    Shape (n_pairs, 2)."""
     mech = model.mech
     near: dict[str, set[str]] = {b: {b} for b in mech.bodies}
     for j in (*((p.a, p.b) for p in mech.pins), *((s.a_from, s.b) for s in mech.sliders)):
@@ -896,14 +897,21 @@ def member_pairs(model: Model, mem: Members) -> np.ndarray:
         both = near[ba] | near[bb]
         near[ba], near[bb] = set(both), set(both)
     links = {l.name: (split_ref(l.a)[0], split_ref(l.b)[0]) for l in mech.links}
-    touch = []
-    for k, nm in enumerate(mem.names):
-        bodies = set(links[nm]) if nm in links else {model.body_names[model.point_body[mem.ia[k]]]}
-        touch.append(bodies)
-    frame = [t == {mech.chassis} for t in touch]          # the chassis' own tubes
+    is_link = [nm in links for nm in mem.names]
+    touch = [set(links[nm]) if nm in links else {model.body_names[model.point_body[mem.ia[k]]]}
+             for k, nm in enumerate(mem.names)]
+    frame = [t == {mech.chassis} and not is_link[k] for k, t in enumerate(touch)]   # the chassis' own tubes
+
+    def joined(i, j):
+        if is_link[i] and is_link[j]:
+            return bool(touch[i] & touch[j])          # two links on one body
+        if is_link[i] or is_link[j]:
+            return bool(touch[i] & touch[j])          # a link and the tubes of a body it attaches to
+        (bi,), (bj,) = touch[i], touch[j]
+        return bj in near[bi] or bi in near[bj]       # one body, or two joined by a pin or slider
+
     out = [(i, j) for i in range(len(mem)) for j in range(i + 1, len(mem))
-           if not (frame[i] or frame[j])
-           and not any(b in near[a] or a in near[b] for a in touch[i] for b in touch[j])]
+           if not (frame[i] or frame[j]) and not joined(i, j)]
     return np.array(out, dtype=int).reshape(-1, 2)
 
 

@@ -141,7 +141,7 @@ def _member_search(q, i, m, xs, dmax, enough):
     nd = STEER_SAMPLES if dmax > 0.0 else 1
     # corner values of the coarse grid
     grid = np.empty((nt, nd))
-    best, best_d = np.inf, 0.0
+    best, best_d, best_t = np.inf, 0.0, 0.0
     for a in range(nt):
         t = a / (nt - 1.0)
         y, z = ay + t * (by - ay), az + t * (bz - az)
@@ -150,7 +150,7 @@ def _member_search(q, i, m, xs, dmax, enough):
             v = _point_value(q, i, xs, y, z, math.cos(dl), math.sin(dl), rho_lo) - rad
             grid[a, b] = v
             if v < best:
-                best, best_d = v, dl
+                best, best_d, best_t = v, dl, t
     # cells: t0, t1, d0, d1, f00, f01, f10, f11, lower bound
     cells = np.empty((_MAX_CELLS, 9))
     n = 0
@@ -183,9 +183,9 @@ def _member_search(q, i, m, xs, dmax, enough):
             g0 = _point_value(q, i, xs, y, z, math.cos(d0), math.sin(d0), rho_lo) - rad
             g1 = g0 if Hd == 0.0 else _point_value(q, i, xs, y, z, math.cos(d1), math.sin(d1), rho_lo) - rad
             if g0 < best:
-                best, best_d = g0, d0
+                best, best_d, best_t = g0, d0, tm
             if g1 < best:
-                best, best_d = g1, d1
+                best, best_d, best_t = g1, d1, tm
             # child 1 replaces j: [t0, tm]; child 2 appended: [tm, t1]
             cells[n, 0], cells[n, 1], cells[n, 2], cells[n, 3] = tm, t1, d0, d1
             cells[n, 4], cells[n, 5], cells[n, 6], cells[n, 7] = g0, g1, f10, f11
@@ -196,9 +196,9 @@ def _member_search(q, i, m, xs, dmax, enough):
             g0 = _point_value(q, i, xs, ay + t0 * (by - ay), az + t0 * (bz - az), cm, sm, rho_lo) - rad
             g1 = _point_value(q, i, xs, ay + t1 * (by - ay), az + t1 * (bz - az), cm, sm, rho_lo) - rad
             if g0 < best:
-                best, best_d = g0, dm
+                best, best_d, best_t = g0, dm, t0
             if g1 < best:
-                best, best_d = g1, dm
+                best, best_d, best_t = g1, dm, t1
             cells[n, 0], cells[n, 1], cells[n, 2], cells[n, 3] = t0, t1, dm, d1
             cells[n, 4], cells[n, 5], cells[n, 6], cells[n, 7] = g0, f01, g1, f11
             cells[j, 3], cells[j, 5], cells[j, 7] = dm, g0, g1
@@ -209,6 +209,23 @@ def _member_search(q, i, m, xs, dmax, enough):
     lb = best
     for k in range(n):
         lb = min(lb, cells[k, 8])
+    if best < 0.0:
+        # an overlap: the bounds above hold for distances, not depths; a local coordinate search
+        # deepens the reported overlap towards the deepest point (a reached depth, the true one may
+        # be deeper)
+        ht, hd = 1.0 / (nt - 1.0), (2.0 * dmax / (nd - 1.0) if nd > 1 else 0.0)
+        for _ in range(30):
+            for dt_, dd_ in ((-ht, 0.0), (ht, 0.0), (0.0, -hd), (0.0, hd)):
+                if dt_ == 0.0 and dd_ == 0.0:
+                    continue
+                t = min(max(best_t + dt_, 0.0), 1.0)
+                dl = min(max(best_d + dd_, -dmax), dmax)
+                v = _point_value(q, i, xs, ay + t * (by - ay), az + t * (bz - az), math.cos(dl), math.sin(dl),
+                                 rho_lo) - rad
+                if v < best:
+                    best, best_d, best_t = v, dl, t
+            ht, hd = 0.5 * ht, 0.5 * hd
+        lb = best
     return best, best_d, lb
 
 
