@@ -6,6 +6,7 @@ from pathlib import Path
 import click
 
 from tiltopt.base.errors import InputError
+from tiltopt.base.limits import BATCH_CONFIRM_RUNS
 
 from ..cli import main
 
@@ -53,11 +54,12 @@ def run_cmd(config, resume, output, run_id, overwrite, quiet):
 @click.option("--workers", type=click.IntRange(1, None), default=2, show_default=True,
               help="Local worker processes (one run each at a time).")
 @click.option("--scheduler", default=None, help="Address of a Dask distributed scheduler (tcp://host:8786).")
-def batch_cmd(batch_file, workers, scheduler):
+@click.option("--yes", is_flag=True, help=f"Start a batch of more than {BATCH_CONFIRM_RUNS:,} runs.")
+def batch_cmd(batch_file, workers, scheduler, yes):
     """Run many configs / seeds / grid points; finished runs are kept on restart."""
     from tiltopt.optimizer.batch import SUMMARY, load_batch, run_dask, run_local
 
-    b = load_batch(batch_file)
+    b = load_batch(batch_file, confirm_above=None if yes else BATCH_CONFIRM_RUNS)
     click.echo(f"batch {b.name}: {len(b.items)} runs in {b.batch_dir}")
     if scheduler:
         df = run_dask(b, scheduler, echo=click.echo)
