@@ -14,6 +14,7 @@ from tiltopt.base.limits import MAX_FORCE_N, MAX_LEAN_LIMIT_DEG, MAX_STATES, MAX
 from tiltopt.base.units import parse_number, parse_point, parse_travels
 
 from ..cli import main
+from . import output_path
 
 
 class _QuietHandler(http.server.SimpleHTTPRequestHandler):
@@ -44,7 +45,7 @@ def serve(path: Path, port: int = 0, open_browser: bool = True):
 
 @main.command("explore")
 @click.argument("run_dirs", nargs=-1, required=True, type=click.Path(file_okay=False))
-@click.option("-o", "--output", type=click.Path(dir_okay=False), default=None,
+@click.option("-o", "--output", type=click.Path(dir_okay=False), default=None, callback=output_path,
               help="Page to write [default: explorer.html in the first run folder].")
 @click.option("--serve", "do_serve", is_flag=True, help="Serve the page on 127.0.0.1 and open it.")
 @click.option("--port", type=click.IntRange(0, 65535), default=0, show_default=True,
@@ -66,7 +67,7 @@ def explore_cmd(run_dirs, output, do_serve, port, detail_limit, plotly_beside):
 @main.command("sheet")
 @click.argument("source", type=click.Path())
 @click.option("--candidate", "candidate", default=None, help="Candidate id (see the explorer). Needed for a run folder.")
-@click.option("-o", "--output", type=click.Path(file_okay=False), default=None,
+@click.option("-o", "--output", type=click.Path(file_okay=False), default=None, callback=output_path,
               help="Folder to write [default: RUN_DIR/sheets/ID, or next to a mechanism file].")
 @click.option("--jig-datum", default="0,0", show_default=True,
               help="Jig datum 'Y,Z' in mm, chassis datum frame; the pivot table also gives coordinates from it.")
