@@ -104,6 +104,12 @@ def _seeds(v, src, where):
     return v
 
 
+def _path_text(v, src, where) -> str:
+    if not isinstance(v, str) or not v:
+        raise InputError(f"expected a path (a string, relative to the batch file). Got {v!r} instead.", src, where)
+    return v
+
+
 def _table(v, allowed, src, where, required=()):
     if not isinstance(v, dict):
         raise InputError(f"expected a table. Got {v!r} instead.", src, where)
@@ -129,7 +135,7 @@ def parse_batch(data: dict, src: str, base_dir: Path, confirm_above: int | None 
     name = b["name"]
     if not isinstance(name, str) or not name or any(c in name for c in '/\\:*?"<>|'):
         raise InputError(f"expected a short name usable as a folder name. Got {name!r}.", src, "batch.name")
-    out = Path(b.get("output", "results"))
+    out = Path(_path_text(b.get("output", "results"), src, "batch.output"))
     out = (out if out.is_absolute() else base_dir / out).resolve()
     retries = b.get("retries", 2)
     if isinstance(retries, bool) or not isinstance(retries, int) or retries < 0:
@@ -152,7 +158,7 @@ def parse_batch(data: dict, src: str, base_dir: Path, confirm_above: int | None 
     items: list[BatchItem] = []
     seen: set[str] = set()
     for kind, where, e in groups:
-        cpath = Path(e["config"])
+        cpath = Path(_path_text(e["config"], src, f"{where}.config"))
         cpath = (cpath if cpath.is_absolute() else base_dir / cpath).resolve()
         base = read_toml(cpath)
         seeds = _seeds(e.get("seeds", [base.get("run", {}).get("seed", 0)]), src, f"{where}.seeds")

@@ -90,7 +90,7 @@ def parse_benchmark(table, src: str) -> ZDTProblem:
         if k not in BENCHMARK_KEYS:
             raise InputError(f"unknown key '{k}'. Expected one of: {', '.join(BENCHMARK_KEYS)}.", src, f"benchmark.{k}")
     name = table.get("name")
-    if name not in BENCHMARKS:
+    if not isinstance(name, str) or name not in BENCHMARKS:
         raise InputError(f"expected one of {', '.join(BENCHMARKS)}. Got {name!r} instead.", src, "benchmark.name")
     n_var = table.get("n_var", 30)
     if isinstance(n_var, bool) or not isinstance(n_var, int) or not 2 <= n_var <= MAX_BENCHMARK_VARIABLES:

@@ -203,11 +203,11 @@ class Run:
 
     @property
     def variable_names(self) -> list[str]:
-        return list(self.meta.get("problem", {}).get("variables", []))
+        return list((self.meta.get("problem") or {}).get("variables") or [])
 
     @property
     def objective_names(self) -> list[str]:
-        return list(self.meta.get("problem", {}).get("objectives", []))
+        return list((self.meta.get("problem") or {}).get("objectives") or [])
 
     @cached_property
     def config(self):
@@ -235,15 +235,21 @@ class Run:
 
         src = str(self.run_dir / RUN_JSON)
         try:
-            return Template.from_dict(d, src)
+            tpl = Template.from_dict(d, src)
         except InputError:
             raise
         except (KeyError, TypeError, ValueError, AttributeError) as exc:
             raise InputError(f"the template record is damaged ({type(exc).__name__}: {exc}). Restore run.json, or "
                              f"run again.", src, "template") from None
+        if tpl.names != self.variable_names:
+            raise InputError(f"the template's variables ({', '.join(tpl.names)}) are not the problem's "
+                             f"({', '.join(self.variable_names) or 'none'}): run.json is damaged.", src, "template")
+        _require_columns(self.front, [f"var.{v}" for v in tpl.names], self.run_dir / FRONT, "the template names")
+        return tpl
 
     def _row(self, candidate_id: str) -> pd.Series:
-        for df in (self.front, self.evaluations):
+        for name in ("front", "evaluations"):   # evaluations are read only when the id is not on the front
+            df = getattr(self, name)
             hit = df.index[df["candidate_id"] == candidate_id] if "candidate_id" in df else []
             if len(hit):
                 return df.loc[hit[0]]
@@ -276,7 +282,8 @@ def load_run(run_dir: str | Path) -> Run:
     """
     d = Path(run_dir)
     if not d.is_dir():
-        raise InputError("expected a run folder (results/<run-id>/). It does not exist.", str(d))
+        raise InputError("expected a run folder (results/<run-id>/). " + ("This is not a folder." if d.exists() else
+                                                                          "It does not exist."), str(d))
     rj = d / RUN_JSON
     if not rj.is_file():
         raise InputError("expected a run folder with run.json; none found. Is this a results/<run-id>/ folder?", str(d))
@@ -286,8 +293,8 @@ def load_run(run_dir: str | Path) -> Run:
         front, fm = read_parquet(d / FRONT)
         units.update(fm.get("units", {}))
         problem = meta.get("problem") or {}
-        _require_columns(front, ["candidate_id"] + [f"obj.{o}" for o in problem.get("objectives", [])]
-                         + [f"var.{v}" for v in problem.get("variables", [])], d / FRONT, "run.json names")
+        _require_columns(front, ["candidate_id"] + [f"obj.{o}" for o in problem.get("objectives") or []]
+                         + [f"var.{v}" for v in problem.get("variables") or []], d / FRONT, "run.json names")
     elif meta.get("status") in ("running", "interrupted", "failed"):
         front = pd.DataFrame({"candidate_id": pd.Series(dtype=str)})
     else:

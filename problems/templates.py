@@ -146,6 +146,10 @@ class Template:
         self.source = source
         self.model = Model(mechanism)
         names = [v.name for v in self.variables]
+        for n in names:
+            if not isinstance(n, str) or not n.isidentifier():
+                raise InputError(f"design variable names are letters, digits and '_'. Got {n!r} instead.", source,
+                                 "template.variables")
         if len(set(names)) != len(names):
             dup = sorted({n for n in names if names.count(n) > 1})
             raise InputError(f"design variable names must be unique. Repeated: {', '.join(dup)}.", source,

@@ -60,17 +60,17 @@ def read_text(path, what: str, limit: int | None = None) -> str:
         # non-blocking: a pipe swapped in after the check above must not hang the open
         fd = os.open(p, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
         with os.fdopen(fd, "rb") as fh:
-            if not stat.S_ISREG(os.fstat(fh.fileno()).st_mode):
+            st = os.fstat(fh.fileno())
+            if not stat.S_ISREG(st.st_mode):
                 raise InputError(f"not a regular file (a device, pipe or socket). Give the path of a {what} "
                                  f"file.", str(p))
-            data = fh.read(limit + 1)
+            data = fh.read(limit + 1) if st.st_size <= limit else b""
     except InputError:
         raise
     except OSError as exc:
         raise InputError(f"cannot read the file ({exc}).", str(p)) from None
-    if len(data) > limit:
-        raise InputError(f"the file is larger than the limit of {limit // (1024 * 1024)} MiB for a {what} file.",
-                         str(p))
+    if st.st_size > limit or len(data) > limit:
+        raise InputError(f"the file is larger than the limit of {limit / 2 ** 20:g} MiB for a {what} file.", str(p))
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError as exc:
