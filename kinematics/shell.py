@@ -41,13 +41,12 @@ from __future__ import annotations
 
 import csv
 import math
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
-from tiltopt.base.errors import InputError, read_text
+from tiltopt.base.errors import InputError, decode_toml, read_text
 from tiltopt.base.limits import MAX_SHELL_VERTICES, check_coord, check_count
 
 _NEWTON_ITERATIONS = 5
@@ -118,11 +117,7 @@ def load_shell(path: str | Path) -> Shell:
     text = read_text(path, "shell .toml or .csv")
     if path.suffix.lower() == ".csv":
         return parse_polygon_csv(text, src)
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc}).", src) from None
-    return parse_shell(data, src)
+    return parse_shell(decode_toml(text, src), src)
 
 
 def _num(v, src, key, *, positive=False, minimum=None) -> float:

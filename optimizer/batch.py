@@ -219,9 +219,10 @@ def load_batch(path: str | Path, confirm_above: int | None = None) -> Batch:
 # ------------------------------------------------------------------ one run
 def _status(run_dir: Path) -> dict | None:
     try:
-        return json.loads((run_dir / R.RUN_JSON).read_text(encoding="utf-8"))
-    except (OSError, ValueError):
+        meta = json.loads((run_dir / R.RUN_JSON).read_text(encoding="utf-8"))
+    except (OSError, ValueError, RecursionError):
         return None
+    return meta if isinstance(meta, dict) else None
 
 
 def summary_row(item: dict, attempts: int = 0, status: str | None = None, error: str = "") -> dict:

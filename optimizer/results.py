@@ -131,7 +131,7 @@ def read_parquet(path: Path) -> tuple[pd.DataFrame, dict]:
     raw = (table.schema.metadata or {}).get(META_KEY)
     try:
         info = json.loads(raw) if raw else {}
-    except ValueError:
+    except (ValueError, RecursionError):
         info = None
     if not isinstance(info, dict) or not isinstance(info.get("units", {}), dict):
         raise InputError("the tiltopt metadata of this Parquet file is damaged (expected a JSON object with a "
@@ -324,9 +324,9 @@ def read_run_json(path: Path) -> dict:
     src = str(path)
     try:
         meta = json.loads(read_text(path, "run.json"))
-    except ValueError as exc:
-        if isinstance(exc, InputError):
-            raise
+    except InputError:
+        raise
+    except (ValueError, RecursionError) as exc:
         raise InputError(f"run.json is not valid JSON ({exc}). Restore it, or run again.", src) from None
     if not isinstance(meta, dict):
         raise InputError(f"expected a JSON object (the run's record). Got a JSON {_JSON_NAMES.get(type(meta), 'value')} "

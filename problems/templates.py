@@ -39,14 +39,13 @@ from __future__ import annotations
 
 import math
 import re
-import tomllib
 from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Callable, Iterable, Mapping, Sequence
 
 import numpy as np
 
-from tiltopt.base.errors import InputError, read_toml
+from tiltopt.base.errors import InputError, decode_toml, read_toml
 from tiltopt.base.limits import MAX_COORD_MM
 from tiltopt.base.resources import config_path
 from tiltopt.kinematics.mechanism import Mechanism, load_mechanism, mechanism_to_toml, parse_mechanism, split_ref
@@ -475,7 +474,7 @@ class Template:
         if d.get("format") != TEMPLATE_FORMAT:
             raise InputError(f"expected a template dict of format {TEMPLATE_FORMAT!r}. Got {d.get('format')!r}.",
                              src, "format")
-        mech = parse_mechanism(tomllib.loads(d["mechanism_toml"]), src)
+        mech = parse_mechanism(decode_toml(d["mechanism_toml"], src), src)
         return cls(d["name"], mech, [DesignVariable.from_dict(v) for v in d["variables"]],
                    d.get("description", ""), src)
 

@@ -136,6 +136,10 @@ FILE_CASES = [
                                                         "\n[steer_envelope]\nlean_deg = [0.0, 1e308]\n"
                                                         "max_steer_deg = [20.0, 5.0]\n")], ["steer_envelope.lean_deg"]),
     ("mech-empty", lambda t: ["sweep", _write(t / "m.toml", "")], ["this key is required"]),
+    ("mech-nested-too-deep", lambda t: ["check", _write(t / "m.toml", "a = " + "[" * 50000 + "]" * 50000)],
+     ["nested too deeply"]),
+    ("shell-nested-too-deep", lambda t: ["clearance", MECH, "--shell", _write(t / "s.toml", "a = " + "[" * 50000 +
+                                                                              "]" * 50000)], ["nested too deeply"]),
     # shell files
     ("shell-toml-huge-width", lambda t: ["clearance", MECH, "--shell", _write(t / "s.toml", SHELL.read_text().replace(
         "half_width_mm = 200.0", "half_width_mm = 1e308", 1))], ["half_width_mm", "100000"]),
@@ -329,6 +333,8 @@ DAMAGE = [
     ("generations-truncated", _truncate("generations.parquet"), "generations.parquet", ["damaged"]),
     ("run-json-list", lambda d: (d / "run.json").write_text("[]"), "run.json", ["JSON object"]),
     ("run-json-broken", lambda d: (d / "run.json").write_text('{"run_id": '), "run.json", ["not valid JSON"]),
+    ("run-json-nested-too-deep", lambda d: (d / "run.json").write_text("[" * 50000 + "]" * 50000), "run.json",
+     ["not valid JSON"]),
     ("run-json-problem-number", _meta(lambda m: {**m, "problem": 5}), "run.json", ["problem"]),
     ("run-json-objectives", _meta(lambda m: {**m, "problem": {**m["problem"], "objectives": [1, 2]}}), "run.json",
      ["problem.objectives"]),

@@ -80,13 +80,19 @@ def read_text(path, what: str, limit: int | None = None) -> str:
 
 def read_toml(path, what: str) -> dict:
     """Read and decode a user's TOML file (see :func:`read_text`)."""
+    return decode_toml(read_text(path, what), str(path))
+
+
+def decode_toml(text: str, source: str) -> dict:
+    """TOML text as a dict; bad TOML (or TOML nested too deeply to decode) is an :class:`InputError`."""
     import tomllib
 
-    text = read_text(path, what)
     try:
         return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc}).", str(path)) from None
+        raise InputError(f"not valid TOML ({exc}).", source) from None
+    except RecursionError:
+        raise InputError("not a usable TOML file: its arrays or tables are nested too deeply.", source) from None
 
 
 def check_keys(table, allowed, src: str, where: str, required=()) -> None:
