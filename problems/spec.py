@@ -162,14 +162,14 @@ _keys = check_keys
 
 
 def _num(v: Any, src: str, key: str, *, lo: float | None = None, lo_open: bool = False,
-         hi: float | None = None) -> float:
+         hi: float | None = None, hi_open: bool = False) -> float:
     if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
         raise InputError(f"expected a finite number. Got {v!r} instead.", src, key)
     v = float(v)
     if lo is not None and (v < lo or (lo_open and v == lo)):
         raise InputError(f"must be {'greater than' if lo_open else 'at least'} {lo:g}. Got {v:g} instead.", src, key)
-    if hi is not None and v > hi:
-        raise InputError(f"must be at most {hi:g}. Got {v:g} instead.", src, key)
+    if hi is not None and (v > hi or (hi_open and v == hi)):
+        raise InputError(f"must be {'less than' if hi_open else 'at most'} {hi:g}. Got {v:g} instead.", src, key)
     return v
 
 
@@ -263,7 +263,8 @@ def _parse_envelope(e: Any, src: str, template: Template, default_limit: float) 
         if not (isinstance(ld, list) and isinstance(ms, list) and ld and len(ld) == len(ms)):
             raise InputError("lean_deg and max_steer_deg must be lists of the same, non-zero length.", src,
                              "envelope.steer")
-        ld = [_num(v, src, f"envelope.steer.lean_deg[{i}]", lo=0.0, hi=MAX_ABS_LEAN_DEG) for i, v in enumerate(ld)]
+        ld = [_num(v, src, f"envelope.steer.lean_deg[{i}]", lo=0.0, hi=MAX_ABS_LEAN_DEG, hi_open=True)
+              for i, v in enumerate(ld)]
         ms = [_num(v, src, f"envelope.steer.max_steer_deg[{i}]", lo=0.0, hi=80.0) for i, v in enumerate(ms)]
         if any(b <= a for a, b in zip(ld, ld[1:])):
             raise InputError(f"lean_deg rows must be strictly ascending. Got {ld}.", src, "envelope.steer.lean_deg")
