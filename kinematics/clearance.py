@@ -879,7 +879,8 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
 
 
 def member_pairs(model: Model, mem: Members) -> np.ndarray:
-    """Pairs (i, j) of members that must keep clear of each other. Left out: tubes of one body or of
+    """Pairs (i, j) of members that must keep clear of each other. Left out: members that meet at a
+    joint (an end of each at one pin), tubes of one body or of
     two bodies joined by a pin or slider (they meet at the joint; the two bodies of a slider count as
     one with each other's neighbours), a link and the tubes of the bodies it attaches to, two links
     on one body, and the chassis' tubes (the chassis is a frame the members pass beside).
@@ -902,7 +903,21 @@ def member_pairs(model: Model, mem: Members) -> np.ndarray:
              for k, nm in enumerate(mem.names)]
     frame = [t == {mech.chassis} and not is_link[k] for k, t in enumerate(touch)]   # the chassis' own tubes
 
+    parent = {r: r for r in model.point_refs}
+
+    def find(a):
+        while parent[a] != a:
+            a = parent[a]
+        return a
+
+    for p_ in mech.pins:
+        parent[find(p_.a)] = find(p_.b)
+    refs = model.point_refs
+    ends = [{find(refs[a]), find(refs[b])} for a, b in zip(mem.ia, mem.ib)]
+
     def joined(i, j):
+        if ends[i] & ends[j]:
+            return True                               # they meet at a joint
         if is_link[i] and is_link[j]:
             return bool(touch[i] & touch[j])          # two links on one body
         if is_link[i] or is_link[j]:
@@ -931,17 +946,19 @@ def _member_gaps(model: Model, mem: Members, pts):
     """Smallest gap between the tubes of two members (:func:`member_pairs`) at every state.
 
     Returns (gap (C, T, L): distance between the tube surfaces, negative where they overlap; +inf
-    without pairs, and the pair index of the smallest).
+    without pairs, and the pair index of the smallest). NaN states give NaN (compiled per state).
     """
     pairs = member_pairs(model, mem)
     shape = pts.shape[:3]
     if not len(pairs):
         return np.full(shape, np.inf), np.full(shape, -1)
-    i, j = pairs[:, 0], pairs[:, 1]
-    d = _segments_gap(pts[..., mem.ia[i], :], pts[..., mem.ib[i], :], pts[..., mem.ia[j], :], pts[..., mem.ib[j], :])
-    d = d - mem.radius[i] - mem.radius[j]
-    k = np.argmin(d, axis=-1)
-    return np.take_along_axis(d, k[..., None], -1)[..., 0], k
+    flat = np.ascontiguousarray(pts.reshape(-1, pts.shape[-2], 2), float)
+    gap, which = np.empty(len(flat)), np.empty(len(flat), np.int64)
+    _solid.member_gaps(flat, mem.ia.astype(np.int64), mem.ib.astype(np.int64), mem.radius.astype(float),
+                       pairs[:, 0].astype(np.int64), pairs[:, 1].astype(np.int64), gap, which)
+    bad = ~np.isfinite(flat).all(axis=(1, 2))
+    gap[bad] = np.nan
+    return gap.reshape(shape), which.reshape(shape)
 
 
 def _tube_extreme(shell: Shell, a, b, x0, sign, st: ClearanceSettings):

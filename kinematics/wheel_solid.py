@@ -349,13 +349,128 @@ def _polygon_signed_abs(V, W):
     return np.min(point_segment_distance(V[..., :, None, :], a[..., None, :, :], b[..., None, :, :]), -1)
 
 
+@numba.njit(cache=True)
+def _hexagon(cy, cz, sg, cg, rc, r, h, V):
+    ny, nz, uy, uz = cg, -sg, sg, cg
+    hh = max(h, r)
+    A = (hh, r, -r, -hh, -r, r)
+    B = (0.0, rc, rc, 0.0, -rc, -rc)
+    for k in range(6):
+        V[k, 0] = cy + A[k] * ny + B[k] * uy
+        V[k, 1] = cz + A[k] * nz + B[k] * uz
+
+
+@numba.njit(cache=True)
+def _poly_signed(py, pz, V):
+    d = np.inf
+    pos, neg = True, True
+    for k in range(6):
+        ay, az = V[k, 0], V[k, 1]
+        by, bz = V[(k + 1) % 6, 0], V[(k + 1) % 6, 1]
+        d = min(d, _seg2(py, pz, ay, az, by, bz))
+        cr = (by - ay) * (pz - az) - (bz - az) * (py - ay)
+        pos = pos and cr >= 0.0
+        neg = neg and cr <= 0.0
+    return -d if (pos or neg) else d
+
+
+@numba.njit(cache=True)
+def _separation(V, W):
+    """Largest separation of W from V along V's edge normals (separating-axis test)."""
+    best = -np.inf
+    for k in range(6):
+        ey, ez = V[(k + 1) % 6, 0] - V[k, 0], V[(k + 1) % 6, 1] - V[k, 1]
+        L = math.hypot(ey, ez)
+        if L == 0.0:
+            continue
+        ny, nz = ez / L, -ey / L
+        amin, amax, bmin, bmax = np.inf, -np.inf, np.inf, -np.inf
+        for j in range(6):
+            a = V[j, 0] * ny + V[j, 1] * nz
+            b = W[j, 0] * ny + W[j, 1] * nz
+            amin, amax, bmin, bmax = min(amin, a), max(amax, a), min(bmin, b), max(bmax, b)
+        best = max(best, bmin - amax, amin - bmax)
+    return best
+
+
+@numba.njit(cache=True)
+def _pair_gaps(q, out):
+    """q : (n, 12) rows (cy, cz, camber, R, r, half hub) of the left then the right wheel."""
+    V = np.empty((6, 2))
+    W = np.empty((6, 2))
+    for i in range(q.shape[0]):
+        c = q[i]
+        s0, c0, s1, c1 = math.sin(c[2]), math.cos(c[2]), math.sin(c[8]), math.cos(c[8])
+        rc0, rc1 = c[3] - c[4], c[9] - c[10]
+        _hexagon(c[0], c[1], s0, c0, rc0, c[4], c[5], V)
+        _hexagon(c[6], c[7], s1, c1, rc1, c[10], c[11], W)
+        sep = max(_separation(V, W), _separation(W, V))
+        if sep > 0.0:
+            g = np.inf
+            for k in range(6):
+                g = min(g, abs(_poly_signed(V[k, 0], V[k, 1], W)), abs(_poly_signed(W[k, 0], W[k, 1], V)))
+        else:
+            g = sep
+        for a in (1.0, -1.0):                     # the tyre circles at the top and bottom of each section
+            pa = (c[0] + a * rc0 * s0, c[1] + a * rc0 * c0)
+            pb = (c[6] + a * rc1 * s1, c[7] + a * rc1 * c1)
+            g = min(g, _poly_signed(pa[0], pa[1], W) - c[4], _poly_signed(pb[0], pb[1], V) - c[10])
+            for b in (1.0, -1.0):
+                qy, qz = c[6] + b * rc1 * s1, c[7] + b * rc1 * c1
+                g = min(g, math.hypot(pa[0] - qy, pa[1] - qz) - c[4] - c[10])
+        out[i] = g
+
+
+@numba.njit(cache=True)
+def _segments_gap_one(a1y, a1z, a2y, a2z, b1y, b1z, b2y, b2z):
+    d = min(_seg2(a1y, a1z, b1y, b1z, b2y, b2z), _seg2(a2y, a2z, b1y, b1z, b2y, b2z),
+            _seg2(b1y, b1z, a1y, a1z, a2y, a2z), _seg2(b2y, b2z, a1y, a1z, a2y, a2z))
+    s1 = (a2y - a1y) * (b1z - a1z) - (a2z - a1z) * (b1y - a1y)
+    s2 = (a2y - a1y) * (b2z - a1z) - (a2z - a1z) * (b2y - a1y)
+    s3 = (b2y - b1y) * (a1z - b1z) - (b2z - b1z) * (a1y - b1y)
+    s4 = (b2y - b1y) * (a2z - b1z) - (b2z - b1z) * (a2y - b1y)
+    return 0.0 if (s1 * s2 < 0.0 and s3 * s4 < 0.0) else d
+
+
+@numba.njit(cache=True)
+def member_gaps(pts, ia, ib, rad, pi, pj, gap, which):
+    """Smallest gap between the tubes of member pairs at every state.
+
+    pts : (n_states, n_points, 2); ia, ib, rad : (n_members,); pi, pj : (n_pairs,) member indices.
+    Writes gap (n_states,): distance between the tube surfaces (negative: they overlap; +inf without
+    pairs) and which (n_states,): the pair index of the smallest (-1 without pairs).
+    """
+    for s in range(pts.shape[0]):
+        g, w = np.inf, -1
+        for k in range(pi.shape[0]):
+            i, j = pi[k], pj[k]
+            d = _segments_gap_one(pts[s, ia[i], 0], pts[s, ia[i], 1], pts[s, ib[i], 0], pts[s, ib[i], 1],
+                                  pts[s, ia[j], 0], pts[s, ia[j], 1], pts[s, ib[j], 0], pts[s, ib[j], 1])
+            d -= rad[i] + rad[j]
+            if d < g:
+                g, w = d, k
+        gap[s], which[s] = g, w
+
+
 def pair_gap(cy, cz, camber, R, r, hub_half):
     """Signed front-view gap (mm) between the two wheels' solids, unsteered, at one station.
 
     cy, cz, camber, R, r, hub_half : arrays (..., 2) for the [left, right] wheel. Both wheels lie
     at the linkage station with their axles in its plane, so the plane's section of each solid is
     its front-view outline and the gap between the sections is the 3-D gap. Negative: overlap.
+    Compiled per state (:func:`pair_gap_numpy` is the same sum in numpy, the tests' reference).
     """
+    cols = np.broadcast_arrays(*(np.asarray(a, float) for a in (cy, cz, camber, R, r, hub_half)))
+    shape = cols[0].shape[:-1]
+    q = np.ascontiguousarray(np.concatenate([np.stack([c[..., k] for c in cols], -1) for k in (0, 1)], -1)
+                             .reshape(-1, 12))
+    out = np.empty(len(q))
+    _pair_gaps(q, out)
+    return out.reshape(shape)
+
+
+def pair_gap_numpy(cy, cz, camber, R, r, hub_half):
+    """:func:`pair_gap` in numpy (the reference of the compiled one)."""
     V = [section_polygon(cy[..., k], cz[..., k], camber[..., k], R[..., k], r[..., k], hub_half[..., k])
          for k in (0, 1)]
     rc = R - r

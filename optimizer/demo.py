@@ -14,7 +14,8 @@ def demo_config_path() -> Path:
     return config_path(DEMO_CONFIG)
 
 
-def run_demo(config: str | Path | None = None, output: str | Path | None = None, progress: bool = True):
+def run_demo(config: str | Path | None = None, output: str | Path | None = None, progress: bool = True,
+             workers: int | None = None):
     """Run the demo config (replacing an earlier demo run) and return its :class:`RunOutcome`.
 
     Results go to ``output`` (default ``./results/`` of the current folder), never into the
@@ -25,4 +26,4 @@ def run_demo(config: str | Path | None = None, output: str | Path | None = None,
 
     cfg = load_config(config or demo_config_path())
     out = Path(output) if output is not None else (Path.cwd() / DEMO_OUTPUT if config is None else None)
-    return start_run(cfg, output=out, overwrite=True, progress=progress)
+    return start_run(cfg, output=out, overwrite=True, progress=progress, workers=workers)

@@ -606,7 +606,7 @@ def _status(run_dir: Path) -> str | None:
 
 
 def start_run(cfg: RunConfig, run_id: str | None = None, output: str | Path | None = None, overwrite: bool = False,
-              progress: bool = True, stop_after: int | None = None) -> RunOutcome:
+              progress: bool = True, stop_after: int | None = None, workers: int | None = None) -> RunOutcome:
     """Start a new run of a config into ``<output>/<run-id>/``.
 
     Parameters
@@ -618,6 +618,9 @@ def start_run(cfg: RunConfig, run_id: str | None = None, output: str | Path | No
         Folder for the run folder (default: the config's ``[run] output``).
     overwrite : bool
         Replace an existing run folder of the same id.
+    workers : int, optional
+        Processes that evaluate each batch (default ``optimizer.parallel.DEFAULT_WORKERS``); the
+        front is the same for any number.
 
     Raises
     ------
@@ -634,8 +637,13 @@ def start_run(cfg: RunConfig, run_id: str | None = None, output: str | Path | No
         raise InputError(f"a run folder with this id already exists ({st or 'unknown'} run); {hint}.", str(run_dir))
     if overwrite and run_dir.exists():
         shutil.rmtree(run_dir)
-    problem = cfg.make_problem()
-    return Runner(problem, cfg.run, run_dir, rid, config_record(cfg), progress, stop_after).run(resume=False)
+    from .parallel import make_parallel
+
+    problem = make_parallel(cfg, workers)
+    try:
+        return Runner(problem, cfg.run, run_dir, rid, config_record(cfg), progress, stop_after).run(resume=False)
+    finally:
+        getattr(problem, "close", lambda: None)()
 
 
 def resume_run(run_dir: str | Path, progress: bool = True, stop_after: int | None = None,

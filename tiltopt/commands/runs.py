@@ -33,7 +33,10 @@ def _report_outcome(o):
 @click.option("--run-id", default=None, help="Name of the run folder (default: <name>-s<seed>).")
 @click.option("--overwrite", is_flag=True, help="Replace an existing run folder of the same id.")
 @click.option("--quiet", is_flag=True, help="No progress line.")
-def run_cmd(config, resume, output, run_id, overwrite, quiet):
+@click.option("--processes", type=click.IntRange(1, 64), default=None,
+              help="Processes that evaluate each generation (default: this machine's cores, at most 4); "
+                   "the front is the same for any number.")
+def run_cmd(config, resume, output, run_id, overwrite, quiet, processes):
     """Optimise a run config (NSGA-II/III); Ctrl-C stops cleanly with a checkpoint."""
     from tiltopt.optimizer.config import load_config
     from tiltopt.optimizer.runner import resume_run, start_run
@@ -45,7 +48,8 @@ def run_cmd(config, resume, output, run_id, overwrite, quiet):
     else:
         if not config:
             raise InputError("expected a run config (tiltopt run CONFIG) or --resume RUN_DIR.", "run")
-        o = start_run(load_config(config), run_id=run_id, output=output, overwrite=overwrite, progress=not quiet)
+        o = start_run(load_config(config), run_id=run_id, output=output, overwrite=overwrite, progress=not quiet,
+                      workers=processes)
     _report_outcome(o)
     _caution()
 
@@ -91,11 +95,13 @@ def merge_cmd(run_dirs, out):
 @click.option("--output", type=click.Path(file_okay=False), default=None, callback=output_path,
               help="Folder for the run folder (default: ./results).")
 @click.option("--quiet", is_flag=True, help="No progress line.")
-def demo_cmd(config, output, quiet):
+@click.option("--processes", type=click.IntRange(1, 64), default=None,
+              help="Processes that evaluate each generation (default: this machine's cores, at most 4).")
+def demo_cmd(config, output, quiet, processes):
     """Short optimisation of the Harbourline parcel trike demo config; prints where the results are."""
     from tiltopt.optimizer.demo import run_demo
 
-    o = run_demo(config, output, progress=not quiet)
+    o = run_demo(config, output, progress=not quiet, workers=processes)
     _report_outcome(o)
     from tiltopt.reports import demo_outputs
 
