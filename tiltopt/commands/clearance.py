@@ -19,8 +19,10 @@ from tiltopt.base.safety import SAFETY_CAUTION as CAUTION  # noqa: E402
 COLUMNS = [
     ("lean_deg", "lean_deg"), ("travel_mm", "travel_mm"), ("steer_deg", "steer_deg"), ("converged", "ok"),
     ("wheel_shell_clearance_mm.left", "shell_L_mm"), ("wheel_shell_clearance_mm.right", "shell_R_mm"),
-    ("wheel_link_clearance_mm.left", "link_L_mm"), ("wheel_link_clearance_mm.right", "link_R_mm"),
-    ("ground_clearance_mm", "ground_mm"), ("overall_width_mm", "width_mm"), ("track_mm", "track_mm"),
+    ("wheel_link_clearance_mm.left", "member_L_mm"), ("wheel_link_clearance_mm.right", "member_R_mm"),
+    ("wheel_carrier_clearance_mm.left", "carrier_L_mm"), ("wheel_carrier_clearance_mm.right", "carrier_R_mm"),
+    ("wheel_pair_clearance_mm", "wheels_mm"), ("member_gap_mm", "tubes_mm"),
+    ("ground_clearance_mm", "ground_mm"), ("extent_mm", "extent_mm"), ("track_mm", "track_mm"),
     ("inside_violation_mm", "inside_viol_mm"), ("outside_violation_mm", "outside_viol_mm"),
 ]
 
@@ -95,14 +97,17 @@ def clearance_cmd(mech, shell_path, lean, travel, crown_samples, steer_samples, 
             continue
         v = "-" if e["value"] is None else f"{e['value']:.1f}"
         where = f"  at lean {e['lean_deg']:g} deg, travel {e['travel_mm']:g} mm" if "lean_deg" in e else ""
-        err = f"  (error estimate <= {e['error_mm']:.1f})" if e.get("error_mm") is not None and \
-            math.isfinite(e["error_mm"]) and e["value"] is not None and math.isfinite(e["value"]) else ""
+        err = f"  (error bound {e['error_mm']:.1f}, conservative {e['lower_mm']:.1f})" \
+            if e.get("error_mm") is not None and e.get("lower_mm") is not None and math.isfinite(e["error_mm"]) \
+            and e["value"] is not None and math.isfinite(e["value"]) else ""
         lines.append(f"  {k:<24} {v:>9}{where}{err}")
     click.echo("\n".join(lines))
-    if summary["slot_length_mm"]:
-        click.echo("slots swept on the shell outline (mm, add the tube diameter for the cut-out):")
-        for n, v in summary["slot_length_mm"].items():
-            click.echo(f"  {n:<32} {'-' if v is None else f'{v:.1f}'}")
+    slots = {n: v for n, v in summary["slot_length_mm"].items() if v is None or v > 0}
+    if slots:
+        click.echo("slots swept on the shell outline (mm, add the tube diameter for the cut-out; tubes that "
+                   "never cross it left out):")
+        for n, v in slots.items():
+            click.echo(f"  {n:<40} {'-' if v is None else f'{v:.1f}'}")
     bad = [r for r in rows if not r["converged"]]
     if bad:
         click.echo(f"\n{len(bad)} of {len(rows)} states not reached; their clearances are not reported.")
