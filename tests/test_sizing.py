@@ -129,7 +129,7 @@ def test_infeasible_names_member_and_case(tmp_path):
     csv = tmp_path / "tubes.csv"
     csv.write_text("material,outer_diameter_mm,wall_mm\n4130,10.0,0.5\n", encoding="utf-8")
     model = Model(mech_of(twin_beam()))
-    spec = parse_loads({"vehicle": VEHICLE, "sizing": {"catalogue": str(csv)}}, "<test>")
+    spec = parse_loads({"vehicle": dict(VEHICLE, front_share=0.6), "sizing": {"catalogue": str(csv)}}, "<test>")
     res = size_linkage(model, None, spec)
     assert not res.feasible[0]
     assert "member 'upper_beam'" in res.reason[0] and "case '" in res.reason[0]
@@ -179,7 +179,8 @@ def test_wheel_lift_reported():
     model = Model(mech_of(twin_beam()))
     for phi, lifts in ((20.0, False), (25.0, True)):
         spec = parse_loads({"vehicle": dict(VEHICLE, com_height_mm=900.0),
-                            "cases": [{"name": "p", "kind": "parked", "lean_deg": phi}]}, "<test>")
+                            "cases": [{"name": "p", "kind": "parked", "lean_deg": phi, "slope_deg": 0.0}]},
+                           "<test>")
         res = size_linkage(model, None, spec)
         W = 120.0 * 9.80665
         T = W * (900.0 - 23.0) * math.sin(math.radians(phi))
