@@ -425,7 +425,7 @@ class ForceModel:
             J[:, self.r_lean, 3 * lock + 2] += ANGLE_ROW_MM * loads.locked
         Q, F_app, xG, xO = self.applied(xs, angs, design_points, loads, cs)
         lam, Q, roll = self._min_norm(J, Q, loads.wheel_target_n[:, 0])
-        res = np.einsum("nmi,nm->ni", J, lam) + Q
+        res = (J.transpose(0, 2, 1) @ lam[..., None])[..., 0] + Q
         scale = np.where(np.arange(self.n) % 3 == 2, 1.0 / ANGLE_ROW_MM, 1.0)
         qn = np.linalg.norm(Q * scale, axis=1)
         rel = np.linalg.norm(res * scale, axis=1) / np.maximum(qn, 1e-300)
@@ -475,18 +475,25 @@ class ForceModel:
         scale = np.ones(self.n)
         scale[2::3] = 1.0 / ANGLE_ROW_MM
         Js = J * scale
-        A = np.einsum("nmi,nmj->nij", Js, Js)
+        JsT = Js.transpose(0, 2, 1)
+        A = JsT @ Js
         tr = np.einsum("nii->n", A)
         A[:, np.arange(self.n), np.arange(self.n)] += 1e-13 * tr[:, None]
+        Ainv = np.linalg.inv(A)
+
+        def min_norm(B):
+            """lambda (N, m, k) for right-hand sides B (N, n, k), with one step of iterative
+            refinement (the normal equations square the condition number)."""
+            lam = Js @ (Ainv @ B)
+            return lam + Js @ (Ainv @ (B - JsT @ lam))
+
         prescribed = None if left_target is None else np.isfinite(left_target)
         if prescribed is None or not prescribed.any():
-            y = np.linalg.solve(A, (-Q * scale)[..., None])[..., 0]
-            return np.einsum("nmi,ni->nm", Js, y), Q, np.zeros(N)
+            return min_norm((-Q * scale)[..., None])[..., 0], Q, np.zeros(N)
         Qc = np.zeros_like(Q)
         Qc[:, 3 * self.chassis + 2] = 1.0        # a unit roll couple on the chassis, N*mm
-        y = np.linalg.solve(A, np.stack([-Q * scale, -Qc * scale], -1))
-        lam_q = np.einsum("nmi,ni->nm", Js, y[..., 0])
-        lam_c = np.einsum("nmi,ni->nm", Js, y[..., 1])
+        lam2 = min_norm(np.stack([-Q * scale, -Qc * scale], -1))
+        lam_q, lam_c = lam2[..., 0], lam2[..., 1]
         per = lam_c[:, self.r_ground]                       # left tyre load per unit couple
         good = np.abs(per) > 1e-12 * np.maximum(np.abs(lam_q[:, self.r_ground]), 1.0) / 1000.0
         roll = np.where(prescribed, np.where(good, (left_target - lam_q[:, self.r_ground]) / np.where(good, per, 1.0),
@@ -578,12 +585,11 @@ def gather_states(sweep_result, states):
     leans, travels = np.asarray(sweep_result.lean_deg), np.asarray(sweep_result.travel_mm)
     li, ti = [], []
     for s in states:
-        l = np.flatnonzero(np.abs(leans - s.lean_deg) < 1e-9)
-        t = np.flatnonzero(np.abs(travels - s.travel_mm) < 1e-9)
-        if not len(l) or not len(t):
+        l, t = int(np.argmin(np.abs(leans - s.lean_deg))), int(np.argmin(np.abs(travels - s.travel_mm)))
+        if abs(leans[l] - s.lean_deg) >= 1e-9 or abs(travels[t] - s.travel_mm) >= 1e-9:
             return None
-        li.append(l[0])
-        ti.append(t[0])
+        li.append(l)       # the nearest grid state (two leans closer than 1e-9 are both on the grid)
+        ti.append(t)
     li, ti = np.array(li), np.array(ti)
     r = sweep_result
     return (r.points[:, ti, li], r.body_angle[:, ti, li], r.contact[:, ti, li], r.converged[:, ti, li],

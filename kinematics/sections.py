@@ -317,25 +317,36 @@ def shear_factor(outer_diameter_mm, wall_mm):
 
 @dataclass
 class TubeChecks:
-    """Utilisations of a member's sections in T tubes: arrays of shape (N, E, K, T) (see module docs)."""
+    """Utilisations of a member's sections in T tubes (see module docs).
+
+    ``axial``, ``bending`` and ``shear_part`` (``sqrt 3 SF tau / s_a``) are stored, arrays of shape
+    (N, E, K, T) or any shape the inputs broadcast to; the others follow from them.
+    """
 
     axial: np.ndarray
     bending: np.ndarray
-    combined: np.ndarray
-    shear: np.ndarray
+    shear_part: np.ndarray
+
+    @property
+    def combined(self) -> np.ndarray:
+        return self.axial + self.bending
+
+    @property
+    def shear(self) -> np.ndarray:
+        return np.sqrt(self.axial ** 2 + self.shear_part ** 2)
 
     @property
     def governing(self) -> np.ndarray:
         return np.maximum(self.combined, self.shear)
 
+    def at(self, index) -> "TubeChecks":
+        return TubeChecks(self.axial[index], self.bending[index], self.shear_part[index])
+
 
 def tube_checks(sec: SectionLoads, area, modulus, kshear, allowable_mpa: float, sf: float) -> TubeChecks:
     """Section checks of every station in every tube (area, modulus, kshear: shape (T,))."""
     k = sf / allowable_mpa
-    sig_n = np.abs(sec.axial)[..., None] / area
-    M = np.sqrt(sec.moment ** 2 + sec.out_of_plane_moment ** 2)[..., None]
-    V = np.sqrt(sec.shear ** 2 + sec.out_of_plane_shear ** 2)[..., None]
-    sig_b = M / modulus
-    tau = kshear * V / area
-    return TubeChecks(axial=k * sig_n, bending=k * sig_b, combined=k * (sig_n + sig_b),
-                      shear=k * np.sqrt(sig_n ** 2 + 3.0 * tau ** 2))
+    M = np.hypot(sec.moment, sec.out_of_plane_moment)[..., None]
+    V = np.hypot(sec.shear, sec.out_of_plane_shear)[..., None]
+    return TubeChecks(axial=np.abs(sec.axial)[..., None] * (k / area), bending=M * (k / modulus),
+                      shear_part=V * (np.sqrt(3.0) * k * kshear / area))

@@ -315,8 +315,9 @@ def size_linkage(model: Model, geom: Geometry | None, loads: LoadsSpec, sweep_re
         at = (item, e_g, k_g)
         sforce[:, j] = np.stack([sec.axial[at], np.hypot(sec.shear[at], sec.out_of_plane_shear[at]),
                                  np.hypot(sec.moment[at], sec.out_of_plane_moment[at]) / 1000.0], -1)
+        here = chk.at((item, e_g, k_g, first))
         for name in ("axial", "bending", "combined", "shear"):
-            checks[name][:, j] = getattr(chk, name)[item, e_g, k_g, first]
+            checks[name][:, j] = getattr(here, name)
         if buck is not None:
             checks["buckling"][:, j] = buck[item, e_g, k_g, first]
         reached = ok[ci, w] & is_case[w]

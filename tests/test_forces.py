@@ -223,3 +223,44 @@ def test_equilibrium_holds_per_candidate_in_a_batch():
         s = states[i % S]
         tyre = np.stack([f.tyre_side_force[i], f.wheel_load[i]], -1).sum(0)
         assert np.all(np.abs(tyre + f.applied_force[i]) <= 1e-9 * s.front_load_n)
+
+
+def test_one_wheel_bump_hand_statics():
+    # Ideal parallelogram (hubs on the upright lines, contacts at y = +-330 mm), lean 0, tilt held,
+    # left wheel at 3 x its static load n_s = W_f / 2, right at n_s. The tyre loads come out as
+    # prescribed. Chassis free body: its pivots lie on y = 0 and carry only vertical forces here
+    # (no lateral load), the loads at the centre of mass and O act on y = 0 too, so the tilt-lock
+    # torque and the roll couple of the chassis's inertia balance: T = -M. Linkage free body about
+    # the pivots: the lower beam turns freely, so the locked upper beam takes the moment of the
+    # tyre loads, T = 330 (N_L - N_R) on the chassis (sign: lean sense), whatever the indeterminate
+    # split between the beams.
+    model = Model(mech_of(twin_beam()))
+    spec = _spec_cases([{"name": "owb", "kind": "one_wheel_bump", "vertical_g": 3.0}], front_share=0.5)
+    states, f, status, fm = analyse_forces(model, model.default_geometry, spec)
+    n_s = 100.0 * G * 0.5 / 2
+    assert f.ok.all() and [s.name for s in states][:2] == ["owb", "owb_mirror"]
+    assert f.wheel_load[0] == pytest.approx([3 * n_s, n_s], rel=1e-12)
+    assert f.wheel_load[1] == pytest.approx([n_s, 3 * n_s], rel=1e-12)
+    T = 330.0 * (3 * n_s - n_s) / 1000.0
+    assert abs(f.lean_moment[0]) == pytest.approx(T, rel=1e-9)
+    assert f.roll_couple[0] == pytest.approx(-f.lean_moment[0], rel=1e-9)
+    assert f.lean_moment[1] == pytest.approx(-f.lean_moment[0], rel=1e-9)
+
+
+def test_kerb_strike_hand_statics():
+    # Ideal parallelogram, tilt free, a kerb pushes the left tyre inward with F = lateral_g W_f at
+    # ground level; the vehicle's lateral inertia -F acts at the centre of mass (h = 600 mm). The
+    # beams pivot freely, so the tyre loads stay W_f / 2 each (free body of each beam about its
+    # pivot), and the rider's / roll inertia's moment on the chassis closes the balance of the whole
+    # vehicle: M = F h (lean sense; inertia -F at height h has the moment -F h).
+    model = Model(mech_of(twin_beam()))
+    spec = _spec_cases([{"name": "kerb", "kind": "kerb_strike", "lateral_g": 0.8}], front_share=0.5)
+    states, f, status, fm = analyse_forces(model, model.default_geometry, spec)
+    Wf = 100.0 * G * 0.5
+    F = 0.8 * Wf
+    assert f.ok.all()
+    assert f.wheel_load[0] == pytest.approx([Wf / 2, Wf / 2], rel=1e-9)
+    assert f.tyre_side_force[0] == pytest.approx([F, 0.0], abs=1e-9 * F)
+    assert f.lateral_force[0] == pytest.approx(0.0, abs=1e-9 * F)
+    assert f.lean_moment[0] == pytest.approx(F * 600.0 / 1000.0, rel=1e-9)
+    assert f.tyre_side_force[1] == pytest.approx([0.0, -F], abs=1e-9 * F)       # the mirror: right wheel, inward

@@ -178,9 +178,21 @@ def test_cli_json_and_table_on_demo():
     assert {s["name"] for s in rep["states"]} >= {"static", "bump", "braking", "parked"}
     st = rep["states"][0]
     assert st["spring_force_n"]["left_spring"] > 0       # springs carry the static load in compression
+    assert all(s["source"] for s in rep["states"])
+    for m in rep["members"]:
+        assert m["section"] and m["governing_check"] and set(m["checks"]) == {"axial", "bending", "combined", "shear",
+                                                                               "buckling"}
+        assert m["fatigue_utilisation"] is not None and m["fatigue_allowable_range_mpa"] > 0
+    lk = rep["tilt_lock"]
+    assert lk["clamp_force_n"] == pytest.approx(lk["safety_factor"] * lk["torque_nm"] * 1000.0
+                                                / (lk["faces"] * lk["friction"] * lk["effective_radius_mm"]))
+    assert "not a fatigue design" in rep["fatigue"]["screening"] and rep["fatigue"]["classes"]["4130"]["source"]
+    assert [s["spring"] for s in rep["springs"]] == ["left_spring", "right_spring"]
     r = CliRunner().invoke(main, ["loads", str(CONFIGS / "twin_beam.toml"), "--loads", str(DEMO_LOADS)])
     assert r.exit_code == 0, r.output
     assert "linkage mass" in r.output and "indeterminate" in r.output and "qualified engineers" in r.output
+    for text in ("governing sections", "fatigue screening", "clamp force", "load cases and their sources"):
+        assert text in r.output
 
 
 def test_pin_base_mm_round_trip_and_validation():
