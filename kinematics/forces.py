@@ -424,14 +424,14 @@ class ForceModel:
         if lock >= 0:
             J[:, self.r_lean, 3 * lock + 2] += ANGLE_ROW_MM * loads.locked
         Q, F_app, xG, xO = self.applied(xs, angs, design_points, loads, cs)
-        lam, Q, roll = self._min_norm(J, Q, loads.wheel_target_n[:, 0])
+        redundant, free = self._rank(J, valid)
+        lam, Q, roll = self._min_norm(J, Q, loads.wheel_target_n[:, 0], square=redundant == 0 and free == 0)
         res = (J.transpose(0, 2, 1) @ lam[..., None])[..., 0] + Q
         scale = np.where(np.arange(self.n) % 3 == 2, 1.0 / ANGLE_ROW_MM, 1.0)
         qn = np.linalg.norm(Q * scale, axis=1)
         rel = np.linalg.norm(res * scale, axis=1) / np.maximum(qn, 1e-300)
         ok = valid & (rel <= EQUILIBRIUM_RTOL)
         ok &= np.isfinite(roll)
-        redundant, free = self._rank(J, valid)
         lam = np.where(ok[:, None], lam, np.nan)
 
         P = len(self.pins)
@@ -462,9 +462,12 @@ class ForceModel:
             equilibrium_residual=np.where(valid, rel, np.nan), ok=ok, lam=lam, positions=xs, contact=cs,
             body_loads=body_loads)
 
-    def _min_norm(self, J, Q, left_target):
+    def _min_norm(self, J, Q, left_target, square=False):
         """``lambda = J (J^T J)^-1 (-Q)`` on angle-scaled columns; with prescribed left tyre loads
         (``left_target`` finite), plus the chassis roll couple that makes them come out.
+
+        ``square``: the topology is properly constrained (as many rows as coordinates, full rank), so
+        ``J^T lambda = -Q`` has one solution, found by one LU solve per state (the same lambda).
 
         Returns
         -------
@@ -476,16 +479,24 @@ class ForceModel:
         scale[2::3] = 1.0 / ANGLE_ROW_MM
         Js = J * scale
         JsT = Js.transpose(0, 2, 1)
-        A = JsT @ Js
-        tr = np.einsum("nii->n", A)
-        A[:, np.arange(self.n), np.arange(self.n)] += 1e-13 * tr[:, None]
-        Ainv = np.linalg.inv(A)
 
-        def min_norm(B):
+        def normal_equations(B):
             """lambda (N, m, k) for right-hand sides B (N, n, k), with one step of iterative
             refinement (the normal equations square the condition number)."""
+            A = JsT @ Js
+            tr = np.einsum("nii->n", A)
+            A[:, np.arange(self.n), np.arange(self.n)] += 1e-13 * tr[:, None]
+            Ainv = np.linalg.inv(A)
             lam = Js @ (Ainv @ B)
             return lam + Js @ (Ainv @ (B - JsT @ lam))
+
+        def min_norm(B):
+            if square and self.m == self.n:
+                try:
+                    return np.linalg.solve(JsT, B)
+                except np.linalg.LinAlgError:    # a state exactly at a singular pose: the general rule
+                    pass
+            return normal_equations(B)
 
         prescribed = None if left_target is None else np.isfinite(left_target)
         if prescribed is None or not prescribed.any():

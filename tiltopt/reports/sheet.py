@@ -286,9 +286,9 @@ def _spring_setup_html(model: Model, an: Analysis, sag: float, sag_note: str) ->
         if margin < 0:
             notes.setdefault(f"bottoms (is solid) at travel {_num(sp.bottoming_travel_mm[0, k], 1)} mm, inside the "
                              f"envelope", []).append(s.name)
-    heads = ["spring", "static force [N]", "static deflection [mm]", "suggested preload [N]",
-             "zero-preload rate [N/mm]", "largest force [N]", "in case", "deflection at full bump [mm]",
-             "solid at [mm]", "bottoming margin [mm]", "solid at travel [mm]"]
+    heads = ["spring", "static force [N]", "static defl. [mm]", "suggested preload [N]",
+             "rate for no preload [N/mm]", "largest force [N]", "in case", "defl. at full bump [mm]",
+             "solid at defl. [mm]", "bottoming margin [mm]", "solid at travel [mm]"]
     if not np.isfinite(sp.suggested_rate_n_per_mm[0]).any():     # no linear coil: no zero-preload rate
         heads.pop(4)
         rows = [r[:4] + r[5:] for r in rows]
@@ -296,8 +296,9 @@ def _spring_setup_html(model: Model, an: Analysis, sag: float, sag_note: str) ->
     t += (f'<p class="note">Setup for a static sag of {_num(sag, 1)} mm{_e(sag_note)} (wheel travel from top-out to '
           f'the design position): the spring carries the static force at the design position; the suggested '
           f'preload is its force at top-out; full bump is the envelope\'s largest travel. Deflections are '
-          f'compressions from the free length. Zero-preload rate: the coil rate that gives this sag with no '
-          f'preload.</p>')
+          f'compressions from the free length (defl.). Rate for no preload: the coil rate that gives this sag '
+          f'with no preload. Bottoming margin: compression left at full bump; solid at travel: the wheel '
+          f'travel at which the spring is solid.</p>')
     return t + "".join(f'<p class="note">{_e(", ".join(names))}: {_e(n)}</p>' for n, names in notes.items())
 
 
@@ -380,13 +381,14 @@ def _sizing_sections(an: Analysis, members: list[dict]) -> tuple[str, str, str]:
     for j, name in enumerate(sz.member_names):
         mb = sz.members[j]
         rows.append([_e(name), _e(mb.kind), _e(mb.material), _e(sz.worst_case_name(0, j)).replace("_", "_<wbr>"),
-                     _e(sz.governing_check(0, j)), _num(sz.length_mm[0, j], 1), _e(sz.tube_label(0, j)),
-                     _num(sz.mass_kg[0, j], 3), _util(sz.utilisation[0, j]), _util(sz.fatigue_utilisation[0, j])])
+                     _num(sz.length_mm[0, j], 1), _e(sz.tube_label(0, j)), _num(sz.mass_kg[0, j], 3),
+                     _util(sz.utilisation[0, j]) + f" {_e(sz.governing_check(0, j))}",
+                     _util(sz.fatigue_utilisation[0, j])])
         f = sz.section_force[0, j]
         srows.append([_e(name), _e(sz.section_name(0, j)), _num(f[0], 0), _num(f[1], 0), _num(f[2], 1)]
                      + [_util(sz.check[k][0, j]) for k in CHECKS])
-    t = _table(["member", "kind", "material", "worst case", "check", "centre-to-centre [mm]", "tube OD x wall [mm]",
-                "mass [kg]", "utilisation", "fatigue (screening)"], rows, num_from=5)
+    t = _table(["member", "kind", "material", "worst case", "centre-to-centre [mm]", "tube OD x wall [mm]",
+                "mass [kg]", "utilisation, check", "fatigue (screening)"], rows, num_from=4)
     t += (f'<p class="note">Linkage mass {_num(sz.linkage_mass_kg[0], 2)} kg, including {sz.n_pivots} pivots at '
           f'{_num(sz.pivot_mass_kg / max(sz.n_pivots, 1) * 1000, 0)} g each. Safety factor '
           f'{_num(getattr(sz, "safety_factor", float("nan")), 2)} on yield and buckling. '
