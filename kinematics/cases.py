@@ -47,6 +47,7 @@ import math
 from dataclasses import dataclass
 
 from tiltopt.base.errors import InputError
+from tiltopt.base.limits import MAX_LEAN_LIMIT_DEG, MAX_LOAD_FACTOR_G, MAX_TRAVEL_MM
 
 G = 9.80665  # standard gravity, m/s^2 (CGPM 1901)
 KINDS = ("static", "bump", "one_wheel_bump", "kerb_strike", "cornering", "braking", "parked")
@@ -265,9 +266,9 @@ def parse_cases(raw, vehicle, src: str) -> tuple[LoadCase, ...]:
         vg_default = {"bump": DEFAULT_BUMP_G, "one_wheel_bump": DEFAULT_ONE_WHEEL_G}.get(kind, 1.0)
         case = LoadCase(
             name=name, kind=kind,
-            lean_deg=_num(t, "lean_deg", src, w, lean_default, lo=-60, hi=60),
-            travel_mm=_num(t, "travel_mm", src, w, 0.0),
-            vertical_g=_num(t, "vertical_g", src, w, vg_default, lo=0),
+            lean_deg=_num(t, "lean_deg", src, w, lean_default, lo=-MAX_LEAN_LIMIT_DEG, hi=MAX_LEAN_LIMIT_DEG),
+            travel_mm=_num(t, "travel_mm", src, w, 0.0, lo=-MAX_TRAVEL_MM, hi=MAX_TRAVEL_MM),
+            vertical_g=_num(t, "vertical_g", src, w, vg_default, lo=0, hi=MAX_LOAD_FACTOR_G),
             brake_g=_num(t, "brake_g", src, w, DEFAULT_BRAKE_G if kind == "braking" else 0.0, lo=0, hi=2),
             mirror=flags["mirror"], wheel=wheel,
             lateral_g=_num(t, "lateral_g", src, w, DEFAULT_KERB_G if kind == "kerb_strike" else 0.0, lo=0, hi=5),

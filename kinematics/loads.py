@@ -78,6 +78,8 @@ from typing import Any
 import numpy as np
 
 from tiltopt.base.errors import InputError, check_keys, read_text, read_toml
+from tiltopt.base.limits import (MAX_COORD_MM, MAX_FATIGUE_CYCLES, MAX_FRICTION_FACES, MAX_LEAN_LIMIT_DEG,
+                                 MAX_MASS_KG, MAX_SAFETY_FACTOR, MAX_SN_EXPONENT, MAX_TRAVEL_MM)
 from tiltopt.base.resources import data_path
 
 from .cases import (DEFAULT_BRAKE_G, DEFAULT_BUMP_G, KINDS, LoadCase, LoadState,  # noqa: F401 (re-exported)
@@ -264,11 +266,12 @@ def parse_materials(data: dict, src: str = "<memory>") -> dict[str, Material]:
         a = _num(t, "allowable_mpa", src, w, lo=0, lo_open=True)
         if a > y:
             raise InputError(f"allowable_mpa ({a:g}) cannot exceed yield_mpa ({y:g}).", src, w + ".allowable_mpa")
+        # a stress range stays elastic up to twice the yield (from -yield to +yield)
+        fat = _num(t, "fatigue_fat_mpa", src, w, lo=0, lo_open=True, hi=2.0 * y) if "fatigue_fat_mpa" in t else None
         out[name] = Material(name, _num(t, "density_g_cm3", src, w, lo=0, lo_open=True),
                              _num(t, "elastic_modulus_gpa", src, w, lo=0, lo_open=True), y, a,
-                             _str(t, "source", src, w),
-                             _num(t, "fatigue_fat_mpa", src, w, lo=0, lo_open=True) if "fatigue_fat_mpa" in t else None,
-                             _num(t, "fatigue_slope", src, w, 3.0, lo=1),
+                             _str(t, "source", src, w), fat,
+                             _num(t, "fatigue_slope", src, w, 3.0, lo=1, hi=MAX_SN_EXPONENT),
                              _str(t, "fatigue_source", src, w, ""))
         if out[name].fatigue_fat_mpa is not None and not out[name].fatigue_source:
             raise InputError("a fatigue class needs its source (fatigue_source).", src, w + ".fatigue_source")
@@ -295,7 +298,7 @@ def load_catalogue(path: str | Path | None = None) -> Catalogue:
             d, w = float(row["outer_diameter_mm"]), float(row["wall_mm"])
         except (TypeError, ValueError):
             raise InputError(f"expected numbers for outer_diameter_mm and wall_mm. Got {row}.", src, key) from None
-        if not (math.isfinite(d) and math.isfinite(w) and d > 0 and 0 < w < d / 2):
+        if not (math.isfinite(d) and math.isfinite(w) and 0 < d <= MAX_COORD_MM and 0 < w < d / 2):
             raise InputError(f"need outer_diameter_mm > 0 and 0 < wall_mm < outer_diameter_mm / 2. "
                              f"Got {d:g} x {w:g}.", src, key)
         mats.append(row["material"].strip())
@@ -336,14 +339,14 @@ def parse_loads(data: dict, src: str = "<memory>", base_dir: str | Path | None =
     _keys(vt, {"total_mass_kg", "com_height_mm", "front_share", "wheelbase_mm", "lean_limit_deg",
                "parked_lean_deg"}, src, "vehicle",
           ["total_mass_kg", "com_height_mm", "front_share", "wheelbase_mm", "lean_limit_deg"])
-    lean = _num(vt, "lean_limit_deg", src, "vehicle", lo=0, hi=60)
+    lean = _num(vt, "lean_limit_deg", src, "vehicle", lo=0, hi=MAX_LEAN_LIMIT_DEG)
     vehicle = Vehicle(
-        total_mass_kg=_num(vt, "total_mass_kg", src, "vehicle", lo=0, lo_open=True),
-        com_height_mm=_num(vt, "com_height_mm", src, "vehicle", lo=0, lo_open=True),
+        total_mass_kg=_num(vt, "total_mass_kg", src, "vehicle", lo=0, lo_open=True, hi=MAX_MASS_KG),
+        com_height_mm=_num(vt, "com_height_mm", src, "vehicle", lo=0, lo_open=True, hi=MAX_COORD_MM),
         front_share=_num(vt, "front_share", src, "vehicle", lo=0, hi=1, lo_open=True),
-        wheelbase_mm=_num(vt, "wheelbase_mm", src, "vehicle", lo=0, lo_open=True),
+        wheelbase_mm=_num(vt, "wheelbase_mm", src, "vehicle", lo=0, lo_open=True, hi=MAX_COORD_MM),
         lean_limit_deg=lean,
-        parked_lean_deg=_num(vt, "parked_lean_deg", src, "vehicle", lean, lo=0, hi=60),
+        parked_lean_deg=_num(vt, "parked_lean_deg", src, "vehicle", lean, lo=0, hi=MAX_LEAN_LIMIT_DEG),
     )
 
     st = data.get("sizing", {})
@@ -369,10 +372,11 @@ def parse_loads(data: dict, src: str = "<memory>", base_dir: str | Path | None =
     check_material(material, "sizing.material")
     spec = LoadsSpec(
         vehicle=vehicle, cases=(),
-        safety_factor=_num(st, "safety_factor", src, "sizing", DEFAULT_SAFETY_FACTOR, lo=1.0),
-        pivot_allowance_g=_num(st, "pivot_allowance_g", src, "sizing", DEFAULT_PIVOT_ALLOWANCE_G, lo=0),
+        safety_factor=_num(st, "safety_factor", src, "sizing", DEFAULT_SAFETY_FACTOR, lo=1.0, hi=MAX_SAFETY_FACTOR),
+        pivot_allowance_g=_num(st, "pivot_allowance_g", src, "sizing", DEFAULT_PIVOT_ALLOWANCE_G, lo=0,
+                               hi=1000.0 * MAX_MASS_KG),
         default_pivot_base_mm=_num(st, "default_pivot_base_mm", src, "sizing", DEFAULT_PIVOT_BASE_MM, lo=0,
-                                   lo_open=True),
+                                   lo_open=True, hi=MAX_COORD_MM),
         material=material, materials=materials, catalogue=catalogue, source=src)
 
     members = data.get("members", {})
@@ -395,14 +399,14 @@ def parse_loads(data: dict, src: str = "<memory>", base_dir: str | Path | None =
 def _parse_lock(t: Any, src: str) -> TiltLock:
     _keys(t, {"body", "effective_radius_mm", "friction", "faces"}, src, "tilt_lock")
     faces = t.get("faces", 2)
-    if isinstance(faces, bool) or not isinstance(faces, int) or faces < 1:
-        raise InputError(f"expected a whole number of friction faces (2 for a caliper on a disc). Got {faces!r}.",
-                         src, "tilt_lock.faces")
+    if isinstance(faces, bool) or not isinstance(faces, int) or not 1 <= faces <= MAX_FRICTION_FACES:
+        raise InputError(f"expected a whole number of friction faces from 1 to {MAX_FRICTION_FACES} (2 for a caliper "
+                         f"on a disc). Got {faces!r}.", src, "tilt_lock.faces")
     mu = _num(t, "friction", src, "tilt_lock", DEFAULT_LOCK_FRICTION, lo=0, lo_open=True, hi=2)
     return TiltLock(
         body=_str(t, "body", src, "tilt_lock") if "body" in t else None,
         effective_radius_mm=_num(t, "effective_radius_mm", src, "tilt_lock", DEFAULT_LOCK_RADIUS_MM, lo=0,
-                                 lo_open=True),
+                                 lo_open=True, hi=MAX_COORD_MM),
         friction=mu, faces=faces,
         friction_source=TiltLock.friction_source if "friction" not in t else "loads file")
 
@@ -413,17 +417,18 @@ def _parse_springs(t: Any, src: str) -> SpringSetup:
     if not isinstance(tr, list) or len(tr) != 2:
         raise InputError(f"expected [droop, bump] in mm, e.g. [-30.0, 30.0]. Got {tr!r} instead.", src,
                          "springs.travel_mm")
-    lo = _num({"v": tr[0]}, "v", src, "springs.travel_mm[0]", hi=0)
-    hi = _num({"v": tr[1]}, "v", src, "springs.travel_mm[1]", lo=0)
-    sag = _num(t, "sag_mm", src, "springs", lo=0, lo_open=True) if "sag_mm" in t else None
+    lo = _num({"v": tr[0]}, "v", src, "springs.travel_mm[0]", lo=-MAX_TRAVEL_MM, hi=0)
+    hi = _num({"v": tr[1]}, "v", src, "springs.travel_mm[1]", lo=0, hi=MAX_TRAVEL_MM)
+    sag = _num(t, "sag_mm", src, "springs", lo=0, lo_open=True, hi=MAX_TRAVEL_MM) if "sag_mm" in t else None
     return SpringSetup(sag, (lo, hi))
 
 
 def _parse_fatigue(t: Any, src: str) -> FatigueSpec:
     _keys(t, {"cycles", "peak_g", "partial_factor"}, src, "fatigue")
-    return FatigueSpec(cycles=_num(t, "cycles", src, "fatigue", DEFAULT_FATIGUE_CYCLES, lo=1),
+    return FatigueSpec(cycles=_num(t, "cycles", src, "fatigue", DEFAULT_FATIGUE_CYCLES, lo=1, hi=MAX_FATIGUE_CYCLES),
                        peak_g=_num(t, "peak_g", src, "fatigue", DEFAULT_FATIGUE_PEAK_G, lo=1, lo_open=True, hi=10),
-                       partial_factor=_num(t, "partial_factor", src, "fatigue", DEFAULT_FATIGUE_PARTIAL, lo=1))
+                       partial_factor=_num(t, "partial_factor", src, "fatigue", DEFAULT_FATIGUE_PARTIAL, lo=1,
+                                           hi=MAX_SAFETY_FACTOR))
 
 
 def check_loads_for(spec: LoadsSpec, mech) -> None:

@@ -593,7 +593,7 @@ def _status(run_dir: Path) -> str | None:
         import json
 
         return json.loads((run_dir / R.RUN_JSON).read_text(encoding="utf-8")).get("status")
-    except (OSError, ValueError):
+    except (OSError, ValueError, AttributeError, RecursionError):   # a run.json that is not an object
         return None
 
 

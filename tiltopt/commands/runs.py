@@ -6,8 +6,10 @@ from pathlib import Path
 import click
 
 from tiltopt.base.errors import InputError
+from tiltopt.base.limits import BATCH_CONFIRM_RUNS
 
 from ..cli import main
+from . import output_path
 
 
 def _caution():
@@ -26,7 +28,7 @@ def _report_outcome(o):
 @click.argument("config", required=False, type=click.Path(dir_okay=False))
 @click.option("--resume", "resume", type=click.Path(file_okay=False), default=None,
               help="Continue the run in this folder from its checkpoint.")
-@click.option("--output", type=click.Path(file_okay=False), default=None,
+@click.option("--output", type=click.Path(file_okay=False), default=None, callback=output_path,
               help="Folder for the run folder (default: the config's [run] output).")
 @click.option("--run-id", default=None, help="Name of the run folder (default: <name>-s<seed>).")
 @click.option("--overwrite", is_flag=True, help="Replace an existing run folder of the same id.")
@@ -53,11 +55,12 @@ def run_cmd(config, resume, output, run_id, overwrite, quiet):
 @click.option("--workers", type=click.IntRange(1, None), default=2, show_default=True,
               help="Local worker processes (one run each at a time).")
 @click.option("--scheduler", default=None, help="Address of a Dask distributed scheduler (tcp://host:8786).")
-def batch_cmd(batch_file, workers, scheduler):
+@click.option("--yes", is_flag=True, help=f"Start a batch of more than {BATCH_CONFIRM_RUNS:,} runs.")
+def batch_cmd(batch_file, workers, scheduler, yes):
     """Run many configs / seeds / grid points; finished runs are kept on restart."""
     from tiltopt.optimizer.batch import SUMMARY, load_batch, run_dask, run_local
 
-    b = load_batch(batch_file)
+    b = load_batch(batch_file, confirm_above=None if yes else BATCH_CONFIRM_RUNS)
     click.echo(f"batch {b.name}: {len(b.items)} runs in {b.batch_dir}")
     if scheduler:
         df = run_dask(b, scheduler, echo=click.echo)
@@ -72,7 +75,7 @@ def batch_cmd(batch_file, workers, scheduler):
 
 @main.command("merge")
 @click.argument("run_dirs", nargs=-1, required=True, type=click.Path(file_okay=False))
-@click.option("-o", "--output", "out", required=True, type=click.Path(file_okay=False),
+@click.option("-o", "--output", "out", required=True, type=click.Path(file_okay=False), callback=output_path,
               help="Folder for the merged front.parquet and run.json.")
 def merge_cmd(run_dirs, out):
     """Non-dominated union of several runs' fronts (same objectives)."""
@@ -85,7 +88,8 @@ def merge_cmd(run_dirs, out):
 
 @main.command("demo")
 @click.option("--config", type=click.Path(dir_okay=False), default=None, help="Another config instead of the demo.")
-@click.option("--output", type=click.Path(file_okay=False), default=None, help="Folder for the run folder (default: ./results).")
+@click.option("--output", type=click.Path(file_okay=False), default=None, callback=output_path,
+              help="Folder for the run folder (default: ./results).")
 @click.option("--quiet", is_flag=True, help="No progress line.")
 def demo_cmd(config, output, quiet):
     """Short optimisation of the Harbourline parcel trike demo config; prints where the results are."""
@@ -101,7 +105,7 @@ def demo_cmd(config, output, quiet):
 
 
 @main.command("examples")
-@click.argument("folder", type=click.Path(file_okay=False), default="tiltopt-examples")
+@click.argument("folder", type=click.Path(file_okay=False), default="tiltopt-examples", callback=output_path)
 def examples_cmd(folder):
     """Copy the built-in files (mechanisms, templates, shell, loads, demo config) into FOLDER.
 
