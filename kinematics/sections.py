@@ -45,6 +45,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .disjoint_sets import DisjointSets
 from .forces import ForceModel, ForceResult
 
 COLLINEAR_MM = 0.01     # a body point within this distance of a guide line lies on the guide
@@ -91,23 +92,10 @@ class Member:
 def _tree(P: np.ndarray, forced: list[tuple[int, int]]) -> list[tuple[int, int]]:
     """Kruskal's shortest spanning tree of points ``P`` (n, 2) that contains the ``forced`` edges."""
     n = len(P)
-    parent = list(range(n))
-
-    def root(a):
-        while parent[a] != a:
-            parent[a] = parent[parent[a]]
-            a = parent[a]
-        return a
-
+    sets = DisjointSets(n)
     cand = [(0.0, i, j) for i, j in forced]
     cand += sorted((float(np.linalg.norm(P[i] - P[j])), i, j) for i in range(n) for j in range(i + 1, n))
-    edges = []
-    for _, i, j in cand:
-        ri, rj = root(i), root(j)
-        if ri != rj:
-            parent[ri] = rj
-            edges.append((i, j))
-    return edges
+    return [(i, j) for _, i, j in cand if sets.union(i, j)]
 
 
 def _sides(edges: list[tuple[int, int]], n: int) -> np.ndarray:
