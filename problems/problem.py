@@ -64,6 +64,7 @@ METRIC_UNITS = {
     "min_clearance_lower_mm": "mm", "min_ground_mm": "mm", "total_slot_length_mm": "mm",
     "inside_violation_mm": "mm", "outside_violation_mm": "mm", "pivot_shell_distance_mm": "mm",
     "linkage_mass_kg": "kg", "max_utilisation": "1", "tilt_lock_torque_nm": "N*m", "min_wheel_load_n": "N",
+    "max_spring_force_n": "N", "spring_stroke_mm": "mm", "spring_bottoming_margin_mm": "mm",
 }
 #: scaled violation of a design that fails to assemble or converge, times (1 + share of failed states)
 FAILED_G = 1.0e4
@@ -211,7 +212,7 @@ class TiltProblem(Problem):
             ok = self._sweep_metrics(sr, idx, metrics, state, reasons)
             self._clearance_metrics(g, sr, idx, ok, metrics)
             if self.spec.needs_sizing:
-                self._sizing_metrics(g, idx, ok, metrics, state, reasons)
+                self._sizing_metrics(g, idx, ok, metrics, state, reasons, sr)
 
         base_ok = geom_ok & state["all_conv"]
         F, bad_obj = self._objectives(metrics, base_ok, reasons)
@@ -236,13 +237,16 @@ class TiltProblem(Problem):
     def _metric_names(self) -> list[str]:
         names = ["design_width_mm", "design_track_mm", "max_scrub_mm", "max_heave_mm", "max_camber_error_deg",
                  "max_track_change_mm", "max_lean_point_offset_mm"]
-        if len(self.model.spring_names):
-            names += ["max_bump_track_change_mm", "max_bump_camber_change_deg", "motion_ratio"]
+        sprung = bool(len(self.model.spring_names))
+        if sprung:
+            names += ["max_bump_track_change_mm", "max_bump_camber_change_deg", "motion_ratio", "spring_stroke_mm"]
         names += [k for k in CLEARANCE_KEYS if self.spec.shell is not None or k not in SHELL_ONLY_KEYS]
         if self.spec.shell is not None:
             names.append("pivot_shell_distance_mm")
         if self.spec.needs_sizing:
             names += list(SIZING_KEYS)
+            if sprung:
+                names += ["max_spring_force_n", "spring_bottoming_margin_mm"]
         return names
 
     def _design_metrics(self, geom, geom_ok, metrics):
@@ -284,6 +288,10 @@ class TiltProblem(Problem):
                 np.nan)
             t0 = int(np.argmin(np.abs(env.travel_mm)))
             metrics["motion_ratio"][idx] = np.where(ok, np.mean(sr.motion_ratio[:, t0], axis=-1), np.nan)
+            okc = ok[:, None, None, None]
+            sl = np.where(okc, sr.spring_length, np.nan).reshape(len(idx), -1, len(self.model.spring_names))
+            stroke = np.max(np.nan_to_num(sl.max(1) - sl.min(1), nan=-np.inf), 1)
+            metrics["spring_stroke_mm"][idx] = np.where(ok, stroke, np.nan)
         for j in np.flatnonzero(~ok):          # the first failed state of each design that did not converge
             bad_tl = np.argwhere(~conv[j])
             tried = bad_tl[sr.status[j][~conv[j]] != SKIPPED]   # prefer a state that was tried
@@ -309,7 +317,7 @@ class TiltProblem(Problem):
                                       self.template.mechanism.station_x_mm)
             metrics["pivot_shell_distance_mm"][idx] = np.max(d, axis=1)
 
-    def _sizing_metrics(self, g, idx, ok, metrics, state, reasons):
+    def _sizing_metrics(self, g, idx, ok, metrics, state, reasons, sr=None):
         from tiltopt.kinematics.sizing import size_linkage
 
         sz = size_linkage(self.model, g, self.spec.loads)
@@ -319,6 +327,13 @@ class TiltProblem(Problem):
         for j in np.flatnonzero(ok & ~np.asarray(sz.feasible, bool)):
             if "stress" in self.constraint_names or "linkage_mass" in self.objective_names:
                 reasons[idx[j]].append(f"stress: {sz.reason[j] or 'sizing failed'}")
+        if "max_spring_force_n" in metrics:
+            from tiltopt.kinematics.springs import analyse_springs
+
+            sp = analyse_springs(self.model, g, sz, self.spec.loads.springs, sweep_result=sr)
+            metrics["max_spring_force_n"][idx] = np.where(ok, np.max(sz.spring_max_n, 1), np.nan)
+            margin = np.where(np.isfinite(sp.bottoming_margin_mm), sp.bottoming_margin_mm, np.inf).min(1)
+            metrics["spring_bottoming_margin_mm"][idx] = np.where(ok & np.isfinite(margin), margin, np.nan)
 
     def _objectives(self, metrics, base_ok, reasons):
         V = np.column_stack([OBJECTIVES[o].sign * metrics[OBJECTIVES[o].metric] for o in self.objective_names])
@@ -343,7 +358,7 @@ class TiltProblem(Problem):
                 # outranks one that only misses a margin
                 G[:, k] = np.where(fail, FAILED_G * (1.0 + np.where(bad_obj, 1.0, state["failed_share"])), 0.0)
                 continue
-            if name == "stress":
+            if name == "stress":    # its value comes with the sizing part's own reason
                 u = metrics["max_utilisation"]
                 val = np.where(state["sizing_feasible"], np.minimum(u - 1.0, 0.0),
                                np.where(np.isfinite(u), np.maximum(u - 1.0, 0.01), 1.0))

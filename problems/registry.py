@@ -182,7 +182,21 @@ CONSTRAINTS: dict[str, ConstraintSpec] = {c.name: c for c in [
     ConstraintSpec("stress", "1", "every member within its allowable stress and buckling load "
                    "(G = max utilisation - 1)", SIZING, "stress", None, "", 0.1,
                    source="on with loads: members sized for the load cases with the safety factor"),
+    ConstraintSpec("spring_force", "N", "largest spring force over the load cases at most the limit (the spring "
+                   "unit's rating; G = force - limit)", SIZING, "max_spring_force_n", _m("max_spring_force_n"),
+                   "spring force {v:.0f} N over the limit", 100.0),
+    ConstraintSpec("spring_stroke", "mm", "spring stroke over the envelope (longest - shortest length) at most "
+                   "the limit (G = stroke - limit)", SWEEP, "max_spring_stroke_mm", _m("spring_stroke_mm"),
+                   "spring stroke {v:.1f} mm over the limit", 10.0),
+    ConstraintSpec("spring_bottoming", "mm", "no spring solid over the envelope: its compression at full bump, "
+                   "carrying the static load at the design position, within its max deflection (G = -margin)",
+                   SIZING, "spring_bottoming", lambda m, lim: -m["spring_bottoming_margin_mm"],
+                   "a spring is solid {v:.1f} mm before full bump", 10.0,
+                   source="on when set: the springs must not bottom over the envelope"),
 ]}
+
+#: constraint keys that are switches (true / false) rather than limits
+SWITCH_KEYS = ("stress", "spring_bottoming")
 
 ALGORITHMS: dict[str, str] = {
     "nsga2": "NSGA-II (default): fast non-dominated sorting with crowding distance; 2 or 3 objectives",
