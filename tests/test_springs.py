@@ -165,8 +165,10 @@ def _cfg(**constraints):
 
 
 def test_spring_constraints_in_the_optimiser():
-    # G = figure - limit for force and stroke; G = -bottoming margin; the figures come from the same
-    # parts as tiltopt loads (checked on the template's base design: the demo mechanism).
+    # G = (figure - limit) / scale for force and stroke, -bottoming margin / scale (the registry's
+    # scales: 100 N, 10 mm, 10 mm); the figures come from the same parts as tiltopt loads (checked on
+    # the template's base design: the demo mechanism).
+    from tiltopt.problems.registry import CONSTRAINTS
     from tiltopt.problems.problem import TiltProblem
     from tiltopt.problems.spec import parse_problem
 
@@ -178,12 +180,13 @@ def test_spring_constraints_in_the_optimiser():
     model = spec.template.model
     res = size_linkage(model, spec.template.geometry(spec.template.defaults[None]), spec.loads)
     force = float(res.spring_max_n.max())
+    scale = {k: CONSTRAINTS[k].scale for k in ("spring_force", "spring_stroke", "spring_bottoming")}
     assert ev.metrics["max_spring_force_n"][0] == pytest.approx(force) and G["spring_force"] == pytest.approx(
-        force - 1000.0)
+        (force - 1000.0) / scale["spring_force"])
     assert ev.metrics["spring_stroke_mm"][0] == pytest.approx(60.0, abs=1e-6)        # +-30 mm at motion ratio 1
-    assert G["spring_stroke"] == pytest.approx(10.0, abs=1e-6)
+    assert G["spring_stroke"] == pytest.approx(10.0 / scale["spring_stroke"], abs=1e-6)
     sp = analyse_springs(model, None, res, spec.loads.springs)
-    assert G["spring_bottoming"] == pytest.approx(-sp.bottoming_margin_mm.min(), abs=1e-9)
+    assert G["spring_bottoming"] == pytest.approx(-sp.bottoming_margin_mm.min() / scale["spring_bottoming"], abs=1e-9)
     assert not ev.feasible[0] and "spring force" in ev.reason[0] and "spring stroke" in ev.reason[0]
 
 
