@@ -208,7 +208,9 @@ def test_clearance_section_when_the_part_is_present(tmp_path):
     paths = write_sheet(tmp_path, SheetInputs(mech=mech, lean_limit_deg=30.0, travel_mm=(-30.0, 0.0, 30.0),
                                               shell=shell))
     html = paths["sheet"].read_text(encoding="utf-8")
-    assert "tyre to shell, 3-D [mm]" in html
+    assert "wheel to shell, 3-D [mm]" in html and "wheel to its upright and arms, 3-D [mm]" in html
+    # the searched clearances with their error bounds and the conservative figures margins are met by
+    assert "conservative (value - bound)" in html and "error bound" in html
     assert "No body shell given" not in html
     assert "<polygon" in html and 'stroke-dasharray' in html   # the shell section is drawn
 

@@ -95,10 +95,10 @@ def analyse(model: Model, geom: Geometry, lean_deg, travel_mm, *, shell=None, lo
         notes.append("No body shell given: the drawing has no shell section and the shell clearances are absent.")
     gaps = front_view_gaps(spec, res.points, res.camber, pose, shell_poly)
     clearance = clearance_result = None
-    if shell is not None and not want_clearance:
+    if not want_clearance:
         notes.append(f"3-D clearances are not precomputed for this many designs ({geom.n_candidates}); the "
                      f"clearance curve is the front-view gap. The build sheet gives the 3-D figures.")
-    elif shell is not None:
+    else:   # the wheel solids, members and widths are checked with or without a shell
         from tiltopt.kinematics.clearance import evaluate_clearance
 
         clearance_result = evaluate_clearance(model, geom, res, shell)

@@ -325,6 +325,7 @@ def _corners(r) -> list[tuple[int, int, str]]:
 
 def _clearance_section(an: Analysis) -> str:
     r = an.sweep
+    cr = an.clearance_result
     rows = []
     for ti, li, label in _corners(r):
         ok = bool(r.converged[0, ti, li])
@@ -332,36 +333,45 @@ def _clearance_section(an: Analysis) -> str:
         row = [_num(label[0], 1), _num(label[1], 0), "yes" if ok else f'<span class="bad">{_e(r.status_text(0, ti, li))}</span>',
                _num(g["wheel_link_mm"][0, ti, li], 1), _num(g["wheel_shell_mm"][0, ti, li], 1),
                _num(g["ground_mm"][0, ti, li], 1)]
-        cr = an.clearance_result
         if cr is not None:
-            row += [_clr(np.min(cr.wheel_link_mm[0, ti, li])), _clr(np.min(cr.wheel_shell_mm[0, ti, li])),
+            row += [_clr(np.min(cr.wheel_link_mm[0, ti, li])), _clr(np.min(cr.wheel_carrier_mm[0, ti, li])),
+                    _clr(np.min(cr.wheel_shell_mm[0, ti, li])) if cr.has_shell else "-",
                     _clr(np.min(cr.ground_mm[0, ti, li])), _num(cr.max_steer_deg[0, ti, li], 0)]
         rows.append(row)
     heads = ["lean [deg]", "travel [mm]", "reached", "tyre to links, front view [mm]",
              "tyre to shell section, front view [mm]", "lowest link point [mm]"]
-    if an.clearance_result is not None:
-        heads += ["tyre to links, 3-D [mm]", "tyre to shell, 3-D [mm]", "ground, 3-D [mm]", "steer range ± [deg]"]
+    if cr is not None:
+        heads += ["wheel to other members, 3-D [mm]", "wheel to its upright and arms, 3-D [mm]",
+                  "wheel to shell, 3-D [mm]", "ground, 3-D [mm]", "steer range ± [deg]"]
     s = _table(heads, rows, num_from=0)
     s += ('<p class="note">Front-view gaps, measured in the linkage plane on the drawing (tyre outline to the '
           'links and bodies not carrying it; tyre outline to the shell section at the linkage station, negative '
-          'inside). Steer is not included in the front-view figures' + ('; the 3-D figures include the steer range '
-          'given for that state.' if an.clearance_result is not None else '.') + '</p>')
+          'inside). Steer is not included in the front-view figures' + ('; the 3-D figures are those of the wheel '
+          'as a solid (tyre, rim, spokes and hub) over the steer range given for that state.' if cr is not None
+          else '.') + '</p>')
     if an.clearance:
-        labels = {"min_wheel_shell_mm": "tyre to shell, 3-D", "min_wheel_link_mm": "tyre to links, 3-D",
-                  "min_clearance_mm": "smallest clearance, 3-D", "min_ground_mm": "ground clearance",
-                  "max_overall_width_mm": "overall width", "total_slot_length_mm": "total slot length",
-                  "inside_violation_mm": "pivots outside their zone", "outside_violation_mm": "wheels inside the shell"}
+        labels = {"min_wheel_shell_mm": "wheel to shell", "min_wheel_link_mm": "wheel to the members that do not carry it",
+                  "min_wheel_carrier_mm": "wheel to its own upright and arms (only the stub axle may enter the hub)",
+                  "min_wheel_pair_mm": "between the two wheels", "min_member_gap_mm": "between member tubes",
+                  "min_clearance_mm": "smallest clearance (shell, other members)", "min_ground_mm": "ground clearance",
+                  "overall_width_mm": "width of the upright vehicle", "lean_sweep_width_mm": "lateral extent leaning",
+                  "total_slot_length_mm": "total slot length in the shell",
+                  "inside_violation_mm": "tubes outside the shell that must stay inside",
+                  "outside_violation_mm": "tubes inside the shell that must stay outside"}
         rows = []
         for k, v in an.clearance.items():
-            if k.endswith("_error_mm"):
+            if k.endswith(("_error_mm", "_lower_mm")) or k not in labels:
                 continue
             err = an.clearance.get(k.replace("_mm", "_error_mm"))
-            extra = f" (± {_num(err[0], 1)})" if err is not None and np.isfinite(err[0]) and err[0] >= 0.05 else ""
-            rows.append([_e(labels.get(k, k)), _clr(v[0]) + extra, "mm"])
+            low = an.clearance.get(k.replace("_mm", "_lower_mm"))
+            rows.append([_e(labels[k]), _clr(v[0]),
+                         _num(err[0], 1) if err is not None and np.isfinite(err[0]) else "-",
+                         _clr(low[0]) if low is not None else "-", "mm"])
         s += "<h3>3-D clearance over the whole envelope (lean, travel and steer)</h3>"
-        s += _table(["figure", "value", "unit"], rows)
-        s += ('<p class="note">"nothing near": no member or shell within reach of the tyre; ± is the '
-              'estimate\'s error bound given by the clearance part.</p>')
+        s += _table(["figure", "value", "error bound", "conservative (value - bound)", "unit"], rows)
+        s += ('<p class="note">"nothing near": nothing within reach. Every clearance is a distance actually '
+              'reached; the true minimum may lie up to the error bound below it, so margins are met by the '
+              'conservative figure.</p>')
     return s
 
 
