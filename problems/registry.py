@@ -192,7 +192,8 @@ CONSTRAINTS: dict[str, ConstraintSpec] = {c.name: c for c in [
                    "carrying the static load at the design position, within its max deflection (G = -margin)",
                    SIZING, "spring_bottoming", lambda m, lim: -m["spring_bottoming_margin_mm"],
                    "a spring is solid {v:.1f} mm before full bump", 10.0,
-                   source="on when set: the springs must not bottom over the envelope"),
+                   source="on with loads when a spring says where it is solid: a spring solid within the "
+                          "travel cannot reach the envelope"),
 ]}
 
 #: constraint keys that are switches (true / false) rather than limits

@@ -473,6 +473,12 @@ def parse_problem(data: dict, src: str = "<memory>", base_dir: str | Path | None
         raise InputError(f"each objective may appear once. Got {obj}.", src, "objectives")
 
     limits = _parse_constraints(data.get("constraints"), src, shell is not None, loads is not None)
+    if (loads is not None and "spring_bottoming" not in limits.given
+            and any(s.max_deflection_mm is not None or (s.kind == "elastomer" and s.curve)
+                    for s in template.mechanism.springs)):
+        # a spring that says where it is solid must not be solid within the envelope: a state it
+        # cannot reach (a default requirement, like the others)
+        limits = replace(limits, spring_bottoming=True)
     _check_spring_limits(limits, template, src)
     return ProblemSpec(template=template, envelope=envelope, objectives=tuple(obj),
                        constraints=_constraint_names(limits, shell is not None), limits=limits,
