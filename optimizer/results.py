@@ -12,7 +12,12 @@ Files (every one written atomically: a temp file in the same folder, then
   share, front size, hypervolume on normalised objectives, times.
 - ``run.json``: config as run, seed, problem description, template,
   package versions, timings, status.
-- ``checkpoint.pkl``: the algorithm state for ``tiltopt run --resume``.
+- ``checkpoint.npz``: the algorithm and run state for ``tiltopt run --resume``
+  (arrays and JSON only, never a pickle: :mod:`tiltopt.optimizer.checkpoint`).
+- ``inputs/``: a copy of every input file (config, mechanism, shell, loads ...),
+  hashed in ``run.json``; resume, explorer and sheet read these copies.
+- ``run.lock``: the OS lock of the process writing the folder
+  (:mod:`tiltopt.optimizer.runfolder`).
 
 Columns of front/evaluations: ``candidate_id``, ``generation``, ``feasible``,
 ``violation``, ``reason``, ``var.<name>``, ``obj.<name>`` (as minimised),
@@ -40,7 +45,7 @@ import pyarrow.parquet as pq
 from tiltopt.base.errors import InputError
 
 FRONT, EVALUATIONS, GENERATIONS, RUN_JSON, CHECKPOINT = (
-    "front.parquet", "evaluations.parquet", "generations.parquet", "run.json", "checkpoint.pkl")
+    "front.parquet", "evaluations.parquet", "generations.parquet", "run.json", "checkpoint.npz")
 from tiltopt.base.safety import SAFETY_CAUTION
 PARTS_DIR = "evaluations.parts"
 META_KEY = b"tiltopt"
@@ -190,7 +195,12 @@ class Run:
         if not isinstance(cfg, dict):
             raise InputError("run.json holds no config (this folder is a merge of runs).", str(self.run_dir / RUN_JSON),
                              "config")
-        return parse_config(cfg, str(self.run_dir / RUN_JSON), self.meta.get("config_base_dir"))
+        from tiltopt.base.inputs import reading_copies
+
+        from .runfolder import copies_of
+
+        with reading_copies(copies_of(self.meta, self.run_dir)):   # the files the run started with
+            return parse_config(cfg, str(self.run_dir / RUN_JSON), self.meta.get("config_base_dir"))
 
     @cached_property
     def template(self):
