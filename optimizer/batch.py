@@ -430,6 +430,7 @@ def run_local(batch: Batch, workers: int = 2, echo=None, poll_s: float = 0.2,
     """
     with _batch_lock(batch):
         settle_changed(batch, rerun_changed, echo)
+        _log(echo, f"batch {batch.name}: {len(batch.items)} runs in {batch.batch_dir}")
         return _run_local(batch, workers, echo, poll_s)
 
 
@@ -573,6 +574,7 @@ def run_dask(batch: Batch, scheduler, echo=None, rerun_changed: bool = False) ->
     try:
         with _batch_lock(batch):
             settle_changed(batch, rerun_changed, echo)
+            _log(echo, f"batch {batch.name}: {len(batch.items)} runs in {batch.batch_dir} (Dask)")
             return _run_dask(batch, client, echo, as_completed)
     finally:
         if own:

@@ -735,7 +735,7 @@ def resume_run(run_dir: str | Path, progress: bool = True, stop_after: int | Non
     if str(meta.get("format", "")).startswith("tiltopt-merge-"):
         raise InputError("this folder holds a merged front (tiltopt merge), not a run: there is nothing to resume.",
                          str(d))
-    notice = _stderr if progress else (lambda _t: None)
+    notice = _stderr        # notices are printed with or without the progress line (as the runner's own)
     with RF.FolderLock.acquire(d) as lock:
         meta = RF.read_meta(d) or meta
         if meta.get("config") is not None:

@@ -124,7 +124,8 @@ def test_local_and_dask_batches_give_the_same_fronts(tmp_path):
     mtimes = {it.run_id: os.stat(Path(it.run_dir) / "front.parquet").st_mtime_ns for it in local.items}
     msgs = []
     run_local(local, workers=2, echo=msgs.append)
-    assert all("finished earlier" in m for m in msgs) and len(msgs) == 2
+    assert msgs[0].startswith("batch b: 2 runs in ")
+    assert all("finished earlier" in m for m in msgs[1:]) and len(msgs) == 3
     assert mtimes == {it.run_id: os.stat(Path(it.run_dir) / "front.parquet").st_mtime_ns for it in local.items}
 
 

@@ -74,7 +74,6 @@ def batch_cmd(batch_file, workers, scheduler, rerun_changed):
     b = load_batch(batch_file)
     if scheduler:
         scheduler_address(scheduler)       # a clear message before anything else
-    click.echo(f"batch {b.name}: {len(b.items)} runs in {b.batch_dir}")
     if scheduler:
         df = run_dask(b, scheduler, echo=click.echo, rerun_changed=rerun_changed)
     else:
