@@ -392,11 +392,33 @@ def _records(meta: dict, run_dir: Path) -> list:
     return recs
 
 
-def _file_state(path: Path, sha: str) -> str:
+MAX_INPUT_BYTES = 1 << 30     # an input file above 1 GiB is not one tiltopt wrote down: never hashed
+
+
+def _file_state(path: Path, sha: str, size=None) -> str:
+    """'same', 'changed' or 'missing'. Only a regular file is read (a path in someone's run.json may name
+    /dev/zero or a FIFO), and only when its size is the recorded one."""
+    import stat
+
+    if path is None:
+        return "missing"
     try:
+        st = os.stat(path)
+        if not stat.S_ISREG(st.st_mode):
+            return "missing"
+        if (isinstance(size, int) and st.st_size != size) or st.st_size > MAX_INPUT_BYTES:
+            return "changed"
         return "same" if sha256_file(path) == sha else "changed"
     except OSError:
         return "missing"
+
+
+def _copy_path(run_dir: Path, rel: str) -> Path | None:
+    """The copy's path inside the run folder, or None when ``inputs/`` or the copy is a symbolic link."""
+    p = Path(run_dir) / rel
+    if (Path(run_dir) / INPUTS_DIR).is_symlink() or p.is_symlink():
+        return None
+    return p
 
 
 def copies_of(meta: dict, run_dir: str | Path) -> dict:
@@ -409,8 +431,8 @@ def copies_of(meta: dict, run_dir: str | Path) -> dict:
     out = {}
     for r in recs:
         if r.get("copy") and not r.get("builtin") and r["role"] != "config":
-            p = run_dir / r["copy"]
-            if _file_state(p, r["sha256"]) == "same":
+            p = _copy_path(run_dir, r["copy"])
+            if _file_state(p, r["sha256"], r.get("bytes")) == "same":
                 out[r["role"]] = p
     return out
 
@@ -431,11 +453,12 @@ def verify_inputs(run_dir: str | Path, meta: dict, allow_changed: bool = False, 
         role = r["role"]
         if role == "config" and not include_config:
             continue
-        orig = _file_state(Path(r["path"]), r["sha256"])
+        orig = _file_state(Path(r["path"]), r["sha256"], r.get("bytes"))
         copy_ok = False
         if r.get("copy") and not r.get("builtin"):
-            cp = run_dir / r["copy"]
-            copy_ok = _file_state(cp, r["sha256"]) == "same"
+            cp = _copy_path(run_dir, r["copy"])
+            copy_ok = _file_state(cp, r["sha256"], r.get("bytes")) == "same"
+            cp = cp if cp is not None else run_dir / r["copy"]
             if copy_ok and role != "config":
                 copies[role] = cp
             if not copy_ok and orig != "same" and role != "config":

@@ -662,13 +662,13 @@ def default_run_id(cfg: RunConfig) -> str:
 def _exists_message(run_dir: Path, meta: dict) -> str:
     st = meta.get("status")
     if st == "finished":
-        return ("a run folder with this id already holds a finished run; pass --overwrite to replace it, or "
+        return ("a run folder with this id already exists and holds a finished run; pass --overwrite to replace it, or "
                 "--run-id NAME for a new folder.")
     what = {"running": "a run that stopped without finishing (no process holds its lock: it was killed)",
             "interrupted": "an interrupted run", "failed": "a failed run"}.get(st, f"a run ({st or 'status unknown'})")
     how = ("from its last checkpoint" if (run_dir / R.CHECKPOINT).is_file()
            else "it stopped before its first checkpoint, so this starts it again from generation 1")
-    return (f"a run folder with this id already holds {what}. Continue it with: tiltopt run --resume {run_dir} "
+    return (f"a run folder with this id already exists and holds {what}. Continue it with: tiltopt run --resume {run_dir} "
             f"({how}), or pass --overwrite to start it again.")
 
 

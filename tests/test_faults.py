@@ -70,6 +70,18 @@ def _alive(pid: int) -> bool:
     return state not in ("Z", "X")      # a zombie nobody reaped has ended
 
 
+def _wait_until_it_holds_the_lock(run_dir: Path, proc, timeout=60.0):
+    """Until ``proc`` has taken the run folder's lock (its pid is in run.lock), so a kill lands in the run."""
+    t0 = time.time()
+    while proc.poll() is None and time.time() - t0 < timeout:
+        try:
+            if json.loads((run_dir / "run.lock").read_text()).get("pid") == proc.pid:
+                return
+        except (OSError, ValueError):
+            pass
+        time.sleep(0.01)
+
+
 def _all_whole(d: Path):
     for f in list(d.rglob("*.parquet")):
         pq.read_table(f)                        # every Parquet file that exists is whole
@@ -83,7 +95,7 @@ def _same_results(a: Path, b: Path):
 
 
 def test_kill_9_at_random_points_of_a_run_then_resume_gives_the_uninterrupted_run(tmp_path):
-    cfg = _config(tmp_path, "k", gens=36, delay=0.08)       # about 3 s of generations, after ~1.5 s of start-up
+    cfg = _config(tmp_path, "k", gens=36, delay=0.08)       # about 3 s of generations
     run_dir = tmp_path / "out" / "k-s9"
     rng = random.Random(15)
     kills = 0
@@ -91,11 +103,13 @@ def test_kill_9_at_random_points_of_a_run_then_resume_gives_the_uninterrupted_ru
         meta = (run_dir / "run.json").is_file()
         cmd = _cli("run", "--resume", run_dir, "--quiet") if meta else _cli("run", cfg, "--quiet")
         proc = subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
-        time.sleep(rng.uniform(1.0, 4.5))
+        _wait_until_it_holds_the_lock(run_dir, proc)
+        time.sleep(rng.uniform(0.0, 1.6))       # a random point of the ~3 s of generations
         if proc.poll() is None:
             os.kill(proc.pid, signal.SIGKILL)
             kills += 1
-        proc.wait(timeout=60)
+        _, err = proc.communicate(timeout=60)
+        assert proc.returncode in (0, -signal.SIGKILL), err
         if run_dir.exists():
             _all_whole(run_dir)
     assert kills >= 2
@@ -156,6 +170,13 @@ def _batch(tmp_path, name, gens, delay):
     return tmp_path / "batch.toml"
 
 
+def _lock_pid(run_dir) -> int | None:
+    try:
+        return json.loads((Path(run_dir) / "run.lock").read_text()).get("pid")
+    except (OSError, ValueError):
+        return None
+
+
 def _worker_pids(text: str) -> list[int]:
     return [int(p) for p in re.findall(r"started \(attempt \d+, pid (\d+)\)", text)]
 
@@ -165,17 +186,19 @@ def test_kill_9_of_a_batch_stops_its_workers_and_a_restart_gives_the_uninterrupt
     b = load_batch(bf)
     rng = random.Random(4)
     for round_ in range(2):
+        before = {_lock_pid(it.run_dir) for it in b.items}
         proc = subprocess.Popen(_cli("batch", bf, "--workers", "2"), cwd=ROOT, stdout=subprocess.PIPE,
                                 stderr=subprocess.STDOUT, text=True, env=ENV, start_new_session=True)
         t0 = time.time()
-        while not (b.batch_dir / "summary.parquet").is_file() or time.time() - t0 < 2.0:
-            assert proc.poll() is None, proc.stdout.read()
-            time.sleep(0.05)
-        time.sleep(rng.uniform(0.3, 2.5))
+        while not all(_lock_pid(it.run_dir) not in (None, *before) for it in b.items):   # both workers in their runs
+            assert proc.poll() is None and time.time() - t0 < 60, proc.stdout.read()
+            time.sleep(0.02)
+        time.sleep(rng.uniform(0.1, 1.5))           # a random point of their runs (~3 s each)
+        assert proc.poll() is None
         os.kill(proc.pid, signal.SIGKILL)           # the batch process only; its workers must follow
         out, _ = proc.communicate(timeout=30)
         pids = _worker_pids(out)
-        assert pids, out
+        assert pids, (round_, out)
         t1 = time.time()
         while any(_alive(p) for p in pids) and time.time() - t1 < 10:
             time.sleep(0.05)

@@ -445,3 +445,27 @@ def test_scheduler_addresses_are_checked(tmp_path):
     r = _invoke("batch", tmp_path / "b.toml", "--scheduler", "tcp://127.0.0.1:1")
     _one_error(r, "--scheduler", "tcp://127.0.0.1:1", "connection refused")
     assert time.time() - t0 < 10
+
+
+def test_input_paths_in_someone_elses_run_json_are_only_stat_ed(edit_run):
+    """A run.json may name any path as an original: a device or FIFO is never read (it would never end)."""
+    t = edit_run
+    o = start_run(load_config(t / "edit.toml"), progress=False, stop_after=1)
+    meta = json.loads((o.run_dir / "run.json").read_text())
+    fifo = t / "fifo"
+    os.mkfifo(fifo)
+    for r in meta["inputs"]:
+        if r["role"] == "shell":
+            r["path"] = "/dev/zero"
+        if r["role"] == "loads":
+            r["path"] = str(fifo)
+    (o.run_dir / "run.json").write_text(json.dumps(meta))
+    t0 = time.time()
+    assert resume_run(o.run_dir, progress=False).status == "finished"     # the copies stand in
+    assert time.time() - t0 < 30
+    (o.run_dir / "inputs" / "shell.toml").unlink()
+    (o.run_dir / "inputs" / "shell.toml").symlink_to("/dev/zero")       # a copy that is a link: not a copy
+    from tiltopt.reports.runs import check_inputs
+
+    with pytest.raises(InputError, match="copy of its shell file is missing or damaged"):
+        check_inputs(R.load_run(o.run_dir))
