@@ -28,6 +28,8 @@ from tiltopt.optimizer.config import RunSettings, load_config
 from tiltopt.optimizer.reference_problems import ZDTProblem
 from tiltopt.optimizer.runner import Runner, resume_run, run_problem, start_run
 
+from tests.helpers import one_error
+
 ZDT_CONFIG = """
 [run]
 name = "ck"
@@ -179,15 +181,6 @@ def _resume_cli(run_dir):
     return CliRunner().invoke(main, ["run", "--resume", str(run_dir), "--quiet"])
 
 
-def _assert_one_message(r, *needles):
-    assert r.exit_code == 2, r.output
-    assert "Traceback" not in r.output
-    lines = [ln for ln in r.output.splitlines() if ln.strip()]
-    assert len(lines) == 1 and lines[0].startswith("error: "), r.output
-    for n in needles:
-        assert n in lines[0], r.output
-
-
 def test_old_pickled_checkpoint_is_never_loaded(stopped_run, tmp_path):
     marker = tmp_path / "pwned"
     (stopped_run / "checkpoint.npz").unlink()
@@ -195,12 +188,12 @@ def test_old_pickled_checkpoint_is_never_loaded(stopped_run, tmp_path):
     assert pickle.loads((stopped_run / "checkpoint.pkl").read_bytes()) is None and marker.exists()  # it is live
     marker.unlink()
     r = _resume_cli(stopped_run)
-    _assert_one_message(r, "checkpoint.pkl", "never loads pickles")
+    one_error(r, "checkpoint.pkl", "never loads pickles")
     assert not marker.exists()
     # the same bytes under the new name: not an .npz archive, refused before anything is read
     (stopped_run / "checkpoint.npz").write_bytes(pickle.dumps(_Marker(marker)))
     r = _resume_cli(stopped_run)
-    _assert_one_message(r, "checkpoint.npz", "not an .npz archive")
+    one_error(r, "checkpoint.npz", "not an .npz archive")
     assert not marker.exists()
 
 
@@ -228,7 +221,7 @@ def test_crafted_npz_with_a_pickled_member_does_not_run_code(stopped_run, tmp_pa
     with zipfile.ZipFile(ck) as z:   # the planted member really is a live pickle
         assert any(b"pathlib" in z.read(n) for n in z.namelist())
     r = _resume_cli(stopped_run)
-    _assert_one_message(r, str(ck), "cannot be read without running code")
+    one_error(r, str(ck), "cannot be read without running code")
     assert not marker.exists()
 
 
@@ -267,7 +260,7 @@ def test_damaged_checkpoint_gives_one_message_naming_the_file(stopped_run, damag
     elif damage == "missing_array":
         _rewrite(ck, lambda doc, a: a.pop(doc["algorithm"]["pop"]["F"]["key"]))
     r = _resume_cli(stopped_run)
-    _assert_one_message(r, str(ck), needle)
+    one_error(r, str(ck), needle)
 
 
 def test_zip_bomb_member_is_refused_before_reading(stopped_run):

@@ -13,7 +13,6 @@ import random
 import re
 import signal
 import subprocess
-import sys
 import time
 from pathlib import Path
 
@@ -25,6 +24,8 @@ from tiltopt.cli import main
 from tiltopt.optimizer.batch import load_batch, run_local
 from tiltopt.optimizer.config import load_config
 from tiltopt.optimizer.runner import start_run
+
+from tests.helpers import cli_command
 
 ROOT = Path(__file__).resolve().parents[1]
 ENV = {**os.environ, "PYTHONUNBUFFERED": "1"}
@@ -50,10 +51,6 @@ def _config(tmp_path, name, gens, pop=10, every=3, delay=0.01):
     p = tmp_path / f"{name}.toml"
     p.write_text(CONFIG.format(name=name, gens=gens, pop=pop, every=every, delay=delay))
     return p
-
-
-def _cli(*args):
-    return [sys.executable, "-c", "from tiltopt.cli import main; main()", *map(str, args)]
 
 
 def _straight(tmp_path, name, gens, pop=10, every=3):
@@ -101,7 +98,7 @@ def test_kill_9_at_random_points_of_a_run_then_resume_gives_the_uninterrupted_ru
     kills = 0
     for _ in range(4):
         meta = (run_dir / "run.json").is_file()
-        cmd = _cli("run", "--resume", run_dir, "--quiet") if meta else _cli("run", cfg, "--quiet")
+        cmd = cli_command("run", "--resume", run_dir, "--quiet") if meta else cli_command("run", cfg, "--quiet")
         proc = subprocess.Popen(cmd, cwd=ROOT, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
         _wait_until_it_holds_the_lock(run_dir, proc)
         time.sleep(rng.uniform(0.0, 1.6))       # a random point of the ~3 s of generations
@@ -113,7 +110,7 @@ def test_kill_9_at_random_points_of_a_run_then_resume_gives_the_uninterrupted_ru
         if run_dir.exists():
             _all_whole(run_dir)
     assert kills >= 2
-    r = subprocess.run(_cli("run", "--resume", run_dir, "--quiet"), cwd=ROOT, capture_output=True, text=True,
+    r = subprocess.run(cli_command("run", "--resume", run_dir, "--quiet"), cwd=ROOT, capture_output=True, text=True,
                        timeout=120)
     assert r.returncode == 0, r.stderr
     assert json.loads((run_dir / "run.json").read_text())["status"] == "finished"
@@ -123,7 +120,7 @@ def test_kill_9_at_random_points_of_a_run_then_resume_gives_the_uninterrupted_ru
 def test_run_killed_before_its_first_checkpoint_says_how_to_restart(tmp_path):
     cfg = _config(tmp_path, "d", gens=10, pop=8, every=100, delay=0.3)   # no checkpoint before the end
     run_dir = tmp_path / "out" / "d-s9"
-    proc = subprocess.Popen(_cli("run", cfg, "--quiet"), cwd=ROOT, stderr=subprocess.DEVNULL)
+    proc = subprocess.Popen(cli_command("run", cfg, "--quiet"), cwd=ROOT, stderr=subprocess.DEVNULL)
     t0 = time.time()
     while not (run_dir / "run.json").is_file():
         assert proc.poll() is None and time.time() - t0 < 60
@@ -145,7 +142,7 @@ def test_run_killed_before_its_first_checkpoint_says_how_to_restart(tmp_path):
 def test_two_writers_on_one_run_folder(tmp_path):
     cfg = _config(tmp_path, "w", gens=200, pop=8, every=2, delay=0.05)
     run_dir = tmp_path / "out" / "w-s9"
-    proc = subprocess.Popen(_cli("run", cfg, "--quiet"), cwd=ROOT, stderr=subprocess.DEVNULL)
+    proc = subprocess.Popen(cli_command("run", cfg, "--quiet"), cwd=ROOT, stderr=subprocess.DEVNULL)
     try:
         t0 = time.time()
         while not (run_dir / "checkpoint.npz").is_file():
@@ -187,7 +184,7 @@ def test_kill_9_of_a_batch_stops_its_workers_and_a_restart_gives_the_uninterrupt
     rng = random.Random(4)
     for round_ in range(2):
         before = {_lock_pid(it.run_dir) for it in b.items}
-        proc = subprocess.Popen(_cli("batch", bf, "--workers", "2"), cwd=ROOT, stdout=subprocess.PIPE,
+        proc = subprocess.Popen(cli_command("batch", bf, "--workers", "2"), cwd=ROOT, stdout=subprocess.PIPE,
                                 stderr=subprocess.STDOUT, text=True, env=ENV, start_new_session=True)
         t0 = time.time()
         while not all(_lock_pid(it.run_dir) not in (None, *before) for it in b.items):   # both workers in their runs
@@ -220,7 +217,7 @@ def test_kill_9_of_a_batch_stops_its_workers_and_a_restart_gives_the_uninterrupt
 def test_second_driver_of_a_running_batch_is_refused(tmp_path):
     bf = _batch(tmp_path, "tb", gens=300, delay=0.05)
     b = load_batch(bf)
-    proc = subprocess.Popen(_cli("batch", bf, "--workers", "2"), cwd=ROOT, stdout=subprocess.PIPE,
+    proc = subprocess.Popen(cli_command("batch", bf, "--workers", "2"), cwd=ROOT, stdout=subprocess.PIPE,
                             stderr=subprocess.STDOUT, text=True, env=ENV, start_new_session=True)
     try:
         t0 = time.time()

@@ -27,7 +27,7 @@ from tiltopt.optimizer.config import load_config
 from tiltopt.optimizer.runfolder import FolderLock
 from tiltopt.optimizer.runner import resume_run, start_run
 
-ROOT = Path(__file__).resolve().parents[1]
+from tests.helpers import one_error
 
 ZDT = """
 [run]
@@ -75,16 +75,6 @@ def _invoke(*args):
     return CliRunner().invoke(main, [str(a) for a in args])
 
 
-def _one_error(r, *needles):
-    assert r.exit_code == 2, r.output
-    assert "Traceback" not in r.output
-    lines = [ln for ln in r.output.splitlines() if ln.strip()]
-    assert len(lines) == 1 and lines[0].startswith("error: "), r.output
-    for n in needles:
-        assert n in lines[0], r.output
-    return lines[0]
-
-
 # ------------------------------------------------------------------ names and --overwrite
 def test_run_ids_and_batch_names_must_be_plain_names(tmp_path):
     cfg = _zdt(tmp_path)
@@ -94,12 +84,12 @@ def test_run_ids_and_batch_names_must_be_plain_names(tmp_path):
     (tmp_path / "out").mkdir()
     for rid in ("../precious", "..", ".", "a/b", "", "-x", "a b", "x\\y", "/abs"):
         r = _invoke("run", cfg, "--run-id", rid, "--overwrite", "--quiet")
-        _one_error(r, "--run-id", "plain name")
+        one_error(r, "--run-id", "plain name")
     assert (precious / "thesis.txt").read_text() == "years of work"
     assert sorted(p.name for p in tmp_path.iterdir()) == ["out", "precious", "z.toml"]
     (tmp_path / "b.toml").write_text('[batch]\nname = ".."\n[[runs]]\nconfig = "z.toml"\n')
     r = _invoke("batch", tmp_path / "b.toml")
-    _one_error(r, "batch.name", "plain name")
+    one_error(r, "batch.name", "plain name")
     (tmp_path / "n.toml").write_text(ZDT.format(gens=2).replace('name = "z"', 'name = ".."'))
     with pytest.raises(InputError, match="run.name"):
         start_run(load_config(tmp_path / "n.toml"), progress=False)
@@ -126,10 +116,10 @@ def test_overwrite_refuses_a_folder_that_is_not_a_run_folder(tmp_path):
     keep.mkdir(parents=True)
     (keep / "notes.txt").write_text("mine")
     r = _invoke("run", cfg, "--overwrite", "--quiet")
-    _one_error(r, "not a tiltopt run folder", "notes.txt")
+    one_error(r, "not a tiltopt run folder", "notes.txt")
     assert (keep / "notes.txt").read_text() == "mine" and sorted(os.listdir(keep)) == ["notes.txt"]
     (keep / "run.json").write_text('{"hello": 1}')            # a run.json that is not tiltopt's
-    _one_error(_invoke("run", cfg, "--overwrite", "--quiet"), "not a tiltopt run folder")
+    one_error(_invoke("run", cfg, "--overwrite", "--quiet"), "not a tiltopt run folder")
     assert sorted(os.listdir(keep)) == ["notes.txt", "run.json"]
     (keep / "run.json").unlink()
     (keep / "notes.txt").unlink()
@@ -137,7 +127,7 @@ def test_overwrite_refuses_a_folder_that_is_not_a_run_folder(tmp_path):
     other.mkdir()
     keep.rmdir()
     keep.symlink_to(other)                                     # a link: never followed for writing
-    _one_error(_invoke("run", cfg, "--overwrite", "--quiet"), "symbolic link")
+    one_error(_invoke("run", cfg, "--overwrite", "--quiet"), "symbolic link")
 
 
 def test_overwrite_removes_only_the_files_tiltopt_wrote(tmp_path):
@@ -172,12 +162,12 @@ def test_second_writer_is_refused_naming_the_holder(tmp_path):
             start_run(cfg, progress=False, overwrite=True)         # nothing is deleted under a writer
         assert (o.run_dir / "checkpoint.npz").is_file() and (o.run_dir / "run.json").is_file()
         r = _invoke("run", "--resume", o.run_dir, "--quiet")
-        _one_error(r, f"pid {os.getpid()}", "tiltopt run (test)")
+        one_error(r, f"pid {os.getpid()}", "tiltopt run (test)")
     assert resume_run(o.run_dir, progress=False).status == "finished"   # the OS lock went with the holder
 
 
 def test_second_driver_of_a_batch_is_refused(tmp_path):
-    from tiltopt.optimizer.batch import BATCH_TABLE_KEYS, load_batch, run_local  # noqa: F401
+    from tiltopt.optimizer.batch import load_batch, run_local
 
     _zdt(tmp_path, gens=2)
     (tmp_path / "b.toml").write_text('[batch]\nname = "b"\noutput = "res"\n[[runs]]\nconfig = "z.toml"\n'
@@ -231,7 +221,7 @@ def test_edited_input_is_refused_on_resume_and_the_run_keeps_its_copy(edit_run):
     shell = t / "shell.toml"
     shell.write_text(shell.read_text().replace("half_width_mm = 200.0", "half_width_mm = 170.0"))
     r = _invoke("run", "--resume", o.run_dir, "--quiet")
-    _one_error(r, str(shell), "changed since the run started", "--allow-changed-inputs")
+    one_error(r, str(shell), "changed since the run started", "--allow-changed-inputs")
     r = _invoke("run", "--resume", o.run_dir, "--quiet", "--allow-changed-inputs")
     assert r.exit_code == 0, r.output
     assert "note: changed since the run started: shell" in r.output
@@ -242,12 +232,12 @@ def test_edited_input_is_refused_on_resume_and_the_run_keeps_its_copy(edit_run):
                                                                         ["min_clearance_mm"])
     # explorer and sheet refuse too, naming the file, and go on with the flag
     r = _invoke("explore", o.run_dir, "-o", t / "page.html")
-    _one_error(r, str(shell), "--allow-changed-inputs")
+    one_error(r, str(shell), "--allow-changed-inputs")
     r = _invoke("explore", o.run_dir, "-o", t / "page.html", "--allow-changed-inputs")
     assert r.exit_code == 0 and (t / "page.html").is_file(), r.output
     cid = _evaluations(o.run_dir)["candidate_id"].iloc[0]
     r = _invoke("sheet", o.run_dir, "--candidate", cid, "-o", t / "sheet")
-    _one_error(r, str(shell))
+    one_error(r, str(shell))
     r = _invoke("sheet", o.run_dir, "--candidate", cid, "-o", t / "sheet", "--allow-changed-inputs")
     assert r.exit_code == 0, r.output
 
@@ -283,7 +273,7 @@ def test_batch_of_a_changed_config_is_refused_or_rerun(tmp_path):
     assert list(run_local(b, workers=1)["generations"]) == [3]
     (tmp_path / "b.toml").write_text(text.format(s='"run.generations" = 5, "run.population" = 12'))
     r = _invoke("batch", tmp_path / "b.toml", "--workers", "1")
-    _one_error(r, "z-s1", "run.generations", "run.population", "--rerun-changed")
+    one_error(r, "z-s1", "run.generations", "run.population", "--rerun-changed")
     r = _invoke("batch", tmp_path / "b.toml", "--workers", "1", "--rerun-changed")
     assert r.exit_code == 0 and "starting it again" in r.output, r.output
     summary = pq.read_table(tmp_path / "res" / "cb" / "summary.parquet").to_pandas()
@@ -319,7 +309,7 @@ def test_merge_refuses_an_output_that_is_an_input(tmp_path):
     a, b = _two_runs(tmp_path)
     before = (a / "run.json").read_bytes()
     r = _invoke("merge", a, b, "-o", a)
-    _one_error(r, "-o", "one of the folders to merge")
+    one_error(r, "-o", "one of the folders to merge")
     assert (a / "run.json").read_bytes() == before
     c = start_run(load_config(_zdt(tmp_path)), run_id="c", progress=False).run_dir
     with pytest.raises(InputError, match="holds a run"):
@@ -412,7 +402,7 @@ def test_disk_full_during_a_run_says_so_and_the_run_resumes(tmp_path, monkeypatc
     straight = start_run(load_config(cfg_path), run_id="straight", progress=False)
     _full_after(monkeypatch, R, "_atomic", 14)     # a few checkpoints, then the disk is full
     r = _invoke("run", cfg_path, "--quiet")
-    line = _one_error(r, "the disk is full", "tiltopt run --resume")
+    line = one_error(r, "the disk is full", "tiltopt run --resume")
     run_dir = tmp_path / "out" / "z-s5"
     assert str(run_dir) in line
     monkeypatch.undo()
@@ -431,7 +421,7 @@ def test_disk_full_while_writing_the_explorer_page(tmp_path, monkeypatch):
     run_dir = make_tiny_run(tmp_path)
     _full_after(monkeypatch, common, "atomic_write_bytes", 0)
     r = _invoke("explore", run_dir)
-    _one_error(r, "the disk is full", "free some space")
+    one_error(r, "the disk is full", "free some space")
     assert not list(run_dir.glob("*.html"))
 
 
@@ -440,10 +430,10 @@ def test_scheduler_addresses_are_checked(tmp_path):
     _zdt(tmp_path, gens=2)
     (tmp_path / "b.toml").write_text('[batch]\nname = "s"\n[[runs]]\nconfig = "z.toml"\n')
     for bad in ("not a url", "tcp://", "tcp://host:notaport", "http://127.0.0.1:8786", "tcp://h:99999"):
-        _one_error(_invoke("batch", tmp_path / "b.toml", "--scheduler", bad), "--scheduler", "Dask scheduler")
+        one_error(_invoke("batch", tmp_path / "b.toml", "--scheduler", bad), "--scheduler", "Dask scheduler")
     t0 = time.time()
     r = _invoke("batch", tmp_path / "b.toml", "--scheduler", "tcp://127.0.0.1:1")
-    _one_error(r, "--scheduler", "tcp://127.0.0.1:1", "connection refused")
+    one_error(r, "--scheduler", "tcp://127.0.0.1:1", "connection refused")
     assert time.time() - t0 < 10
 
 

@@ -9,7 +9,6 @@ import json
 import os
 import signal
 import subprocess
-import sys
 import time
 from pathlib import Path
 
@@ -22,6 +21,8 @@ from tiltopt.optimizer.config import RunSettings, load_config
 from tiltopt.optimizer.progress import Progress
 from tiltopt.optimizer.reference_problems import ZDTProblem
 from tiltopt.optimizer.runner import resume_run, run_problem, start_run
+
+from tests.helpers import cli_command
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -105,13 +106,9 @@ def _wait_for(path: Path, proc, timeout=60.0):
         time.sleep(0.05)
 
 
-def _cli(*args):
-    return [sys.executable, "-c", "from tiltopt.cli import main; main()", *args]
-
-
 def test_ctrl_c_stops_with_checkpoint_and_resume_matches(tmp_path):
     cfg = _config(tmp_path, gens=40, delay=0.05)
-    proc = subprocess.Popen(_cli("run", str(cfg), "--quiet"), cwd=ROOT, stderr=subprocess.PIPE, text=True)
+    proc = subprocess.Popen(cli_command("run", str(cfg), "--quiet"), cwd=ROOT, stderr=subprocess.PIPE, text=True)
     run_dir = tmp_path / "out" / "sub-s11"
     _wait_for(run_dir / "checkpoint.npz", proc)
     proc.send_signal(signal.SIGINT)
@@ -131,7 +128,7 @@ def test_ctrl_c_stops_with_checkpoint_and_resume_matches(tmp_path):
 def test_killed_run_leaves_readable_parquet_and_resumes(tmp_path):
     cfg = _config(tmp_path, gens=60, every=1, delay=0.01, name="kill")
     run_dir = tmp_path / "out" / "kill-s11"
-    proc = subprocess.Popen(_cli("run", str(cfg), "--quiet"), cwd=ROOT, stderr=subprocess.DEVNULL)
+    proc = subprocess.Popen(cli_command("run", str(cfg), "--quiet"), cwd=ROOT, stderr=subprocess.DEVNULL)
     _wait_for(run_dir / "checkpoint.npz", proc)
     time.sleep(0.3)
     os.kill(proc.pid, signal.SIGKILL)   # no chance to clean up
