@@ -370,7 +370,8 @@ def changed_runs(batch: Batch) -> list[tuple[BatchItem, str]]:
                                                 if keys else "")))
             continue
         now = {e["role"]: e["path"] for e in it.inputs if e["role"] != "config"}
-        then = {r.get("role"): r for r in (meta.get("inputs") or []) if isinstance(r, dict) and r.get("role") != "config"}
+        then = {r.get("role"): r for r in (meta.get("inputs") or [])
+                if isinstance(r, dict) and r.get("role") != "config"}
         if meta.get("inputs") is None:
             continue      # a run folder of an older tiltopt: no input hashes to compare
         diff = [role for role in sorted(set(now) | set(then), key=str)

@@ -75,6 +75,9 @@ def _plain(v):
     return None
 
 
+_MISSING = object()
+
+
 def _pop_doc(pop, arrays: _Arrays) -> dict:
     inds = list(pop)
     doc: dict[str, Any] = {"n": len(inds)}
@@ -119,8 +122,6 @@ def _pop_doc(pop, arrays: _Arrays) -> dict:
     doc["data"] = data
     return doc
 
-
-_MISSING = object()
 
 
 def _cols_doc(cols: dict, arrays: _Arrays) -> dict:
@@ -314,6 +315,21 @@ def check_zip(path: Path) -> None:
         _need(i.compress_type == zipfile.ZIP_STORED, f"member {i.filename!r} is compressed; tiltopt writes none")
         total += i.file_size
     _need(total <= size, "the members are larger than the file")
+    with zipfile.ZipFile(path) as z:      # every array fits in its member: nothing allocates more than the file
+        for i in infos:
+            _need(i.filename.endswith(".npy"), f"member {i.filename!r} is not an array")
+            with z.open(i) as fh:
+                try:
+                    version = np.lib.format.read_magic(fh)
+                    _need(version in ((1, 0), (2, 0)), f"member {i.filename!r}: .npy version {version}")
+                    read = (np.lib.format.read_array_header_1_0 if version == (1, 0)
+                            else np.lib.format.read_array_header_2_0)
+                    shape, _fortran, dtype = read(fh)
+                except ValueError as exc:
+                    raise _Bad(f"member {i.filename!r}: {exc}") from None
+            _need(not dtype.hasobject, f"member {i.filename!r} holds Python objects (a pickle); tiltopt writes none")
+            _need(math.prod(shape) * dtype.itemsize <= i.file_size,
+                  f"member {i.filename!r} claims shape {shape}, more than it holds")
 
 
 def decode(path: Path, algorithm, info: dict, n_var: int, n_obj: int, n_constr: int) -> dict:

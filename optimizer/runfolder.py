@@ -88,7 +88,8 @@ class FolderLock:
         try:
             folder.mkdir(parents=True, exist_ok=True)
             path = folder / name
-            fd = os.open(path, os.O_RDWR | os.O_CREAT | getattr(os, "O_NOFOLLOW", 0), 0o666 & ~_umask())
+            # R._MODE: the mode an ordinary open() gives; O_NOFOLLOW: a planted link is not followed
+            fd = os.open(path, os.O_RDWR | os.O_CREAT | getattr(os, "O_NOFOLLOW", 0), R._MODE)
         except OSError as exc:
             if exc.errno in DISK_FULL:
                 raise
@@ -104,9 +105,9 @@ class FolderLock:
             where = f" on {h['host']}" if h.get("host") and h.get("host") != socket.gethostname() else ""
             since = f", since {h['started_utc']}" if h.get("started_utc") else ""
             cmd = f" ({h['command']})" if isinstance(h.get("command"), str) and h.get("command") else ""
+            stop = f" (kill {h['pid']})" if isinstance(h.get("pid"), int) and not where else ""
             raise InputError(f"this {what} is in use by another tiltopt process ({who}{where}{since}){cmd}. "
-                             f"Two writers would lose results: wait until it ends, or stop it first"
-                             f"{' (kill ' + str(h['pid']) + ')' if isinstance(h.get('pid'), int) and not where else ''}.",
+                             f"Two writers would lose results: wait until it ends, or stop it first{stop}.",
                              str(folder)) from None
         info = {"pid": os.getpid(), "host": socket.gethostname(),
                 "started_utc": datetime.now(timezone.utc).isoformat(timespec="seconds"),
@@ -129,33 +130,12 @@ class FolderLock:
                 os.close(self._fd)
                 self._fd = None
 
-    @property
-    def held(self) -> bool:
-        return self._fd is not None
-
     def __enter__(self):
         return self
 
     def __exit__(self, *exc):
         self.release()
         return False
-
-
-def is_locked(folder: str | Path, name: str = RUN_LOCK) -> bool:
-    """Whether another process holds the folder's lock now (without taking it)."""
-    try:
-        lock = FolderLock.acquire(folder, name) if (Path(folder) / name).exists() else None
-    except InputError:
-        return True
-    if lock is not None:
-        lock.release()
-    return False
-
-
-def _umask() -> int:
-    old = os.umask(0)
-    os.umask(old)
-    return old
 
 
 # ------------------------------------------------------------------ what tiltopt wrote

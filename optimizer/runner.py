@@ -668,8 +668,8 @@ def _exists_message(run_dir: Path, meta: dict) -> str:
             "interrupted": "an interrupted run", "failed": "a failed run"}.get(st, f"a run ({st or 'status unknown'})")
     how = ("from its last checkpoint" if (run_dir / R.CHECKPOINT).is_file()
            else "it stopped before its first checkpoint, so this starts it again from generation 1")
-    return (f"a run folder with this id already exists and holds {what}. Continue it with: tiltopt run --resume {run_dir} "
-            f"({how}), or pass --overwrite to start it again.")
+    return (f"a run folder with this id already exists and holds {what}. Continue it with: "
+            f"tiltopt run --resume {run_dir} ({how}), or pass --overwrite to start it again.")
 
 
 def start_run(cfg: RunConfig, run_id: str | None = None, output: str | Path | None = None, overwrite: bool = False,

@@ -221,7 +221,7 @@ def test_crafted_npz_with_a_pickled_member_does_not_run_code(stopped_run, tmp_pa
     with zipfile.ZipFile(ck) as z:   # the planted member really is a live pickle
         assert any(b"pathlib" in z.read(n) for n in z.namelist())
     r = _resume_cli(stopped_run)
-    one_error(r, str(ck), "cannot be read without running code")
+    one_error(r, str(ck), "holds Python objects (a pickle)")
     assert not marker.exists()
 
 
@@ -269,6 +269,17 @@ def test_zip_bomb_member_is_refused_before_reading(stopped_run):
         z.writestr("checkpoint.json.npy", b"\0" * (1 << 22))       # 4 MiB of zeros in a few kB
     assert ck.stat().st_size < 100_000
     with pytest.raises(InputError, match="is compressed"):
+        resume_run(stopped_run, progress=False)
+
+
+def test_member_claiming_a_huge_array_is_refused_before_any_allocation(stopped_run):
+    ck = stopped_run / "checkpoint.npz"
+    header = io.BytesIO()
+    np.lib.format.write_array_header_1_0(header, {"descr": "<f8", "fortran_order": False,
+                                                  "shape": (10 ** 12,)})   # 8 TB claimed, 8 bytes held
+    with zipfile.ZipFile(ck, "a", compression=zipfile.ZIP_STORED) as z:
+        z.writestr("a9999.npy", header.getvalue() + b"\0" * 8)
+    with pytest.raises(InputError, match="claims shape"):
         resume_run(stopped_run, progress=False)
 
 
