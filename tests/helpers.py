@@ -281,6 +281,32 @@ def make_tiny_run(folder: Path) -> Path:
     return Path(out.run_dir)
 
 
+# a constrained NSGA-III run config: many random wishbone designs fail to assemble (ties on violation)
+NSGA3_TILT = """
+objectives = ["overall_width", "max_scrub", "max_heave"]
+
+[run]
+name = "n3"
+seed = 4
+algorithm = "nsga3"
+population = 20
+generations = 8
+output = "out"
+checkpoint_every = 3
+
+[template]
+name = "wishbone_rocker"
+
+[envelope]
+lean_limit_deg = 30.0
+lean_step_deg = 10.0
+travel_mm = [0.0]
+
+[constraints]
+max_width_mm = 900.0
+"""
+
+
 # ------------------------------------------------------------------ the command line
 def cli_command(*args) -> list[str]:
     """``tiltopt ARGS`` as a subprocess command line (this interpreter, this checkout)."""

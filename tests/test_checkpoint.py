@@ -28,7 +28,7 @@ from tiltopt.optimizer.config import RunSettings, load_config
 from tiltopt.optimizer.reference_problems import ZDTProblem
 from tiltopt.optimizer.runner import Runner, resume_run, run_problem, start_run
 
-from tests.helpers import one_error
+from tests.helpers import NSGA3_TILT, one_error
 
 ZDT_CONFIG = """
 [run]
@@ -42,30 +42,6 @@ checkpoint_every = 3
 [benchmark]
 name = "zdt1"
 n_var = 6
-"""
-
-TILT_NSGA3 = """
-objectives = ["overall_width", "max_scrub", "max_heave"]
-
-[run]
-name = "n3"
-seed = 4
-algorithm = "nsga3"
-population = 20
-generations = 6
-output = "out"
-checkpoint_every = 2
-
-[template]
-name = "wishbone_rocker"
-
-[envelope]
-lean_limit_deg = 30.0
-lean_step_deg = 10.0
-travel_mm = [0.0]
-
-[constraints]
-max_width_mm = 900.0
 """
 
 # attributes that are rebuilt by every generation before they are read, or are not search state
@@ -132,7 +108,7 @@ def test_restored_algorithm_is_the_live_one(tmp_path, algorithm):
 
 
 def test_restored_nsga3_with_constraints_is_the_live_one(tmp_path):
-    (tmp_path / "n3.toml").write_text(TILT_NSGA3)
+    (tmp_path / "n3.toml").write_text(NSGA3_TILT.replace("generations = 8", "generations = 6"))
     cfg = load_config(tmp_path / "n3.toml")
     live, again = _live_and_restored(cfg.make_problem, cfg.run, tmp_path, stop=3)
     _deep_equal(live.algorithm, again.algorithm)

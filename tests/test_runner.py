@@ -22,7 +22,7 @@ from tiltopt.optimizer.progress import Progress
 from tiltopt.optimizer.reference_problems import ZDTProblem
 from tiltopt.optimizer.runner import resume_run, run_problem, start_run
 
-from tests.helpers import cli_command
+from tests.helpers import NSGA3_TILT, cli_command
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -178,31 +178,6 @@ def test_progress_line():
     line = buf.getvalue()
     for part in ("gen 10/10", "123.4 eval/s", "feasible  50.0%", "HV 0.7500", "ETA 0s"):
         assert part in line
-
-
-NSGA3_TILT = """
-objectives = ["overall_width", "max_scrub", "max_heave"]
-
-[run]
-name = "n3"
-seed = 4
-algorithm = "nsga3"
-population = 20
-generations = 8
-output = "out"
-checkpoint_every = 3
-
-[template]
-name = "wishbone_rocker"
-
-[envelope]
-lean_limit_deg = 30.0
-lean_step_deg = 10.0
-travel_mm = [0.0]
-
-[constraints]
-max_width_mm = 900.0
-"""
 
 
 def test_nsga3_same_seed_same_front_with_failed_designs(tmp_path):
