@@ -509,7 +509,7 @@ def scheduler_address(text) -> str:
 
     t = str(text).strip()
     bad = InputError(f"expected the address of a Dask scheduler, like tcp://192.168.1.20:8786 (the address "
-                     f"'dask scheduler' prints). Got {text!r}.", key="--scheduler")
+                     f"'dask scheduler' prints). Got {text!r}.", "--scheduler")
     if "://" not in t:
         t = "tcp://" + t
     try:
@@ -538,13 +538,13 @@ def _probe_scheduler(address: str, timeout_s: float = 5.0) -> None:
             pass
     except socket.gaierror as exc:
         raise InputError(f"cannot reach the Dask scheduler at {address}: unknown host {u.hostname!r} ({exc}).",
-                         key="--scheduler") from None
+                         "--scheduler") from None
     except (ConnectionRefusedError, TimeoutError, OSError) as exc:
         why = ("connection refused: nothing listens there" if isinstance(exc, ConnectionRefusedError)
                else f"no answer within {timeout_s:g} s" if isinstance(exc, TimeoutError) else str(exc))
         raise InputError(f"cannot reach the Dask scheduler at {address} ({why}). Start one ('dask scheduler', "
                          f"then 'dask worker ADDRESS' on each machine) or check the address.",
-                         key="--scheduler") from None
+                         "--scheduler") from None
 
 
 def connect_scheduler(scheduler, timeout_s: float = 10.0):
@@ -559,7 +559,7 @@ def connect_scheduler(scheduler, timeout_s: float = 10.0):
         return Client(address, timeout=f"{timeout_s:g}s"), True
     except (OSError, TimeoutError) as exc:
         raise InputError(f"cannot connect to the Dask scheduler at {address} ({type(exc).__name__}: {exc}). Is it "
-                         f"a Dask scheduler, of a compatible version?", key="--scheduler") from None
+                         f"a Dask scheduler, of a compatible version?", "--scheduler") from None
 
 
 def run_dask(batch: Batch, scheduler, echo=None, rerun_changed: bool = False) -> pd.DataFrame:

@@ -694,7 +694,7 @@ def start_run(cfg: RunConfig, run_id: str | None = None, output: str | Path | No
         run folder, or another process writes it.
     """
     if run_id is not None:
-        rid = RF.check_name(run_id, "run id", key="--run-id")
+        rid = RF.check_name(run_id, "run id", "--run-id")
     else:
         rid = RF.check_name(default_run_id(cfg), "run id (run.name and run.seed)", cfg.source, "run.name")
     root = Path(output) if output is not None else cfg.run.output
@@ -738,6 +738,10 @@ def resume_run(run_dir: str | Path, progress: bool = True, stop_after: int | Non
     notice = _stderr        # notices are printed with or without the progress line (as the runner's own)
     with RF.FolderLock.acquire(d) as lock:
         meta = RF.read_meta(d) or meta
+        if meta.get("status") == "finished":        # nothing to run, nothing to check
+            t = meta.get("timings") or {}
+            return RunOutcome(d, str(meta.get("run_id", d.name)), "finished", int(t.get("generations_done", 0)),
+                              len(R.load_run(d).front), float(t.get("elapsed_s", 0.0)))
         if meta.get("config") is not None:
             copies = RF.verify_inputs(d, meta, allow_changed_inputs, notice)
             with reading_copies(copies):
@@ -758,10 +762,6 @@ def resume_run(run_dir: str | Path, progress: bool = True, stop_after: int | Non
             settings = RunSettings(**{**run, "output": Path(run["output"])})
             record = {}
         runner = Runner(problem, settings, d, meta.get("run_id", d.name), record, progress, stop_after, lock=lock)
-        if meta.get("status") == "finished":
-            s = R.load_run(d)
-            return RunOutcome(d, runner.run_id, "finished", int(meta["timings"]["generations_done"]), len(s.front),
-                              float(meta["timings"]["elapsed_s"]))
         has_checkpoint = (d / R.CHECKPOINT).is_file()
         if not has_checkpoint:
             refuse_old_checkpoint(d)
