@@ -71,6 +71,7 @@ import numpy as np
 
 from tiltopt.base import inputs
 from tiltopt.base.errors import InputError, check_keys, read_text, read_toml
+from tiltopt.base.limits import MAX_COORD_MM, MAX_LEAN_LIMIT_DEG, MAX_MASS_KG, MAX_TRAVEL_MM
 from tiltopt.base.resources import data_path
 
 G = 9.80665  # standard gravity, m/s^2
@@ -281,7 +282,7 @@ def load_catalogue(path: str | Path | None = None) -> Catalogue:
             d, w = float(row["outer_diameter_mm"]), float(row["wall_mm"])
         except (TypeError, ValueError):
             raise InputError(f"expected numbers for outer_diameter_mm and wall_mm. Got {row}.", src, key) from None
-        if not (math.isfinite(d) and math.isfinite(w) and d > 0 and 0 < w < d / 2):
+        if not (math.isfinite(d) and math.isfinite(w) and 0 < d <= MAX_COORD_MM and 0 < w < d / 2):
             raise InputError(f"need outer_diameter_mm > 0 and 0 < wall_mm < outer_diameter_mm / 2. "
                              f"Got {d:g} x {w:g}.", src, key)
         mats.append(row["material"].strip())
@@ -333,14 +334,14 @@ def parse_loads(data: dict, src: str = "<memory>", base_dir: str | Path | None =
     _keys(vt, {"total_mass_kg", "com_height_mm", "front_share", "wheelbase_mm", "lean_limit_deg",
                "parked_lean_deg"}, src, "vehicle",
           ["total_mass_kg", "com_height_mm", "front_share", "wheelbase_mm", "lean_limit_deg"])
-    lean = _num(vt, "lean_limit_deg", src, "vehicle", lo=0, hi=60)
+    lean = _num(vt, "lean_limit_deg", src, "vehicle", lo=0, hi=MAX_LEAN_LIMIT_DEG)
     vehicle = Vehicle(
-        total_mass_kg=_num(vt, "total_mass_kg", src, "vehicle", lo=0, lo_open=True),
-        com_height_mm=_num(vt, "com_height_mm", src, "vehicle", lo=0, lo_open=True),
+        total_mass_kg=_num(vt, "total_mass_kg", src, "vehicle", lo=0, lo_open=True, hi=MAX_MASS_KG),
+        com_height_mm=_num(vt, "com_height_mm", src, "vehicle", lo=0, lo_open=True, hi=MAX_COORD_MM),
         front_share=_num(vt, "front_share", src, "vehicle", lo=0, hi=1, lo_open=True),
-        wheelbase_mm=_num(vt, "wheelbase_mm", src, "vehicle", lo=0, lo_open=True),
+        wheelbase_mm=_num(vt, "wheelbase_mm", src, "vehicle", lo=0, lo_open=True, hi=MAX_COORD_MM),
         lean_limit_deg=lean,
-        parked_lean_deg=_num(vt, "parked_lean_deg", src, "vehicle", lean, lo=0, hi=60),
+        parked_lean_deg=_num(vt, "parked_lean_deg", src, "vehicle", lean, lo=0, hi=MAX_LEAN_LIMIT_DEG),
     )
 
     st = data.get("sizing", {})
@@ -366,10 +367,11 @@ def parse_loads(data: dict, src: str = "<memory>", base_dir: str | Path | None =
     check_material(material, "sizing.material")
     spec = LoadsSpec(
         vehicle=vehicle, cases=(),
-        safety_factor=_num(st, "safety_factor", src, "sizing", DEFAULT_SAFETY_FACTOR, lo=1.0),
-        pivot_allowance_g=_num(st, "pivot_allowance_g", src, "sizing", DEFAULT_PIVOT_ALLOWANCE_G, lo=0),
+        safety_factor=_num(st, "safety_factor", src, "sizing", DEFAULT_SAFETY_FACTOR, lo=1.0, hi=100.0),
+        pivot_allowance_g=_num(st, "pivot_allowance_g", src, "sizing", DEFAULT_PIVOT_ALLOWANCE_G, lo=0,
+                               hi=1000.0 * MAX_MASS_KG),
         default_pivot_base_mm=_num(st, "default_pivot_base_mm", src, "sizing", DEFAULT_PIVOT_BASE_MM, lo=0,
-                                   lo_open=True),
+                                   lo_open=True, hi=MAX_COORD_MM),
         material=material, materials=materials, catalogue=catalogue, source=src)
 
     members = data.get("members", {})
@@ -410,9 +412,9 @@ def parse_loads(data: dict, src: str = "<memory>", base_dir: str | Path | None =
                 raise InputError(f"expected true or false. Got {mirror!r} instead.", src, w + ".mirror")
             cases.append(LoadCase(
                 name=name, kind=kind,
-                lean_deg=_num(t, "lean_deg", src, w, lean_default, lo=-60, hi=60),
-                travel_mm=_num(t, "travel_mm", src, w, 0.0),
-                vertical_g=_num(t, "vertical_g", src, w, DEFAULT_BUMP_G if kind == "bump" else 1.0, lo=0),
+                lean_deg=_num(t, "lean_deg", src, w, lean_default, lo=-MAX_LEAN_LIMIT_DEG, hi=MAX_LEAN_LIMIT_DEG),
+                travel_mm=_num(t, "travel_mm", src, w, 0.0, lo=-MAX_TRAVEL_MM, hi=MAX_TRAVEL_MM),
+                vertical_g=_num(t, "vertical_g", src, w, DEFAULT_BUMP_G if kind == "bump" else 1.0, lo=0, hi=100.0),
                 brake_g=_num(t, "brake_g", src, w, DEFAULT_BRAKE_G if kind == "braking" else 0.0, lo=0, hi=2),
                 mirror=mirror))
         cases = tuple(cases)

@@ -52,6 +52,7 @@ from pathlib import Path
 from typing import Any, Iterable
 
 from tiltopt.base.errors import InputError, check_keys, read_toml
+from tiltopt.base.limits import MAX_ABS_LEAN_DEG, check_coord
 
 PIN_TOLERANCE_MM = 0.01
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
@@ -205,10 +206,12 @@ def _check_keys(table: dict, allowed: Iterable[str], required: Iterable[str], sr
     check_keys(table, allowed, src, where, required)
 
 
-def _number(value: Any, src: str, key: str, *, positive: bool = False, nonneg: bool = False) -> float:
+def _number(value: Any, src: str, key: str, *, positive: bool = False, nonneg: bool = False,
+            length: bool = True) -> float:
+    """A finite number; a length or coordinate (``length``, the default) within +-MAX_COORD_MM."""
     if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
         raise InputError(f"expected a finite number. Got {value!r} instead.", src, key)
-    value = float(value)
+    value = check_coord(float(value), src, key, "length or coordinate") if length else float(value)
     if positive and value <= 0:
         raise InputError(f"must be positive. Got {value} instead.", src, key)
     if nonneg and value < 0:
@@ -338,8 +341,8 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
         a, b = ref(t["a"], w + ".a"), ref(t["b"], w + ".b")
         _check_length(bodies, a, b, src, w)
         opt = {}
-        for k, kw in (("rate_n_per_mm", dict(positive=True)), ("free_length_mm", dict(positive=True)),
-                      ("preload_n", dict(nonneg=True))):
+        for k, kw in (("rate_n_per_mm", dict(positive=True, length=False)), ("free_length_mm", dict(positive=True)),
+                      ("preload_n", dict(nonneg=True, length=False))):
             if k in t:
                 opt[k] = _number(t[k], src, f"{w}.{k}", **kw)
         springs.append(Spring(unique(_string(t["name"], src, w + ".name"), w + ".name"), a, b, **opt))
@@ -389,7 +392,7 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
         if small >= big:
             raise InputError(f"the crown_radius_mm of wheel '{nm}' must be smaller than outer_radius_mm "
                              f"({big}). Got {small} instead.", src, w + ".crown_radius_mm")
-        camber = _number(t.get("static_camber_deg", 0.0), src, w + ".static_camber_deg")
+        camber = _number(t.get("static_camber_deg", 0.0), src, w + ".static_camber_deg", length=False)
         if abs(camber) >= 45:
             raise InputError(f"static_camber_deg must lie within +-45. Got {camber}.", src, w + ".static_camber_deg")
         zc = bodies[up][split_ref(centre)[1]][1]
@@ -402,7 +405,7 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
         steer = {}
         for k in ("kingpin_inclination_deg", "caster_deg"):
             if k in t:
-                steer[k] = _number(t[k], src, f"{w}.{k}")
+                steer[k] = _number(t[k], src, f"{w}.{k}", length=False)
                 if abs(steer[k]) >= 60:
                     raise InputError(f"{k} must lie within +-60. Got {steer[k]}.", src, f"{w}.{k}")
         if "steer_axis_point" in t:
@@ -445,7 +448,7 @@ def _steer_envelope(data: dict, src: str) -> tuple[tuple[float, float], ...]:
         v = env[k]
         if not isinstance(v, list) or not v:
             raise InputError(f"expected a non-empty list of numbers. Got {v!r} instead.", src, f"steer_envelope.{k}")
-        rows.append([_number(x, src, f"steer_envelope.{k}[{i}]", nonneg=True) for i, x in enumerate(v)])
+        rows.append([_number(x, src, f"steer_envelope.{k}[{i}]", nonneg=True, length=False) for i, x in enumerate(v)])
     lean, steer = rows
     if len(lean) != len(steer):
         raise InputError(f"lean_deg and max_steer_deg must have the same length. Got {len(lean)} and "
@@ -454,6 +457,8 @@ def _steer_envelope(data: dict, src: str) -> tuple[tuple[float, float], ...]:
         raise InputError(f"lean_deg must be strictly ascending. Got {lean}.", src, "steer_envelope.lean_deg")
     if any(s >= 90 for s in steer):
         raise InputError(f"max_steer_deg must be below 90. Got {steer}.", src, "steer_envelope.max_steer_deg")
+    if any(a >= MAX_ABS_LEAN_DEG for a in lean):
+        raise InputError(f"lean_deg must be below {MAX_ABS_LEAN_DEG:g}. Got {lean}.", src, "steer_envelope.lean_deg")
     return tuple(zip(lean, steer))
 
 

@@ -261,23 +261,23 @@ class Model:
                         sl_sign.append(s[2])
                         sl_coord.append(s[3])
         n_pk = len(pk_point)
-        npts = len(self.point_refs)
-        # design vector of pair k = sum(P[plus]) - sum(P[minus]) : a (n_pk, n_points+1) matrix
-        comb = np.zeros((n_pk, npts + 1))
+        # design vector of pair k = sum(P[plus]) - sum(P[minus]) (minus -1 = the origin): kept as a list
+        # of signed terms per pair, not as a dense (n_pk, n_points) matrix (a mechanism of many points
+        # would need memory and time quadratic in its size)
+        t_pt, t_coef, t_start = [], [], []
         for k in range(n_pk):
-            for i in pk_plus[k]:
-                comb[k, i] += 1.0
-            for i in pk_minus[k]:
-                comb[k, i if i >= 0 else npts] -= 1.0
-        summ = np.zeros((2 * n_pk, 2 * len(points)))    # interleaved (y, z) sums per point
-        summ[2 * np.arange(n_pk), 2 * np.array(pk_point, dtype=int)] = 1.0
-        summ[2 * np.arange(n_pk) + 1, 2 * np.array(pk_point, dtype=int) + 1] = 1.0
+            t_start.append(len(t_pt))
+            terms = [(i, 1.0) for i in pk_plus[k]] + [(i, -1.0) for i in pk_minus[k] if i >= 0]
+            for i, c in terms or [(0, 0.0)]:    # a pair without terms still needs its slot (reduceat)
+                t_pt.append(i)
+                t_coef.append(c)
         tab = dict(
             n=len(points),
-            sum2=summ,
             pk_point=np.array(pk_point, dtype=int),
             pk_src=np.array(pk_src, dtype=int),
-            comb=comb[:, :npts],
+            term_point=np.array(t_pt, dtype=int),
+            term_coef=np.array(t_coef),
+            term_start=np.array(t_start, dtype=int),
             starts=np.flatnonzero(np.r_[True, np.diff(pk_point) != 0]),
             ty=np.array([self.root_t[r][0] for r in roots], dtype=int),
             tz=np.array([self.root_t[r][1] for r in roots], dtype=int),
@@ -343,8 +343,8 @@ class Model:
         U : ndarray of shape (n_candidates, n_sl), complex
             Unit guide directions of the slide terms, times their sign.
         """
-        V2 = np.matmul(tab["comb"], geom.points)          # (C, n_pk, 2)
-        V = V2[..., 0] + 1j * V2[..., 1]
+        P = geom.points[..., 0] + 1j * geom.points[..., 1]             # (C, n_points)
+        V = np.add.reduceat(P[:, tab["term_point"]] * tab["term_coef"], tab["term_start"], axis=1)
         d = geom.points[:, tab["sl_to"]] - geom.points[:, tab["sl_from"]]
         U = d / np.linalg.norm(d, axis=-1, keepdims=True) * tab["sl_sign"][None, :, None]
         return V, U[..., 0] + 1j * U[..., 1]
@@ -395,7 +395,8 @@ class Model:
                 w[:, tab["sl_pk"][layer]] += U[:, layer] * q[:, tab["sl_coord"][layer]]
         rw = e[:, src] * w
         rwf = rw.view(np.float64)                           # (N, 2 n_pk) interleaved y, z
-        x = (rwf @ tab["sum2"]).reshape(N, tab["n"], 2)
+        # each point is the sum of its consecutive pairs (pk_point is sorted, every point has a pair)
+        x = np.ascontiguousarray(np.add.reduceat(rw, tab["starts"], axis=1)).view(np.float64).reshape(N, tab["n"], 2)
         x[..., 0] += q[:, tab["ty"]]
         x[..., 1] += q[:, tab["tz"]]
         if not jac:

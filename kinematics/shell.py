@@ -41,13 +41,13 @@ from __future__ import annotations
 
 import csv
 import math
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
-from tiltopt.base.errors import InputError, read_text
+from tiltopt.base.errors import InputError, decode_toml, read_text
+from tiltopt.base.limits import MAX_SHELL_VERTICES, check_coord, check_count
 
 _NEWTON_ITERATIONS = 5
 _CHART_LIMIT = 0.9     # each Newton chart covers |t|^n <= 0.9 of its free coordinate
@@ -117,11 +117,7 @@ def load_shell(path: str | Path) -> Shell:
     text = read_text(path, "shell .toml or .csv")
     if path.suffix.lower() == ".csv":
         return parse_polygon_csv(text, src)
-    try:
-        data = tomllib.loads(text)
-    except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc}).", src) from None
-    return parse_shell(data, src)
+    return parse_shell(decode_toml(text, src), src)
 
 
 def _num(v, src, key, *, positive=False, minimum=None) -> float:
@@ -130,6 +126,8 @@ def _num(v, src, key, *, positive=False, minimum=None) -> float:
     v = float(v)
     if positive and v <= 0:
         raise InputError(f"must be positive. Got {v} instead.", src, key)
+    if minimum is None:   # a length or coordinate (the exponent has a minimum, and its own maximum)
+        check_coord(v, src, key)
     if minimum is not None and v < minimum:
         raise InputError(f"must be at least {minimum}. Got {v} instead.", src, key)
     return v
@@ -156,6 +154,7 @@ def parse_shell(data: dict, src: str = "<memory>") -> Shell:
         raise InputError(f"expected at least two [[stations]]. Got {len(st)}.", src, "stations")
     keys = ["x_mm", "half_width_mm", "half_height_mm", "centre_z_mm", "exponent"]
     rows = []
+    xs_seen: set[float] = set()
     for i, t in enumerate(st):
         w = f"stations[{i}]"
         for k in t:
@@ -174,9 +173,10 @@ def parse_shell(data: dict, src: str = "<memory>") -> Shell:
         if rows[-1][4] > 50:
             raise InputError(f"exponent must be at most 50 (a box-like section). Got {rows[-1][4]}.", src,
                              w + ".exponent")
-        if any(r[0] == rows[-1][0] for r in rows[:-1]):
+        if rows[-1][0] in xs_seen:
             raise InputError(f"two stations have x_mm = {rows[-1][0]}; each station needs its own x.", src,
                              w + ".x_mm")
+        xs_seen.add(rows[-1][0])
     a = np.array(sorted(rows))
     return Shell("superellipse", a[:, 0], a[:, 1], a[:, 2], a[:, 3], a[:, 4], name=name, description=desc,
                  source=src)
@@ -192,6 +192,7 @@ def parse_polygon_csv(text: str, src: str = "<memory>") -> Shell:
     if header != ["x_mm", "y_mm", "z_mm"]:
         raise InputError(f"expected the header x_mm,y_mm,z_mm. Got {','.join(header)!r}.", src, "row 1")
     blocks: list[tuple[float, list]] = []
+    seen: set[float] = set()
     for lineno, row in enumerate(reader, start=2):
         if not row or all(not c.strip() for c in row):
             continue
@@ -201,14 +202,15 @@ def parse_polygon_csv(text: str, src: str = "<memory>") -> Shell:
             x, y, z = (float(c) for c in row)
         except ValueError:
             raise InputError(f"expected three numbers x_mm,y_mm,z_mm. Got {row!r}.", src, f"row {lineno}") from None
-        if not all(math.isfinite(v) for v in (x, y, z)):
-            raise InputError(f"expected finite numbers. Got {row!r}.", src, f"row {lineno}")
+        for v in (x, y, z):
+            check_coord(v, src, f"row {lineno}")
         if blocks and blocks[-1][0] == x:
             blocks[-1][1].append((y, z))
         else:
-            if any(b[0] == x for b in blocks):
+            if x in seen:
                 raise InputError(f"x_mm = {x} starts a second block; give each section's rows together.", src,
                                  f"row {lineno}")
+            seen.add(x)
             blocks.append((x, [(y, z)]))
     if len(blocks) < 2:
         raise InputError(f"expected at least two sections (blocks of rows with the same x_mm). Got {len(blocks)}.",
@@ -230,6 +232,10 @@ def parse_polygon_csv(text: str, src: str = "<memory>") -> Shell:
         outlines.append(np.roll(v, -start, axis=0))
     counts = {len(o) for o in outlines}
     notes = ""
+    check_count(len(outlines) * (2 * max(counts) if len(counts) > 1 else max(counts)), MAX_SHELL_VERTICES,
+                f"section vertices ({len(outlines)} sections of up to {max(counts)} vertices"
+                f"{', resampled to twice that' if len(counts) > 1 else ''})",
+                "Give fewer sections or vertices (or the same vertex count in every section).", src)
     if len(counts) > 1:
         m = 2 * max(counts)
         outlines = [_resample(o, m) for o in outlines]

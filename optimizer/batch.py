@@ -37,6 +37,7 @@ from __future__ import annotations
 import copy
 import itertools
 import json
+import math
 import multiprocessing as mp
 import os
 import signal
@@ -50,8 +51,8 @@ from typing import Any
 import pandas as pd
 
 from tiltopt.base.errors import InputError
-
 from tiltopt.base.inputs import reading_copies
+from tiltopt.base.limits import MAX_BATCH_RUNS, check_count
 
 from . import results as R
 from . import runfolder as RF
@@ -120,6 +121,12 @@ def _seeds(v, src, where):
     return v
 
 
+def _path_text(v, src, where) -> str:
+    if not isinstance(v, str) or not v:
+        raise InputError(f"expected a path (a string, relative to the batch file). Got {v!r} instead.", src, where)
+    return v
+
+
 def _table(v, allowed, src, where, required=()):
     if not isinstance(v, dict):
         raise InputError(f"expected a table. Got {v!r} instead.", src, where)
@@ -131,15 +138,19 @@ def _table(v, allowed, src, where, required=()):
             raise InputError("this key is required but missing.", src, f"{where}.{k}")
 
 
-def parse_batch(data: dict, src: str, base_dir: Path) -> Batch:
-    """Validate a batch file and expand it into runs (every config is validated here)."""
+def parse_batch(data: dict, src: str, base_dir: Path, confirm_above: int | None = None) -> Batch:
+    """Validate a batch file and expand it into runs (every config is validated here).
+
+    More than ``confirm_above`` runs (or :data:`~tiltopt.base.limits.MAX_BATCH_RUNS` at all) is an
+    error, found before any run is expanded.
+    """
     _table(data, BATCH_KEYS, src, "")
     if "batch" not in data:
         raise InputError("a batch file needs a [batch] table (name, output).", src, "batch")
     b = data["batch"]
     _table(b, BATCH_TABLE_KEYS, src, "batch", ("name",))
     name = RF.check_name(b["name"], "batch name", src, "batch.name")
-    out = Path(b.get("output", "results"))
+    out = Path(_path_text(b.get("output", "results"), src, "batch.output"))
     out = (out if out.is_absolute() else base_dir / out).resolve()
     retries = b.get("retries", 2)
     if isinstance(retries, bool) or not isinstance(retries, int) or retries < 0:
@@ -158,10 +169,11 @@ def parse_batch(data: dict, src: str, base_dir: Path) -> Batch:
             groups.append((kind, where, e))
     if not groups:
         raise InputError("a batch needs at least one [[runs]] or [[grid]] table.", src)
+    _check_run_count(groups, src, confirm_above)
     items: list[BatchItem] = []
     seen: set[str] = set()
     for kind, where, e in groups:
-        cpath = Path(e["config"])
+        cpath = Path(_path_text(e["config"], src, f"{where}.config"))
         cpath = (cpath if cpath.is_absolute() else base_dir / cpath).resolve()
         base = read_toml(cpath)
         seeds = _seeds(e.get("seeds", [base.get("run", {}).get("seed", 0)]), src, f"{where}.seeds")
@@ -203,22 +215,29 @@ def parse_batch(data: dict, src: str, base_dir: Path) -> Batch:
     return Batch(name=name, source=src, batch_dir=batch_dir, retries=retries, items=items)
 
 
-def load_batch(path: str | Path) -> Batch:
+def _check_run_count(groups, src: str, confirm_above: int | None) -> None:
+    planned = 0
+    for kind, _, e in groups:
+        seeds, values = e.get("seeds"), e.get("values")
+        n = len(seeds) if isinstance(seeds, list) and seeds else 1
+        if kind == "grid" and isinstance(values, dict):
+            n *= math.prod(len(v) if isinstance(v, list) else 1 for v in values.values())
+        planned += n
+    check_count(planned, MAX_BATCH_RUNS, "runs in this batch", "Use fewer [[grid]] values or seeds.", src)
+    if confirm_above is not None and planned > confirm_above:
+        raise InputError(f"this batch would start {planned:,} runs (more than {confirm_above:,}). Check the [[grid]] "
+                         f"values and seeds, and pass --yes to start it.", src)
+
+
+def load_batch(path: str | Path, confirm_above: int | None = None) -> Batch:
     p = Path(path)
-    return parse_batch(read_toml(p), str(p), p.resolve().parent)
+    return parse_batch(read_toml(p), str(p), p.resolve().parent, confirm_above)
 
 
 # ------------------------------------------------------------------ one run
-def _status(run_dir: Path) -> dict | None:
-    try:
-        return json.loads((run_dir / R.RUN_JSON).read_text(encoding="utf-8"))
-    except (OSError, ValueError):
-        return None
-
-
 def summary_row(item: dict, attempts: int = 0, status: str | None = None, error: str = "") -> dict:
     d = Path(item["run_dir"])
-    meta = _status(d) or {}
+    meta = RF.read_meta(d) or {}
     hv = float("nan")
     if (d / R.GENERATIONS).is_file():
         try:
@@ -253,7 +272,7 @@ def execute_item(item: dict) -> dict:
     except InputError as exc:
         return summary_row(item, status="failed", error=str(exc))
     with lock:
-        meta = _status(d)
+        meta = RF.read_meta(d)
         same = meta is not None and _stored_hash(meta) == item.get("config_sha256")
         if meta is not None and not same:
             return summary_row(item, status="failed", error="the run folder holds a run of another config "

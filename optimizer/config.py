@@ -27,6 +27,7 @@ from typing import Any
 import numpy as np
 
 from tiltopt.base.errors import InputError, read_toml as _read_toml
+from tiltopt.base.limits import MAX_GENERATION_STATES, MAX_POPULATION, MAX_REFERENCE_DIRECTIONS, check_count
 
 ALGORITHM_NAMES = ("nsga2", "nsga3")
 RUN_KEYS = ("name", "seed", "algorithm", "population", "generations", "output", "checkpoint_every",
@@ -111,11 +112,13 @@ class RunConfig:
                 "states_per_candidate": 1}
 
 
-def _int(v, src, key, lo):
+def _int(v, src, key, lo, hi=None):
     if isinstance(v, bool) or not isinstance(v, int):
         raise InputError(f"expected a whole number. Got {v!r} instead.", src, key)
     if v < lo:
         raise InputError(f"must be at least {lo}. Got {v} instead.", src, key)
+    if hi is not None and v > hi:
+        raise InputError(f"must be at most {hi:,}. Got {v:,} instead.", src, key)
     return v
 
 
@@ -138,12 +141,12 @@ def parse_run(table: Any, src: str, base_dir: Path) -> RunSettings:
     alg = t["algorithm"]
     if alg not in ALGORITHM_NAMES:
         raise InputError(f"expected one of {', '.join(ALGORITHM_NAMES)}. Got {alg!r} instead.", src, "run.algorithm")
-    pop = _int(t["population"], src, "run.population", 4)
+    pop = _int(t["population"], src, "run.population", 4, MAX_POPULATION)
     gens = _int(t["generations"], src, "run.generations", 1)
     every = _int(t["checkpoint_every"], src, "run.checkpoint_every", 1)
     parts = t["nsga3_partitions"]
     if parts is not None:
-        parts = _int(parts, src, "run.nsga3_partitions", 1)
+        parts = _int(parts, src, "run.nsga3_partitions", 1, MAX_REFERENCE_DIRECTIONS)
     out = t["output"]
     if not isinstance(out, str) or not out:
         raise InputError(f"expected a folder path (relative to the config). Got {out!r} instead.", src, "run.output")
@@ -184,12 +187,26 @@ def parse_config(data: dict, src: str = "<memory>", base_dir: str | Path | None 
                              extra[0])
         from .reference_problems import parse_benchmark
 
-        parse_benchmark(data["benchmark"], src)
+        n_obj = parse_benchmark(data["benchmark"], src).n_obj
+        _check_size(run, n_obj, 1, src)
         return RunConfig(run=run, spec=None, benchmark=dict(data["benchmark"]), data=data, source=src, base_dir=base)
     from tiltopt.problems.spec import parse_problem
 
     spec = parse_problem(data, src, base)
+    _check_size(run, len(spec.objectives), spec.envelope.n_states, src)
     return RunConfig(run=run, spec=spec, benchmark=None, data=data, source=src, base_dir=base)
+
+
+def _check_size(run: RunSettings, n_obj: int, states: int, src: str) -> None:
+    """A generation's states and NSGA-III's reference directions within :mod:`tiltopt.base.limits`."""
+    check_count(run.population * states, MAX_GENERATION_STATES,
+                f"states per generation (population {run.population} x {states} states per candidate)",
+                "Use a smaller population or a coarser envelope (lean_step_deg, travel_mm).", src, "run.population")
+    if run.algorithm == "nsga3" and run.nsga3_partitions is not None:
+        check_count(math.comb(run.nsga3_partitions + n_obj - 1, n_obj - 1), MAX_REFERENCE_DIRECTIONS,
+                    f"NSGA-III reference directions ({run.nsga3_partitions} partitions, {n_obj} objectives)",
+                    "Use fewer nsga3_partitions (or leave it out: as many directions as fit the population).",
+                    src, "run.nsga3_partitions")
 
 
 def read_toml(path: str | Path) -> dict:

@@ -17,6 +17,7 @@ import numpy as np
 from pymoo.core.problem import Problem
 
 from tiltopt.base.errors import InputError
+from tiltopt.base.limits import MAX_BENCHMARK_VARIABLES
 from tiltopt.problems.problem import Evaluation  # the same result type as the linkage problem's
 
 BENCHMARKS = {
@@ -89,12 +90,14 @@ def parse_benchmark(table, src: str) -> ZDTProblem:
         if k not in BENCHMARK_KEYS:
             raise InputError(f"unknown key '{k}'. Expected one of: {', '.join(BENCHMARK_KEYS)}.", src, f"benchmark.{k}")
     name = table.get("name")
-    if name not in BENCHMARKS:
+    if not isinstance(name, str) or name not in BENCHMARKS:
         raise InputError(f"expected one of {', '.join(BENCHMARKS)}. Got {name!r} instead.", src, "benchmark.name")
     n_var = table.get("n_var", 30)
-    if isinstance(n_var, bool) or not isinstance(n_var, int) or n_var < 2:
-        raise InputError(f"expected an integer of at least 2. Got {n_var!r} instead.", src, "benchmark.n_var")
+    if isinstance(n_var, bool) or not isinstance(n_var, int) or not 2 <= n_var <= MAX_BENCHMARK_VARIABLES:
+        raise InputError(f"expected an integer from 2 to {MAX_BENCHMARK_VARIABLES}. Got {n_var!r} instead.", src,
+                         "benchmark.n_var")
     delay = table.get("eval_delay_s", 0.0)
-    if isinstance(delay, bool) or not isinstance(delay, (int, float)) or delay < 0:
-        raise InputError(f"expected a number of seconds >= 0. Got {delay!r} instead.", src, "benchmark.eval_delay_s")
+    if isinstance(delay, bool) or not isinstance(delay, (int, float)) or not 0 <= delay <= 3600:
+        raise InputError(f"expected a number of seconds from 0 to 3600. Got {delay!r} instead.", src,
+                         "benchmark.eval_delay_s")
     return ZDTProblem(name, n_var, float(delay))

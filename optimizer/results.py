@@ -42,7 +42,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from tiltopt.base.errors import InputError
+from tiltopt.base.errors import InputError, read_text
 
 FRONT, EVALUATIONS, GENERATIONS, RUN_JSON, CHECKPOINT = (
     "front.parquet", "evaluations.parquet", "generations.parquet", "run.json", "checkpoint.npz")
@@ -120,10 +120,35 @@ def write_parquet(path: Path, df: pd.DataFrame, units: dict, meta: dict) -> None
 
 
 def read_parquet(path: Path) -> tuple[pd.DataFrame, dict]:
-    """A result Parquet file and its ``tiltopt`` metadata."""
-    table = pq.read_table(path)
+    """A result Parquet file and its ``tiltopt`` metadata.
+
+    Raises
+    ------
+    InputError
+        Naming the file, when it is truncated, damaged or not a Parquet file.
+    """
+    try:
+        table = pq.read_table(path)
+        df = table.to_pandas()
+    except (pa.ArrowException, OSError, ValueError) as exc:
+        raise InputError(f"this Parquet file is damaged or not a tiltopt result file ({exc}). Restore it, or run "
+                         f"again.", str(path)) from None
     raw = (table.schema.metadata or {}).get(META_KEY)
-    return table.to_pandas(), (json.loads(raw) if raw else {})
+    try:
+        info = json.loads(raw) if raw else {}
+    except (ValueError, RecursionError):
+        info = None
+    if not isinstance(info, dict) or not isinstance(info.get("units", {}), dict):
+        raise InputError("the tiltopt metadata of this Parquet file is damaged (expected a JSON object with a "
+                         "'units' table). Restore the file, or run again.", str(path))
+    return df, info
+
+
+def _require_columns(df: pd.DataFrame, columns, path: Path, why: str) -> None:
+    missing = [c for c in columns if c not in df.columns]
+    if missing:
+        raise InputError(f"the column(s) {', '.join(missing)} that {why} are missing: the file is damaged or "
+                         f"belongs to another run.", str(path))
 
 
 def package_versions() -> dict:
@@ -172,6 +197,9 @@ class Run:
             # a run under way or killed: the parts reach its last checkpoint, the whole file (if any)
             # its last stop; take whichever holds more generations
             from_parts = pd.concat([read_parquet(p)[0] for p in parts], ignore_index=True)
+            _require_columns(from_parts, ["candidate_id", "generation"], parts_dir, "every result file has")
+            if whole is not None:
+                _require_columns(whole, ["candidate_id", "generation"], path, "every result file has")
             if whole is None or from_parts["generation"].max() > whole["generation"].max():
                 return from_parts
         if whole is not None:
@@ -180,11 +208,11 @@ class Run:
 
     @property
     def variable_names(self) -> list[str]:
-        return list(self.meta.get("problem", {}).get("variables", []))
+        return list((self.meta.get("problem") or {}).get("variables") or [])
 
     @property
     def objective_names(self) -> list[str]:
-        return list(self.meta.get("problem", {}).get("objectives", []))
+        return list((self.meta.get("problem") or {}).get("objectives") or [])
 
     @cached_property
     def config(self):
@@ -211,10 +239,23 @@ class Run:
                              str(self.run_dir / RUN_JSON), "template")
         from tiltopt.problems.templates import Template
 
-        return Template.from_dict(d, str(self.run_dir / RUN_JSON))
+        src = str(self.run_dir / RUN_JSON)
+        try:
+            tpl = Template.from_dict(d, src)
+        except InputError:
+            raise
+        except (KeyError, TypeError, ValueError, AttributeError) as exc:
+            raise InputError(f"the template record is damaged ({type(exc).__name__}: {exc}). Restore run.json, or "
+                             f"run again.", src, "template") from None
+        if tpl.names != self.variable_names:
+            raise InputError(f"the template's variables ({', '.join(tpl.names)}) are not the problem's "
+                             f"({', '.join(self.variable_names) or 'none'}): run.json is damaged.", src, "template")
+        _require_columns(self.front, [f"var.{v}" for v in tpl.names], self.run_dir / FRONT, "the template names")
+        return tpl
 
     def _row(self, candidate_id: str) -> pd.Series:
-        for df in (self.front, self.evaluations):
+        for name in ("front", "evaluations"):   # evaluations are read only when the id is not on the front
+            df = getattr(self, name)
             hit = df.index[df["candidate_id"] == candidate_id] if "candidate_id" in df else []
             if len(hit):
                 return df.loc[hit[0]]
@@ -247,18 +288,19 @@ def load_run(run_dir: str | Path) -> Run:
     """
     d = Path(run_dir)
     if not d.is_dir():
-        raise InputError("expected a run folder (results/<run-id>/). It does not exist.", str(d))
+        raise InputError("expected a run folder (results/<run-id>/). " + ("This is not a folder." if d.exists() else
+                                                                          "It does not exist."), str(d))
     rj = d / RUN_JSON
     if not rj.is_file():
         raise InputError("expected a run folder with run.json; none found. Is this a results/<run-id>/ folder?", str(d))
-    try:
-        meta = json.loads(rj.read_text(encoding="utf-8"))
-    except (OSError, json.JSONDecodeError) as exc:
-        raise InputError(f"cannot read run.json ({exc}).", str(rj)) from None
+    meta = read_run_json(rj)
     units: dict = {}
     if (d / FRONT).is_file():
         front, fm = read_parquet(d / FRONT)
         units.update(fm.get("units", {}))
+        problem = meta.get("problem") or {}
+        _require_columns(front, ["candidate_id"] + [f"obj.{o}" for o in problem.get("objectives") or []]
+                         + [f"var.{v}" for v in problem.get("variables") or []], d / FRONT, "run.json names")
     elif meta.get("status") in ("running", "interrupted", "failed"):
         front = pd.DataFrame({"candidate_id": pd.Series(dtype=str)})
     else:
@@ -266,3 +308,42 @@ def load_run(run_dir: str | Path) -> Run:
     gens = read_parquet(d / GENERATIONS)[0] if (d / GENERATIONS).is_file() else pd.DataFrame()
     return Run(run_dir=d, run_id=str(meta.get("run_id", d.name)), meta=meta, front=front, generations=gens,
                units=units)
+
+
+#: run.json keys the readers use, with the JSON type each must have when present
+_META_TYPES = {"format": str, "run_id": str, "status": str, "problem": dict, "template": dict, "config": dict,
+               "config_base_dir": str, "config_sha256": str, "inputs": list, "seed": int, "sources": list,
+               "envelope": dict, "timings": dict}
+
+
+_JSON_NAMES = {dict: "object", list: "array", str: "string", int: "integer", float: "number", bool: "boolean"}
+
+
+def read_run_json(path: Path) -> dict:
+    """A run's ``run.json`` (a run or a merge), checked to be the record the readers expect.
+
+    Raises
+    ------
+    InputError
+        Naming the file (and key) when it is unreadable, not JSON, not a JSON object, or a key the
+        readers use has the wrong type.
+    """
+    src = str(path)
+    try:
+        meta = json.loads(read_text(path, "run.json"))
+    except InputError:
+        raise
+    except (ValueError, RecursionError) as exc:
+        raise InputError(f"run.json is not valid JSON ({exc}). Restore it, or run again.", src) from None
+    if not isinstance(meta, dict):
+        raise InputError(f"expected a JSON object (the run's record). Got a JSON {_JSON_NAMES.get(type(meta), 'value')} "
+                         f"instead.", src)
+    for key, kind in _META_TYPES.items():
+        v = meta.get(key)
+        if v is not None and (not isinstance(v, kind) or isinstance(v, bool)):
+            raise InputError(f"expected a JSON {_JSON_NAMES[kind]}. Got {v!r:.80} instead.", src, key)
+    for key in ("variables", "objectives", "constraints"):
+        v = (meta.get("problem") or {}).get(key)
+        if v is not None and not (isinstance(v, list) and all(isinstance(x, str) for x in v)):
+            raise InputError(f"expected a list of names. Got {v!r:.80} instead.", src, f"problem.{key}")
+    return meta

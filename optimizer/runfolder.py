@@ -140,12 +140,12 @@ class FolderLock:
 
 # ------------------------------------------------------------------ what tiltopt wrote
 def read_meta(d: Path) -> dict | None:
-    """run.json as a dict, or None when it is missing or unreadable."""
+    """run.json as a dict (:func:`~tiltopt.optimizer.results.read_run_json`), or None when it is missing,
+    unreadable or damaged."""
     try:
-        m = json.loads((Path(d) / R.RUN_JSON).read_text(encoding="utf-8"))
-    except (OSError, ValueError):
+        return R.read_run_json(Path(d) / R.RUN_JSON)
+    except InputError:
         return None
-    return m if isinstance(m, dict) else None
 
 
 def _is_temp(name: str) -> bool:

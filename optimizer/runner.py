@@ -729,9 +729,10 @@ def resume_run(run_dir: str | Path, progress: bool = True, stop_after: int | Non
     d = Path(run_dir)
     if not d.is_dir():
         raise InputError("expected a run folder (results/<run-id>/). It does not exist.", str(d))
-    meta = RF.read_meta(d)
-    if meta is None:
-        raise InputError("expected a run folder with a readable run.json; none found.", str(d))
+    if not (d / R.RUN_JSON).is_file():
+        raise InputError("expected a run folder with run.json; none found. Is this a results/<run-id>/ folder?",
+                         str(d))
+    meta = R.read_run_json(d / R.RUN_JSON)      # a damaged one is a message naming what is wrong
     if str(meta.get("format", "")).startswith("tiltopt-merge-"):
         raise InputError("this folder holds a merged front (tiltopt merge), not a run: there is nothing to resume.",
                          str(d))

@@ -55,6 +55,8 @@ import numpy as np
 
 from tiltopt.base import inputs
 from tiltopt.base.errors import InputError, check_keys
+from tiltopt.base.limits import (MAX_ABS_LEAN_DEG, MAX_LEAN_LIMIT_DEG, MAX_RANGE_VALUES, MAX_STATES, MAX_TRAVEL_MM,
+                                 check_count)
 from tiltopt.kinematics.mechanism import load_mechanism
 
 from .registry import CLEARANCE, CONSTRAINTS, OBJECTIVES, SIZING, TEMPLATES
@@ -161,14 +163,14 @@ _keys = check_keys
 
 
 def _num(v: Any, src: str, key: str, *, lo: float | None = None, lo_open: bool = False,
-         hi: float | None = None) -> float:
+         hi: float | None = None, hi_open: bool = False) -> float:
     if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
         raise InputError(f"expected a finite number. Got {v!r} instead.", src, key)
     v = float(v)
     if lo is not None and (v < lo or (lo_open and v == lo)):
         raise InputError(f"must be {'greater than' if lo_open else 'at least'} {lo:g}. Got {v:g} instead.", src, key)
-    if hi is not None and v > hi:
-        raise InputError(f"must be at most {hi:g}. Got {v:g} instead.", src, key)
+    if hi is not None and (v > hi or (hi_open and v == hi)):
+        raise InputError(f"must be {'less than' if hi_open else 'at most'} {hi:g}. Got {v:g} instead.", src, key)
     return v
 
 
@@ -231,18 +233,22 @@ def _parse_envelope(e: Any, src: str, template: Template, default_limit: float) 
     if not isinstance(both, bool):
         raise InputError(f"expected true or false. Got {both!r} instead.", src, "envelope.both_sides")
     limit = _num(e.get("lean_limit_deg", default_limit), src, "envelope.lean_limit_deg", lo=0.0, lo_open=True,
-                 hi=60.0)
+                 hi=MAX_LEAN_LIMIT_DEG)
     step = _num(e.get("lean_step_deg", DEFAULT_LEAN_STEP_DEG), src, "envelope.lean_step_deg", lo=0.0, lo_open=True)
     if step > limit:
         raise InputError(f"lean_step_deg ({step:g}) must not exceed lean_limit_deg ({limit:g}).", src,
                          "envelope.lean_step_deg")
+    n_lean = check_count(limit / step + 2, MAX_RANGE_VALUES, f"leans (0 to {limit:g} deg by {step:g})",
+                         "Use a larger lean_step_deg.", src, "envelope.lean_step_deg")
     sprung = bool(template.mechanism.springs)
     if "travel_mm" in e:
         tr = e["travel_mm"]
         if not isinstance(tr, list) or not tr:
             raise InputError(f"expected a list of travels in mm, e.g. [-30.0, 0.0, 30.0]. Got {tr!r}.", src,
                              "envelope.travel_mm")
-        travel = np.array([_num(v, src, f"envelope.travel_mm[{i}]", lo=-200.0, hi=200.0) for i, v in enumerate(tr)])
+        check_count(len(tr), MAX_RANGE_VALUES, "travels", "Give fewer travel_mm values.", src, "envelope.travel_mm")
+        travel = np.array([_num(v, src, f"envelope.travel_mm[{i}]", lo=-MAX_TRAVEL_MM, hi=MAX_TRAVEL_MM)
+                           for i, v in enumerate(tr)])
         if len(set(travel.tolist())) != len(travel):
             raise InputError("travel values must be distinct.", src, "envelope.travel_mm")
         if not sprung and np.any(travel != 0.0):
@@ -258,11 +264,14 @@ def _parse_envelope(e: Any, src: str, template: Template, default_limit: float) 
         if not (isinstance(ld, list) and isinstance(ms, list) and ld and len(ld) == len(ms)):
             raise InputError("lean_deg and max_steer_deg must be lists of the same, non-zero length.", src,
                              "envelope.steer")
-        ld = [_num(v, src, f"envelope.steer.lean_deg[{i}]", lo=0.0) for i, v in enumerate(ld)]
+        ld = [_num(v, src, f"envelope.steer.lean_deg[{i}]", lo=0.0, hi=MAX_ABS_LEAN_DEG, hi_open=True)
+              for i, v in enumerate(ld)]
         ms = [_num(v, src, f"envelope.steer.max_steer_deg[{i}]", lo=0.0, hi=80.0) for i, v in enumerate(ms)]
         if any(b <= a for a, b in zip(ld, ld[1:])):
             raise InputError(f"lean_deg rows must be strictly ascending. Got {ld}.", src, "envelope.steer.lean_deg")
         steer = tuple(zip(ld, ms))
+    check_count(n_lean * (2 if both else 1) * len(travel), MAX_STATES, "lean x travel states per candidate",
+                "Use a larger lean_step_deg or fewer travel_mm values.", src, "envelope")
     leans = lean_grid(limit, step)
     if both:
         leans = np.concatenate([-leans[:0:-1], leans])

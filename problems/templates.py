@@ -39,14 +39,14 @@ from __future__ import annotations
 
 import math
 import re
-import tomllib
 from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Callable, Iterable, Mapping, Sequence
 
 import numpy as np
 
-from tiltopt.base.errors import InputError, read_toml
+from tiltopt.base.errors import InputError, decode_toml, read_toml
+from tiltopt.base.limits import MAX_COORD_MM
 from tiltopt.base.resources import config_path
 from tiltopt.kinematics.mechanism import Mechanism, load_mechanism, mechanism_to_toml, parse_mechanism, split_ref
 from tiltopt.kinematics.model import Geometry, Model
@@ -145,14 +145,20 @@ class Template:
         self.source = source
         self.model = Model(mechanism)
         names = [v.name for v in self.variables]
+        for n in names:
+            if not isinstance(n, str) or not n.isidentifier():
+                raise InputError(f"design variable names are letters, digits and '_'. Got {n!r} instead.", source,
+                                 "template.variables")
         if len(set(names)) != len(names):
             dup = sorted({n for n in names if names.count(n) > 1})
             raise InputError(f"design variable names must be unique. Repeated: {', '.join(dup)}.", source,
                              "template.variables")
         for v in self.variables:
-            if not (math.isfinite(v.lower) and math.isfinite(v.upper) and v.lower < v.upper):
-                raise InputError(f"the bounds of design variable '{v.name}' must be finite with lower < upper. "
-                                 f"Got [{v.lower}, {v.upper}] instead.", source, f"template.bounds.{v.name}")
+            if not (math.isfinite(v.lower) and math.isfinite(v.upper) and v.lower < v.upper
+                    and max(abs(v.lower), abs(v.upper), abs(v.default)) <= MAX_COORD_MM):
+                raise InputError(f"the bounds of design variable '{v.name}' must be finite with lower < upper, within "
+                                 f"+-{MAX_COORD_MM:g} {v.unit}. Got [{v.lower}, {v.upper}] instead.", source,
+                                 f"template.bounds.{v.name}")
         self._compile()
 
     # ------------------------------------------------------------ compile
@@ -427,8 +433,10 @@ class Template:
             if name not in known:
                 raise InputError(f"unknown design variable '{name}' of template '{self.name}'. "
                                  f"Variables: {', '.join(known)}.", src, f"template.fixed.{name}")
-            if isinstance(val, bool) or not isinstance(val, (int, float)) or not math.isfinite(val):
-                raise InputError(f"expected a finite number. Got {val!r} instead.", src, f"template.fixed.{name}")
+            if isinstance(val, bool) or not isinstance(val, (int, float)) or not math.isfinite(val) \
+                    or abs(val) > MAX_COORD_MM:
+                raise InputError(f"expected a finite number within +-{MAX_COORD_MM:g}. Got {val!r} instead.", src,
+                                 f"template.fixed.{name}")
         active = [n for n in known if n not in fixed] if active is None else list(active)
         for name in active:
             if name not in known:
@@ -445,6 +453,10 @@ class Template:
         for k, name in enumerate(known):
             if name in fixed:
                 x[k] = float(fixed[name])
+        ok, reason = self.check_geometry(self.geometry(x[None]))
+        if not ok[0]:   # the held values make the base mechanism itself impossible
+            raise InputError(f"these fixed values give no valid mechanism ({reason[0]}). Change them.", src,
+                             "template.fixed")
         base = self.mechanism_for(x)
         base = replace(base, description=self.mechanism.description, name=self.mechanism.name)
         vars_ = [self.variable(n) for n in active]
@@ -462,7 +474,7 @@ class Template:
         if d.get("format") != TEMPLATE_FORMAT:
             raise InputError(f"expected a template dict of format {TEMPLATE_FORMAT!r}. Got {d.get('format')!r}.",
                              src, "format")
-        mech = parse_mechanism(tomllib.loads(d["mechanism_toml"]), src)
+        mech = parse_mechanism(decode_toml(d["mechanism_toml"], src), src)
         return cls(d["name"], mech, [DesignVariable.from_dict(v) for v in d["variables"]],
                    d.get("description", ""), src)
 

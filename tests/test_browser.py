@@ -24,11 +24,35 @@ def _chromium() -> str | None:
 
 
 @pytest.fixture(scope="module")
-def page(tmp_path_factory):
+def browser():
     sync_api = pytest.importorskip("playwright.sync_api", reason="the playwright package is not installed")
     exe = _chromium()
     if exe is None:
         pytest.skip("no Chromium binary (install the Debian package 'chromium'); browser tests skipped")
+    with sync_api.sync_playwright() as p:
+        try:
+            b = p.chromium.launch(executable_path=exe, args=ARGS)
+        except Exception as exc:  # a browser that cannot start here is "no browser to be had"
+            pytest.skip(f"Chromium at {exe} does not start: {exc}")
+        yield b
+        b.close()
+
+
+def _open(browser, path):
+    """A new page on ``path`` with its console errors and requests collected, the plot drawn."""
+    pg = browser.new_page(viewport={"width": 1400, "height": 900})
+    errors, requests = [], []
+    pg.on("console", lambda m: errors.append(m.text) if m.type == "error" else None)
+    pg.on("pageerror", lambda e: errors.append(str(e)))
+    pg.on("request", lambda r: requests.append(r.url))
+    pg.goto(path.as_uri())
+    pg.wait_for_function("window.tiltoptExplorer !== undefined")
+    pg.wait_for_selector("#matrix .main-svg")
+    return pg, errors, requests
+
+
+@pytest.fixture(scope="module")
+def page(browser, tmp_path_factory):
     from tiltopt.reports.explorer import write_explorer
 
     folder = tmp_path_factory.mktemp("page")
@@ -48,22 +72,9 @@ def page(tmp_path_factory):
         sheet_dir = "results/fixture-a"
     front = front.reset_index(drop=True)
     front.attrs["sheet_dir"] = sheet_dir
-    with sync_api.sync_playwright() as p:
-        try:
-            browser = p.chromium.launch(executable_path=exe, args=ARGS)
-        except Exception as exc:  # a browser that cannot start here is "no browser to be had"
-            pytest.skip(f"Chromium at {exe} does not start: {exc}")
-        pg = browser.new_page(viewport={"width": 1400, "height": 900})
-        errors = []
-        pg.on("console", lambda m: errors.append(m.text) if m.type == "error" else None)
-        pg.on("pageerror", lambda e: errors.append(str(e)))
-        requests = []
-        pg.on("request", lambda r: requests.append(r.url))
-        pg.goto(path.as_uri())
-        pg.wait_for_function("window.tiltoptExplorer !== undefined")
-        pg.wait_for_selector("#matrix .main-svg")
-        yield pg, errors, requests, front
-        browser.close()
+    pg, errors, requests = _open(browser, path)
+    yield pg, errors, requests, front
+    pg.close()
 
 
 def test_loads_without_errors_or_network(page):
@@ -182,3 +193,65 @@ def test_sheet_prints_within_the_paper_width(page, tmp_path, paper, width_mm):
         assert w_pt == pytest.approx(width_mm / 25.4 * 72.0, abs=1.0)   # 72 pt per inch (PDF 1.7, 8.3.2.3)
     finally:
         sheet.close()
+
+
+# the page pixel of the most isolated feasible design of the plot, and its row: (x, y, row)
+_ISOLATED_POINT = """() => {
+    const gd = document.getElementById('matrix');
+    const E = window.tiltoptExplorer;
+    const k0 = gd._fullData.findIndex((t) => E.traceRows[t.index] && t.name === 'designs');
+    const t = gd._fullData[k0];
+    const r = gd.getBoundingClientRect();
+    let xa, ya, xs, ys;
+    if (t.type === 'splom') {
+        xa = gd._fullLayout[t.xaxes[0].replace('x', 'xaxis')];
+        ya = gd._fullLayout[t.yaxes[1].replace('y', 'yaxis')];
+        xs = t.dimensions[0].values; ys = t.dimensions[1].values;
+    } else {
+        xa = gd._fullLayout.xaxis;
+        ya = gd._fullLayout[t.yaxis.replace('y', 'yaxis')];
+        xs = t.x; ys = t.y;
+    }
+    const px = xs.map((v, k) => [r.left + xa._offset + xa.l2p(v), r.top + ya._offset + ya.l2p(ys[k])]);
+    let best = -1, far = -1;
+    px.forEach((p, k) => {
+        let near = Infinity;
+        px.forEach((q, j) => { if (j !== k) near = Math.min(near, Math.hypot(p[0] - q[0], p[1] - q[1])); });
+        if (near > far) { far = near; best = k; }
+    });
+    return [px[best][0], px[best][1], E.traceRows[k0][best]];
+}"""
+
+
+@pytest.mark.parametrize("n_obj, kinds", [(1, ["histogram", "scatter"]), (2, ["scatter"]), (3, ["splom"])])
+def test_fronts_of_one_two_and_more_objectives_draw_without_errors(browser, tmp_path, n_obj, kinds):
+    """One objective: a strip of the designs under their histogram; two: one scatter plot (plotly's scatter
+    matrix fails on a single panel, and the page stayed blank); three or more: the matrix. Each draws every
+    feasible front design, opens a design on a click and draws parallel coordinates, with no console error."""
+    import dataclasses
+
+    from tiltopt.reports.explorer import write_explorer
+
+    run, mechs, front, res = fixture_run()
+    drop = [c for c in front.columns if c.startswith("obj.")][n_obj:]
+    run = dataclasses.replace(run, front=front.drop(columns=drop), evaluations=run.evaluations.drop(columns=drop))
+    pg, errors, requests = _open(browser, write_explorer(tmp_path / "explorer.html", [run]))
+    try:
+        types = pg.evaluate("document.getElementById('matrix')._fullData.map((t) => t.type)")
+        assert types[:len(kinds)] == kinds
+        n_feasible = int(front["feasible"].astype(bool).sum())
+        drawn = pg.evaluate("document.getElementById('matrix')._fullData.find((t) => t.name === 'designs')")
+        values = drawn["x"] if drawn["type"] == "scatter" else drawn["dimensions"][0]["values"]
+        assert len([v for v in values if v is not None]) == n_feasible
+        x, y, row = pg.evaluate(_ISOLATED_POINT)
+        pg.mouse.move(x, y)
+        pg.wait_for_timeout(200)
+        pg.mouse.click(x, y)
+        pg.wait_for_selector("#detail:not([hidden])", timeout=5000)
+        assert pg.locator("#detail-id").inner_text() == pg.evaluate(f"window.tiltoptExplorer.data.ids[{row}]")
+        pg.locator("#view-parallel").click()
+        pg.wait_for_selector("#parallel .main-svg")
+        assert pg.evaluate("document.getElementById('parallel')._fullData[0].dimensions.length") == n_obj
+        assert errors == []
+    finally:
+        pg.close()

@@ -33,33 +33,66 @@ class InputError(ValueError):
         super().__init__(prefix + message)
 
 
-def read_text(path, what: str) -> str:
+def read_text(path, what: str, limit: int | None = None) -> str:
     """Read a user's text file, turning every failure into an :class:`InputError`.
 
-    ``what`` names the kind of file in the message ("mechanism .toml").
+    ``what`` names the kind of file in the message ("mechanism .toml"). Only regular files are read
+    (a device such as /dev/zero or a named pipe would never end), at most ``limit`` bytes (default
+    :data:`tiltopt.base.limits.MAX_FILE_BYTES`); a UTF-8 byte-order mark at the start is dropped.
     """
+    import os
+    import stat
     from pathlib import Path
 
+    from .limits import MAX_FILE_BYTES
+
+    limit = MAX_FILE_BYTES if limit is None else limit
     p = Path(path)
     try:
-        return p.read_text(encoding="utf-8")
+        mode = p.stat().st_mode
     except FileNotFoundError:
         raise InputError(f"file not found. Give the path of a {what} file.", str(p)) from None
-    except IsADirectoryError:
-        raise InputError(f"this is a folder. Give the path of a {what} file.", str(p)) from None
-    except (OSError, UnicodeDecodeError) as exc:
+    except OSError as exc:
         raise InputError(f"cannot read the file ({exc}).", str(p)) from None
+    if stat.S_ISDIR(mode):
+        raise InputError(f"this is a folder. Give the path of a {what} file.", str(p))
+    try:
+        # non-blocking: a pipe swapped in after the check above must not hang the open
+        fd = os.open(p, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+        with os.fdopen(fd, "rb") as fh:
+            st = os.fstat(fh.fileno())
+            if not stat.S_ISREG(st.st_mode):
+                raise InputError(f"not a regular file (a device, pipe or socket). Give the path of a {what} "
+                                 f"file.", str(p))
+            data = fh.read(limit + 1) if st.st_size <= limit else b""
+    except InputError:
+        raise
+    except OSError as exc:
+        raise InputError(f"cannot read the file ({exc}).", str(p)) from None
+    if st.st_size > limit or len(data) > limit:
+        raise InputError(f"the file is larger than the limit of {limit / 2 ** 20:g} MiB for a {what} file.", str(p))
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise InputError(f"cannot read the file: it is not UTF-8 text ({exc}).", str(p)) from None
+    return text[1:] if text.startswith("\ufeff") else text
 
 
 def read_toml(path, what: str) -> dict:
     """Read and decode a user's TOML file (see :func:`read_text`)."""
+    return decode_toml(read_text(path, what), str(path))
+
+
+def decode_toml(text: str, source: str) -> dict:
+    """TOML text as a dict; bad TOML (or TOML nested too deeply to decode) is an :class:`InputError`."""
     import tomllib
 
-    text = read_text(path, what)
     try:
         return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
-        raise InputError(f"not valid TOML ({exc}).", str(path)) from None
+        raise InputError(f"not valid TOML ({exc}).", source) from None
+    except RecursionError:
+        raise InputError("not a usable TOML file: its arrays or tables are nested too deeply.", source) from None
 
 
 def check_keys(table, allowed, src: str, where: str, required=()) -> None:

@@ -8,7 +8,8 @@ import click
 from tiltopt.base.errors import InputError
 from tiltopt.kinematics.mechanism import load_mechanism
 from tiltopt.kinematics.model import Model
-from tiltopt.base.units import parse_values
+from tiltopt.base.limits import MAX_CLEARANCE_SAMPLES, MAX_CROWN_SAMPLES, MAX_STEER_SAMPLES, check_count
+from tiltopt.base.units import parse_states
 
 from ..cli import main
 from ..output import flatten, table, to_csv, to_json
@@ -31,10 +32,9 @@ def clearance_run(mech_path: str, shell_path: str, lean: str, travel: str, crown
     from tiltopt.kinematics.shell import load_shell
     from tiltopt.kinematics.sweep import sweep
 
+    leans, travels = parse_states(lean, travel)
     mech = load_mechanism(mech_path)
     shell = load_shell(shell_path)
-    leans = parse_values(lean, "--lean", "deg")
-    travels = parse_values(travel, "--travel", "mm")
     kw = {}
     if crown_samples is not None:
         kw["crown_samples"] = crown_samples
@@ -44,6 +44,11 @@ def clearance_run(mech_path: str, shell_path: str, lean: str, travel: str, crown
         settings = ClearanceSettings(**kw)
     except ValueError as exc:
         raise InputError(f"{exc}.", key="--crown-samples / --steer-samples") from None
+    n_steer = settings.steer_samples if mech.steer_envelope else 1
+    check_count(len(leans) * len(travels) * 2 * n_steer * settings.crown_samples, MAX_CLEARANCE_SAMPLES,
+                f"tyre samples (states {len(leans) * len(travels)} x 2 wheels x steer {n_steer} x crown "
+                f"{settings.crown_samples})", "Use fewer states or fewer --crown-samples / --steer-samples.",
+                key="--crown-samples / --steer-samples")
     model = Model(mech)
     res = sweep(model, lean_deg=leans, travel_mm=travels)
     return mech, shell, evaluate_clearance(model, None, res, shell, settings)
@@ -55,9 +60,9 @@ def clearance_run(mech_path: str, shell_path: str, lean: str, travel: str, crown
               help="Body shell: .toml (superellipse stations) or .csv (polygon sections x_mm,y_mm,z_mm).")
 @click.option("--lean", default="0:40:5", show_default=True, help="Leans, deg: start:stop:step or a,b,c.")
 @click.option("--travel", default="0", show_default=True, help="Travels, mm (bump positive): start:stop:step or a,b,c.")
-@click.option("--crown-samples", type=int, default=None,
+@click.option("--crown-samples", type=click.IntRange(4, MAX_CROWN_SAMPLES), default=None,
               help="Coarse samples round each tyre's crown circle (default 24). More = slower, tighter error bound.")
-@click.option("--steer-samples", type=int, default=None,
+@click.option("--steer-samples", type=click.IntRange(1, MAX_STEER_SAMPLES), default=None,
               help="Coarse steer samples across the steer range (default 3).")
 @click.option("--format", "fmt", type=click.Choice(["table", "json", "csv"]), default="table", show_default=True)
 def clearance_cmd(mech, shell_path, lean, travel, crown_samples, steer_samples, fmt):

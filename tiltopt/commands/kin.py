@@ -8,7 +8,7 @@ from tiltopt.base.errors import read_toml
 from tiltopt.base.safety import SAFETY_CAUTION
 from tiltopt.kinematics.mechanism import load_mechanism
 from tiltopt.kinematics.model import Model
-from tiltopt.base.units import parse_values
+from tiltopt.base.units import parse_states
 
 from ..cli import main
 from ..output import table, to_csv, to_json
@@ -24,9 +24,8 @@ SWEEP_COLUMNS = [
 def sweep_rows(mech_path: str, lean: str, travel: str):
     from tiltopt.kinematics.sweep import sweep
 
+    leans, travels = parse_states(lean, travel)
     mech = load_mechanism(mech_path)
-    leans = parse_values(lean, "--lean", "deg")
-    travels = parse_values(travel, "--travel", "mm")
     model = Model(mech)
     res = sweep(model, lean_deg=leans, travel_mm=travels)
     return mech, model, res

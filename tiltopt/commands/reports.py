@@ -11,18 +11,11 @@ from pathlib import Path
 import click
 
 from tiltopt.base.errors import InputError
+from tiltopt.base.limits import MAX_FORCE_N, MAX_LEAN_LIMIT_DEG, MAX_STATES, MAX_TRAVEL_MM, check_count
+from tiltopt.base.units import parse_number, parse_point, parse_travels
 
 from ..cli import main
-
-
-def _pair(text: str, option: str) -> tuple[float, float]:
-    try:
-        parts = [float(p) for p in str(text).split(",")]
-        if len(parts) != 2:
-            raise ValueError
-        return parts[0], parts[1]
-    except ValueError:
-        raise InputError(f"expected two numbers 'Y,Z' in mm (for example 0,150). Got {text!r}.", key=option) from None
+from . import output_path
 
 
 class _PageHandler(http.server.BaseHTTPRequestHandler):
@@ -115,10 +108,11 @@ def serve(path: Path, port: int = 0, open_browser: bool = True):
 
 @main.command("explore")
 @click.argument("run_dirs", nargs=-1, required=True, type=click.Path(file_okay=False))
-@click.option("-o", "--output", type=click.Path(dir_okay=False), default=None,
+@click.option("-o", "--output", type=click.Path(dir_okay=False), default=None, callback=output_path,
               help="Page to write [default: explorer.html in the first run folder].")
 @click.option("--serve", "do_serve", is_flag=True, help="Serve the page on 127.0.0.1 and open it.")
-@click.option("--port", type=int, default=0, show_default=True, help="Port for --serve (0 = any free port).")
+@click.option("--port", type=click.IntRange(0, 65535), default=0, show_default=True,
+              help="Port for --serve, 0 to 65535 (0 = any free port).")
 @click.option("--detail-limit", type=click.IntRange(1, 5000), default=800, show_default=True,
               help="Front designs per run whose drawings and curves are precomputed.")
 @click.option("--plotly-beside", is_flag=True, help="Write plotly.min.js next to the page instead of inside it.")
@@ -140,18 +134,21 @@ def explore_cmd(run_dirs, output, do_serve, port, detail_limit, plotly_beside, a
 @main.command("sheet")
 @click.argument("source", type=click.Path())
 @click.option("--candidate", "candidate", default=None, help="Candidate id (see the explorer). Needed for a run folder.")
-@click.option("-o", "--output", type=click.Path(file_okay=False), default=None,
+@click.option("-o", "--output", type=click.Path(file_okay=False), default=None, callback=output_path,
               help="Folder to write [default: RUN_DIR/sheets/ID, or next to a mechanism file].")
 @click.option("--jig-datum", default="0,0", show_default=True,
               help="Jig datum 'Y,Z' in mm, chassis datum frame; the pivot table also gives coordinates from it.")
-@click.option("--sag-mm", type=float, default=None, help="Static sag for the suggested spring rate [default: 30% of the bump travel].")
+@click.option("--sag-mm", type=float, default=None,
+              help="Static sag for the suggested spring rate, mm, > 0 [default: 30% of the bump travel].")
 @click.option("--corner-load-n", type=float, default=None,
-              help="Static vertical load per front wheel, N, for the suggested spring rate [default: from the loads].")
+              help="Static vertical load per front wheel, N, > 0, for the suggested spring rate [default: from the "
+                   "loads].")
 @click.option("--loads", "loads_file", type=click.Path(dir_okay=False), default=None,
               help="Loads file (vehicle, load cases) for member sizing and tilt-lock torque [default: the run's].")
 @click.option("--shell", "shell_file", type=click.Path(dir_okay=False), default=None,
               help="Body shell file for the shell section and clearances [default: the run's].")
-@click.option("--lean-limit", type=float, default=30.0, show_default=True, help="Mechanism file only: lean limit, deg.")
+@click.option("--lean-limit", type=float, default=30.0, show_default=True,
+              help="Mechanism file only: lean limit, deg (0 < limit <= 60).")
 @click.option("--travel", default="-30,0,30", show_default=True, help="Mechanism file only: travels, mm.")
 @click.option("--allow-changed-inputs", is_flag=True,
               help="Run folder only: go on when the run's shell, loads or mechanism file changed since it ran "
@@ -162,7 +159,9 @@ def sheet_cmd(source, candidate, output, jig_datum, sag_mm, corner_load_n, loads
 
     SOURCE is a results folder (with --candidate ID) or a mechanism .toml file.
     """
-    jig = _pair(jig_datum, "--jig-datum")
+    jig = parse_point(jig_datum, "--jig-datum")
+    sag_mm = parse_number(sag_mm, "--sag-mm", "mm", lo=0.0, lo_open=True, hi=MAX_TRAVEL_MM)
+    corner_load_n = parse_number(corner_load_n, "--corner-load-n", "N", lo=0.0, lo_open=True, hi=MAX_FORCE_N)
     src = Path(source)
     extra = {}
     if loads_file:
@@ -173,17 +172,21 @@ def sheet_cmd(source, candidate, output, jig_datum, sag_mm, corner_load_n, loads
         from tiltopt.kinematics.shell import load_shell
 
         extra["shell"] = load_shell(shell_file)
-    if src.is_file():
+    if src.exists() and not src.is_dir():   # a file (a device or pipe is refused by the reader)
         from tiltopt.kinematics.mechanism import load_mechanism
-        from tiltopt.base.units import parse_values
 
+        from ..reports.analysis import lean_grid
         from ..reports.sheet import SheetInputs, write_sheet
 
+        lean_limit = parse_number(lean_limit, "--lean-limit", "deg", lo=0.0, lo_open=True, hi=MAX_LEAN_LIMIT_DEG)
+        travels = parse_travels(travel)
+        check_count(len(travels) * len(lean_grid(lean_limit)), MAX_STATES, "lean x travel states of the sheet",
+                    "Give fewer --travel values.", key="--travel")
         mech = load_mechanism(src)
         out = Path(output) if output else src.with_name(src.stem + "_sheet")
         paths = write_sheet(out, SheetInputs(
             mech=mech, candidate_id=mech.name, lean_limit_deg=lean_limit,
-            travel_mm=[float(t) for t in parse_values(travel, "--travel", "mm")], jig_datum=jig, sag_mm=sag_mm,
+            travel_mm=[float(t) for t in travels], jig_datum=jig, sag_mm=sag_mm,
             corner_load_n=corner_load_n, provenance={"config": str(src)}, **extra,
             command=f"tiltopt sheet {src} --lean-limit {lean_limit:g} --travel {travel}"))
     else:

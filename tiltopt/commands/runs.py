@@ -6,8 +6,10 @@ from pathlib import Path
 import click
 
 from tiltopt.base.errors import InputError
+from tiltopt.base.limits import BATCH_CONFIRM_RUNS
 
 from ..cli import main
+from . import output_path
 
 
 def _caution():
@@ -29,7 +31,7 @@ def _report_outcome(o):
 @click.argument("config", required=False, type=click.Path(dir_okay=False))
 @click.option("--resume", "resume", type=click.Path(file_okay=False), default=None,
               help="Continue the run in this folder from its checkpoint.")
-@click.option("--output", type=click.Path(file_okay=False), default=None,
+@click.option("--output", type=click.Path(file_okay=False), default=None, callback=output_path,
               help="Folder for the run folder (default: the config's [run] output).")
 @click.option("--run-id", default=None, help="Name of the run folder (default: <name>-s<seed>).")
 @click.option("--overwrite", is_flag=True, help="Replace an existing run folder of the same id.")
@@ -67,14 +69,14 @@ def run_cmd(config, resume, output, run_id, overwrite, quiet, allow_changed_inpu
 @click.option("--rerun-changed", is_flag=True,
               help="Start again the runs whose resolved config or input files differ from those in their folders "
                    "(their old results are replaced); without it such a batch is refused.")
-def batch_cmd(batch_file, workers, scheduler, rerun_changed):
+@click.option("--yes", is_flag=True, help=f"Start a batch of more than {BATCH_CONFIRM_RUNS:,} runs.")
+def batch_cmd(batch_file, workers, scheduler, rerun_changed, yes):
     """Run many configs / seeds / grid points; finished runs of the same config are kept on restart."""
     from tiltopt.optimizer.batch import SUMMARY, load_batch, run_dask, run_local, scheduler_address
 
-    b = load_batch(batch_file)
+    b = load_batch(batch_file, confirm_above=None if yes else BATCH_CONFIRM_RUNS)
     if scheduler:
         scheduler_address(scheduler)       # a clear message before anything else
-    if scheduler:
         df = run_dask(b, scheduler, echo=click.echo, rerun_changed=rerun_changed)
     else:
         df = run_local(b, workers=workers, echo=click.echo, rerun_changed=rerun_changed)
@@ -89,7 +91,7 @@ def batch_cmd(batch_file, workers, scheduler, rerun_changed):
 
 @main.command("merge")
 @click.argument("run_dirs", nargs=-1, required=True, type=click.Path(file_okay=False))
-@click.option("-o", "--output", "out", required=True, type=click.Path(file_okay=False),
+@click.option("-o", "--output", "out", required=True, type=click.Path(file_okay=False), callback=output_path,
               help="Folder for the merged front.parquet and run.json.")
 def merge_cmd(run_dirs, out):
     """Non-dominated union of several runs' fronts (same objectives)."""
@@ -102,7 +104,8 @@ def merge_cmd(run_dirs, out):
 
 @main.command("demo")
 @click.option("--config", type=click.Path(dir_okay=False), default=None, help="Another config instead of the demo.")
-@click.option("--output", type=click.Path(file_okay=False), default=None, help="Folder for the run folder (default: ./results).")
+@click.option("--output", type=click.Path(file_okay=False), default=None, callback=output_path,
+              help="Folder for the run folder (default: ./results).")
 @click.option("--quiet", is_flag=True, help="No progress line.")
 def demo_cmd(config, output, quiet):
     """Short optimisation of the Harbourline parcel trike demo config; prints where the results are."""
@@ -118,7 +121,7 @@ def demo_cmd(config, output, quiet):
 
 
 @main.command("examples")
-@click.argument("folder", type=click.Path(file_okay=False), default="tiltopt-examples")
+@click.argument("folder", type=click.Path(file_okay=False), default="tiltopt-examples", callback=output_path)
 def examples_cmd(folder):
     """Copy the built-in files (mechanisms, templates, shell, loads, demo config) into FOLDER.
 

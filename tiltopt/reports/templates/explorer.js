@@ -14,8 +14,11 @@
   const feasIdx = all.filter((i) => D.feasible[i]);
   const infIdx = all.filter((i) => !D.feasible[i]);
   const mergedIdx = all.filter((i) => D.merged[i]);
-  let dims = D.objectives.filter((k) => colLookup[k]);
-  if (dims.length < 2) dims = dims.concat(["generation"].filter((k) => colLookup[k] && !dims.includes(k)));
+  // Three or more objectives: a scatter-plot matrix of them. Two: one plain scatter plot (plotly's splom
+  // fails on a single panel). One: a strip of the designs along the objective, under their histogram.
+  const objDims = D.objectives.filter((k) => colLookup[k]);
+  const plotKind = objDims.length >= 3 ? "matrix" : (objDims.length === 2 ? "pair" : "strip");
+  const dims = plotKind === "strip" ? (objDims.length ? objDims : ["generation"].filter((k) => colLookup[k])) : objDims;
   const state = { colour: D.runs.length > 1 ? "__run" : (dims[0] || "__run"), view: "matrix", selected: -1,
                   lean: 0, travel: 0 };
 
@@ -84,7 +87,8 @@
   }
 
   // ------------------------------------------------------------ scatter matrix
-  const traceRows = [];
+  const traceRows = [];   // the design rows of each trace (null: a trace of no designs)
+  const curves = { designs: 0, infeasible: 1 };
   function splomTrace(idx, extra) {
     return Object.assign({
       type: "splom",
@@ -93,20 +97,38 @@
       diagonal: { visible: false }, showupperhalf: false,
     }, extra);
   }
+  // a fixed vertical spread for the strip (golden-ratio sequence of the row number): the same every redraw
+  const spread = (i) => 0.7 * ((i * 0.6180339887498949) % 1) - 0.35;
+  function pointTrace(idx, extra) {
+    if (plotKind === "matrix") return splomTrace(idx, extra);
+    const key = dims[0];
+    return Object.assign({
+      type: "scatter", mode: "markers", x: idx.map((i) => (key ? D.values[key][i] : i)),
+      y: idx.map((i) => (plotKind === "pair" ? D.values[dims[1]][i] : spread(i))),
+      text: idx.map(hoverText), hovertemplate: "%{text}<extra></extra>",
+    }, extra);
+  }
   function matrixTraces() {
     traceRows.length = 0;
     const t = [];
+    if (plotKind === "strip" && dims.length) {   // above the strip: how the feasible designs spread
+      t.push({ type: "histogram", x: feasIdx.map((i) => D.values[dims[0]][i]), yaxis: "y2", hoverinfo: "skip",
+               marker: { color: "rgba(13, 124, 134, 0.16)", line: { width: 1, color: "rgba(13, 124, 134, 0.45)" } } });
+      traceRows.push(null);
+    }
     const col = colourOf(feasIdx);
-    t.push(splomTrace(feasIdx, { name: "designs", marker: Object.assign({ size: feasIdx.length > 300 ? 5 : 7, line: { width: 0.4, color: "#ffffff" }, showscale: true }, col) }));
+    curves.designs = t.length;
+    t.push(pointTrace(feasIdx, { name: "designs", marker: Object.assign({ size: feasIdx.length > 300 ? 5 : 7, line: { width: 0.4, color: "#ffffff" }, showscale: true }, col) }));
     traceRows.push(feasIdx);
-    t.push(splomTrace(infIdx, { name: "infeasible", visible: $("show-infeasible").checked,
+    curves.infeasible = t.length;
+    t.push(pointTrace(infIdx, { name: "infeasible", visible: $("show-infeasible").checked,
                                  marker: { size: 5, color: GREY, opacity: 0.55 } }));
     traceRows.push(infIdx);
-    t.push(splomTrace(mergedIdx, { name: "merged front", visible: $("highlight-front").checked, hoverinfo: "skip",
+    t.push(pointTrace(mergedIdx, { name: "merged front", visible: $("highlight-front").checked, hoverinfo: "skip",
                                     hovertemplate: null, marker: { size: feasIdx.length > 300 ? 9 : 13, color: "rgba(0,0,0,0)", line: { width: 1.2, color: "#14325c" } } }));
     traceRows.push(mergedIdx);
     const s = state.selected >= 0 ? [state.selected] : [];
-    t.push(splomTrace(s, { name: "selected", hoverinfo: "skip", hovertemplate: null,
+    t.push(pointTrace(s, { name: "selected", hoverinfo: "skip", hovertemplate: null,
                            marker: { size: 18, symbol: "diamond-open", color: "#c8553d", line: { width: 2.5, color: "#c8553d" } } }));
     traceRows.push(s);
     return t;
@@ -121,6 +143,7 @@
   function matrixLayout() {
     const lay = { margin: { l: 70, r: 30, t: 20, b: 60 }, hovermode: "closest", dragmode: "select", showlegend: false,
                   paper_bgcolor: "#fbfaf7", plot_bgcolor: "#ffffff", font: { size: 12, color: "#1d2733" } };
+    if (plotKind !== "matrix") return plainLayout(lay);
     const n = dims.length;
     for (let k = 1; k <= n; k++) {
       const ax = { gridcolor: "#e6eaee", zeroline: false, automargin: true };
@@ -128,6 +151,26 @@
       if (r) { ax.range = r; ax.autorange = false; }
       lay[`xaxis${k === 1 ? "" : k}`] = Object.assign({}, ax);
       lay[`yaxis${k === 1 ? "" : k}`] = Object.assign({}, ax);
+    }
+    return lay;
+  }
+  function plainLayout(lay) {
+    const axis = (key) => {
+      const ax = { gridcolor: "#e6eaee", zeroline: false, automargin: true,
+                   title: { text: key ? withUnit(colLookup[key]) : "design" } };
+      const r = key ? axisRange(key) : null;
+      if (r) { ax.range = r; ax.autorange = false; }
+      return ax;
+    };
+    lay.dragmode = "zoom";
+    lay.xaxis = axis(dims[0]);
+    if (plotKind === "pair") {
+      lay.yaxis = axis(dims[1]);
+    } else {
+      lay.yaxis = { domain: [0, 0.6], range: [-0.5, 0.5], showticklabels: false, showgrid: false, zeroline: false,
+                    fixedrange: true, title: { text: "designs (spread to be seen)" } };
+      lay.yaxis2 = { domain: [0.68, 1], anchor: "x", rangemode: "tozero", gridcolor: "#e6eaee", zeroline: false,
+                     title: { text: "feasible designs" }, automargin: true };
     }
     return lay;
   }
@@ -147,11 +190,14 @@
     return n;
   }
   const nOff = offAxes();
+  if (plotKind !== "matrix") $("view-matrix").textContent = plotKind === "pair" ? "Scatter plot" : "Strip and histogram";
   const matrixDiv = $("matrix");
   Plotly.newPlot(matrixDiv, matrixTraces(), matrixLayout(), { responsive: true, displaylogo: false });
   matrixDiv.on("plotly_click", (ev) => {
     if (!ev || !ev.points || !ev.points.length) return;
-    const p = ev.points.find((q) => q.curveNumber <= 1) || ev.points[0];
+    const p = ev.points.find((q) => q.curveNumber === curves.designs || q.curveNumber === curves.infeasible) ||
+      ev.points.find((q) => traceRows[q.curveNumber]);
+    if (!p) return;
     const rows = traceRows[p.curveNumber];
     if (!rows || rows[p.pointIndex] === undefined) return;
     openDetail(rows[p.pointIndex]);

@@ -1,0 +1,571 @@
+"""Malformed and extreme inputs: every file reader and every option gives one message and exit 2.
+
+Three parts:
+
+- a table of bad files and option values run through the CLI (exit status 2, exactly one ``error:``
+  line naming what is wrong, no traceback, no hang: each case is stopped after 30 s);
+- every value of the built-in files (mechanisms, shell, loads, run configs, a batch, a template
+  variable file, a run's run.json) replaced in turn by a set of wrong and extreme values, read by its
+  parser: the only exception allowed is ``InputError``;
+- hypothesis over typed ranges: any text either gives values within the limits of
+  :mod:`tiltopt.base.limits` or an ``InputError``.
+
+Each limit is a design choice of the project (README "Limits"), not a number from a source.
+"""
+from __future__ import annotations
+
+import copy
+import json
+import math
+import os
+import re
+import shutil
+import signal
+import tomllib
+from pathlib import Path
+
+import numpy as np
+import pytest
+from click.testing import CliRunner
+from hypothesis import given, settings, strategies as st
+
+from tests.helpers import CONFIGS, toml_text
+from tiltopt.base import limits
+from tiltopt.base.errors import InputError
+from tiltopt.cli import main
+
+ERROR_LINE = re.compile(r"^(error|Error): ", re.M)
+
+
+# ------------------------------------------------------------------ helpers
+@pytest.fixture(autouse=True)
+def no_hang():
+    """A case that hangs (reading /dev/zero, a pipe, a huge range) fails after 30 s instead of blocking."""
+    def stop(signum, frame):
+        raise TimeoutError("the command did not return within 30 s")
+
+    old = signal.signal(signal.SIGALRM, stop)
+    signal.alarm(30)
+    yield
+    signal.alarm(0)
+    signal.signal(signal.SIGALRM, old)
+
+
+def run_cli(args, cwd=None):
+    r = CliRunner().invoke(main, [str(a) for a in args], catch_exceptions=True)
+    return r
+
+
+def assert_one_error(r, *fragments):
+    """Exit 2, exactly one error line, no traceback; the message holds each fragment."""
+    out = r.output
+    assert isinstance(r.exception, SystemExit) or r.exception is None, \
+        f"uncaught {type(r.exception).__name__}: {r.exception}\n{out}"
+    assert r.exit_code == 2, out
+    assert "Traceback" not in out, out
+    lines = ERROR_LINE.findall(out)
+    assert len(lines) == 1, out
+    for f in fragments:
+        assert f in out, (f, out)
+
+
+def _write(path: Path, text: str) -> Path:
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def _mech_text(**replace) -> str:
+    """The built-in wishbone-rocker mechanism with some lines replaced (``old line -> new line``)."""
+    text = (CONFIGS / "wishbone_rocker.toml").read_text(encoding="utf-8")
+    for old, new in replace.items():
+        assert old in text, old
+        text = text.replace(old, new, 1)
+    return text
+
+
+def _fifo(tmp_path: Path) -> Path:
+    p = tmp_path / "pipe.toml"
+    os.mkfifo(p)
+    return p
+
+
+def _huge(tmp_path: Path, name: str = "huge.toml") -> Path:
+    p = tmp_path / name
+    with open(p, "wb") as fh:   # sparse: no disk space used
+        fh.truncate(limits.MAX_FILE_BYTES + 1)
+    return p
+
+
+# ------------------------------------------------------------------ files for the CLI table
+MECH = CONFIGS / "wishbone_rocker.toml"
+SHELL = CONFIGS / "shell_demo.toml"
+LOADS = CONFIGS / "loads_demo.toml"
+
+
+def _config(tmp_path, *edits, text=None) -> Path:
+    """The demo config (its shell and loads copied beside it) with lines edited."""
+    for f in ("shell_demo.toml", "loads_demo.toml"):
+        shutil.copy(CONFIGS / f, tmp_path / f)
+    text = text if text is not None else (CONFIGS / "demo.toml").read_text(encoding="utf-8")
+    for old, new in edits:
+        assert old in text, old
+        text = text.replace(old, new, 1)
+    return _write(tmp_path / "cfg.toml", text)
+
+
+CSV_OK = "x_mm,y_mm,z_mm\n" + "".join(f"{x},{y},{z}\n" for x in (-300.0, 300.0) for y, z in
+                                      ((0.0, 900.0), (-250.0, 500.0), (0.0, 150.0), (250.0, 500.0)))
+
+# (case id, a function of tmp_path giving the CLI arguments, fragments the message must hold)
+FILE_CASES = [
+    # mechanism files
+    ("mech-not-toml", lambda t: ["check", _write(t / "m.toml", "name = \n[[")], ["not valid TOML"]),
+    ("mech-not-utf8", lambda t: ["sweep", _bytes(t / "m.toml", b"name = \"\xff\xfe\"\n")], ["not UTF-8"]),
+    ("mech-dev-zero", lambda t: ["check", "/dev/zero"], ["not a regular file"]),
+    ("mech-fifo", lambda t: ["check", _fifo(t)], ["not a regular file"]),
+    ("mech-too-big", lambda t: ["sweep", _huge(t)], ["larger than the limit"]),
+    ("mech-folder", lambda t: ["sweep", t], ["is a directory"]),
+    ("mech-missing", lambda t: ["sweep", t / "none.toml"], ["file not found"]),
+    ("mech-datum-1e308", lambda t: ["check", _write(t / "m.toml", _mech_text(
+        **{"datum = [0.0, 0.0]": "datum = [1e308, -1e308]"}))], ["datum[0]", "100000"]),
+    ("mech-point-nan", lambda t: ["check", _write(t / "m.toml", _mech_text(
+        **{"datum = [0.0, 0.0]": "datum = [nan, 0.0]"}))], ["datum[0]", "finite"]),
+    ("mech-radius-negative", lambda t: ["check", _write(t / "m.toml", _mech_text(
+        **{"outer_radius_mm = 250.0": "outer_radius_mm = -10.0"}))], ["outer_radius_mm", "positive"]),
+    ("mech-steer-lean-huge", lambda t: ["check", _write(t / "m.toml", _mech_text() +
+                                                        "\n[steer_envelope]\nlean_deg = [0.0, 1e308]\n"
+                                                        "max_steer_deg = [20.0, 5.0]\n")], ["steer_envelope.lean_deg"]),
+    ("mech-empty", lambda t: ["sweep", _write(t / "m.toml", "")], ["this key is required"]),
+    ("mech-nested-too-deep", lambda t: ["check", _write(t / "m.toml", "a = " + "[" * 50000 + "]" * 50000)],
+     ["nested too deeply"]),
+    ("shell-nested-too-deep", lambda t: ["clearance", MECH, "--shell", _write(t / "s.toml", "a = " + "[" * 50000 +
+                                                                              "]" * 50000)], ["nested too deeply"]),
+    # shell files
+    ("shell-toml-huge-width", lambda t: ["clearance", MECH, "--shell", _write(t / "s.toml", SHELL.read_text().replace(
+        "half_width_mm = 200.0", "half_width_mm = 1e308", 1))], ["half_width_mm", "100000"]),
+    ("shell-csv-header", lambda t: ["clearance", MECH, "--shell", _write(t / "s.csv", "x,y,z\n1,2,3\n")],
+     ["header"]),
+    ("shell-csv-two-columns", lambda t: ["clearance", MECH, "--shell", _write(t / "s.csv", "x_mm,y_mm,z_mm\n1,2\n")],
+     ["row 2"]),
+    ("shell-csv-text", lambda t: ["clearance", MECH, "--shell", _write(t / "s.csv", "x_mm,y_mm,z_mm\na,b,c\n")],
+     ["row 2"]),
+    ("shell-csv-inf", lambda t: ["clearance", MECH, "--shell", _write(t / "s.csv", CSV_OK.replace("900.0", "inf", 1))],
+     ["row 2", "finite"]),
+    ("shell-csv-1e308", lambda t: ["clearance", MECH, "--shell", _write(t / "s.csv", CSV_OK.replace("900.0", "1e308", 1))],
+     ["row 2", "100000"]),
+    ("shell-csv-one-section", lambda t: ["clearance", MECH, "--shell", _write(t / "s.csv", CSV_OK.split("\n300.0")[0])],
+     ["at least two sections"]),
+    ("shell-dev-zero", lambda t: ["clearance", MECH, "--shell", "/dev/zero"], ["not a regular file"]),
+    ("shell-csv-too-big", lambda t: ["clearance", MECH, "--shell", _huge(t, "s.csv")], ["larger than the limit"]),
+    # loads files
+    ("loads-mass-negative", lambda t: ["loads", MECH, "--loads", _write(t / "l.toml", LOADS.read_text().replace(
+        "total_mass_kg = ", "total_mass_kg = -", 1))], ["total_mass_kg"]),
+    ("loads-lean-400", lambda t: ["loads", MECH, "--loads", _write(t / "l.toml", re.sub(
+        r"lean_limit_deg = [0-9.]+", "lean_limit_deg = 400.0", LOADS.read_text(), count=1))], ["lean_limit_deg"]),
+    ("loads-case-travel-huge", lambda t: ["loads", MECH, "--loads", _write(t / "l.toml", LOADS.read_text() +
+                                          '\n[[cases]]\nname = "far"\nkind = "bump"\ntravel_mm = 1e9\n')],
+     ["travel_mm"]),
+    ("loads-catalogue-device", lambda t: ["loads", MECH, "--loads", _write(t / "l.toml", LOADS.read_text().replace(
+        "[sizing]", '[sizing]\ncatalogue = "/dev/zero"', 1))], ["not a regular file"]),
+    # run configs
+    ("config-population-1e8", lambda t: ["check", _config(t, ("population = 100", "population = 100000000"))],
+     ["run.population", "at most"]),
+    ("config-lean-step-1e-9", lambda t: ["check", _config(t, ("lean_step_deg = 5.0", "lean_step_deg = 1e-9"))],
+     ["envelope.lean_step_deg", "more than the limit"]),
+    ("config-nsga3-partitions-200", lambda t: ["check", _config(t, ("checkpoint_every = 25",
+                                                                     "checkpoint_every = 25\nnsga3_partitions = 200"))],
+     ["run.nsga3_partitions", "reference directions"]),
+    ("config-states-per-generation", lambda t: ["check", _config(t, ("population = 100", "population = 90000"))],
+     ["states per generation"]),
+    ("config-fixed-wheel-radius-negative", lambda t: ["check", _config(t, ('name = "wishbone_rocker"',
+                                                                          'name = "wishbone_rocker"\n'
+                                                                          'fixed = { wheel_radius = -10.0 }'))],
+     ["template.fixed", "no valid mechanism"]),
+    ("config-bounds-huge", lambda t: ["check", _config(t, ('name = "wishbone_rocker"',
+                                                          'name = "wishbone_rocker"\n'
+                                                          'bounds = { hub_y = [-1e308, 1e308] }'))],
+     ["template.bounds.hub_y"]),
+    ("config-travel-huge", lambda t: ["check", _config(t, ("travel_mm = [-30.0, 0.0, 30.0]", "travel_mm = [1e9]"))],
+     ["envelope.travel_mm[0]"]),
+    ("config-benchmark-n-var", lambda t: ["check", _config(t, text='[run]\nname = "b"\nseed = 1\npopulation = 8\n'
+                                                                   'generations = 1\n[benchmark]\nname = "zdt1"\n'
+                                                                   'n_var = 1000000000000\n')], ["benchmark.n_var"]),
+    ("config-benchmark-delay-nan", lambda t: ["check", _config(t, text='[run]\nname = "b"\nseed = 1\npopulation = 8\n'
+                                                                       'generations = 1\n[benchmark]\nname = "zdt1"\n'
+                                                                       'eval_delay_s = nan\n')],
+     ["benchmark.eval_delay_s"]),
+    ("config-run-fifo", lambda t: ["run", _fifo(t)], ["not a regular file"]),
+    # batch files
+    ("batch-90000-runs", lambda t: ["batch", _batch(t, 300, 300)], ["90,000 runs", "--yes"]),
+    ("batch-too-many-runs", lambda t: ["batch", "--yes", _batch(t, 1001, 1000)], ["more than the limit"]),
+    ("batch-not-toml", lambda t: ["batch", _write(t / "b.toml", "[batch")], ["not valid TOML"]),
+    ("batch-dev-zero", lambda t: ["batch", "/dev/zero"], ["not a regular file"]),
+]
+
+
+def _bytes(path: Path, data: bytes) -> Path:
+    path.write_bytes(data)
+    return path
+
+
+def _batch(tmp_path: Path, n_lean: int, n_width: int) -> Path:
+    _config(tmp_path)
+    lean = ", ".join(repr(20.0 + i * 1e-4) for i in range(n_lean))
+    width = ", ".join(repr(800.0 + i) for i in range(n_width))
+    return _write(tmp_path / "b.toml", f'[batch]\nname = "big"\noutput = "out"\n[[grid]]\nconfig = "cfg.toml"\n'
+                                       f'seeds = [1]\n[grid.values]\n"envelope.lean_limit_deg" = [{lean}]\n'
+                                       f'"constraints.max_width_mm" = [{width}]\n')
+
+
+@pytest.mark.parametrize("case, make, fragments", FILE_CASES, ids=[c[0] for c in FILE_CASES])
+def test_bad_file_gives_one_message(tmp_path, case, make, fragments):
+    assert_one_error(run_cli(make(tmp_path)), *fragments)
+
+
+def test_shell_with_too_many_vertices(tmp_path, monkeypatch):
+    """The vertex count of a polygon shell is checked before its sections are resampled (the limit is lowered
+    here so the file stays small)."""
+    monkeypatch.setattr("tiltopt.kinematics.shell.MAX_SHELL_VERTICES", 6)
+    r = run_cli(["clearance", MECH, "--shell", _write(tmp_path / "s.csv", CSV_OK)])
+    assert_one_error(r, "section vertices", "more than the limit of 6")
+
+
+# ------------------------------------------------------------------ options
+OPTION_CASES = [
+    (["sweep", MECH, "--lean", "0:inf:1"], ["--lean", "finite"]),
+    (["sweep", MECH, "--lean", "0:1e300:1e-300"], ["--lean", "more than the limit"]),
+    (["sweep", MECH, "--lean", "0:5:inf"], ["--lean", "finite"]),
+    (["sweep", MECH, "--lean", "1e308"], ["--lean", "between -90 and 90"]),
+    (["sweep", MECH, "--lean", "0:1e10:1"], ["--lean", "1e+10 values"]),
+    (["sweep", MECH, "--lean", "90"], ["--lean", "between -90 and 90"]),
+    (["sweep", MECH, "--lean", "nan"], ["--lean"]),
+    (["sweep", MECH, "--lean", "1:2"], ["--lean"]),
+    (["sweep", MECH, "--lean", ""], ["--lean"]),
+    (["sweep", MECH, "--lean", "a,b"], ["--lean"]),
+    (["sweep", MECH, "--travel", "1,,2"], ["--travel", "'1,,2'"]),
+    (["sweep", MECH, "--travel", "1,2,"], ["--travel"]),
+    (["sweep", MECH, "--travel", "1e9"], ["--travel", "200"]),
+    (["sweep", MECH, "--lean", "0:89:0.01", "--travel", "-100:100:1"], ["lean x travel states", "8901 x 201"]),
+    (["clearance", MECH, "--shell", SHELL, "--lean", "0:89:0.01", "--travel", "-100:100:1"], ["lean x travel states"]),
+    (["clearance", MECH, "--shell", SHELL, "--crown-samples", "100000000"], ["--crown-samples"]),
+    (["clearance", MECH, "--shell", SHELL, "--crown-samples", "2"], ["--crown-samples"]),
+    (["clearance", MECH, "--shell", SHELL, "--steer-samples", "0"], ["--steer-samples"]),
+    (["clearance", MECH, "--shell", SHELL, "--lean", "0:80:0.001", "--crown-samples", "3600"], ["tyre samples"]),
+    (["explore", ".", "--serve", "--port", "99999"], ["--port"]),
+    (["explore", ".", "--serve", "--port", "-1"], ["--port"]),
+    (["explore", ".", "--detail-limit", "0"], ["--detail-limit"]),
+    (["sheet", MECH, "--sag-mm", "-5"], ["--sag-mm", "> 0"]),
+    (["sheet", MECH, "--sag-mm", "nan"], ["--sag-mm"]),
+    (["sheet", MECH, "--corner-load-n", "inf"], ["--corner-load-n"]),
+    (["sheet", MECH, "--corner-load-n", "-500"], ["--corner-load-n"]),
+    (["sheet", MECH, "--jig-datum", "nan,inf"], ["--jig-datum"]),
+    (["sheet", MECH, "--jig-datum", "1e308,0"], ["--jig-datum"]),
+    (["sheet", MECH, "--jig-datum", "1"], ["--jig-datum"]),
+    (["sheet", MECH, "--lean-limit", "0"], ["--lean-limit"]),
+    (["sheet", MECH, "--lean-limit", "nan"], ["--lean-limit"]),
+    (["sheet", MECH, "--lean-limit", "400"], ["--lean-limit"]),
+    (["sheet", MECH, "--travel", "1,,2"], ["--travel"]),
+    (["sheet", "/dev/zero"], ["not a regular file"]),
+    (["batch", CONFIGS / "demo.toml", "--workers", "0"], ["--workers"]),
+    (["run"], ["expected a run config"]),
+    (["merge"], ["RUN_DIRS"]),
+    (["check"], ["FILE"]),
+    (["sweep", MECH, "--format", "xml"], ["--format"]),
+    (["nonsense"], ["No such command"]),
+]
+
+
+@pytest.mark.parametrize("args, fragments", OPTION_CASES, ids=[" ".join(map(str, a[:1] + a[2:]))[:60]
+                                                              for a, _ in OPTION_CASES])
+def test_bad_option_gives_one_message(args, fragments):
+    assert_one_error(run_cli(args), *fragments)
+
+
+@pytest.mark.parametrize("option", ["-o", "--output"])
+def test_output_below_a_file_gives_one_message(tmp_path, option):
+    blocker = _write(tmp_path / "afile", "")
+    cases = [["explore", tmp_path, option, blocker / "page.html"], ["examples", blocker / "sub"],
+             ["sheet", MECH, option, blocker / "sheet"]]
+    for args in cases:
+        assert_one_error(run_cli(args), "is a file, not a folder")
+
+
+# ------------------------------------------------------------------ damaged results
+@pytest.fixture(scope="module")
+def tiny_run(tmp_path_factory):
+    from tests.helpers import make_tiny_run
+
+    return make_tiny_run(tmp_path_factory.mktemp("tiny"))
+
+
+def _truncate(name):
+    def damage(d: Path):
+        data = (d / name).read_bytes()
+        (d / name).write_bytes(data[: len(data) // 3])
+    return damage
+
+
+def _meta(edit):
+    def damage(d: Path):
+        m = json.loads((d / "run.json").read_text())
+        (d / "run.json").write_text(json.dumps(edit(m)))
+    return damage
+
+
+def _front_without_objective(d: Path):
+    import pyarrow.parquet as pq
+
+    t = pq.read_table(d / "front.parquet")
+    pq.write_table(t.drop([c for c in t.column_names if c.startswith("obj.")][:1]), d / "front.parquet")
+
+
+def _front_bad_metadata(d: Path):
+    import pyarrow.parquet as pq
+
+    t = pq.read_table(d / "front.parquet")
+    md = dict(t.schema.metadata)
+    md[b"tiltopt"] = b"{not json"
+    pq.write_table(t.replace_schema_metadata(md), d / "front.parquet")
+
+
+DAMAGE = [
+    ("front-truncated", _truncate("front.parquet"), "front.parquet", ["damaged"]),
+    ("generations-truncated", _truncate("generations.parquet"), "generations.parquet", ["damaged"]),
+    ("run-json-list", lambda d: (d / "run.json").write_text("[]"), "run.json", ["JSON object"]),
+    ("run-json-broken", lambda d: (d / "run.json").write_text('{"run_id": '), "run.json", ["not valid JSON"]),
+    ("run-json-nested-too-deep", lambda d: (d / "run.json").write_text("[" * 50000 + "]" * 50000), "run.json",
+     ["not valid JSON"]),
+    ("run-json-problem-number", _meta(lambda m: {**m, "problem": 5}), "run.json", ["problem"]),
+    ("run-json-objectives", _meta(lambda m: {**m, "problem": {**m["problem"], "objectives": [1, 2]}}), "run.json",
+     ["problem.objectives"]),
+    ("run-json-template", _meta(lambda m: {**m, "template": {"format": m["template"]["format"]}}), "run.json",
+     ["template"]),
+    ("run-json-too-big", lambda d: _huge(d, "run.json"), "run.json", ["larger than the limit"]),
+    ("front-without-objective", _front_without_objective, "front.parquet", ["obj."]),
+    ("front-bad-metadata", _front_bad_metadata, "front.parquet", ["metadata"]),
+]
+
+
+@pytest.mark.parametrize("command", ["explore", "sheet", "merge"])
+@pytest.mark.parametrize("case, damage, where, fragments", DAMAGE, ids=[c[0] for c in DAMAGE])
+def test_damaged_run_folder_gives_one_message(tiny_run, tmp_path, command, case, damage, where, fragments):
+    from tiltopt.optimizer.results import load_run
+
+    cid = load_run(tiny_run).front["candidate_id"].iloc[0]
+    d = tmp_path / "run"
+    shutil.copytree(tiny_run, d)
+    damage(d)
+    if command == "merge" and case == "run-json-template":
+        pytest.skip("merge copies the template record without reading it")
+    args = {"explore": ["explore", d, "-o", tmp_path / "page.html"],
+            "sheet": ["sheet", d, "--candidate", cid, "-o", tmp_path / "sheet"],
+            "merge": ["merge", d, "-o", tmp_path / "merged"]}[command]
+    assert_one_error(run_cli(args), str(d / where), *fragments)
+
+
+def test_damaged_evaluations_name_the_file(tiny_run, tmp_path):
+    d = tmp_path / "run"
+    shutil.copytree(tiny_run, d)
+    _truncate("evaluations.parquet")(d)
+    assert_one_error(run_cli(["explore", d, "-o", tmp_path / "page.html"]), str(d / "evaluations.parquet"))
+
+
+# ------------------------------------------------------------------ every value of every reader
+WRONG = ["x", "", -1, 0, 1e308, -1e308, math.nan, math.inf, [], {}, True, 10 ** 18, [1.0, 2.0], {"a": 1}]
+DELETE = object()
+
+
+def _paths(d, path=()):
+    if path:
+        yield path
+    if isinstance(d, dict):
+        for k, v in d.items():
+            yield from _paths(v, path + (k,))
+    elif isinstance(d, list):
+        for i, v in enumerate(d):
+            yield from _paths(v, path + (i,))
+
+
+def _mutated(data: dict, values, every: int = 1):
+    """Copies of ``data`` with one value replaced (or deleted); every ``every``-th case only."""
+    k = 0
+    for path in list(_paths(data)):
+        for v in list(values) + [DELETE]:
+            k += 1
+            if k % every:
+                continue
+            d = copy.deepcopy(data)
+            cur = d
+            for p in path[:-1]:
+                cur = cur[p]
+            if v is DELETE:
+                del cur[path[-1]]
+            else:
+                cur[path[-1]] = copy.deepcopy(v)
+            yield path, v, d
+
+
+def _only_input_errors(data: dict, read, values=WRONG, every: int = 1) -> int:
+    n = 0
+    for path, v, d in _mutated(data, values, every):
+        n += 1
+        try:
+            read(d)
+        except InputError:
+            pass
+        except Exception as exc:  # noqa: BLE001 (any other exception is the failure this test looks for)
+            raise AssertionError(f"{'.'.join(map(str, path))} = {v!r}: {type(exc).__name__}: {exc}") from exc
+    return n
+
+
+def _toml(name: str) -> dict:
+    return tomllib.loads((CONFIGS / name).read_text(encoding="utf-8"))
+
+
+@pytest.mark.parametrize("name", ["wishbone_rocker.toml", "twin_beam_sprung.toml"])
+def test_mechanism_reader_raises_only_input_errors(name):
+    from tiltopt.kinematics.mechanism import parse_mechanism
+
+    assert _only_input_errors(_toml(name), lambda d: parse_mechanism(d, name)) > 1000
+
+
+def test_shell_reader_raises_only_input_errors():
+    from tiltopt.kinematics.shell import parse_polygon_csv, parse_shell
+
+    assert _only_input_errors(_toml("shell_demo.toml"), lambda d: parse_shell(d, "shell")) > 300
+    # CSV: every cell replaced in turn
+    rows = [r.split(",") for r in CSV_OK.strip().split("\n")]
+    for i in range(len(rows)):
+        for j in range(3):
+            for v in ("", "x", "nan", "-inf", "1e308", "1e-320", "0x10", " 1 "):
+                cells = copy.deepcopy(rows)
+                cells[i][j] = v
+                try:
+                    parse_polygon_csv("\n".join(",".join(r) for r in cells), "shell.csv")
+                except InputError:
+                    pass
+
+
+def test_loads_reader_raises_only_input_errors():
+    from tiltopt.kinematics.loads import parse_loads
+
+    assert _only_input_errors(_toml("loads_demo.toml"), lambda d: parse_loads(d, "loads", CONFIGS)) > 300
+
+
+def test_run_config_reader_raises_only_input_errors():
+    from tiltopt.optimizer.config import parse_config
+
+    data = _toml("demo.toml")
+    assert _only_input_errors(data, lambda d: parse_config(d, "demo.toml", CONFIGS), every=2) > 150
+    custom = {"objectives": ["overall_width", "max_scrub"],
+              "run": {"name": "t", "seed": 1, "algorithm": "nsga3", "population": 20, "generations": 2,
+                      "nsga3_partitions": 3},
+              "template": {"mechanism": "twin_beam.toml", "variables": [
+                  {"name": "oy", "points": ["upper_beam.right_end", "lower_beam.right_end"], "axis": "y",
+                   "lower": 250.0, "upper": 400.0, "factors": [1.0, 1.0]},
+                  {"name": "wr", "kind": "outer_radius", "lower": 200.0, "upper": 300.0, "default": 250.0}],
+                  "bounds": {"oy": [260.0, 390.0]}, "fixed": {"wr": 240.0}},
+              "envelope": {"lean_limit_deg": 30.0, "lean_step_deg": 5.0, "travel_mm": [0.0], "both_sides": True,
+                           "steer": {"lean_deg": [0.0, 20.0], "max_steer_deg": [20.0, 5.0]}},
+              "constraints": {"max_width_mm": 900.0}}
+    parse_config(custom, "custom.toml", CONFIGS)      # valid as written
+    assert _only_input_errors(custom, lambda d: parse_config(d, "custom.toml", CONFIGS), every=3) > 150
+    bench = {"run": {"name": "b", "seed": 1, "population": 8, "generations": 1},
+             "benchmark": {"name": "zdt1", "n_var": 5, "eval_delay_s": 0.0}}
+    assert _only_input_errors(bench, lambda d: parse_config(d, "bench.toml", CONFIGS)) > 100
+
+
+def test_batch_reader_raises_only_input_errors(tmp_path):
+    from tiltopt.optimizer.batch import parse_batch
+
+    _config(tmp_path)
+    data = {"batch": {"name": "b", "output": "out", "retries": 1},
+            "runs": [{"config": "cfg.toml", "seeds": [1, 2], "set": {"run.generations": 2}}],
+            "grid": [{"config": "cfg.toml", "seeds": [1], "values": {"envelope.lean_limit_deg": [25.0, 30.0]}}]}
+    parse_batch(data, "b.toml", tmp_path)
+    assert _only_input_errors(data, lambda d: parse_batch(d, "b.toml", tmp_path, limits.BATCH_CONFIRM_RUNS),
+                              every=2) > 50
+
+
+def test_template_variable_file_reader_raises_only_input_errors(tmp_path):
+    from tiltopt.problems.templates import load_template_entry, template_from_entry
+
+    data = _toml("twin_beam_template.toml")
+    shutil.copy(CONFIGS / "twin_beam.toml", tmp_path / "twin_beam.toml")
+    path = tmp_path / "t.toml"
+
+    def read(d):
+        try:
+            text = toml_text(d)
+        except (TypeError, AttributeError):   # a value the tests' small TOML writer cannot write
+            return
+        path.write_text(text, encoding="utf-8")
+        template_from_entry(load_template_entry(path))
+
+    read(data)
+    assert _only_input_errors(data, read, values=["x", -1, 1e308, math.nan, [], True, [1.0, 2.0]], every=2) > 100
+
+
+def test_run_json_reader_raises_only_input_errors(tiny_run, tmp_path):
+    from tiltopt.optimizer.results import load_run
+
+    d = tmp_path / "run"
+    shutil.copytree(tiny_run, d)
+    meta = json.loads((d / "run.json").read_text())
+    cid = load_run(d).front["candidate_id"].iloc[0]
+    top = {k: v for k, v in meta.items() if k not in ("config", "template")}
+
+    def read(full):
+        (d / "run.json").write_text(json.dumps(full, default=str))
+        run = load_run(d)
+        run.candidate_mechanism(cid)
+        if full.get("config_base_dir") != meta.get("config_base_dir"):   # the config itself is not changed here
+            run.config
+
+    values = ["x", 5, [], {}, None, [1, 2]]
+    keep = {"config": meta["config"], "template": meta["template"]}
+    assert _only_input_errors(top, lambda m: read({**keep, **m}), values=values, every=2) > 40
+    assert _only_input_errors({"template": meta["template"]}, lambda m: read({**top, "config": meta["config"], **m}),
+                              values=values, every=5) > 20
+
+
+# ------------------------------------------------------------------ typed ranges
+NUMBER = st.one_of(st.floats(allow_nan=True, allow_infinity=True), st.integers(-10 ** 12, 10 ** 12),
+                   st.sampled_from([0.0, -0.0, 1e-300, 1e300, 89.99, 90.0, 200.0, 1e10]))
+TEXT = st.one_of(
+    st.lists(NUMBER.map(repr), min_size=1, max_size=4).map(":".join),
+    st.lists(st.one_of(NUMBER.map(repr), st.just("")), min_size=1, max_size=5).map(",".join),
+    st.text(alphabet="0123456789.:,-+einaf ", max_size=12),
+)
+
+
+@settings(max_examples=300, deadline=None)
+@given(lean=TEXT, travel=TEXT)
+def test_typed_ranges_are_within_limits_or_refused(lean, travel):
+    from tiltopt.base.units import parse_states
+
+    try:
+        leans, travels = parse_states(lean, travel)
+    except InputError as exc:
+        assert "--lean" in str(exc) or "--travel" in str(exc)
+        return
+    assert 1 <= len(leans) <= limits.MAX_RANGE_VALUES and 1 <= len(travels) <= limits.MAX_RANGE_VALUES
+    assert len(leans) * len(travels) <= limits.MAX_STATES
+    assert np.all(np.abs(leans) < limits.MAX_ABS_LEAN_DEG) and np.all(np.abs(travels) <= limits.MAX_TRAVEL_MM)
+    if ":" in lean:   # start:stop:step with the stop included (README): the count is floor(span / step) + 1
+        start, stop, step = (float(p) for p in lean.split(":"))
+        assert len(leans) == math.floor((stop - start) / step + 1e-9) + 1
+        assert leans[0] == start and leans[-1] <= stop + 1e-9 * step
+
+
+def test_range_size_is_found_before_allocating(monkeypatch):
+    """``0:1e10:1`` is refused from its start, stop and step: numpy is never asked for 1e10 values."""
+    from tiltopt.base import units
+
+    asked = []
+    real = np.arange
+    monkeypatch.setattr(units.np, "arange", lambda n, *a, **k: asked.append(n) or real(n, *a, **k))
+    with pytest.raises(InputError, match="more than the limit"):
+        units.parse_leans("0:1e10:1")
+    assert asked == []
+    assert len(units.parse_leans("0:40:0.5")) == 81 and asked == [81]
