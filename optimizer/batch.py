@@ -260,8 +260,9 @@ def execute_item(item: dict) -> dict:
     """Run one batch item to the end (resuming from its checkpoint, skipping it when finished).
 
     Holds the run folder's lock throughout. Returns its summary row. Errors of the
-    run itself are returned as status 'failed' (they would repeat on a retry);
-    only a dead worker is retried.
+    run itself (a damaged checkpoint, a changed input file, a bug) are returned as
+    status 'failed' with their message: they would repeat on a retry. Only a dead
+    worker is retried.
     """
     from .runner import Runner, config_record, prepare_fresh
 
@@ -292,15 +293,21 @@ def execute_item(item: dict) -> dict:
                 cfg, problem, record = prepare_fresh(cfg, d, item["config"])
                 resume = False
             Runner(problem, cfg.run, d, item["run_id"], record, progress=False, notices=False,
-                   lock=lock).run(resume=resume)
+                   lock=lock, restart_hint=BATCH_RESTART_HINT).run(resume=resume)
         except KeyboardInterrupt:   # a second Ctrl-C, or one before the run started: the last checkpoint stays valid
             return summary_row(item, status="interrupted")
+        except InputError as exc:   # a damaged file of the run folder, a changed input: the message names it
+            return summary_row(item, status="failed", error=str(exc))
         except Exception as exc:
             return summary_row(item, status="failed", error=f"{type(exc).__name__}: {exc}")
     return summary_row(item)
 
 
 EXIT_FAILED, EXIT_INTERRUPTED, EXIT_ORPHANED = 3, 4, 5
+#: what to do about a damaged checkpoint of a batch run
+BATCH_RESTART_HINT = ("Delete it and start the batch again: this run then starts again from generation 1 (its "
+                      "other files are replaced).")
+MAX_ERROR_CHARS = 4000     # of a failed run's message sent from its worker
 
 
 def _die_with_parent(parent_pid: int, poll_s: float = 0.5) -> None:
@@ -330,10 +337,18 @@ def _die_with_parent(parent_pid: int, poll_s: float = 0.5) -> None:
     threading.Thread(target=watch, name="tiltopt-parent-watch", daemon=True).start()
 
 
-def _process_main(item: dict, parent_pid: int | None = None) -> None:
+def _process_main(item: dict, parent_pid: int | None = None, report=None) -> None:
+    """A local worker: run ``item``, send its summary row through ``report`` (a pipe to the batch
+    process: a failed run's message lives only there), exit with a code that says how it ended."""
     if parent_pid is not None:
         _die_with_parent(parent_pid)
     row = execute_item(item)
+    if report is not None:
+        try:
+            report.send({**row, "error": str(row.get("error", ""))[:MAX_ERROR_CHARS]})
+            report.close()
+        except OSError:     # the batch process is gone; the exit code still tells
+            pass
     raise SystemExit({"finished": 0, "interrupted": EXIT_INTERRUPTED}.get(row["status"], EXIT_FAILED))
 
 
@@ -462,27 +477,37 @@ def _run_local(batch: Batch, workers: int, echo, poll_s: float) -> pd.DataFrame:
         if rows[it.run_id]["status"] == "finished":
             _log(echo, f"{it.run_id}: finished earlier, kept")
     attempts = {it.run_id: 0 for it in batch.items}
-    running: dict[str, tuple[Any, BatchItem]] = {}
+    running: dict[str, tuple[Any, BatchItem, Any]] = {}
+    told: dict[str, dict] = {}        # the row each worker sent before it ended
     _write_summary(batch, rows)
     try:
         while todo or running:
             while todo and len(running) < max(1, workers):
                 it = todo.pop(0)
                 attempts[it.run_id] += 1
-                p = ctx.Process(target=_process_main, args=(it.to_dict(), os.getpid()), name=f"tiltopt-{it.run_id}")
+                recv, send = ctx.Pipe(duplex=False)
+                p = ctx.Process(target=_process_main, args=(it.to_dict(), os.getpid(), send),
+                                name=f"tiltopt-{it.run_id}")
                 p.start()
-                running[it.run_id] = (p, it)
+                send.close()          # the worker holds the only sending end: a dead worker leaves the pipe empty
+                running[it.run_id] = (p, it, recv)
                 _log(echo, f"{it.run_id}: started (attempt {attempts[it.run_id]}, pid {p.pid})")
             time.sleep(poll_s)
-            for rid, (p, it) in list(running.items()):
+            for rid, (p, it, recv) in list(running.items()):
+                _receive(recv, rid, told)
                 if p.is_alive():
                     continue
                 p.join()
+                _receive(recv, rid, told)
+                recv.close()
                 del running[rid]
                 row = summary_row(it.to_dict(), attempts[rid])
+                sent = told.pop(rid, None)
                 if row["status"] == "finished":
                     _log(echo, f"{rid}: finished, front of {row['front_size']}")
-                elif p.exitcode == EXIT_FAILED and row["status"] == "failed":
+                elif p.exitcode == EXIT_FAILED:     # the run itself failed: the same on every attempt, not retried
+                    row["status"] = "failed"
+                    row["error"] = (sent or {}).get("error") or row["error"] or "the run failed (no message arrived)"
                     _log(echo, f"{rid}: failed: {row['error']}")
                 elif p.exitcode == EXIT_INTERRUPTED:
                     row["status"] = "interrupted"
@@ -501,7 +526,7 @@ def _run_local(batch: Batch, workers: int, echo, poll_s: float) -> pd.DataFrame:
         # Ctrl-C reaches the workers too (same process group): each stops after its generation
         # with a checkpoint. Wait for them, record where they are, start nothing new.
         _log(echo, "stopping: the running runs write a checkpoint after their generation ...")
-        for rid, (p, it) in running.items():
+        for rid, (p, it, _recv) in running.items():
             p.join(timeout=120)
             if p.is_alive():
                 p.terminate()
@@ -513,6 +538,15 @@ def _run_local(batch: Batch, workers: int, echo, poll_s: float) -> pd.DataFrame:
         running.clear()
     _write_summary(batch, rows)
     return pd.DataFrame([rows[it.run_id] for it in batch.items], columns=list(SUMMARY_UNITS))
+
+
+def _receive(conn, rid: str, told: dict) -> None:
+    """Keep the row a worker sent, if one is waiting (a pipe that breaks is a worker that died)."""
+    try:
+        if conn.poll():
+            told[rid] = conn.recv()
+    except (EOFError, OSError):
+        pass
 
 
 def scheduler_address(text) -> str:

@@ -332,7 +332,12 @@ def check_zip(path: Path) -> None:
                   f"member {i.filename!r} claims shape {shape}, more than it holds")
 
 
-def decode(path: Path, algorithm, info: dict, n_var: int, n_obj: int, n_constr: int) -> dict:
+#: what to do about a damaged checkpoint, for a run started with ``tiltopt run``
+RESTART_HINT = "Start the run again (tiltopt run CONFIG --overwrite)."
+
+
+def decode(path: Path, algorithm, info: dict, n_var: int, n_obj: int, n_constr: int,
+           restart_hint: str = RESTART_HINT) -> dict:
     """Put a checkpoint's state into ``algorithm`` (freshly set up from the run settings).
 
     Returns the run state fields (a dict for ``RunState(**fields)``, with the
@@ -341,7 +346,8 @@ def decode(path: Path, algorithm, info: dict, n_var: int, n_obj: int, n_constr: 
     Raises
     ------
     InputError
-        Naming the file, when it is damaged, of another format, or of another problem.
+        Naming the file, when it is damaged, of another format, or of another problem; the message ends
+        with ``restart_hint``.
     """
     path = Path(path)
     try:
@@ -363,14 +369,14 @@ def decode(path: Path, algorithm, info: dict, n_var: int, n_obj: int, n_constr: 
                                  "constraints differ from the config). Start a new run instead.", str(path))
             return _restore(doc, r, algorithm, n_var, n_obj, n_constr)
     except _Bad as exc:
-        raise InputError(f"damaged, or not a tiltopt checkpoint of this version: {exc}. Start the run again "
-                         f"(tiltopt run CONFIG --overwrite).", str(path)) from None
+        raise InputError(f"damaged, or not a tiltopt checkpoint of this version: {exc}. {restart_hint}",
+                         str(path)) from None
     except InputError:
         raise
     except (OSError, ValueError, TypeError, KeyError, IndexError, OverflowError, EOFError,
             zipfile.BadZipFile) as exc:
-        raise InputError(f"cannot read the checkpoint ({type(exc).__name__}: {exc}). Start the run again "
-                         f"(tiltopt run CONFIG --overwrite).", str(path)) from None
+        raise InputError(f"cannot read the checkpoint ({type(exc).__name__}: {exc}). {restart_hint}",
+                         str(path)) from None
 
 
 def _restore(doc, r: _Reader, algorithm, n_var, n_obj, n_constr) -> dict:

@@ -229,8 +229,9 @@ class Runner:
 
     def __init__(self, problem, settings: RunSettings, run_dir: Path, run_id: str, config: dict | None = None,
                  progress: bool = True, stop_after: int | None = None, notices: bool = True,
-                 lock: RF.FolderLock | None = None):
+                 lock: RF.FolderLock | None = None, restart_hint: str = CK.RESTART_HINT):
         self.problem = problem
+        self.restart_hint = restart_hint     # the end of the message about a damaged checkpoint
         self.settings = settings
         self.run_dir = Path(run_dir)
         self.run_id = run_id
@@ -282,7 +283,7 @@ class Runner:
             return False
         alg = self._new_algorithm()     # the same construction as a new run; the checkpoint holds its state
         p = self.problem
-        fields = CK.decode(path, alg, self.info.to_dict(), p.n_var, p.n_obj, p.n_ieq_constr)
+        fields = CK.decode(path, alg, self.info.to_dict(), p.n_var, p.n_obj, p.n_ieq_constr, self.restart_hint)
         norm = fields.pop("normaliser")
         self.algorithm = alg
         self.state = RunState(**fields, normaliser=None if norm is None else Normaliser.restored(*norm))

@@ -291,4 +291,38 @@ def test_hostile_checkpoint_inside_a_batch_never_runs(tmp_path):
     assert not marker.exists()
     st = dict(zip(df["run_id"], df["status"]))
     assert st[b.items[0].run_id] == "finished" and not (a / "checkpoint.pkl").exists()
-    assert st[b.items[1].run_id] != "finished"
+    assert st[b.items[1].run_id] == "failed"
+    assert "checkpoint.npz" in df["error"].iloc[1] and "holds Python objects" in df["error"].iloc[1]
+
+
+def test_damaged_checkpoint_inside_a_batch_is_one_message_not_a_dead_worker(tmp_path):
+    """A damaged checkpoint is the same on every attempt: the batch says once which file is damaged and
+    how, and does not start the run again as if its worker had died (retries = 2 here)."""
+    from tiltopt.optimizer.batch import load_batch, run_local
+
+    (tmp_path / "ck.toml").write_text(ZDT_CONFIG)
+    (tmp_path / "b.toml").write_text('[batch]\nname = "db"\noutput = "res"\nretries = 2\n'
+                                     '[[runs]]\nconfig = "ck.toml"\nseeds = [1]\n')
+    b = load_batch(tmp_path / "b.toml")
+    run_local(b, workers=1)
+    d = Path(b.items[0].run_dir)
+    straight = pq.read_table(d / "front.parquet").to_pandas()
+    meta = json.loads((d / "run.json").read_text())
+    meta["status"] = "interrupted"          # as if stopped, with a checkpoint cut short
+    (d / "run.json").write_text(json.dumps(meta))
+    ck = d / "checkpoint.npz"
+    ck.write_bytes(ck.read_bytes()[:300])
+    said = []
+    df = run_local(b, workers=1, echo=said.append)
+    row = df.iloc[0]
+    assert row["status"] == "failed" and row["attempts"] == 1, row.to_dict()
+    assert str(ck) in row["error"] and "not an .npz archive" in row["error"] and "Delete it" in row["error"]
+    assert not any("worker died" in m or "attempt 2" in m for m in said), said
+    assert sum(str(ck) in m for m in said) == 1, said
+    # what the message says to do works: without the checkpoint the run starts again, to the same front
+    ck.unlink()
+    df = run_local(b, workers=1)
+    assert df["status"].iloc[0] == "finished"
+    again = pq.read_table(d / "front.parquet").to_pandas()
+    pd.testing.assert_frame_equal(again[["candidate_id", "obj.f1", "obj.f2"]],
+                                  straight[["candidate_id", "obj.f1", "obj.f2"]])
