@@ -54,6 +54,7 @@ from tiltopt.base.errors import InputError
 from tiltopt.base.inputs import reading_copies
 from tiltopt.base.limits import MAX_BATCH_RUNS, check_count
 
+from . import checkpoint as CK
 from . import results as R
 from . import runfolder as RF
 from .config import parse_config, read_toml
@@ -281,7 +282,7 @@ def execute_item(item: dict) -> dict:
         if meta is not None and meta.get("status") == "finished":
             return summary_row(item)
         try:
-            if meta is not None and (d / R.CHECKPOINT).is_file():
+            if meta is not None and CK.present(d / R.CHECKPOINT):
                 copies = RF.verify_inputs(d, meta, flag="--rerun-changed")
                 with reading_copies(copies):
                     cfg = parse_config(item["data"], item["config"], item["base_dir"])

@@ -29,6 +29,7 @@ import io
 import json
 import math
 import os
+import stat
 import time
 import zipfile
 from pathlib import Path
@@ -301,15 +302,24 @@ def _restore_cols(doc, r: _Reader, what: str) -> dict:
     return out
 
 
-def check_zip(path: Path) -> None:
-    """Refuse compressed members (a small file must not unpack into a huge one) and oddities."""
+def present(path: str | Path) -> bool:
+    """Whether a checkpoint is there to be read: anything at its path, a dangling link included (only a
+    regular file is read; anything else is refused by :func:`decode`, never taken for no checkpoint)."""
+    return os.path.lexists(path)
+
+
+def check_zip(path, size: int | None = None) -> None:
+    """Refuse compressed members (a small file must not unpack into a huge one) and oddities.
+
+    ``path`` is a path or an open binary file of ``size`` bytes.
+    """
     try:
         with zipfile.ZipFile(path) as z:
             infos = z.infolist()
     except (zipfile.BadZipFile, OSError, ValueError) as exc:
         raise _Bad(f"not an .npz archive ({exc})") from None
     _need(len(infos) <= MAX_MEMBERS, f"{len(infos)} members")
-    size = os.path.getsize(path)
+    size = os.path.getsize(path) if size is None else size
     total = 0
     for i in infos:
         _need(i.compress_type == zipfile.ZIP_STORED, f"member {i.filename!r} is compressed; tiltopt writes none")
@@ -327,6 +337,7 @@ def check_zip(path: Path) -> None:
                     shape, _fortran, dtype = read(fh)
                 except ValueError as exc:
                     raise _Bad(f"member {i.filename!r}: {exc}") from None
+            _need(all(isinstance(n, int) and n >= 0 for n in shape), f"member {i.filename!r}: shape {shape}")
             _need(not dtype.hasobject, f"member {i.filename!r} holds Python objects (a pickle); tiltopt writes none")
             _need(math.prod(shape) * dtype.itemsize <= i.file_size,
                   f"member {i.filename!r} claims shape {shape}, more than it holds")
@@ -351,23 +362,29 @@ def decode(path: Path, algorithm, info: dict, n_var: int, n_obj: int, n_constr: 
     """
     path = Path(path)
     try:
-        check_zip(path)
-        with np.load(path, allow_pickle=False) as npz:
-            r = _Reader(npz)
-            _need(JSON_KEY in r.names, f"{JSON_KEY} is missing")
-            raw = r.npz[JSON_KEY]
-            _need(raw.dtype == np.uint8 and raw.ndim == 1, f"{JSON_KEY}: expected bytes")
-            try:
-                doc = json.loads(raw.tobytes().decode("utf-8"))
-            except (UnicodeDecodeError, ValueError, RecursionError) as exc:
-                raise _Bad(f"{JSON_KEY} is not JSON ({exc})") from None
-            doc = _dict(doc, JSON_KEY, ("format",))
-            _need(doc["format"] == FORMAT, f"format {doc['format']!r}, expected {FORMAT!r}")
-            _dict(doc, JSON_KEY, ("problem", "algorithm", "state"))
-            if doc["problem"] != info:
-                raise InputError("the checkpoint belongs to a different problem (variables, objectives or "
-                                 "constraints differ from the config). Start a new run instead.", str(path))
-            return _restore(doc, r, algorithm, n_var, n_obj, n_constr)
+        # non-blocking: a pipe in its place must not hang the open; only a regular file is read
+        fd = os.open(path, os.O_RDONLY | getattr(os, "O_NONBLOCK", 0))
+        with os.fdopen(fd, "rb") as fh:
+            st = os.fstat(fh.fileno())
+            _need(stat.S_ISREG(st.st_mode), "not a regular file (a folder, device, pipe or socket)")
+            check_zip(fh, st.st_size)
+            fh.seek(0)
+            with np.load(fh, allow_pickle=False) as npz:
+                r = _Reader(npz)
+                _need(JSON_KEY in r.names, f"{JSON_KEY} is missing")
+                raw = r.npz[JSON_KEY]
+                _need(raw.dtype == np.uint8 and raw.ndim == 1, f"{JSON_KEY}: expected bytes")
+                try:
+                    doc = json.loads(raw.tobytes().decode("utf-8"))
+                except (UnicodeDecodeError, ValueError, RecursionError) as exc:
+                    raise _Bad(f"{JSON_KEY} is not JSON ({exc})") from None
+                doc = _dict(doc, JSON_KEY, ("format",))
+                _need(doc["format"] == FORMAT, f"format {doc['format']!r}, expected {FORMAT!r}")
+                _dict(doc, JSON_KEY, ("problem", "algorithm", "state"))
+                if doc["problem"] != info:
+                    raise InputError("the checkpoint belongs to a different problem (variables, objectives or "
+                                     "constraints differ from the config). Start a new run instead.", str(path))
+                return _restore(doc, r, algorithm, n_var, n_obj, n_constr)
     except _Bad as exc:
         raise InputError(f"damaged, or not a tiltopt checkpoint of this version: {exc}. {restart_hint}",
                          str(path)) from None

@@ -291,7 +291,7 @@ def load_run(run_dir: str | Path) -> Run:
         raise InputError("expected a run folder (results/<run-id>/). " + ("This is not a folder." if d.exists() else
                                                                           "It does not exist."), str(d))
     rj = d / RUN_JSON
-    if not rj.is_file():
+    if not rj.exists():        # a device or pipe in its place gets its own message from the reader
         raise InputError("expected a run folder with run.json; none found. Is this a results/<run-id>/ folder?", str(d))
     meta = read_run_json(rj)
     units: dict = {}

@@ -278,7 +278,7 @@ class Runner:
 
     def _load_checkpoint(self) -> bool:
         path = self.run_dir / R.CHECKPOINT
-        if not path.is_file():
+        if not CK.present(path):     # anything else at its path is refused by decode
             refuse_old_checkpoint(self.run_dir)
             return False
         alg = self._new_algorithm()     # the same construction as a new run; the checkpoint holds its state
@@ -730,7 +730,7 @@ def resume_run(run_dir: str | Path, progress: bool = True, stop_after: int | Non
     d = Path(run_dir)
     if not d.is_dir():
         raise InputError("expected a run folder (results/<run-id>/). It does not exist.", str(d))
-    if not (d / R.RUN_JSON).is_file():
+    if not (d / R.RUN_JSON).exists():
         raise InputError("expected a run folder with run.json; none found. Is this a results/<run-id>/ folder?",
                          str(d))
     meta = R.read_run_json(d / R.RUN_JSON)      # a damaged one is a message naming what is wrong
@@ -764,7 +764,7 @@ def resume_run(run_dir: str | Path, progress: bool = True, stop_after: int | Non
             settings = RunSettings(**{**run, "output": Path(run["output"])})
             record = {}
         runner = Runner(problem, settings, d, meta.get("run_id", d.name), record, progress, stop_after, lock=lock)
-        has_checkpoint = (d / R.CHECKPOINT).is_file()
+        has_checkpoint = CK.present(d / R.CHECKPOINT)
         if not has_checkpoint:
             refuse_old_checkpoint(d)
             notice(f"{d}: no checkpoint yet (the run stopped before its first one): starting it again from "
