@@ -40,6 +40,18 @@ parallelogram that is built with misalignment or loaded thermally carries
 more. A state whose ``J^T lambda + Q`` does not vanish (a mechanism with
 unwanted freedom) is flagged as not in equilibrium.
 
+Applied loads beyond the front and rear loads (see :mod:`tiltopt.kinematics.cases`):
+
+- a kerb strike: a lateral force at one contact patch, on its upright, and the
+  opposite d'Alembert force of the vehicle's lateral inertia at the centre of
+  mass;
+- prescribed tyre loads (one-wheel bump): the chassis gets a roll couple (the
+  d'Alembert couple of its roll inertia) of the size that makes the left tyre
+  load come out as prescribed; by linearity it is one more right-hand side of
+  the same solve, ``lambda = lambda_Q + M lambda_1`` with ``lambda_1`` the
+  response to a unit couple. The vertical balance then gives the right tyre
+  its load.
+
 Out-of-plane braking (a simple, conservative model): each front tyre gets a
 longitudinal force ``brake_g * N_i`` at its contact. It is shared equally by
 the chassis pivots (pins to the chassis) reached from that wheel's upright
@@ -48,13 +60,15 @@ carry no out-of-plane load). A pivot k taking ``F`` from the contact ``c_i``
 carries the moment ``F |c_i - p_k|`` (the front-view lever from the contact to
 the pivot), summed over the wheels by magnitude. The pivot is a pair of
 bearings ``base_mm`` apart along x: the bearing couple is ``M / base``, and the
-member pinned there carries ``M`` as out-of-plane bending at that pivot.
+member pinned there carries ``M`` as out-of-plane bending, and the shared
+longitudinal force as out-of-plane shear, at that pivot.
 Members are modelled as single round tubes; an A-arm carries brake loads as
 a triangle and is lighter than this estimate says.
 """
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import NamedTuple
 
 import numpy as np
 
@@ -75,6 +89,10 @@ class StateLoads:
     brake_g : longitudinal deceleration, g
     locked : bool, tilt lock engaged
     com_height_mm : centre of mass height in the design position, mm
+    wheel_target_n : ndarray of shape (N, 2)
+        Prescribed tyre vertical loads [left, right], N; NaN where they follow from equilibrium.
+    kerb_force_n : ndarray of shape (N, 2)
+        Lateral force applied at each contact patch, +y, N.
     """
 
     front_load_n: np.ndarray
@@ -83,6 +101,32 @@ class StateLoads:
     brake_g: np.ndarray
     locked: np.ndarray
     com_height_mm: np.ndarray
+    wheel_target_n: np.ndarray | None = None
+    kerb_force_n: np.ndarray | None = None
+
+    def __post_init__(self):
+        n = len(self.front_load_n)
+        if self.wheel_target_n is None:
+            self.wheel_target_n = np.full((n, 2), np.nan)
+        if self.kerb_force_n is None:
+            self.kerb_force_n = np.zeros((n, 2))
+
+
+class BodyLoad(NamedTuple):
+    """One load on a body, for the section cuts of :mod:`tiltopt.kinematics.sections`.
+
+    point : the loaded body point it is assigned to (a tyre force to its wheel centre, a guide's
+        slider force to the guide point nearest the runner); position : (N, 2) where it acts, mm;
+    force : (N, 2) N; couple : (N,) lean sense, N*mm; label : what it is ("pin upper_left");
+    slider : index of the slider whose guide this is (the load runs along the guide), else -1.
+    """
+
+    point: int
+    position: np.ndarray
+    force: np.ndarray
+    couple: np.ndarray
+    label: str
+    slider: int = -1
 
 
 @dataclass
@@ -104,18 +148,26 @@ class ForceResult:
     wheel_load : ndarray of shape (N, 2)
         Tyre vertical load [left, right], N (positive = ground pushes up).
     tyre_side_force : ndarray of shape (N, 2)
-        Tyre lateral force, +y positive, N (side ratio share + lateral reference share).
+        Tyre lateral force, +y positive, N (side ratio share + lateral reference share + a kerb
+        strike's force).
     lateral_force : ndarray of shape (N,)
         Force at the lateral reference (contact midpoint), +y, N.
     lean_moment : ndarray of shape (N,)
         Moment on the chassis about x, lean sense, N*m: the rider's balance
-        moment in riding states, the tilt-lock torque in parked states.
+        moment in riding states, the tilt-lock torque in locked states.
+    roll_couple : ndarray of shape (N,)
+        The d'Alembert roll couple on the chassis that makes prescribed tyre loads
+        come out (one-wheel bump), lean sense, N*m; 0 elsewhere.
     brake_pivot_moment : ndarray of shape (N, n_pins)
         Out-of-plane braking moment at chassis pivots (0 for other pins), N*mm.
+    brake_pivot_shear : ndarray of shape (N, n_pins)
+        The longitudinal braking force each chassis pivot takes, N.
     brake_bearing_force : ndarray of shape (N, n_pins)
         The bearing couple force ``moment / base``, N.
     applied_force : ndarray of shape (N, 2)
-        Sum of the applied loads, (y, z), N.
+        Sum of the applied loads away from the contact patches (at the centre of mass and the
+        datum O, a kerb strike's lateral inertia included), (y, z), N; ``tyre_side_force`` holds
+        the kerb force itself, so tyre forces + applied force = 0.
     equilibrium_residual : ndarray of shape (N,)
         ``|J^T lambda + Q| / |Q|``.
     ok : ndarray of shape (N,), bool
@@ -125,7 +177,7 @@ class ForceResult:
     positions : ndarray of shape (N, n_points, 2)
         The poses used (design position stand-ins where ``ok`` is False), mm.
     contact : ndarray of shape (N, 2, 2)
-    body_loads : dict of body index -> list of (point, position, force, couple)
+    body_loads : dict of body index -> list of BodyLoad
         Every load on each body (see ``ForceModel._body_loads``).
     """
 
@@ -142,7 +194,9 @@ class ForceResult:
     tyre_side_force: np.ndarray
     lateral_force: np.ndarray
     lean_moment: np.ndarray
+    roll_couple: np.ndarray
     brake_pivot_moment: np.ndarray
+    brake_pivot_shear: np.ndarray
     brake_bearing_force: np.ndarray
     applied_force: np.ndarray
     equilibrium_residual: np.ndarray
@@ -303,10 +357,11 @@ class ForceModel:
             self._add(J, self.r_lat, up, 0.5 * ey, arm)
         return J
 
-    def applied(self, x, ang, design_points, loads: StateLoads):
+    def applied(self, x, ang, design_points, loads: StateLoads, contact):
         """Generalized applied forces Q (N, n) and the applied resultant (N, 2).
 
         design_points : ndarray of shape (N, n_points, 2), design position of each item's candidate.
+        contact : ndarray of shape (N, 2, 2), where a kerb strike acts.
         """
         N = x.shape[0]
         c = self.chassis
@@ -321,13 +376,18 @@ class ForceModel:
         dirn = np.stack([loads.side_ratio, np.ones(N)], -1)
         F_G = -(loads.front_load_n + loads.rear_load_n)[:, None] * dirn
         F_O = loads.rear_load_n[:, None] * dirn
+        kerb = loads.kerb_force_n
+        F_G = F_G - np.stack([kerb.sum(1), np.zeros(N)], -1)      # the lateral inertia of a kerb strike
         Q = np.zeros((N, self.n))
-        xr = x[:, pr]
-        for F, at in ((F_G, xG), (F_O, xO)):
-            w = at - xr
-            Q[:, 3 * c] += F[:, 0]
-            Q[:, 3 * c + 1] += F[:, 1]
-            Q[:, 3 * c + 2] += F[:, 0] * w[:, 1] - F[:, 1] * w[:, 0]
+        pushes = [(F_G, xG, c), (F_O, xO, c)]
+        if np.any(kerb != 0.0):
+            for w, up in enumerate(self.upright):
+                pushes.append((np.stack([kerb[:, w], np.zeros(N)], -1), contact[:, w], up))
+        for F, at, body in pushes:
+            w = at - x[:, self.ref_point[body]]
+            Q[:, 3 * body] += F[:, 0]
+            Q[:, 3 * body + 1] += F[:, 1]
+            Q[:, 3 * body + 2] += F[:, 0] * w[:, 1] - F[:, 1] * w[:, 0]
         return Q, F_G + F_O, xG, xO
 
     # ------------------------------------------------------------------- solve
@@ -363,22 +423,15 @@ class ForceModel:
         J[:, self.r_lean, 3 * self.chassis + 2] = -ANGLE_ROW_MM * loads.locked + ANGLE_ROW_MM * ~loads.locked
         if lock >= 0:
             J[:, self.r_lean, 3 * lock + 2] += ANGLE_ROW_MM * loads.locked
-        Q, F_app, xG, xO = self.applied(xs, angs, design_points, loads)
-        # min-norm lambda on scaled columns: J^T lambda = -Q
-        scale = np.ones(self.n)
-        scale[2::3] = 1.0 / ANGLE_ROW_MM
-        Js = J * scale
-        A = np.einsum("nmi,nmj->nij", Js, Js)
-        tr = np.einsum("nii->n", A)
-        A[:, np.arange(self.n), np.arange(self.n)] += 1e-13 * tr[:, None]
-        b = -Q * scale
-        y = np.linalg.solve(A, b[..., None])[..., 0]
-        lam = np.einsum("nmi,ni->nm", Js, y)
-        res = np.einsum("nmi,nm->ni", J, lam) + Q
+        Q, F_app, xG, xO = self.applied(xs, angs, design_points, loads, cs)
+        redundant, free = self._rank(J, valid)
+        lam, Q, roll = self._min_norm(J, Q, loads.wheel_target_n[:, 0], square=redundant == 0 and free == 0)
+        res = (J.transpose(0, 2, 1) @ lam[..., None])[..., 0] + Q
+        scale = np.where(np.arange(self.n) % 3 == 2, 1.0 / ANGLE_ROW_MM, 1.0)
         qn = np.linalg.norm(Q * scale, axis=1)
         rel = np.linalg.norm(res * scale, axis=1) / np.maximum(qn, 1e-300)
         ok = valid & (rel <= EQUILIBRIUM_RTOL)
-        redundant, free = self._rank(J, valid)
+        ok &= np.isfinite(roll)
         lam = np.where(ok[:, None], lam, np.nan)
 
         P = len(self.pins)
@@ -388,7 +441,7 @@ class ForceModel:
         sl = lam[:, self.r_slider:self.r_ground]
         wheel = lam[:, self.r_ground:self.r_ground + 2]
         lat = lam[:, self.r_lat]
-        side = wheel * loads.side_ratio[:, None] + 0.5 * lat[:, None]
+        side = wheel * loads.side_ratio[:, None] + 0.5 * lat[:, None] + loads.kerb_force_n
         lean = np.where(loads.locked, -lam[:, self.r_lean], lam[:, self.r_lean])
         # out-of-plane braking at the chassis pivots
         Fx = loads.brake_g[:, None] * np.abs(wheel)                      # (N, 2)
@@ -397,15 +450,67 @@ class ForceModel:
             p = self.pins[k][0] if self.pins[k][1] == self.chassis else self.pins[k][2]
             lever[:, :, k] = np.linalg.norm(cs - xs[:, p][:, None, :], axis=-1)
         Mb = np.einsum("nw,wk,nwk->nk", Fx, self.brake_share, lever)
+        Vb = np.einsum("nw,wk->nk", Fx, self.brake_share)
         body_loads = self._body_loads(xs, cs, lam, loads)
         return ForceResult(
             row_names=self.row_names, n_coords=self.n, redundant=redundant, free=free,
             pin_force=pin_force, link_tension=link_t, spring_force=spring_f,
             slider_force=sl[:, 0::2], slider_moment=sl[:, 1::2], wheel_load=wheel, tyre_side_force=side,
-            lateral_force=lat, lean_moment=lean, brake_pivot_moment=Mb,
+            lateral_force=lat, lean_moment=lean, roll_couple=np.where(ok, roll, np.nan) / ANGLE_ROW_MM,
+            brake_pivot_moment=Mb, brake_pivot_shear=Vb,
             brake_bearing_force=Mb / self.base_mm[None, :], applied_force=F_app,
             equilibrium_residual=np.where(valid, rel, np.nan), ok=ok, lam=lam, positions=xs, contact=cs,
             body_loads=body_loads)
+
+    def _min_norm(self, J, Q, left_target, square=False):
+        """``lambda = J (J^T J)^-1 (-Q)`` on angle-scaled columns; with prescribed left tyre loads
+        (``left_target`` finite), plus the chassis roll couple that makes them come out.
+
+        ``square``: the topology is properly constrained (as many rows as coordinates, full rank), so
+        ``J^T lambda = -Q`` has one solution, found by one LU solve per state (the same lambda).
+
+        Returns
+        -------
+        lam : (N, m); Q : (N, n) with the roll couple added; roll : (N,) the couple, N*mm (NaN
+        where the tyre loads cannot be set by a chassis couple).
+        """
+        N = J.shape[0]
+        scale = np.ones(self.n)
+        scale[2::3] = 1.0 / ANGLE_ROW_MM
+        Js = J * scale
+        JsT = Js.transpose(0, 2, 1)
+
+        def normal_equations(B):
+            """lambda (N, m, k) for right-hand sides B (N, n, k), with one step of iterative
+            refinement (the normal equations square the condition number)."""
+            A = JsT @ Js
+            tr = np.einsum("nii->n", A)
+            A[:, np.arange(self.n), np.arange(self.n)] += 1e-13 * tr[:, None]
+            Ainv = np.linalg.inv(A)
+            lam = Js @ (Ainv @ B)
+            return lam + Js @ (Ainv @ (B - JsT @ lam))
+
+        def min_norm(B):
+            if square and self.m == self.n:
+                try:
+                    return np.linalg.solve(JsT, B)
+                except np.linalg.LinAlgError:    # a state exactly at a singular pose: the general rule
+                    pass
+            return normal_equations(B)
+
+        prescribed = None if left_target is None else np.isfinite(left_target)
+        if prescribed is None or not prescribed.any():
+            return min_norm((-Q * scale)[..., None])[..., 0], Q, np.zeros(N)
+        Qc = np.zeros_like(Q)
+        Qc[:, 3 * self.chassis + 2] = 1.0        # a unit roll couple on the chassis, N*mm
+        lam2 = min_norm(np.stack([-Q * scale, -Qc * scale], -1))
+        lam_q, lam_c = lam2[..., 0], lam2[..., 1]
+        per = lam_c[:, self.r_ground]                       # left tyre load per unit couple
+        good = np.abs(per) > 1e-12 * np.maximum(np.abs(lam_q[:, self.r_ground]), 1.0) / 1000.0
+        roll = np.where(prescribed, np.where(good, (left_target - lam_q[:, self.r_ground]) / np.where(good, per, 1.0),
+                                             np.nan), 0.0)
+        r0 = np.nan_to_num(roll)
+        return lam_q + r0[:, None] * lam_c, Q + r0[:, None] * Qc, roll
 
     def _rank(self, J, valid):
         idx = np.flatnonzero(valid)
@@ -424,20 +529,22 @@ class ForceModel:
         (a tyre force to its wheel centre, a guide's slider force to the guide point nearest
         the runner); the moments use the load's real position.
         """
-        out: dict[int, list] = {b: [] for b in range(self.nb)}
+        out: dict[int, list[BodyLoad]] = {b: [] for b in range(self.nb)}
         N = x.shape[0]
         zero = np.zeros(N)
+        mech = self.model.mech
         for k, (pa, ba, pb, bb) in enumerate(self.pins):
             f = lam[:, 2 * k:2 * k + 2]
-            out[ba].append((pa, x[:, pa], f, zero))
-            out[bb].append((pb, x[:, pb], -f, zero))
-        for r0, table in ((self.r_link, self.links), (self.r_spring, self.springs)):
+            out[ba].append(BodyLoad(pa, x[:, pa], f, zero, f"pin {mech.pins[k].name}"))
+            out[bb].append(BodyLoad(pb, x[:, pb], -f, zero, f"pin {mech.pins[k].name}"))
+        for r0, table, items, what in ((self.r_link, self.links, mech.links, "link"),
+                                       (self.r_spring, self.springs, mech.springs, "spring")):
             for k, (pa, ba, pb, bb) in enumerate(table):
                 d = x[:, pa] - x[:, pb]
                 u = d / np.linalg.norm(d, axis=-1, keepdims=True)
                 f = lam[:, r0 + k, None] * u
-                out[ba].append((pa, x[:, pa], f, zero))
-                out[bb].append((pb, x[:, pb], -f, zero))
+                out[ba].append(BodyLoad(pa, x[:, pa], f, zero, f"{what} {items[k].name}"))
+                out[bb].append(BodyLoad(pb, x[:, pb], -f, zero, f"{what} {items[k].name}"))
         for k, (pf, pt, ga, pb, rb) in enumerate(self.sliders):
             g = x[:, pt] - x[:, pf]
             g = g / np.linalg.norm(g, axis=-1, keepdims=True)
@@ -445,15 +552,18 @@ class ForceModel:
             r = self.r_slider + 2 * k
             f = lam[:, r, None] * nrm
             mom = lam[:, r + 1] * ANGLE_ROW_MM
-            out[rb].append((pb, x[:, pb], f, mom))
-            out[ga].append((self.slider_attach[k], x[:, pb], -f, -mom))
+            name = mech.sliders[k].name
+            out[rb].append(BodyLoad(pb, x[:, pb], f, mom, f"slider {name}"))
+            out[ga].append(BodyLoad(self.slider_attach[k], x[:, pb], -f, -mom, f"runner of slider {name}", k))
         for w, up in enumerate(self.upright):
-            f = np.stack([lam[:, self.r_ground + w] * loads.side_ratio + 0.5 * lam[:, self.r_lat],
-                          lam[:, self.r_ground + w]], -1)
-            out[up].append((self.model.wheel_centre[w], contact[:, w], f, zero))
+            f = np.stack([lam[:, self.r_ground + w] * loads.side_ratio + 0.5 * lam[:, self.r_lat]
+                          + loads.kerb_force_n[:, w], lam[:, self.r_ground + w]], -1)
+            out[up].append(BodyLoad(self.model.wheel_centre[w], contact[:, w], f, zero,
+                                    f"tyre {('left', 'right')[w]}"))
         if self.lock_body >= 0:
             mom = np.where(loads.locked, lam[:, self.r_lean] * ANGLE_ROW_MM, 0.0)
-            out[self.lock_body].append((self.lock_attach, x[:, self.lock_attach], np.zeros((N, 2)), mom))
+            out[self.lock_body].append(BodyLoad(self.lock_attach, x[:, self.lock_attach], np.zeros((N, 2)), mom,
+                                                "tilt lock"))
         return out
 
 
@@ -464,9 +574,15 @@ def state_loads(states, vehicle, n_candidates: int) -> StateLoads:
     def col(attr, dtype=float):
         return np.tile(np.array([getattr(s, attr) for s in states], dtype=dtype), n_candidates)
 
+    def pair(values):
+        return np.tile(np.array(values, dtype=float).reshape(S, 2), (n_candidates, 1))
+
+    nan2 = (np.nan, np.nan)
     return StateLoads(front_load_n=col("front_load_n"), rear_load_n=col("rear_load_n"),
                       side_ratio=col("side_ratio"), brake_g=col("brake_g"), locked=col("locked", bool),
-                      com_height_mm=np.full(n_candidates * S, vehicle.com_height_mm))
+                      com_height_mm=np.full(n_candidates * S, vehicle.com_height_mm),
+                      wheel_target_n=pair([s.wheel_load_n or nan2 for s in states]),
+                      kerb_force_n=pair([s.kerb_force_n for s in states]))
 
 
 def gather_states(sweep_result, states):
@@ -480,12 +596,11 @@ def gather_states(sweep_result, states):
     leans, travels = np.asarray(sweep_result.lean_deg), np.asarray(sweep_result.travel_mm)
     li, ti = [], []
     for s in states:
-        l = np.flatnonzero(np.abs(leans - s.lean_deg) < 1e-9)
-        t = np.flatnonzero(np.abs(travels - s.travel_mm) < 1e-9)
-        if not len(l) or not len(t):
+        l, t = int(np.argmin(np.abs(leans - s.lean_deg))), int(np.argmin(np.abs(travels - s.travel_mm)))
+        if abs(leans[l] - s.lean_deg) >= 1e-9 or abs(travels[t] - s.travel_mm) >= 1e-9:
             return None
-        li.append(l[0])
-        ti.append(t[0])
+        li.append(l)       # the nearest grid state (two leans closer than 1e-9 are both on the grid)
+        ti.append(t)
     li, ti = np.array(li), np.array(ti)
     r = sweep_result
     return (r.points[:, ti, li], r.body_angle[:, ti, li], r.contact[:, ti, li], r.converged[:, ti, li],
@@ -529,7 +644,7 @@ def analyse_forces(model: Model, geom: Geometry, loads, sweep_result=None, force
         The tables used (pass it back in to skip rebuilding them).
     """
     states = loads.states()
-    fm = force_model or ForceModel(model, loads.tilt_lock_body, loads.default_pivot_base_mm)
+    fm = force_model or ForceModel(model, loads.tilt_lock.body, loads.default_pivot_base_mm)
     pts, ang, contact, conv, status = sweep_states(model, geom, states, sweep_result)
     C, S = conv.shape
     design = np.repeat(geom.points, S, axis=0)

@@ -22,31 +22,39 @@ A loads file (TOML, our own format; a run config embeds the same tables, so
     [members.upper_beam]         # optional, per member (a body or a link name)
     material = "6061-T6"
 
-    [tilt_lock]
-    body = "upper_beam"          # optional: the body the lock holds the chassis to
+    [tilt_lock]                  # optional
+    body = "upper_beam"          # the body the lock holds the chassis to (default: the first pinned to it)
+    effective_radius_mm = 80.0   # disc-and-caliper lock: pad centre radius (default 80)
+    friction = 0.4               # pad-on-disc friction coefficient (default 0.4)
+    faces = 2                    # friction faces (a caliper clamps both faces of the disc: 2)
 
-    [[cases]]                    # optional; without any, the five defaults below
+    [springs]                    # optional: the spring setup (sprung linkages)
+    sag_mm = 30.0                # static sag: wheel travel from top-out to the design position
+                                 # (default: the droop limit of travel_mm)
+    travel_mm = [-30.0, 30.0]    # droop and bump limits the springs are checked over (tiltopt loads)
+
+    [fatigue]                    # optional: the fatigue screening of welded joints
+    cycles = 1000000             # bump cycles over the vehicle's life
+    peak_g = 1.5                 # each cycle: from the static load (1 g) to this factor and back
+    partial_factor = 1.35        # on the stress range
+
+    [[cases]]                    # optional; without any, one of each kind (kinematics/cases.py)
     name = "bump"
-    kind = "bump"                # static | bump | cornering | braking | parked
-    vertical_g = 3.0
+    kind = "bump"                # static | bump | one_wheel_bump | kerb_strike | cornering | braking | parked
+    vertical_g = 3.0             # bump factor (bump: both wheels; one_wheel_bump: one wheel's static load)
+    lateral_g = 1.0              # kerb_strike: lateral force / front axle static load
+    wheel = "left"               # one_wheel_bump, kerb_strike: the wheel hit (the mirror hits the other)
+    slope_deg = 5.7              # parked: cross slope, > 0 when the vehicle leans downhill
     travel_mm = 0.0
     lean_deg = 0.0
     brake_g = 0.0
-    mirror = true                # also evaluate the mirrored lean (-lean_deg)
+    tilt_locked = false          # default true for one_wheel_bump and parked
+    mirror = true                # also evaluate the mirrored case (other lean, slope or wheel)
+    source = "..."               # where the figures come from (shown beside the case)
 
-Default load cases and their sources:
-
-- ``static``: 1 g at lean 0, travel 0.
-- ``bump``: 3 g vertical on the front axle load. Peak off-road front-wheel
-  loads approach three times body weight (De Lorenzo & Hull, "Quantification
-  of structural loading during off-road cycling", J. Biomech. Eng. 1999).
-- ``cornering``: balanced cornering at the lean limit: the side force at each
-  tyre is its vertical load times tan(lean), toward the inside of the turn;
-  the centrifugal load acts at the centre of mass.
-- ``braking``: 0.7 g deceleration (common practice, no source: a good
-  tyre-limited stop on dry asphalt), with the load transfer
-  ``m a h / wheelbase`` onto the front axle.
-- ``parked``: 1 g at the parked lean, the tilt lock holding the chassis.
+The kinds, their defaults and sources are in :mod:`tiltopt.kinematics.cases`.
+A braking transfer the quasi-static formula cannot carry (rear load below
+zero) is an error naming the key.
 
 Front-view load model (see :mod:`tiltopt.kinematics.forces`): the front axle's
 vertical load ``W_f = m g (front_share n_z + brake_g h / wheelbase)`` acts at
@@ -56,7 +64,7 @@ the chassis centre line: its load ``W_r = m g (1 - front_share - brake_g h /
 wheelbase)`` acts at the centre of mass too and is reacted at the chassis datum
 O, so the roll moment of the rear share also goes through the linkage (a
 single rear tyre cannot resist roll). Set ``front_share = 1`` to put the whole
-vehicle on the linkage.
+vehicle on the linkage (then no braking case: nothing is left to transfer).
 """
 from __future__ import annotations
 
@@ -71,16 +79,22 @@ import numpy as np
 
 from tiltopt.base import inputs
 from tiltopt.base.errors import InputError, check_keys, read_text, read_toml
-from tiltopt.base.limits import MAX_COORD_MM, MAX_LEAN_LIMIT_DEG, MAX_MASS_KG, MAX_TRAVEL_MM
+from tiltopt.base.limits import (MAX_COORD_MM, MAX_FATIGUE_CYCLES, MAX_FRICTION_FACES, MAX_LEAN_LIMIT_DEG,
+                                 MAX_MASS_KG, MAX_SAFETY_FACTOR, MAX_SN_EXPONENT, MAX_TRAVEL_MM)
 from tiltopt.base.resources import data_path
 
-G = 9.80665  # standard gravity, m/s^2
-KINDS = ("static", "bump", "cornering", "braking", "parked")
+from .cases import (DEFAULT_BRAKE_G, DEFAULT_BUMP_G, KINDS, LoadCase, LoadState,  # noqa: F401 (re-exported)
+                    case_states, default_cases, extra_states, G, parse_cases)
+
 DEFAULT_SAFETY_FACTOR = 2.0
 DEFAULT_PIVOT_ALLOWANCE_G = 60.0
 DEFAULT_PIVOT_BASE_MM = 50.0
-DEFAULT_BUMP_G = 3.0       # De Lorenzo & Hull (see module docs)
-DEFAULT_BRAKE_G = 0.7      # common practice, no source
+DEFAULT_LOCK_RADIUS_MM = 80.0    # pad centre of a 180 mm disc (common practice, no source)
+DEFAULT_LOCK_FRICTION = 0.4      # brake pad on a steel disc, about 0.35-0.5 (common practice, no source)
+DEFAULT_SPRING_TRAVEL_MM = (-30.0, 30.0)   # the optimiser's default travel envelope of sprung templates
+DEFAULT_FATIGUE_CYCLES = 1.0e6   # our estimate: one marked bump every 20 m over 20 000 km (no source)
+DEFAULT_FATIGUE_PEAK_G = 1.5     # a 0.5 g range per cycle (our estimate, no source)
+DEFAULT_FATIGUE_PARTIAL = 1.35   # EN 1993-1-9 Table 3.1: safe life, high consequence (from memory)
 from tiltopt.base.safety import SAFETY_CAUTION  # noqa: E402,F401  (re-exported: loads output carries it)
 
 
@@ -95,39 +109,38 @@ class Vehicle:
 
 
 @dataclass(frozen=True)
-class LoadCase:
-    """One load case as written (before mirroring)."""
+class TiltLock:
+    """A disc-and-caliper tilt lock: ``T = faces x friction x F_clamp x r_eff``.
 
-    name: str
-    kind: str
-    lean_deg: float
-    travel_mm: float
-    vertical_g: float
-    brake_g: float
-    mirror: bool
+    ``body``: the body the lock holds the chassis to (None: the first body pinned to the chassis).
+    """
+
+    body: str | None = None
+    effective_radius_mm: float = DEFAULT_LOCK_RADIUS_MM
+    friction: float = DEFAULT_LOCK_FRICTION
+    faces: int = 2
+    friction_source: str = "pad on a steel disc, about 0.35 to 0.5 (common practice, no source)"
 
 
 @dataclass(frozen=True)
-class LoadState:
-    """One evaluated state of a load case (a case with a lean gives two: +lean and its mirror).
+class SpringSetup:
+    """How the springs are set up and over which travel they are checked (see kinematics/springs.py).
 
-    front_load_n : vertical front-axle load W_f, N (acts at the centre of mass).
-    rear_load_n : rear load W_r, N (at the centre of mass, reacted at the chassis datum O).
-    side_ratio : tyre side force / vertical load (tan lean in balanced cornering, else 0).
-    locked : the tilt lock holds the chassis (parked); otherwise the rider balances.
+    sag_mm : None means the droop limit of the travel envelope (top-out at full droop).
+    travel_mm : (droop, bump) limits for ``tiltopt loads`` (the optimiser uses its own envelope).
     """
 
-    name: str
-    case: str
-    kind: str
-    lean_deg: float
-    travel_mm: float
-    front_load_n: float
-    rear_load_n: float
-    side_ratio: float
-    brake_g: float
-    locked: bool
+    sag_mm: float | None = None
+    travel_mm: tuple[float, float] = DEFAULT_SPRING_TRAVEL_MM
 
+
+@dataclass(frozen=True)
+class FatigueSpec:
+    """The fatigue screening: ``cycles`` of a load change from 1 g to ``peak_g`` on the front axle."""
+
+    cycles: float = DEFAULT_FATIGUE_CYCLES
+    peak_g: float = DEFAULT_FATIGUE_PEAK_G
+    partial_factor: float = DEFAULT_FATIGUE_PARTIAL
 
 @dataclass(frozen=True)
 class Material:
@@ -137,6 +150,9 @@ class Material:
     yield_mpa: float
     allowable_mpa: float
     source: str
+    fatigue_fat_mpa: float | None = None     # stress range at 2e6 cycles of its welded joints
+    fatigue_slope: float = 3.0               # S-N exponent m
+    fatigue_source: str = ""
 
 
 @dataclass
@@ -171,28 +187,22 @@ class LoadsSpec:
     default_pivot_base_mm: float = DEFAULT_PIVOT_BASE_MM
     material: str = "4130"
     member_material: dict[str, str] = field(default_factory=dict)
-    tilt_lock_body: str | None = None
+    tilt_lock: TiltLock = field(default_factory=TiltLock)
+    springs: SpringSetup = field(default_factory=SpringSetup)
+    fatigue: FatigueSpec = field(default_factory=FatigueSpec)
     materials: dict[str, Material] = field(default_factory=dict)
     catalogue: Catalogue | None = None
     source: str = "<memory>"
 
+    @property
+    def tilt_lock_body(self) -> str | None:
+        return self.tilt_lock.body
+
     def states(self) -> list[LoadState]:
-        """Every evaluated state, in case order (mirrors right after their case)."""
-        v = self.vehicle
-        out = []
-        wg = v.total_mass_kg * G
-        for c in self.cases:
-            transfer = c.brake_g * v.com_height_mm / v.wheelbase_mm
-            wf = wg * (v.front_share * c.vertical_g + transfer)
-            wr = wg * (1.0 - v.front_share - transfer)
-            side = math.tan(math.radians(c.lean_deg)) if c.kind == "cornering" else 0.0
-            signs = (1.0, -1.0) if (c.mirror and c.lean_deg != 0.0) else (1.0,)
-            for sg in signs:
-                out.append(LoadState(
-                    name=c.name if sg > 0 else f"{c.name}_mirror", case=c.name, kind=c.kind,
-                    lean_deg=sg * c.lean_deg, travel_mm=c.travel_mm, front_load_n=wf, rear_load_n=wr,
-                    side_ratio=sg * side, brake_g=c.brake_g, locked=c.kind == "parked"))
-        return out
+        """Every evaluated state: the cases in order (mirrors right after their case), then the
+        reference and fatigue states (``role`` says which is which)."""
+        out = [st for c in self.cases for st in case_states(c, self.vehicle)]
+        return out + extra_states(self.cases, self.vehicle, self.fatigue.peak_g)
 
 
 # ------------------------------------------------------------------ helpers
@@ -250,15 +260,22 @@ def parse_materials(data: dict, src: str = "<memory>") -> dict[str, Material]:
     out = {}
     for name, t in mats.items():
         w = f"materials.{name}"
-        _keys(t, {"density_g_cm3", "elastic_modulus_gpa", "yield_mpa", "allowable_mpa", "source"}, src, w,
+        _keys(t, {"density_g_cm3", "elastic_modulus_gpa", "yield_mpa", "allowable_mpa", "source", "fatigue_fat_mpa",
+                  "fatigue_slope", "fatigue_source"}, src, w,
               ["density_g_cm3", "elastic_modulus_gpa", "yield_mpa", "allowable_mpa", "source"])
         y = _num(t, "yield_mpa", src, w, lo=0, lo_open=True)
         a = _num(t, "allowable_mpa", src, w, lo=0, lo_open=True)
         if a > y:
             raise InputError(f"allowable_mpa ({a:g}) cannot exceed yield_mpa ({y:g}).", src, w + ".allowable_mpa")
+        # a stress range stays elastic up to twice the yield (from -yield to +yield)
+        fat = _num(t, "fatigue_fat_mpa", src, w, lo=0, lo_open=True, hi=2.0 * y) if "fatigue_fat_mpa" in t else None
         out[name] = Material(name, _num(t, "density_g_cm3", src, w, lo=0, lo_open=True),
                              _num(t, "elastic_modulus_gpa", src, w, lo=0, lo_open=True), y, a,
-                             _str(t, "source", src, w))
+                             _str(t, "source", src, w), fat,
+                             _num(t, "fatigue_slope", src, w, 3.0, lo=1, hi=MAX_SN_EXPONENT),
+                             _str(t, "fatigue_source", src, w, ""))
+        if out[name].fatigue_fat_mpa is not None and not out[name].fatigue_source:
+            raise InputError("a fatigue class needs its source (fatigue_source).", src, w + ".fatigue_source")
     return out
 
 
@@ -306,30 +323,19 @@ def load_loads(path: str | Path) -> LoadsSpec:
     return parse_loads(_read_toml(path, "loads"), str(path), base_dir=path.parent)
 
 
-def default_cases(v: Vehicle) -> tuple[LoadCase, ...]:
-    """The five default cases (module docs give the sources)."""
-    return (
-        LoadCase("static", "static", 0.0, 0.0, 1.0, 0.0, False),
-        LoadCase("bump", "bump", 0.0, 0.0, DEFAULT_BUMP_G, 0.0, False),
-        LoadCase("cornering", "cornering", v.lean_limit_deg, 0.0, 1.0, 0.0, True),
-        LoadCase("braking", "braking", 0.0, 0.0, 1.0, DEFAULT_BRAKE_G, False),
-        LoadCase("parked", "parked", v.parked_lean_deg, 0.0, 1.0, 0.0, True),
-    )
-
-
 def parse_loads(data: dict, src: str = "<memory>", base_dir: str | Path | None = None) -> LoadsSpec:
     """Validate loads given as a TOML-like dict (see module docs).
 
     Parameters
     ----------
     data : dict
-        The tables ``vehicle``, ``sizing``, ``members``, ``tilt_lock``, ``cases``.
+        The tables ``vehicle``, ``sizing``, ``members``, ``tilt_lock``, ``springs``, ``fatigue``, ``cases``.
     src : str
         Name of the file (or config) for messages.
     base_dir : path, optional
         Folder that relative ``sizing.catalogue`` / ``sizing.materials`` paths start from.
     """
-    _keys(data, {"vehicle", "sizing", "members", "tilt_lock", "cases"}, src, "", ["vehicle"])
+    _keys(data, {"vehicle", "sizing", "members", "tilt_lock", "springs", "fatigue", "cases"}, src, "", ["vehicle"])
     vt = data["vehicle"]
     _keys(vt, {"total_mass_kg", "com_height_mm", "front_share", "wheelbase_mm", "lean_limit_deg",
                "parked_lean_deg"}, src, "vehicle",
@@ -367,7 +373,7 @@ def parse_loads(data: dict, src: str = "<memory>", base_dir: str | Path | None =
     check_material(material, "sizing.material")
     spec = LoadsSpec(
         vehicle=vehicle, cases=(),
-        safety_factor=_num(st, "safety_factor", src, "sizing", DEFAULT_SAFETY_FACTOR, lo=1.0, hi=100.0),
+        safety_factor=_num(st, "safety_factor", src, "sizing", DEFAULT_SAFETY_FACTOR, lo=1.0, hi=MAX_SAFETY_FACTOR),
         pivot_allowance_g=_num(st, "pivot_allowance_g", src, "sizing", DEFAULT_PIVOT_ALLOWANCE_G, lo=0,
                                hi=1000.0 * MAX_MASS_KG),
         default_pivot_base_mm=_num(st, "default_pivot_base_mm", src, "sizing", DEFAULT_PIVOT_BASE_MM, lo=0,
@@ -383,43 +389,47 @@ def parse_loads(data: dict, src: str = "<memory>", base_dir: str | Path | None =
         check_material(m, w + ".material")
         spec.member_material[name] = m
 
-    lock = data.get("tilt_lock", {})
-    _keys(lock, {"body"}, src, "tilt_lock")
-    if "body" in lock:
-        spec.tilt_lock_body = _str(lock, "body", src, "tilt_lock")
-
-    raw = data.get("cases")
-    if raw is None:
-        cases = default_cases(vehicle)
-    else:
-        if not isinstance(raw, list) or not raw or not all(isinstance(t, dict) for t in raw):
-            raise InputError("expected one or more [[cases]] tables.", src, "cases")
-        cases, names = [], set()
-        for i, t in enumerate(raw):
-            w = f"cases[{i}]"
-            _keys(t, {"name", "kind", "lean_deg", "travel_mm", "vertical_g", "brake_g", "mirror"}, src, w,
-                  ["name", "kind"])
-            name = _str(t, "name", src, w)
-            if name in names:
-                raise InputError(f"the case name {name!r} is used twice.", src, w + ".name")
-            names.add(name)
-            kind = _str(t, "kind", src, w)
-            if kind not in KINDS:
-                raise InputError(f"unknown kind {kind!r}. Expected one of: {', '.join(KINDS)}.", src, w + ".kind")
-            lean_default = {"cornering": vehicle.lean_limit_deg, "parked": vehicle.parked_lean_deg}.get(kind, 0.0)
-            mirror = t.get("mirror", True)
-            if not isinstance(mirror, bool):
-                raise InputError(f"expected true or false. Got {mirror!r} instead.", src, w + ".mirror")
-            cases.append(LoadCase(
-                name=name, kind=kind,
-                lean_deg=_num(t, "lean_deg", src, w, lean_default, lo=-MAX_LEAN_LIMIT_DEG, hi=MAX_LEAN_LIMIT_DEG),
-                travel_mm=_num(t, "travel_mm", src, w, 0.0, lo=-MAX_TRAVEL_MM, hi=MAX_TRAVEL_MM),
-                vertical_g=_num(t, "vertical_g", src, w, DEFAULT_BUMP_G if kind == "bump" else 1.0, lo=0, hi=100.0),
-                brake_g=_num(t, "brake_g", src, w, DEFAULT_BRAKE_G if kind == "braking" else 0.0, lo=0, hi=2),
-                mirror=mirror))
-        cases = tuple(cases)
+    spec.tilt_lock = _parse_lock(data.get("tilt_lock", {}), src)
+    spec.springs = _parse_springs(data.get("springs", {}), src)
+    spec.fatigue = _parse_fatigue(data.get("fatigue", {}), src)
+    cases = parse_cases(data.get("cases"), vehicle, src)
     spec.cases = cases
     return spec
+
+
+def _parse_lock(t: Any, src: str) -> TiltLock:
+    _keys(t, {"body", "effective_radius_mm", "friction", "faces"}, src, "tilt_lock")
+    faces = t.get("faces", 2)
+    if isinstance(faces, bool) or not isinstance(faces, int) or not 1 <= faces <= MAX_FRICTION_FACES:
+        raise InputError(f"expected a whole number of friction faces from 1 to {MAX_FRICTION_FACES} (2 for a caliper "
+                         f"on a disc). Got {faces!r}.", src, "tilt_lock.faces")
+    mu = _num(t, "friction", src, "tilt_lock", DEFAULT_LOCK_FRICTION, lo=0, lo_open=True, hi=2)
+    return TiltLock(
+        body=_str(t, "body", src, "tilt_lock") if "body" in t else None,
+        effective_radius_mm=_num(t, "effective_radius_mm", src, "tilt_lock", DEFAULT_LOCK_RADIUS_MM, lo=0,
+                                 lo_open=True, hi=MAX_COORD_MM),
+        friction=mu, faces=faces,
+        friction_source=TiltLock.friction_source if "friction" not in t else "loads file")
+
+
+def _parse_springs(t: Any, src: str) -> SpringSetup:
+    _keys(t, {"sag_mm", "travel_mm"}, src, "springs")
+    tr = t.get("travel_mm", list(DEFAULT_SPRING_TRAVEL_MM))
+    if not isinstance(tr, list) or len(tr) != 2:
+        raise InputError(f"expected [droop, bump] in mm, e.g. [-30.0, 30.0]. Got {tr!r} instead.", src,
+                         "springs.travel_mm")
+    lo = _num({"v": tr[0]}, "v", src, "springs.travel_mm[0]", lo=-MAX_TRAVEL_MM, hi=0)
+    hi = _num({"v": tr[1]}, "v", src, "springs.travel_mm[1]", lo=0, hi=MAX_TRAVEL_MM)
+    sag = _num(t, "sag_mm", src, "springs", lo=0, lo_open=True, hi=MAX_TRAVEL_MM) if "sag_mm" in t else None
+    return SpringSetup(sag, (lo, hi))
+
+
+def _parse_fatigue(t: Any, src: str) -> FatigueSpec:
+    _keys(t, {"cycles", "peak_g", "partial_factor"}, src, "fatigue")
+    return FatigueSpec(cycles=_num(t, "cycles", src, "fatigue", DEFAULT_FATIGUE_CYCLES, lo=1, hi=MAX_FATIGUE_CYCLES),
+                       peak_g=_num(t, "peak_g", src, "fatigue", DEFAULT_FATIGUE_PEAK_G, lo=1, lo_open=True, hi=10),
+                       partial_factor=_num(t, "partial_factor", src, "fatigue", DEFAULT_FATIGUE_PARTIAL, lo=1,
+                                           hi=MAX_SAFETY_FACTOR))
 
 
 def check_loads_for(spec: LoadsSpec, mech) -> None:
@@ -436,7 +446,7 @@ def check_loads_for(spec: LoadsSpec, mech) -> None:
         if name not in members:
             raise InputError(f"no member {name!r} in mechanism '{mech.name}'. Members (bodies other than the "
                              f"chassis, and links): {', '.join(members)}.", spec.source, f"members.{name}")
-    lock = spec.tilt_lock_body
+    lock = spec.tilt_lock.body
     if lock is not None:
         pinned = [b for p in mech.pins for b in (p.a.split(".")[0], p.b.split(".")[0])
                   if mech.chassis in (p.a.split(".")[0], p.b.split(".")[0]) and b != mech.chassis]

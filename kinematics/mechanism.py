@@ -17,7 +17,15 @@ File format (all lengths mm, angles degrees)::
                 base_mm (optional): bearing spacing of the pivot along x, for
                 the out-of-plane (braking) load model of tiltopt.kinematics.forces
     [[links]]   a, b, name (optional)
-    [[springs]] name, a, b, rate_n_per_mm, free_length_mm, preload_n (optional)
+    [[springs]] name, a, b; optional: kind = "coil" | "elastomer" (default
+                coil), rate_n_per_mm (coil rate; elastomer: initial rate of
+                the default curve), curve = [[deflection_mm, force_n], ...]
+                (force-deflection points from the free length, rising; a
+                progressive coil or a rubber block), max_deflection_mm (the
+                compression at which the spring is solid: coil bind, bump
+                stop, a fully compressed block; default for a curve: its last
+                point), free_length_mm, preload_n (your setup, compared with
+                the suggested one; see tiltopt.kinematics.springs)
     [[sliders]] name (optional), a_from, a_to (a line on one body), b (a point
                 of another body that runs on that line; the two bodies keep
                 their relative angle)
@@ -47,12 +55,13 @@ from __future__ import annotations
 
 import math
 import re
+import reprlib
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any, Iterable
 
 from tiltopt.base.errors import InputError, check_keys, read_toml
-from tiltopt.base.limits import MAX_ABS_LEAN_DEG, check_coord
+from tiltopt.base.limits import MAX_ABS_LEAN_DEG, MAX_FORCE_N, MAX_RANGE_VALUES, check_coord, check_count
 
 PIN_TOLERANCE_MM = 0.01
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
@@ -102,6 +111,9 @@ class Spring:
     rate_n_per_mm: float | None = None
     free_length_mm: float | None = None
     preload_n: float | None = None
+    kind: str = "coil"
+    curve: tuple[tuple[float, float], ...] | None = None
+    max_deflection_mm: float | None = None
 
 
 @dataclass(frozen=True)
@@ -207,11 +219,14 @@ def _check_keys(table: dict, allowed: Iterable[str], required: Iterable[str], sr
 
 
 def _number(value: Any, src: str, key: str, *, positive: bool = False, nonneg: bool = False,
-            length: bool = True) -> float:
-    """A finite number; a length or coordinate (``length``, the default) within +-MAX_COORD_MM."""
+            length: bool = True, force: bool = False) -> float:
+    """A finite number; a length or coordinate (``length``, the default) within +-MAX_COORD_MM, a force
+    (``force``, with ``length=False``) within +-MAX_FORCE_N."""
     if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
         raise InputError(f"expected a finite number. Got {value!r} instead.", src, key)
     value = check_coord(float(value), src, key, "length or coordinate") if length else float(value)
+    if force and abs(value) > MAX_FORCE_N:
+        raise InputError(f"a force must be within +-{MAX_FORCE_N:g} N. Got {value!r} instead.", src, key)
     if positive and value <= 0:
         raise InputError(f"must be positive. Got {value} instead.", src, key)
     if nonneg and value < 0:
@@ -230,6 +245,45 @@ def _list_of_tables(data: dict, name: str, src: str) -> list[dict]:
     if not isinstance(items, list) or not all(isinstance(t, dict) for t in items):
         raise InputError(f"expected an array of tables ([[{name}]]).", src, name)
     return items
+
+
+SPRING_KINDS = ("coil", "elastomer")
+
+
+def _spring_curve(t: dict, opt: dict, src: str, w: str) -> dict:
+    """The ``kind`` and ``curve`` keys of a spring (checked against its other keys)."""
+    kind = _string(t.get("kind", "coil"), src, w + ".kind")
+    if kind not in SPRING_KINDS:
+        raise InputError(f"expected one of: {', '.join(SPRING_KINDS)}. Got {kind!r} instead.", src, w + ".kind")
+    out: dict = {"kind": kind}
+    if "curve" in t:
+        pts = t["curve"]
+        if not isinstance(pts, list) or len(pts) < 2 or not all(isinstance(p, list) and len(p) == 2 for p in pts):
+            raise InputError("expected at least two [deflection_mm, force_n] points, e.g. [[0.0, 0.0], [10.0, "
+                             f"500.0]]. Got {reprlib.repr(pts)} instead.", src, w + ".curve")
+        check_count(len(pts), MAX_RANGE_VALUES, "curve points", "Give the curve at fewer deflections.", src,
+                    w + ".curve")
+        xy = [(_number(p[0], src, f"{w}.curve[{i}][0]", nonneg=True),
+               _number(p[1], src, f"{w}.curve[{i}][1]", nonneg=True, length=False, force=True))
+              for i, p in enumerate(pts)]
+        if xy[0][0] > 0.0:
+            xy.insert(0, (0.0, 0.0))          # the free length: no deflection, no force
+        elif xy[0][1] != 0.0:
+            raise InputError(f"at zero deflection the force is zero (the free length). Got {list(xy[0])}.", src,
+                             f"{w}.curve[0]")
+        for i, (p, q) in enumerate(zip(xy[:-1], xy[1:])):
+            if not (q[0] > p[0] and q[1] > p[1]):
+                raise InputError(f"deflections and forces must both rise from point to point (the curve starts at "
+                                 f"[0, 0]). Got {list(p)} then {list(q)}.", src, f"{w}.curve")
+        out["curve"] = tuple(xy)
+        if opt.get("max_deflection_mm", 0.0) > xy[-1][0]:
+            raise InputError(f"max_deflection_mm ({opt['max_deflection_mm']:g}) lies beyond the curve's last point "
+                             f"({xy[-1][0]:g} mm): extend the curve to where the spring is solid.", src,
+                             w + ".max_deflection_mm")
+    elif kind == "elastomer" and ("rate_n_per_mm" not in opt or "max_deflection_mm" not in opt):
+        raise InputError("an elastomer spring needs its force-deflection points (curve), or rate_n_per_mm and "
+                         "max_deflection_mm for the default progressive curve.", src, w)
+    return out
 
 
 def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
@@ -336,15 +390,17 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
     springs = []
     for i, t in enumerate(_list_of_tables(data, "springs", src)):
         w = f"springs[{i}]"
-        _check_keys(t, ["name", "a", "b", "rate_n_per_mm", "free_length_mm", "preload_n"],
-                    ["name", "a", "b"], src, w)
+        _check_keys(t, ["name", "a", "b", "rate_n_per_mm", "free_length_mm", "preload_n", "kind", "curve",
+                        "max_deflection_mm"], ["name", "a", "b"], src, w)
         a, b = ref(t["a"], w + ".a"), ref(t["b"], w + ".b")
         _check_length(bodies, a, b, src, w)
         opt = {}
         for k, kw in (("rate_n_per_mm", dict(positive=True, length=False)), ("free_length_mm", dict(positive=True)),
-                      ("preload_n", dict(nonneg=True, length=False))):
+                      ("preload_n", dict(nonneg=True, length=False, force=True)),
+                      ("max_deflection_mm", dict(positive=True))):
             if k in t:
                 opt[k] = _number(t[k], src, f"{w}.{k}", **kw)
+        opt.update(_spring_curve(t, opt, src, w))
         springs.append(Spring(unique(_string(t["name"], src, w + ".name"), w + ".name"), a, b, **opt))
 
     sliders = []
@@ -519,10 +575,14 @@ def mechanism_to_toml(mech: Mechanism, header: str = "") -> str:
                 f"b = {_q(g.b)}"] + _tube_lines(g)
     for s in mech.springs:
         out += ["", "[[springs]]", f"name = {_q(s.name)}", f"a = {_q(s.a)}", f"b = {_q(s.b)}"]
-        for k in ("rate_n_per_mm", "free_length_mm", "preload_n"):
+        if s.kind != "coil":
+            out.append(f"kind = {_q(s.kind)}")
+        for k in ("rate_n_per_mm", "free_length_mm", "preload_n", "max_deflection_mm"):
             v = getattr(s, k)
             if v is not None:
                 out.append(f"{k} = {_fmt(v)}")
+        if s.curve is not None:
+            out.append("curve = [" + ", ".join(f"[{_fmt(x)}, {_fmt(f)}]" for x, f in s.curve) + "]")
     for s in mech.sliders:
         out += ["", "[[sliders]]", f"name = {_q(s.name)}", f"a_from = {_q(s.a_from)}", f"a_to = {_q(s.a_to)}",
                 f"b = {_q(s.b)}"]

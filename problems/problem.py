@@ -54,6 +54,7 @@ METRIC_UNITS = {
     "max_overall_width_mm": "mm", "total_slot_length_mm": "mm", "inside_violation_mm": "mm",
     "outside_violation_mm": "mm", "pivot_shell_distance_mm": "mm",
     "linkage_mass_kg": "kg", "max_utilisation": "1", "tilt_lock_torque_nm": "N*m",
+    "max_spring_force_n": "N", "spring_stroke_mm": "mm", "spring_bottoming_margin_mm": "mm",
 }
 CLEARANCE_KEYS = ("min_wheel_shell_mm", "min_wheel_link_mm", "min_clearance_mm", "min_ground_mm",
                   "max_overall_width_mm", "total_slot_length_mm", "inside_violation_mm", "outside_violation_mm")
@@ -177,8 +178,11 @@ class TiltProblem(Problem):
             metrics[k] = nan()
         sprung = bool(len(model.spring_names))
         if sprung:
-            for k in ("max_bump_track_change_mm", "max_bump_camber_change_deg", "motion_ratio"):
+            for k in ("max_bump_track_change_mm", "max_bump_camber_change_deg", "motion_ratio", "spring_stroke_mm"):
                 metrics[k] = nan()
+            if spec.needs_sizing:
+                for k in ("max_spring_force_n", "spring_bottoming_margin_mm"):
+                    metrics[k] = nan()
         if spec.needs_clearance:
             for k in CLEARANCE_KEYS + ("pivot_shell_distance_mm",):
                 metrics[k] = nan()
@@ -224,6 +228,9 @@ class TiltProblem(Problem):
                     np.nan)
                 t0 = int(np.argmin(np.abs(env.travel_mm)))
                 metrics["motion_ratio"][idx] = np.where(ok, np.mean(sr.motion_ratio[:, t0], axis=-1), np.nan)
+                sl = np.where(okc[..., None], sr.spring_length, np.nan).reshape(len(idx), -1, len(model.spring_names))
+                stroke = np.max(np.nan_to_num(sl.max(1) - sl.min(1), nan=-np.inf), 1)
+                metrics["spring_stroke_mm"][idx] = np.where(ok, stroke, np.nan)
             # first failed state of each non-converged candidate
             for j in np.flatnonzero(~ok):
                 bad_tl = np.argwhere(~conv[j])
@@ -258,6 +265,13 @@ class TiltProblem(Problem):
                 for j in np.flatnonzero(ok & ~np.asarray(sz.feasible, bool)):
                     if "stress" in self.constraint_names or "linkage_mass" in self.objective_names:
                         reasons[idx[j]].append(f"stress: {sz.reason[j] or 'sizing failed'}")
+                if sprung:
+                    from tiltopt.kinematics.springs import analyse_springs
+
+                    sp = analyse_springs(model, g, sz, spec.loads.springs, sweep_result=sr)
+                    metrics["max_spring_force_n"][idx] = np.where(ok, np.max(sz.spring_max_n, 1), np.nan)
+                    margin = np.where(np.isfinite(sp.bottoming_margin_mm), sp.bottoming_margin_mm, np.inf).min(1)
+                    metrics["spring_bottoming_margin_mm"][idx] = np.where(ok & np.isfinite(margin), margin, np.nan)
 
         # -------------------------------------------------------- objectives
         base_ok = geom_ok & all_conv
@@ -303,6 +317,14 @@ class TiltProblem(Problem):
             elif name == "pivots_inside_shell":
                 val, msg = (metrics["pivot_shell_distance_mm"] + lim.pivot_margin_mm,
                             "a chassis pivot is {v:.1f} mm short of being inside the shell by the margin")
+            elif name == "spring_force":
+                val, msg = (metrics["max_spring_force_n"] - lim.max_spring_force_n,
+                            "spring force {v:.0f} N over the limit")
+            elif name == "spring_stroke":
+                val, msg = (metrics["spring_stroke_mm"] - lim.max_spring_stroke_mm,
+                            "spring stroke {v:.1f} mm over the limit")
+            elif name == "spring_bottoming":
+                val, msg = -metrics["spring_bottoming_margin_mm"], "a spring is solid {v:.1f} mm before full bump"
             elif name == "stress":
                 u = metrics["max_utilisation"]
                 val = np.where(sizing_feasible, np.minimum(u - 1.0, 0.0),

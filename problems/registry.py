@@ -103,7 +103,17 @@ CONSTRAINTS: dict[str, ConstraintSpec] = {c.name: c for c in [
                    CLEARANCE, "pivot_margin_mm"),
     ConstraintSpec("stress", "1", "every member within its allowable stress and buckling load "
                    "(G = max utilisation - 1)", SIZING, "stress"),
+    ConstraintSpec("spring_force", "N", "largest spring force over the load cases at most the limit (the spring "
+                   "unit's rating; G = force - limit)", SIZING, "max_spring_force_n"),
+    ConstraintSpec("spring_stroke", "mm", "spring stroke over the envelope (longest - shortest length) at most "
+                   "the limit (G = stroke - limit)", SWEEP, "max_spring_stroke_mm"),
+    ConstraintSpec("spring_bottoming", "mm", "no spring solid over the envelope: its compression at full bump, "
+                   "carrying the static load at the design position, within its max deflection (G = -margin)",
+                   SIZING, "spring_bottoming"),
 ]}
+
+#: constraint keys that are switches (true / false) rather than limits
+SWITCH_KEYS = ("stress", "spring_bottoming")
 
 ALGORITHMS: dict[str, str] = {
     "nsga2": "NSGA-II (default): fast non-dominated sorting with crowding distance; 2 or 3 objectives",

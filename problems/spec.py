@@ -5,7 +5,8 @@ Tables (TOML, our own format; lengths mm, angles degrees)::
     objectives = ["overall_width", "max_scrub", "max_heave"]   # tiltopt.problems.registry.OBJECTIVES
     shell = "shell.toml"            # optional body shell (relative to the config)
     loads = "loads.toml"            # optional loads file, or embed [vehicle], [sizing],
-                                    # [members.*], [tilt_lock], [[load_cases]] (tiltopt.kinematics.loads)
+                                    # [members.*], [tilt_lock], [springs], [fatigue], [[load_cases]]
+                                    # (tiltopt.kinematics.loads)
 
     [template]
     name = "twin_beam"              # a built-in (tiltopt.problems.registry.TEMPLATES), or
@@ -41,6 +42,9 @@ Tables (TOML, our own format; lengths mm, angles degrees)::
     ground_clearance_mm = 60.0      # with a shell: lowest shell/link point >= this
     pivot_margin_mm = 0.0           # with a shell: chassis joint points inside by >= margin (default 0)
     stress = true                   # with loads: members within allowables (default true)
+    max_spring_force_n = 2500.0     # with loads, sprung: largest spring force over the load cases
+    max_spring_stroke_mm = 50.0     # sprung: spring stroke over the envelope
+    spring_bottoming = false        # with loads, sprung: no spring solid over the envelope
 
 A ``[run]`` table is the optimiser's and is skipped here.
 """
@@ -55,22 +59,25 @@ import numpy as np
 
 from tiltopt.base import inputs
 from tiltopt.base.errors import InputError, check_keys
-from tiltopt.base.limits import (MAX_ABS_LEAN_DEG, MAX_LEAN_LIMIT_DEG, MAX_RANGE_VALUES, MAX_STATES, MAX_TRAVEL_MM,
-                                 check_count)
+from tiltopt.base.limits import (MAX_ABS_LEAN_DEG, MAX_COORD_MM, MAX_FORCE_N, MAX_LEAN_LIMIT_DEG, MAX_RANGE_VALUES,
+                                 MAX_STATES, MAX_TRAVEL_MM, check_count)
 from tiltopt.kinematics.mechanism import load_mechanism
 
-from .registry import CLEARANCE, CONSTRAINTS, OBJECTIVES, SIZING, TEMPLATES
+from .registry import CLEARANCE, CONSTRAINTS, OBJECTIVES, SIZING, SWITCH_KEYS, TEMPLATES
 from .templates import Template, get_template, template_from_mechanism
 
 PROBLEM_KEYS = ("template", "envelope", "objectives", "constraints", "shell", "loads", "vehicle", "sizing",
-                "members", "tilt_lock", "load_cases")
+                "members", "tilt_lock", "load_cases", "springs", "fatigue")
+LOADS_TABLES = ("vehicle", "sizing", "members", "tilt_lock", "springs", "fatigue")   # embedded loads tables
 SKIPPED_KEYS = ("run",)
 DEFAULT_LEAN_LIMIT_DEG = 30.0
 DEFAULT_LEAN_STEP_DEG = 5.0
 DEFAULT_SPRUNG_TRAVEL_MM = (-30.0, 0.0, 30.0)
 DEFAULT_CLEARANCE_MARGIN_MM = 10.0   # our own default (a working gap for tyre growth and fixings)
 _CONSTRAINT_KEYS = ("max_width_mm", "max_scrub_mm", "max_heave_mm", "max_camber_error_deg", "clearance_margin_mm",
-                    "wheel_shell_margin_mm", "ground_clearance_mm", "pivot_margin_mm", "stress")
+                    "wheel_shell_margin_mm", "ground_clearance_mm", "pivot_margin_mm", "stress",
+                    "max_spring_force_n", "max_spring_stroke_mm", "spring_bottoming")
+_CONSTRAINT_MAX = {"max_spring_force_n": MAX_FORCE_N, "max_spring_stroke_mm": MAX_COORD_MM}   # upper input limits
 
 
 @dataclass(frozen=True)
@@ -108,6 +115,9 @@ class Limits:
     ground_clearance_mm: float | None = None
     pivot_margin_mm: float | None = None
     stress: bool = False
+    max_spring_force_n: float | None = None
+    max_spring_stroke_mm: float | None = None
+    spring_bottoming: bool = False
 
 
 @dataclass
@@ -148,7 +158,9 @@ class ProblemSpec:
 
     @property
     def needs_sizing(self) -> bool:
-        return self.loads is not None and ("linkage_mass" in self.objectives or "stress" in self.constraints)
+        return self.loads is not None and ("linkage_mass" in self.objectives or "stress" in self.constraints
+                                           or "spring_force" in self.constraints
+                                           or "spring_bottoming" in self.constraints)
 
     def size(self) -> dict:
         """Problem size for ``tiltopt check``: variables, objectives, constraints, states per candidate."""
@@ -283,10 +295,10 @@ def _parse_constraints(c: Any, src: str, has_shell: bool, has_loads: bool) -> Li
     _keys(c, set(_CONSTRAINT_KEYS), src, "constraints")
     vals: dict[str, Any] = {}
     for k in _CONSTRAINT_KEYS:
-        if k == "stress" or k not in c:
+        if k in SWITCH_KEYS or k not in c:
             continue
         lo = None if k in ("pivot_margin_mm", "clearance_margin_mm", "wheel_shell_margin_mm") else 0.0
-        vals[k] = _num(c[k], src, f"constraints.{k}", lo=lo, lo_open=k.startswith("max_"))
+        vals[k] = _num(c[k], src, f"constraints.{k}", lo=lo, lo_open=k.startswith("max_"), hi=_CONSTRAINT_MAX.get(k))
     needs_shell = [k for k in ("clearance_margin_mm", "wheel_shell_margin_mm", "ground_clearance_mm",
                                "pivot_margin_mm") if k in vals]
     if needs_shell and not has_shell:
@@ -295,13 +307,33 @@ def _parse_constraints(c: Any, src: str, has_shell: bool, has_loads: bool) -> Li
     if has_shell:
         vals.setdefault("clearance_margin_mm", DEFAULT_CLEARANCE_MARGIN_MM)
         vals.setdefault("pivot_margin_mm", 0.0)
-    stress = c.get("stress", has_loads)
-    if not isinstance(stress, bool):
-        raise InputError(f"expected true or false. Got {stress!r} instead.", src, "constraints.stress")
-    if stress and not has_loads:
-        raise InputError("the stress constraint needs loads. Add loads = \"loads.toml\" or a [vehicle] table, or "
-                         "set stress = false.", src, "constraints.stress")
-    return Limits(stress=stress, **vals)
+    switches = {}
+    for k in SWITCH_KEYS:
+        v = c.get(k, has_loads and k == "stress")
+        if not isinstance(v, bool):
+            raise InputError(f"expected true or false. Got {v!r} instead.", src, f"constraints.{k}")
+        if v and not has_loads:
+            raise InputError(f"the {k} constraint needs loads. Add loads = \"loads.toml\" or a [vehicle] table, or "
+                             f"set {k} = false.", src, f"constraints.{k}")
+        switches[k] = v
+    if "max_spring_force_n" in vals and not has_loads:
+        raise InputError("max_spring_force_n needs loads. Add loads = \"loads.toml\" or a [vehicle] table, or "
+                         "remove the key.", src, "constraints.max_spring_force_n")
+    return Limits(**switches, **vals)
+
+
+def _check_spring_limits(limits: Limits, template: Template, src: str) -> None:
+    """Spring constraints need springs (and, for bottoming, a spring that says where it is solid)."""
+    keys = [k for k in ("max_spring_force_n", "max_spring_stroke_mm") if getattr(limits, k) is not None]
+    keys += ["spring_bottoming"] if limits.spring_bottoming else []
+    springs = template.mechanism.springs
+    if keys and not springs:
+        raise InputError(f"template '{template.name}' has no springs. Remove {keys[0]}.", src, f"constraints.{keys[0]}")
+    if limits.spring_bottoming and not any(s.max_deflection_mm is not None or (s.kind == "elastomer" and s.curve)
+                                           for s in springs):
+        raise InputError("no spring of the template says where it is solid: give max_deflection_mm (or an "
+                         "elastomer curve) in the mechanism file, or set spring_bottoming = false.", src,
+                         "constraints.spring_bottoming")
 
 
 def _constraint_names(limits: Limits, has_shell: bool) -> tuple[str, ...]:
@@ -309,8 +341,8 @@ def _constraint_names(limits: Limits, has_shell: bool) -> tuple[str, ...]:
     for name, spec in CONSTRAINTS.items():
         if name == "converged":
             continue
-        if spec.key == "stress":
-            if limits.stress:
+        if spec.key in SWITCH_KEYS:
+            if getattr(limits, spec.key):
                 out.append(name)
         elif spec.key is not None:
             if getattr(limits, spec.key) is not None:
@@ -327,7 +359,7 @@ def _load_shell(path: Path, src: str):
 
 
 def _load_loads(data: dict, src: str, base_dir: Path):
-    embedded = [k for k in ("vehicle", "sizing", "members", "tilt_lock", "load_cases") if k in data]
+    embedded = [k for k in LOADS_TABLES + ("load_cases",) if k in data]
     if "loads" in data and embedded:
         raise InputError(f"give either loads = \"file\" or embedded loads tables, not both (found [{embedded[0]}]).",
                          src, embedded[0])
@@ -338,7 +370,7 @@ def _load_loads(data: dict, src: str, base_dir: Path):
     if "loads" in data:
         p = _path(data["loads"], src, "loads", base_dir)
         return load_loads(p), p
-    sub = {k: data[k] for k in ("vehicle", "sizing", "members", "tilt_lock") if k in data}
+    sub = {k: data[k] for k in LOADS_TABLES if k in data}
     if "load_cases" in data:
         sub["cases"] = data["load_cases"]
     if "vehicle" not in sub:
@@ -403,6 +435,7 @@ def parse_problem(data: dict, src: str = "<memory>", base_dir: str | Path | None
         raise InputError(f"each objective may appear once. Got {obj}.", src, "objectives")
 
     limits = _parse_constraints(data.get("constraints"), src, shell is not None, loads is not None)
+    _check_spring_limits(limits, template, src)
     return ProblemSpec(template=template, envelope=envelope, objectives=tuple(obj),
                        constraints=_constraint_names(limits, shell is not None), limits=limits,
                        shell_path=shell_path, shell=shell, loads_path=loads_path, loads=loads, source=src,

@@ -48,6 +48,7 @@ import numpy as np
 from tiltopt.base.errors import InputError, decode_toml, read_toml
 from tiltopt.base.limits import MAX_COORD_MM
 from tiltopt.base.resources import config_path
+from tiltopt.kinematics.disjoint_sets import DisjointSets
 from tiltopt.kinematics.mechanism import Mechanism, load_mechanism, mechanism_to_toml, parse_mechanism, split_ref
 from tiltopt.kinematics.model import Geometry, Model
 
@@ -181,22 +182,11 @@ class Template:
                     f"{mr} at [{-y}, {z}]" + (" (no such point)." if j is None else f" (it is at {list(P0[j])}).")
                     + " Make the mechanism symmetric (tiltopt.kinematics.mechanism.mirror helps).", self.source)
             partner[i] = j
-        # pin groups (union-find)
-        parent = list(range(n_pts))
-
-        def find(a):
-            while parent[a] != a:
-                parent[a] = parent[parent[a]]
-                a = parent[a]
-            return a
-
+        # pin groups: points joined by pins move together
+        pins = DisjointSets(n_pts)
         for pin in mech.pins:
-            ra, rb = find(idx[pin.a]), find(idx[pin.b])
-            parent[ra] = rb
-        groups: dict[int, list[int]] = {}
-        for i in range(n_pts):
-            groups.setdefault(find(i), []).append(i)
-        group_of = [groups[find(i)] for i in range(n_pts)]
+            pins.union(idx[pin.a], idx[pin.b])
+        group_of = pins.groups()
         hubs = {idx[w.centre]: w for w in mech.wheels}
 
         A = np.zeros((n_var, n_pts, 2))

@@ -240,7 +240,9 @@ PROBES = [
     Probe("Loads file", "[vehicle]", _loads, _table("vehicle"), _parse_loads, _table("vehicle")),
     Probe("Loads file", "[sizing]", _loads, _table("sizing"), _parse_loads, _table("sizing")),
     Probe("Loads file", "[members.NAME]", _loads, _table("members", "upper_beam"), _parse_loads),
-    Probe("Loads file", "[tilt_lock]", _loads, _table("tilt_lock"), _parse_loads),
+    Probe("Loads file", "[tilt_lock]", _loads, _table("tilt_lock"), _parse_loads, _table("tilt_lock")),
+    Probe("Loads file", "[springs]", _loads, _table("springs"), _parse_loads, _table("springs")),
+    Probe("Loads file", "[fatigue]", _loads, _table("fatigue"), _parse_loads, _table("fatigue")),
     Probe("Loads file", "[[cases]]", _loads, _append("cases"), _parse_loads, _first("cases")),
     Probe("Materials file", "Top level", lambda: _toml(data_path("materials.toml")), _top, _parse_materials, _top),
     Probe("Materials file", "[materials.\"NAME\"]", lambda: _toml(data_path("materials.toml")),
@@ -307,10 +309,12 @@ def test_template_variable_file_top_level_keys(tmp_path):
 
 
 def test_embedded_loads_tables_in_a_run_config_are_the_loads_file_tables():
-    """[vehicle] and [[load_cases]] of a run config take the loads file's [vehicle] and [[cases]] keys."""
-    d = _embedded_loads()
-    d["vehicle"][PROBE] = 1
-    assert accepted_keys(_parse_config, d, "vehicle") == set(documented("Loads file", "[vehicle]"))
+    """[vehicle], [tilt_lock], [springs], [fatigue] and [[load_cases]] of a run config take the loads file's
+    tables' keys ([[load_cases]] those of [[cases]])."""
+    for table in ("vehicle", "tilt_lock", "springs", "fatigue"):
+        d = _embedded_loads()
+        d.setdefault(table, {})[PROBE] = 1
+        assert accepted_keys(_parse_config, d, table) == set(documented("Loads file", f"[{table}]")), table
     d = _embedded_loads()
     d["load_cases"] = [{PROBE: 1}]
     assert accepted_keys(_parse_config, d, "cases[0]") == set(documented("Loads file", "[[cases]]"))

@@ -16,19 +16,15 @@ from tiltopt.kinematics.solver import Batch, newton
 DEMO_LOADS = CONFIGS / "loads_demo.toml"
 
 
+VEHICLE = dict(total_mass_kg=100.0, com_height_mm=600.0, front_share=0.6, wheelbase_mm=1400.0, lean_limit_deg=20.0)
+
+
 def _spec(**vehicle):
-    v = dict(total_mass_kg=100.0, com_height_mm=600.0, front_share=1.0, wheelbase_mm=1400.0,
-             lean_limit_deg=20.0)
-    v.update(vehicle)
-    return parse_loads({"vehicle": v}, "<test>")
+    return parse_loads({"vehicle": dict(VEHICLE, **vehicle)}, "<test>")
 
 
 def _spec_cases(cases, **vehicle):
-    spec = _spec(**vehicle)
-    v = spec.vehicle
-    return parse_loads({"vehicle": {k: getattr(v, k) for k in ("total_mass_kg", "com_height_mm", "front_share",
-                                                                 "wheelbase_mm", "lean_limit_deg")},
-                        "cases": cases}, "<test>")
+    return parse_loads({"vehicle": dict(VEHICLE, **vehicle), "cases": cases}, "<test>")
 
 
 @pytest.mark.parametrize("name", ["twin_beam", "twin_beam_sprung", "wishbone_rocker"])
@@ -60,12 +56,13 @@ def test_global_equilibrium_every_case(name):
         xO = x[pr] - np.array([cs * P[0] + sn * P[1], -sn * P[0] + cs * P[1]])
         xG = xO + spec.vehicle.com_height_mm * np.array([sn, cs])
         d = np.array([s.side_ratio, 1.0])
-        FG = -(s.front_load_n + s.rear_load_n) * d
+        FG = -(s.front_load_n + s.rear_load_n) * d - np.array([sum(s.kerb_force_n), 0.0])   # kerb: lateral inertia
         FO = s.rear_load_n * d
         m_app = FG[0] * xG[1] - FG[1] * xG[0] + FO[0] * xO[1] - FO[1] * xO[0]
-        # the rider's balance moment acts between ground and chassis (external); a tilt lock acts
-        # between chassis and linkage (internal) and drops out of the whole-vehicle balance
-        m_total = m_tyre + m_app + (0.0 if s.locked else 1000.0 * f.lean_moment[i])
+        # the rider's balance moment acts between ground and chassis (external), and so does the roll
+        # couple of the chassis's inertia in a one-wheel bump; a tilt lock acts between chassis and
+        # linkage (internal) and drops out of the whole-vehicle balance
+        m_total = m_tyre + m_app + (0.0 if s.locked else 1000.0 * f.lean_moment[i]) + 1000.0 * f.roll_couple[i]
         assert abs(m_total) <= 1e-9 * scale * 1000.0, (s.name, m_total)
 
 
@@ -117,15 +114,26 @@ def test_tilt_lock_torque_hand_model():
     # mass (height h above O) has potential W_f (r (1 - cos phi) + h cos phi); the rear load W_r is a
     # couple on the chassis with arm h sin phi. The beams stay level, so the lock angle moves with
     # phi and the lock torque on the chassis is -dV/dphi = -(W_f (h - r) + W_r h) sin phi.
+    #
+    # On a cross slope beta, leaning downhill, gravity W (sin beta, -cos beta) has a part across the
+    # ground too, so the lateral motion of the lean matters. The force analysis holds each tyre's
+    # contact as a material point of the tyre (grip), so in the virtual lean motion the tyres roll on
+    # their crowns: with the crown centres of the ideal linkage fixed relative to the contact midpoint,
+    # the vehicle shifts by r dphi, and dy_O = r (1 - cos phi) dphi, dz_O = r sin phi dphi (the
+    # contacts lie 23 sin phi outboard of the hubs' lean: hub +- 330 + 250 sin phi, contact 227 sin phi
+    # inboard of it). With y_G - y_O = h sin phi, z_G - z_O = h cos phi:
+    #   dV/dphi = -(W_f (h - r) + W_r h) sin(phi + beta) - W_f r sin beta,
+    # the flat formula at phi + beta plus the work of the cross-slope part on the rolling shift.
     model = Model(mech_of(twin_beam()))
-    for share, phi_deg in ((1.0, 20.0), (0.45, 12.0)):
+    for share, phi_deg, beta_deg in ((1.0, 20.0, 0.0), (0.45, 12.0, 0.0), (0.45, 8.0, 5.7), (0.6, 3.0, 10.0)):
         m, h, r = 150.0, 650.0, 23.0
-        spec = _spec_cases([{"name": "parked", "kind": "parked", "lean_deg": phi_deg}],
+        spec = _spec_cases([{"name": "parked", "kind": "parked", "lean_deg": phi_deg, "slope_deg": beta_deg}],
                            total_mass_kg=m, com_height_mm=h, front_share=share)
         states, f, status, fm = analyse_forces(model, model.default_geometry, spec)
         W = m * G
         Wf, Wr = share * W, (1 - share) * W
-        want = -(Wf * (h - r) + Wr * h) * math.sin(math.radians(phi_deg)) / 1000.0      # N*m
+        b = math.radians(beta_deg)
+        want = -((Wf * (h - r) + Wr * h) * math.sin(math.radians(phi_deg) + b) + Wf * r * math.sin(b)) / 1000.0
         assert f.ok.all()
         assert f.lean_moment[0] == pytest.approx(want, rel=1e-9)
         assert f.lean_moment[1] == pytest.approx(-want, rel=1e-9)      # the mirrored state
@@ -148,7 +156,7 @@ def test_over_constrained_parallelogram_flagged_and_min_norm():
     J[:, fm.r_lean, 3 * fm.lock_body + 2] += np.where(sl.locked, 1000.0, 0.0)
     Q, *_ = fm.applied(f.positions, np.zeros((len(states), len(model.body_names))) +
                        np.radians([s.lean_deg for s in states])[:, None], np.repeat(
-                           model.default_geometry.points, len(states), 0), sl)
+                           model.default_geometry.points, len(states), 0), sl, f.contact)
     lam_ref = np.linalg.lstsq(J[i].T, -Q[i], rcond=None)[0]
     assert np.allclose(f.lam[i], lam_ref, rtol=1e-7, atol=1e-7 * np.abs(lam_ref).max())
 
@@ -159,7 +167,7 @@ def test_determinate_tie_link_hand_forces():
     # contact, e = 50 mm outboard of the upright line. Moments about the top pin: the horizontal
     # tie at the bottom carries T = N e / 200 in tension (it pulls the bottom inward).
     model = Model(mech_of(tie_link_beam(e=50.0)))
-    spec = _spec_cases([{"name": "s", "kind": "static"}], total_mass_kg=120.0)
+    spec = _spec_cases([{"name": "s", "kind": "static"}], total_mass_kg=120.0, front_share=1.0)
     states, f, status, fm = analyse_forces(model, model.default_geometry, spec)
     assert f.redundant == 0 and f.free == 0 and f.ok.all()
     N = 120.0 * G / 2
@@ -215,3 +223,44 @@ def test_equilibrium_holds_per_candidate_in_a_batch():
         s = states[i % S]
         tyre = np.stack([f.tyre_side_force[i], f.wheel_load[i]], -1).sum(0)
         assert np.all(np.abs(tyre + f.applied_force[i]) <= 1e-9 * s.front_load_n)
+
+
+def test_one_wheel_bump_hand_statics():
+    # Ideal parallelogram (hubs on the upright lines, contacts at y = +-330 mm), lean 0, tilt held,
+    # left wheel at 3 x its static load n_s = W_f / 2, right at n_s. The tyre loads come out as
+    # prescribed. Chassis free body: its pivots lie on y = 0 and carry only vertical forces here
+    # (no lateral load), the loads at the centre of mass and O act on y = 0 too, so the tilt-lock
+    # torque and the roll couple of the chassis's inertia balance: T = -M. Linkage free body about
+    # the pivots: the lower beam turns freely, so the locked upper beam takes the moment of the
+    # tyre loads, T = 330 (N_L - N_R) on the chassis (sign: lean sense), whatever the indeterminate
+    # split between the beams.
+    model = Model(mech_of(twin_beam()))
+    spec = _spec_cases([{"name": "owb", "kind": "one_wheel_bump", "vertical_g": 3.0}], front_share=0.5)
+    states, f, status, fm = analyse_forces(model, model.default_geometry, spec)
+    n_s = 100.0 * G * 0.5 / 2
+    assert f.ok.all() and [s.name for s in states][:2] == ["owb", "owb_mirror"]
+    assert f.wheel_load[0] == pytest.approx([3 * n_s, n_s], rel=1e-12)
+    assert f.wheel_load[1] == pytest.approx([n_s, 3 * n_s], rel=1e-12)
+    T = 330.0 * (3 * n_s - n_s) / 1000.0
+    assert abs(f.lean_moment[0]) == pytest.approx(T, rel=1e-9)
+    assert f.roll_couple[0] == pytest.approx(-f.lean_moment[0], rel=1e-9)
+    assert f.lean_moment[1] == pytest.approx(-f.lean_moment[0], rel=1e-9)
+
+
+def test_kerb_strike_hand_statics():
+    # Ideal parallelogram, tilt free, a kerb pushes the left tyre inward with F = lateral_g W_f at
+    # ground level; the vehicle's lateral inertia -F acts at the centre of mass (h = 600 mm). The
+    # beams pivot freely, so the tyre loads stay W_f / 2 each (free body of each beam about its
+    # pivot), and the rider's / roll inertia's moment on the chassis closes the balance of the whole
+    # vehicle: M = F h (lean sense; inertia -F at height h has the moment -F h).
+    model = Model(mech_of(twin_beam()))
+    spec = _spec_cases([{"name": "kerb", "kind": "kerb_strike", "lateral_g": 0.8}], front_share=0.5)
+    states, f, status, fm = analyse_forces(model, model.default_geometry, spec)
+    Wf = 100.0 * G * 0.5
+    F = 0.8 * Wf
+    assert f.ok.all()
+    assert f.wheel_load[0] == pytest.approx([Wf / 2, Wf / 2], rel=1e-9)
+    assert f.tyre_side_force[0] == pytest.approx([F, 0.0], abs=1e-9 * F)
+    assert f.lateral_force[0] == pytest.approx(0.0, abs=1e-9 * F)
+    assert f.lean_moment[0] == pytest.approx(F * 600.0 / 1000.0, rel=1e-9)
+    assert f.tyre_side_force[1] == pytest.approx([0.0, -F], abs=1e-9 * F)       # the mirror: right wheel, inward

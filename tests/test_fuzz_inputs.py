@@ -80,11 +80,32 @@ def _write(path: Path, text: str) -> Path:
 
 def _mech_text(**replace) -> str:
     """The built-in wishbone-rocker mechanism with some lines replaced (``old line -> new line``)."""
-    text = (CONFIGS / "wishbone_rocker.toml").read_text(encoding="utf-8")
-    for old, new in replace.items():
+    return _edited((CONFIGS / "wishbone_rocker.toml").read_text(encoding="utf-8"), *replace.items())
+
+
+def _edited(text: str, *edits: tuple[str, str]) -> str:
+    for old, new in edits:
         assert old in text, old
         text = text.replace(old, new, 1)
     return text
+
+
+def _loads_text(tmp_path: Path, *edits: tuple[str, str]) -> Path:
+    """The demo loads file with lines edited (``(old, new)``, first occurrence)."""
+    return _write(tmp_path / "l.toml", _edited(LOADS.read_text(encoding="utf-8"), *edits))
+
+
+def _materials_loads(tmp_path: Path, *edits: tuple[str, str]) -> Path:
+    """The demo loads file naming an edited copy of the built-in materials file."""
+    from tiltopt.base.resources import data_path
+
+    _write(tmp_path / "materials.toml", _edited(data_path("materials.toml").read_text(encoding="utf-8"), *edits))
+    return _loads_text(tmp_path, ("[sizing]", '[sizing]\nmaterials = "materials.toml"'))
+
+
+def _sprung_text(*edits: tuple[str, str]) -> str:
+    """The built-in twin-beam sprung mechanism (elastomer springs with curves) with lines edited."""
+    return _edited((CONFIGS / "twin_beam_sprung.toml").read_text(encoding="utf-8"), *edits)
 
 
 def _fifo(tmp_path: Path) -> Path:
@@ -111,10 +132,7 @@ def _config(tmp_path, *edits, text=None) -> Path:
     for f in ("shell_demo.toml", "loads_demo.toml"):
         shutil.copy(CONFIGS / f, tmp_path / f)
     text = text if text is not None else (CONFIGS / "demo.toml").read_text(encoding="utf-8")
-    for old, new in edits:
-        assert old in text, old
-        text = text.replace(old, new, 1)
-    return _write(tmp_path / "cfg.toml", text)
+    return _write(tmp_path / "cfg.toml", _edited(text, *edits))
 
 
 CSV_OK = "x_mm,y_mm,z_mm\n" + "".join(f"{x},{y},{z}\n" for x in (-300.0, 300.0) for y, z in
@@ -171,6 +189,58 @@ FILE_CASES = [
      ["travel_mm"]),
     ("loads-catalogue-device", lambda t: ["loads", MECH, "--loads", _write(t / "l.toml", LOADS.read_text().replace(
         "[sizing]", '[sizing]\ncatalogue = "/dev/zero"', 1))], ["not a regular file"]),
+    ("loads-lock-faces-1e18", lambda t: ["loads", MECH, "--loads", _loads_text(t, ("faces = 2", "faces = 1000000000000000000"))],
+     ["tilt_lock.faces", "1 to 100"]),
+    ("loads-lock-radius-1e308", lambda t: ["loads", MECH, "--loads", _loads_text(t, (
+        "effective_radius_mm = 80.0", "effective_radius_mm = 1e308"))], ["tilt_lock.effective_radius_mm", "at most"]),
+    ("loads-lock-friction-nan", lambda t: ["loads", MECH, "--loads", _loads_text(t, ("friction = 0.4", "friction = nan"))],
+     ["tilt_lock.friction", "finite"]),
+    ("loads-springs-sag-1e9", lambda t: ["loads", MECH, "--loads", _loads_text(t, ("sag_mm = 30.0", "sag_mm = 1e9"))],
+     ["springs.sag_mm", "at most 200"]),
+    ("loads-springs-travel-huge", lambda t: ["loads", MECH, "--loads", _loads_text(t, (
+        "travel_mm = [-30.0, 30.0]", "travel_mm = [-1e308, 30.0]"))], ["springs.travel_mm[0]", "at least -200"]),
+    ("loads-springs-travel-text", lambda t: ["loads", MECH, "--loads", _loads_text(t, (
+        "travel_mm = [-30.0, 30.0]", 'travel_mm = "all"'))], ["springs.travel_mm", "[droop, bump]"]),
+    ("loads-fatigue-cycles-1e308", lambda t: ["loads", MECH, "--loads", _loads_text(t, (
+        "cycles = 1000000", "cycles = 1e308"))], ["fatigue.cycles", "at most"]),
+    ("loads-fatigue-partial-inf", lambda t: ["loads", MECH, "--loads", _loads_text(t, (
+        "partial_factor = 1.35", "partial_factor = inf"))], ["fatigue.partial_factor", "finite"]),
+    ("loads-fatigue-peak-below-1", lambda t: ["loads", MECH, "--loads", _loads_text(t, ("peak_g = 1.5", "peak_g = 0.5"))],
+     ["fatigue.peak_g", "greater than 1"]),
+    ("loads-case-slope-1e308", lambda t: ["loads", MECH, "--loads", _loads_text(t, ("slope_deg = 5.7", "slope_deg = 1e308"))],
+     ["slope_deg", "at most 45"]),
+    ("loads-case-vertical-g-1e9", lambda t: ["loads", MECH, "--loads", _loads_text(t, (
+        "vertical_g = 3.0          # both", "vertical_g = 1e9          # both"))], ["cases[1].vertical_g", "at most 100"]),
+    ("loads-case-lateral-g-huge", lambda t: ["loads", MECH, "--loads", _loads_text(t, ("lateral_g = 1.0", "lateral_g = 1e300"))],
+     ["cases[3].lateral_g", "at most 5"]),
+    ("loads-case-lean-1e308", lambda t: ["loads", MECH, "--loads", _loads_text(t, (
+        'kind = "cornering"', 'kind = "cornering"\nlean_deg = -1e308'))], ["cases[4].lean_deg", "at least -60"]),
+    ("loads-case-wheel-middle", lambda t: ["loads", MECH, "--loads", _loads_text(t, (
+        'kind = "kerb_strike"', 'kind = "kerb_strike"\nwheel = "middle"'))], ["cases[3].wheel", "'left' or 'right'"]),
+    ("loads-case-unlocked-one-wheel", lambda t: ["loads", MECH, "--loads", _loads_text(t, (
+        'kind = "one_wheel_bump"', 'kind = "one_wheel_bump"\ntilt_locked = false'))], ["cases[2].tilt_locked"]),
+    ("loads-case-brake-lifts-rear", lambda t: ["loads", MECH, "--loads", _loads_text(t, ("brake_g = 0.7", "brake_g = 2.0"))],
+     ["cases[5].brake_g", "rear wheel would lift"]),
+    ("loads-materials-fat-1e308", lambda t: ["loads", MECH, "--loads", _materials_loads(t, (
+        "fatigue_fat_mpa = 36.0", "fatigue_fat_mpa = 1e308"))], ["fatigue_fat_mpa", "at most 870"]),
+    ("loads-materials-slope-1e9", lambda t: ["loads", MECH, "--loads", _materials_loads(t, (
+        "fatigue_slope = 3.0", "fatigue_slope = 1e9"))], ["fatigue_slope", "at most 25"]),
+    # springs in mechanism files
+    ("mech-spring-curve-force-1e308", lambda t: ["check", _write(t / "m.toml", _sprung_text(
+        ("[70.0, 1700.0]]", "[70.0, 1e308]]")))], ["springs[0].curve[7][1]", "1e+06 N"]),
+    ("mech-spring-curve-deflection-1e308", lambda t: ["check", _write(t / "m.toml", _sprung_text(
+        ("[70.0, 1700.0]]", "[1e308, 1700.0]]")))], ["springs[0].curve[7][0]", "100000"]),
+    ("mech-spring-curve-not-pairs", lambda t: ["check", _write(t / "m.toml", _sprung_text(
+        ("[70.0, 1700.0]]", "[70.0]]")))], ["springs[0].curve", "[deflection_mm, force_n]"]),
+    ("mech-spring-curve-falls", lambda t: ["check", _write(t / "m.toml", _sprung_text(
+        ("[70.0, 1700.0]]", "[70.0, 1000.0]]")))], ["springs[0].curve", "must both rise"]),
+    ("mech-spring-kind-unknown", lambda t: ["check", _write(t / "m.toml", _sprung_text(
+        ('kind = "elastomer"', 'kind = "air"')))], ["springs[0].kind", "coil, elastomer"]),
+    ("mech-spring-preload-1e308", lambda t: ["check", _write(t / "m.toml", _mech_text(
+        **{"max_deflection_mm = 45.0": "max_deflection_mm = 45.0\npreload_n = 1e308"}))],
+     ["springs[0].preload_n", "1e+06 N"]),
+    ("mech-spring-max-deflection-1e308", lambda t: ["check", _write(t / "m.toml", _mech_text(
+        **{"max_deflection_mm = 45.0": "max_deflection_mm = 1e308"}))], ["springs[0].max_deflection_mm", "100000"]),
     # run configs
     ("config-population-1e8", lambda t: ["check", _config(t, ("population = 100", "population = 100000000"))],
      ["run.population", "at most"]),
@@ -191,6 +261,15 @@ FILE_CASES = [
      ["template.bounds.hub_y"]),
     ("config-travel-huge", lambda t: ["check", _config(t, ("travel_mm = [-30.0, 0.0, 30.0]", "travel_mm = [1e9]"))],
      ["envelope.travel_mm[0]"]),
+    ("config-spring-force-1e308", lambda t: ["check", _config(t, ("max_width_mm = 900.0",
+                                                                 "max_width_mm = 900.0\nmax_spring_force_n = 1e308"))],
+     ["constraints.max_spring_force_n", "at most"]),
+    ("config-spring-stroke-inf", lambda t: ["check", _config(t, ("max_width_mm = 900.0",
+                                                                "max_width_mm = 900.0\nmax_spring_stroke_mm = inf"))],
+     ["constraints.max_spring_stroke_mm", "finite"]),
+    ("config-spring-bottoming-number", lambda t: ["check", _config(t, ("max_width_mm = 900.0",
+                                                                      "max_width_mm = 900.0\nspring_bottoming = 1"))],
+     ["constraints.spring_bottoming", "true or false"]),
     ("config-benchmark-n-var", lambda t: ["check", _config(t, text='[run]\nname = "b"\nseed = 1\npopulation = 8\n'
                                                                    'generations = 1\n[benchmark]\nname = "zdt1"\n'
                                                                    'n_var = 1000000000000\n')], ["benchmark.n_var"]),
@@ -454,6 +533,14 @@ def test_loads_reader_raises_only_input_errors():
     from tiltopt.kinematics.loads import parse_loads
 
     assert _only_input_errors(_toml("loads_demo.toml"), lambda d: parse_loads(d, "loads", CONFIGS)) > 300
+
+
+def test_materials_reader_raises_only_input_errors():
+    from tiltopt.base.resources import data_path
+    from tiltopt.kinematics.loads import parse_materials
+
+    data = tomllib.loads(data_path("materials.toml").read_text(encoding="utf-8"))
+    assert _only_input_errors(data, lambda d: parse_materials(d, "materials")) > 300
 
 
 def test_run_config_reader_raises_only_input_errors():

@@ -106,3 +106,67 @@ def test_a_big_batch_starts_with_yes(tmp_path, monkeypatch):
     assert len(batch.load_batch(path).items) == 4
     with pytest.raises(InputError, match=re.escape("4 runs")):
         batch.load_batch(path, confirm_above=3)
+
+
+def _demo_loads():
+    import tomllib
+
+    return tomllib.loads((CONFIGS / "loads_demo.toml").read_text(encoding="utf-8"))
+
+
+@pytest.mark.parametrize("table, key, limit", [
+    ("sizing", "safety_factor", limits.MAX_SAFETY_FACTOR),
+    ("fatigue", "partial_factor", limits.MAX_SAFETY_FACTOR),
+    ("fatigue", "cycles", limits.MAX_FATIGUE_CYCLES),
+    ("tilt_lock", "faces", limits.MAX_FRICTION_FACES),
+    ("tilt_lock", "effective_radius_mm", limits.MAX_COORD_MM),
+    ("springs", "sag_mm", limits.MAX_TRAVEL_MM),
+    ("cases", "vertical_g", limits.MAX_LOAD_FACTOR_G),
+    ("cases", "travel_mm", limits.MAX_TRAVEL_MM),
+])
+def test_loads_limits_are_inclusive(table, key, limit):
+    """A loads value at its limit is read; one step beyond is one message naming the key."""
+    from tiltopt.kinematics.loads import parse_loads
+
+    beyond = limit + 1 if isinstance(limit, int) else limit * (1 + 1e-6)
+    for value, ok in ((limit, True), (beyond, False)):
+        data = _demo_loads()
+        where = data[table][1] if table == "cases" else data[table]     # the demo's "bump" case
+        where[key] = value
+        if ok:
+            parse_loads(data, "loads", CONFIGS)
+        else:
+            with pytest.raises(InputError) as info:
+                parse_loads(data, "loads", CONFIGS)
+            assert info.value.key.endswith(key), str(info.value)
+
+
+@pytest.mark.parametrize("value, ok", [(limits.MAX_FORCE_N, True), (limits.MAX_FORCE_N * 1.01, False)])
+def test_one_force_limit_for_springs_the_sheet_and_the_constraints(tmp_path, value, ok):
+    """A spring's preload and curve forces, the sheet's --corner-load-n and the max_spring_force_n constraint
+    share one limit."""
+    import tomllib
+
+    from tiltopt.kinematics.mechanism import parse_mechanism
+    from tiltopt.problems.spec import parse_problem
+
+    mech = tomllib.loads((CONFIGS / "wishbone_rocker.toml").read_text(encoding="utf-8"))
+    mech["springs"][0]["preload_n"] = value
+    sprung = tomllib.loads((CONFIGS / "twin_beam_sprung.toml").read_text(encoding="utf-8"))
+    sprung["springs"][0]["curve"][-1][1] = value
+    problem = {"objectives": ["max_scrub"], "template": {"name": "wishbone_rocker"}, "vehicle": _demo_loads()["vehicle"],
+               "constraints": {"max_spring_force_n": value}}
+    r = CliRunner().invoke(main, ["sheet", str(CONFIGS / "twin_beam.toml"), "-o", str(tmp_path / "s"), "--travel", "0",
+                                  "--corner-load-n", repr(value)])
+    checks = ((parse_mechanism, mech, "springs[0].preload_n"), (parse_mechanism, sprung, "springs[0].curve[7][1]"),
+              (parse_problem, problem, "constraints.max_spring_force_n"))
+    if ok:
+        for parse, data, _ in checks:
+            parse(data, "src")
+        assert r.exit_code == 0, r.output
+    else:
+        for parse, data, key in checks:
+            with pytest.raises(InputError) as info:
+                parse(data, "src")
+            assert info.value.key == key, str(info.value)
+        assert r.exit_code == 2 and "--corner-load-n" in r.output

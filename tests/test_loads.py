@@ -24,23 +24,57 @@ def test_standard_gravity():
 
 
 def test_default_cases_and_front_load_transfer():
-    # Defaults named in the issue and kinematics/loads.py: static 1 g; bump 3 g (De Lorenzo & Hull);
-    # balanced cornering at the lean limit with side force = N tan(lean); braking 0.7 g (common
-    # practice, no source); parked at the lean limit. Braking load transfer by hand: m a h / wheelbase
-    # (rigid-body pitch balance, closed form): 200 * 9.80665 * 0.7 * 600 / 1500 = 549.17 N.
+    # Defaults of kinematics/cases.py, each with its source: static 1 g; bump 3 g (De Lorenzo & Hull);
+    # one-wheel bump 3 x one wheel's static load, tilt held; kerb strike 1 g of the front axle load
+    # at one contact (common practice); balanced cornering at the lean limit with side force
+    # = N tan(lean); braking 0.7 g (common practice, no source); parked on a 5.7 deg (10 %) cross
+    # slope. Braking load transfer by hand: m a h / wheelbase (rigid-body pitch balance, closed form):
+    # 200 * 9.80665 * 0.7 * 600 / 1500 = 549.17 N.
     spec = parse_loads({"vehicle": VEHICLE}, "<test>")
     names = [s.name for s in spec.states()]
-    assert names == ["static", "bump", "cornering", "cornering_mirror", "braking", "parked", "parked_mirror"]
+    assert names == ["static", "bump", "one_wheel_bump", "one_wheel_bump_mirror", "kerb_strike", "kerb_strike_mirror",
+                     "cornering", "cornering_mirror", "braking", "parked", "parked_mirror", "fatigue range"]
     st = {s.name: s for s in spec.states()}
+    assert all(s.source for s in spec.states())
     W = 200.0 * G
+    n_s = 0.5 * W / 2
     assert st["static"].front_load_n == pytest.approx(0.5 * W)
     assert st["bump"].front_load_n == pytest.approx(3.0 * 0.5 * W)
+    assert st["one_wheel_bump"].wheel_load_n == pytest.approx((3 * n_s, n_s))
+    assert st["one_wheel_bump_mirror"].wheel_load_n == pytest.approx((n_s, 3 * n_s))
+    assert st["one_wheel_bump"].locked and st["one_wheel_bump"].front_load_n == pytest.approx(4 * n_s)
+    assert st["kerb_strike"].kerb_force_n == pytest.approx((0.5 * W, 0.0))          # inward on the left wheel
+    assert st["kerb_strike_mirror"].kerb_force_n == pytest.approx((0.0, -0.5 * W))
     assert st["braking"].front_load_n == pytest.approx(0.5 * W + 549.1724, abs=1e-3)
     assert st["braking"].rear_load_n == pytest.approx(0.5 * W - 549.1724, abs=1e-3)
     assert st["cornering"].side_ratio == pytest.approx(math.tan(math.radians(25.0)))
     assert st["cornering_mirror"].lean_deg == -25.0 and st["cornering_mirror"].side_ratio < 0
-    assert st["parked"].locked and st["parked"].lean_deg == 25.0 and st["parked"].side_ratio == 0.0
+    # parked on the slope, leaning downhill: gravity W (sin b, -cos b); the tyres hold the part across
+    b = math.radians(5.7)
+    assert st["parked"].locked and st["parked"].lean_deg == 25.0
+    assert st["parked"].side_ratio == pytest.approx(-math.tan(b)) and st["parked_mirror"].side_ratio == pytest.approx(
+        math.tan(b))
+    assert st["parked"].front_load_n + st["parked"].rear_load_n == pytest.approx(W * math.cos(b))
+    assert st["fatigue range"].role == "fatigue" and st["fatigue range"].front_load_n == pytest.approx(0.5 * 0.5 * W)
     assert spec.safety_factor == 2.0
+
+
+@pytest.mark.parametrize("vehicle, cases, key", [
+    # front_share = 1: the linkage carries the whole vehicle, nothing is left on a rear wheel to
+    # transfer: rear load m g (1 - 1 - 0.7 h / L) < 0 (the formula of kinematics/cases.py)
+    (dict(VEHICLE, front_share=1.0), None, "vehicle.front_share"),
+    (dict(VEHICLE, front_share=0.8), [{"name": "stop", "kind": "braking", "brake_g": 0.6}], "cases[0].brake_g"),
+])
+def test_braking_beyond_the_transfer_formula_is_refused(vehicle, cases, key):
+    # By hand: with front share 0.8, h = 600, L = 1500 the rear wheel keeps a load while
+    # 0.8 + a 600 / 1500 <= 1, i.e. up to a = 0.5 g; 0.6 g would lift it.
+    data = {"vehicle": vehicle} if cases is None else {"vehicle": vehicle, "cases": cases}
+    with pytest.raises(InputError) as e:
+        parse_loads(data, "my_loads.toml")
+    assert e.value.key == key and "rear wheel would lift" in str(e.value)
+    ok = parse_loads({"vehicle": dict(VEHICLE, front_share=0.8),
+                      "cases": [{"name": "stop", "kind": "braking", "brake_g": 0.5}]}, "<test>")
+    assert ok.states()[0].rear_load_n == pytest.approx(0.0, abs=1e-9)
 
 
 def test_materials_file_matches_sources():
@@ -62,7 +96,9 @@ def test_materials_file_matches_sources():
 def test_demo_loads_file_parses():
     spec = load_loads(DEMO_LOADS)
     assert spec.vehicle.total_mass_kg > 0 and 0 < spec.vehicle.front_share < 1
-    assert {c.kind for c in spec.cases} == {"static", "bump", "cornering", "braking", "parked"}
+    assert {c.kind for c in spec.cases} == {"static", "bump", "one_wheel_bump", "kerb_strike", "cornering", "braking",
+                                            "parked"}
+    assert spec.tilt_lock.effective_radius_mm > 0 and spec.springs.sag_mm > 0 and spec.fatigue.cycles > 0
 
 
 @pytest.mark.parametrize("patch, key", [
@@ -142,9 +178,21 @@ def test_cli_json_and_table_on_demo():
     assert {s["name"] for s in rep["states"]} >= {"static", "bump", "braking", "parked"}
     st = rep["states"][0]
     assert st["spring_force_n"]["left_spring"] > 0       # springs carry the static load in compression
+    assert all(s["source"] for s in rep["states"])
+    for m in rep["members"]:
+        assert m["section"] and m["governing_check"] and set(m["checks"]) == {"axial", "bending", "combined", "shear",
+                                                                               "buckling"}
+        assert m["fatigue_utilisation"] is not None and m["fatigue_allowable_range_mpa"] > 0
+    lk = rep["tilt_lock"]
+    assert lk["clamp_force_n"] == pytest.approx(lk["safety_factor"] * lk["torque_nm"] * 1000.0
+                                                / (lk["faces"] * lk["friction"] * lk["effective_radius_mm"]))
+    assert "not a fatigue design" in rep["fatigue"]["screening"] and rep["fatigue"]["classes"]["4130"]["source"]
+    assert [s["spring"] for s in rep["springs"]] == ["left_spring", "right_spring"]
     r = CliRunner().invoke(main, ["loads", str(CONFIGS / "twin_beam.toml"), "--loads", str(DEMO_LOADS)])
     assert r.exit_code == 0, r.output
     assert "linkage mass" in r.output and "indeterminate" in r.output and "qualified engineers" in r.output
+    for text in ("governing sections", "fatigue screening", "clamp force", "load cases and their sources"):
+        assert text in r.output
 
 
 def test_pin_base_mm_round_trip_and_validation():

@@ -4,6 +4,7 @@ from __future__ import annotations
 import csv
 import importlib
 import math
+from html import escape
 from pathlib import Path
 
 import numpy as np
@@ -121,7 +122,7 @@ def test_suggested_spring_rate_closed_form(sheet_dir):
     mr = res.motion_ratio[0, 0]
     k = 2 * 400.0 / (20.0 * np.sum(mr ** 2))
     html = paths["sheet"].read_text(encoding="utf-8")
-    assert f">{k:.1f}<" in html
+    assert f"Suggested rate {k:.1f} N/mm" in html
 
 
 def test_tyre_outline_is_the_torus_silhouette():
@@ -187,9 +188,13 @@ def test_sizing_section_when_the_part_is_present(tmp_path):
     assert f"{sz.linkage_mass_kg[0]:.2f} kg" in html
     assert sz.tube_label(0, 0) in html
     assert "No loads given" not in html
-    # the corner load for the suggested rate comes from the vehicle: m * front share * g / 2
-    v = loads.vehicle
-    assert f"under {v.total_mass_kg * v.front_share * 9.80665 / 2:.0f} N per front wheel" in html
+    # the spring setup comes from the force analysis: its static spring force and the stated sag
+    assert f">{sz.spring_static_n[0, 0]:.0f}<" in html and "Spring setup" in html
+    assert f"static sag of {loads.springs.sag_mm:.1f} mm" in html
+    # the new sections: governing sections, fatigue screening, tilt-lock clamp force, case sources
+    assert sz.section_name(0, 0) in html and "A screening, not a fatigue design." in html
+    assert f"<b>{sz.tilt_lock_clamp_n[0]:.0f} N</b>" in html
+    assert all(escape(s.source) in html for s in sz.states if s.role == "case")
 
 
 def test_clearance_section_when_the_part_is_present(tmp_path):

@@ -129,7 +129,7 @@ def test_infeasible_names_member_and_case(tmp_path):
     csv = tmp_path / "tubes.csv"
     csv.write_text("material,outer_diameter_mm,wall_mm\n4130,10.0,0.5\n", encoding="utf-8")
     model = Model(mech_of(twin_beam()))
-    spec = parse_loads({"vehicle": VEHICLE, "sizing": {"catalogue": str(csv)}}, "<test>")
+    spec = parse_loads({"vehicle": dict(VEHICLE, front_share=0.6), "sizing": {"catalogue": str(csv)}}, "<test>")
     res = size_linkage(model, None, spec)
     assert not res.feasible[0]
     assert "member 'upper_beam'" in res.reason[0] and "case '" in res.reason[0]
@@ -179,9 +179,82 @@ def test_wheel_lift_reported():
     model = Model(mech_of(twin_beam()))
     for phi, lifts in ((20.0, False), (25.0, True)):
         spec = parse_loads({"vehicle": dict(VEHICLE, com_height_mm=900.0),
-                            "cases": [{"name": "p", "kind": "parked", "lean_deg": phi}]}, "<test>")
+                            "cases": [{"name": "p", "kind": "parked", "lean_deg": phi, "slope_deg": 0.0}]},
+                           "<test>")
         res = size_linkage(model, None, spec)
         W = 120.0 * 9.80665
         T = W * (900.0 - 23.0) * math.sin(math.radians(phi))
         assert res.min_wheel_load_n[0] == pytest.approx(W / 2 - T / 660.0, rel=1e-6)
         assert (res.min_wheel_load_n[0] < 0) == lifts
+
+
+def test_fatigue_strength_sn_curve():
+    # The S-N form of the IIW recommendations and EN 1993-1-9: range^m x n = FAT^m x 2e6. At 2e6
+    # cycles the range is the class itself; with m = 3, halving the cycles raises it by 2^(1/3).
+    from tiltopt.kinematics.sizing import fatigue_strength
+
+    assert fatigue_strength(36.0, 3.0, 2e6) == pytest.approx(36.0)
+    assert fatigue_strength(36.0, 3.0, 1e6) == pytest.approx(36.0 * 2 ** (1 / 3))
+    assert fatigue_strength(12.0, 3.0, 2e5) ** 3 * 2e5 == pytest.approx(12.0 ** 3 * 2e6)
+
+
+def test_fatigue_screening_is_the_load_change():
+    # At a fixed pose the force analysis is linear in the loads, so the section loads of one cycle
+    # (1 g -> peak g on the front axle) are (peak - 1) / (k - 1) x (bump - static) for a bump of k g.
+    # The screening's range at the chosen tube: |dN| / A + |dM| / S at the worst section; its
+    # utilisation: partial factor x range / FAT (2e6 / n)^(1/3) (4130: FAT 36, materials.toml).
+    from tiltopt.kinematics.forces import analyse_forces
+    from tiltopt.kinematics.sections import build_members, section_loads
+
+    model = Model(load_mechanism(CONFIGS / "wishbone_rocker.toml"))
+    spec = parse_loads({"vehicle": dict(VEHICLE, front_share=0.5),
+                        "cases": [{"name": "s", "kind": "static"}, {"name": "b", "kind": "bump", "vertical_g": 3.0}],
+                        "fatigue": {"cycles": 5e5, "peak_g": 1.8, "partial_factor": 1.2}}, "<test>")
+    res = size_linkage(model, None, spec)
+    states, f, status, fm = analyse_forces(model, model.default_geometry, spec)
+    assert [s.role for s in states] == ["case", "case", "fatigue"]
+    cat = load_catalogue()
+    for j, mb in enumerate(build_members(fm)):
+        sec = section_loads(mb, fm, f)
+        dN = (sec.axial[1] - sec.axial[0]) * 0.8 / 2.0
+        dM = (sec.moment[1] - sec.moment[0]) * 0.8 / 2.0
+        assert sec.axial[2] == pytest.approx(dN, abs=1e-9 * np.abs(sec.axial).max() + 1e-9)
+        assert sec.moment[2] == pytest.approx(dM, abs=1e-9 * np.abs(sec.moment).max() + 1e-9)
+        i = res.tube_index[0, j]
+        A, I, S, r = tube_section(cat.outer_diameter_mm[i], cat.wall_mm[i])
+        rng = (np.abs(dN) / A + np.abs(dM) / S).max()
+        assert res.fatigue_range_mpa[0, j] == pytest.approx(rng, rel=1e-9)
+        assert res.fatigue_utilisation[0, j] == pytest.approx(1.2 * rng / (36.0 * (2e6 / 5e5) ** (1 / 3)), rel=1e-9)
+
+
+def test_tilt_lock_clamp_force_closed_form():
+    # A disc-and-caliper lock holds faces x mu x F x r: the clamp force for the torque T with the
+    # safety factor SF is SF T / (faces mu r). T is the largest |lock torque| of the locked cases
+    # (here parked both ways and the one-wheel bump both ways).
+    model = Model(mech_of(twin_beam()))
+    spec = parse_loads({"vehicle": dict(VEHICLE, front_share=0.5),
+                        "tilt_lock": {"effective_radius_mm": 70.0, "friction": 0.35, "faces": 2},
+                        "cases": [{"name": "p", "kind": "parked", "lean_deg": 10.0, "slope_deg": 0.0},
+                                  {"name": "o", "kind": "one_wheel_bump", "vertical_g": 3.0},
+                                  {"name": "s", "kind": "static"}]}, "<test>")
+    res = size_linkage(model, None, spec)
+    locked = [i for i, s in enumerate(res.states) if s.locked]
+    T = np.abs(res.forces.lean_moment[locked]).max()
+    assert [res.states[i].name for i in locked] == ["p", "p_mirror", "o", "o_mirror"]
+    assert res.tilt_lock_torque_nm[0] == pytest.approx(T)
+    assert res.states[res.tilt_lock_case[0]].case == "o"          # the one-wheel bump governs here
+    assert res.tilt_lock_clamp_n[0] == pytest.approx(2.0 * T * 1000.0 / (2 * 0.35 * 70.0))
+
+
+def test_governing_check_and_section_are_named():
+    # Every member names its governing section and check; the checks at that section are the
+    # closed forms of kinematics/sections.py (combined = axial + bending for a round tube).
+    model = Model(load_mechanism(CONFIGS / "wishbone_rocker.toml"))
+    res = size_linkage(model, None, load_loads(DEMO_LOADS))
+    for j, mb in enumerate(res.members):
+        assert res.section_name(0, j).startswith(("at ", "along "))
+        assert res.governing_check(0, j) in ("combined", "shear", "buckling")
+        c = {k: res.check[k][0, j] for k in ("axial", "bending", "combined", "shear")}
+        assert c["combined"] == pytest.approx(c["axial"] + c["bending"], rel=1e-12)
+        top = max(c["combined"], c["shear"], np.nan_to_num(res.check["buckling"][0, j], nan=0.0))
+        assert res.utilisation[0, j] == pytest.approx(top, rel=1e-12)

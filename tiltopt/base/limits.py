@@ -23,6 +23,16 @@ MAX_LEAN_LIMIT_DEG = 60.0
 MAX_TRAVEL_MM = 200.0
 #: a static wheel load (the sheet's --corner-load-n), N: 100 tonnes
 MAX_FORCE_N = 1.0e6
+#: a factor on a load or stress (loads [sizing] safety_factor, [fatigue] partial_factor)
+MAX_SAFETY_FACTOR = 100.0
+#: a load case's vertical factor, g (bump, one-wheel bump)
+MAX_LOAD_FACTOR_G = 100.0
+#: load cycles of a fatigue screening (loads [fatigue] cycles)
+MAX_FATIGUE_CYCLES = 1.0e12
+#: the S-N exponent m of a material's welded joints (materials fatigue_slope; the standards use 3 to 22)
+MAX_SN_EXPONENT = 25.0
+#: friction faces of a tilt lock (loads [tilt_lock] faces; a caliper on one disc has 2)
+MAX_FRICTION_FACES = 100
 #: values of one typed range or list (``--lean 0:40:0.001`` is 40,001 values)
 MAX_RANGE_VALUES = 100_000
 #: lean x travel states of one mechanism (a sweep, a clearance check, one candidate of a run)

@@ -139,10 +139,10 @@ def explore_cmd(run_dirs, output, do_serve, port, detail_limit, plotly_beside, a
 @click.option("--jig-datum", default="0,0", show_default=True,
               help="Jig datum 'Y,Z' in mm, chassis datum frame; the pivot table also gives coordinates from it.")
 @click.option("--sag-mm", type=float, default=None,
-              help="Static sag for the suggested spring rate, mm, > 0 [default: 30% of the bump travel].")
+              help="Static sag (wheel travel from top-out to the design position) for the spring setup, mm, > 0 "
+                   "[default: the loads' [springs] sag_mm, else the envelope's full droop].")
 @click.option("--corner-load-n", type=float, default=None,
-              help="Static vertical load per front wheel, N, > 0, for the suggested spring rate [default: from the "
-                   "loads].")
+              help="Without loads: static vertical load per front wheel, N, > 0, for a suggested spring rate.")
 @click.option("--loads", "loads_file", type=click.Path(dir_okay=False), default=None,
               help="Loads file (vehicle, load cases) for member sizing and tilt-lock torque [default: the run's].")
 @click.option("--shell", "shell_file", type=click.Path(dir_okay=False), default=None,

@@ -83,12 +83,13 @@ def _e(s) -> str:
     return html.escape("" if s is None else str(s))
 
 
-def _table(headers: list[str], rows: list[list], cls: str = "", num_from: int = 1) -> str:
+def _table(headers: list[str], rows: list[list], cls: str = "", num_from: int = 1, text: tuple = ()) -> str:
+    """An HTML table; columns from ``num_from`` on are numbers, except those in ``text``."""
     out = [f'<table class="{cls}"><thead><tr>' + "".join(f"<th>{_e(h)}</th>" for h in headers) + "</tr></thead><tbody>"]
     for r in rows:
         cells = []
         for k, v in enumerate(r):
-            c = ' class="num"' if k >= num_from else ""
+            c = ' class="num"' if k >= num_from and k not in text else ""
             cells.append(f"<td{c}>{v}</td>")
         out.append("<tr>" + "".join(cells) + "</tr>")
     out.append("</tbody></table>")
@@ -210,48 +211,95 @@ def _members(model: Model, P: np.ndarray) -> list[dict]:
     return out
 
 
-def _spring_data(model: Model, an: Analysis, inp: SheetInputs) -> tuple[list[list], list[str]]:
+def _spring_data(model: Model, an: Analysis, inp: SheetInputs) -> tuple[list[list], list[str], str]:
+    """(geometry rows, notes, setup table html): lengths, stroke and motion ratio of each spring and,
+    with loads, its setup for the stated sag (:mod:`tiltopt.kinematics.springs`)."""
     r = an.sweep
     mech = model.mech
-    notes = []
     if not mech.springs:
-        return [], ["This mechanism has no springs."]
+        return [], ["This mechanism has no springs."], ""
     travel = np.asarray(r.travel_mm)
     t0 = int(np.argmin(np.abs(travel)))
     lo, hi = int(np.argmin(travel)), int(np.argmax(travel))
     mr = r.motion_ratio[0, t0]
-    sum_mr2 = float(np.nansum(mr ** 2))
-    corner = inp.corner_load_n
-    if corner is None and inp.loads is not None:
-        corner = _corner_load_from(inp.loads)
     sag = inp.sag_mm
+    if sag is None and inp.loads is not None and getattr(inp.loads, "springs", None) is not None:
+        sag = inp.loads.springs.sag_mm
     sag_note = ""
-    if sag is None and len(travel) and travel.max() > travel.min():
-        # common practice, no source: static sag about 30 % of the total wheel travel
-        sag = round(0.3 * float(travel.max() - travel.min()), 1)
-        sag_note = " (30 % of the total travel, a common starting point; set --sag-mm)"
+    if sag is None:
+        sag = max(0.0, -float(travel.min()))
+        sag_note = " (top-out at the envelope's full droop; set --sag-mm)"
     rows = []
     P = np.asarray(an.geom.points[0])
     for k, s in enumerate(mech.springs):
         inst = float(np.linalg.norm(P[model.point_index[s.a]] - P[model.point_index[s.b]]))
-        l_lo = r.spring_length[0, lo, 0, k]
-        l_hi = r.spring_length[0, hi, 0, k]
+        l_lo, l_hi = r.spring_length[0, lo, 0, k], r.spring_length[0, hi, 0, k]
         stroke = abs(l_lo - l_hi) if np.isfinite(l_lo) and np.isfinite(l_hi) else float("nan")
-        if corner is not None and sag and sum_mr2 > 0:
-            # equal springs: total energy 1/2 sum k MR_i^2 s^2 = work of 2 corner loads over the sag
-            k_sugg = 2.0 * corner / (sag * sum_mr2)
-        else:
-            k_sugg = float("nan")
-        rows.append([_e(s.name), _num(inst, 1), _num(l_hi, 1), _num(l_lo, 1), _num(stroke, 1), _num(mr[k], 3),
-                     _num(s.rate_n_per_mm, 1) if s.rate_n_per_mm else "–", _num(k_sugg, 1)])
+        rows.append([_e(s.name), _e(s.kind), _num(inst, 1), _num(l_hi, 1), _num(l_lo, 1), _num(stroke, 1),
+                     _num(mr[k], 3), _num(s.rate_n_per_mm, 1) if s.rate_n_per_mm else "–"])
+    if an.sizing is not None:
+        return rows, [], _spring_setup_html(model, an, sag, sag_note)
+    corner = inp.corner_load_n
+    notes = []
+    sum_mr2 = float(np.nansum(mr ** 2))
     if corner is None:
-        notes.append("No suggested rate: give the static vertical load per front wheel (--corner-load-n) "
-                     "or a loads file with the vehicle.")
-    else:
-        notes.append(f"Suggested rate: each spring alike, for a static sag of {_num(sag, 1)} mm{sag_note} under "
-                     f"{_num(corner, 0)} N per front wheel: k = 2 F / (sag x sum of MR^2), MR at travel "
-                     f"{_num(travel[t0], 0)} mm; preload and geometric stiffness ignored.")
-    return rows, notes
+        notes.append("No spring setup: give a loads file (the static spring forces come from it), or the static "
+                     "vertical load per front wheel (--corner-load-n) for a suggested rate.")
+    elif sag and sum_mr2 > 0:
+        # equal springs: total energy 1/2 sum k MR_i^2 s^2 = work of 2 corner loads over the sag
+        k_sugg = 2.0 * corner / (sag * sum_mr2)
+        notes.append(f"Suggested rate {_num(k_sugg, 1)} N/mm: each spring alike, for a static sag of {_num(sag, 1)} "
+                     f"mm{sag_note} under {_num(corner, 0)} N per front wheel: k = 2 F / (sag x sum of MR^2), MR at "
+                     f"travel {_num(travel[t0], 0)} mm; no preload, geometric stiffness ignored.")
+    return rows, notes, ""
+
+
+def _spring_setup_html(model: Model, an: Analysis, sag: float, sag_note: str) -> str:
+    from dataclasses import replace
+
+    from tiltopt.kinematics.springs import analyse_springs
+
+    sz = an.sizing
+    setup = replace(sz.loads.springs, sag_mm=sag)
+    sp = analyse_springs(model, an.geom, sz, setup, sweep_result=an.sweep)
+    rows, notes = [], {}
+    for k, s in enumerate(model.mech.springs):
+        cv = sp.curves[k]
+        mc = int(sz.spring_max_case[0, k])
+        margin = sp.bottoming_margin_mm[0, k]
+        rows.append([_e(s.name), _num(sp.static_force_n[0, k], 0), _num(sp.static_deflection_mm[0, k], 1),
+                     _num(sp.preload_n[0, k], 0), _num(sp.suggested_rate_n_per_mm[0, k], 1),
+                     _num(sz.spring_max_n[0, k], 0), _e(sz.states[mc].name).replace("_", "_<wbr>") if mc >= 0 else "–",
+                     _num(sp.full_bump_deflection_mm[0, k], 1), _num(cv.max_deflection_mm if cv else None, 1),
+                     f'<span class="bad">{_num(margin, 1)}</span>' if margin < 0 else _num(margin, 1),
+                     _num(sp.bottoming_travel_mm[0, k], 1)])
+        text = cv.source if cv else "no rate or curve in the mechanism file: no setup"
+        if cv is not None and (s.curve is not None or s.kind == "elastomer"):
+            text += "; points (mm, N): " + ", ".join(f"{x:g}/{f:g}" for x, f in zip(cv.x_mm, cv.f_n))
+        notes.setdefault(text, []).append(s.name)
+        if np.isfinite(sp.given_setup_force_n[0, k]):
+            notes.setdefault(f"the setup in the mechanism file gives {_num(sp.given_setup_force_n[0, k], 0)} N at the "
+                             f"design position, where the static load needs {_num(sp.static_force_n[0, k], 0)} N",
+                             []).append(s.name)
+        if sp.preload_deflection_mm[0, k] < 0:
+            notes.setdefault("too stiff for this sag even with no preload (preload shown as 0)", []).append(s.name)
+        if margin < 0:
+            notes.setdefault(f"bottoms (is solid) at travel {_num(sp.bottoming_travel_mm[0, k], 1)} mm, inside the "
+                             f"envelope", []).append(s.name)
+    heads = ["spring", "static force [N]", "static defl. [mm]", "suggested preload [N]",
+             "rate for no preload [N/mm]", "largest force [N]", "in case", "defl. at full bump [mm]",
+             "solid at defl. [mm]", "bottoming margin [mm]", "solid at travel [mm]"]
+    if not np.isfinite(sp.suggested_rate_n_per_mm[0]).any():     # no linear coil: no zero-preload rate
+        heads.pop(4)
+        rows = [r[:4] + r[5:] for r in rows]
+    t = _table(heads, rows, text=(heads.index("in case"),))
+    t += (f'<p class="note">Setup for a static sag of {_num(sag, 1)} mm{_e(sag_note)} (wheel travel from top-out to '
+          f'the design position): the spring carries the static force at the design position; the suggested '
+          f'preload is its force at top-out; full bump is the envelope\'s largest travel. Deflections are '
+          f'compressions from the free length (defl.). Rate for no preload: the coil rate that gives this sag '
+          f'with no preload. Bottoming margin: compression left at full bump; solid at travel: the wheel '
+          f'travel at which the spring is solid.</p>')
+    return t + "".join(f'<p class="note">{_e(", ".join(names))}: {_e(n)}</p>' for n, names in notes.items())
 
 
 def _corner_load_from(loads) -> float | None:
@@ -317,8 +365,8 @@ def _clearance_section(an: Analysis) -> str:
     return s
 
 
-def _sizing_sections(an: Analysis, members: list[dict]) -> tuple[str, str]:
-    """(member table html, loads html)."""
+def _sizing_sections(an: Analysis, members: list[dict]) -> tuple[str, str, str]:
+    """(member tables html, tilt-lock html, load-cases html)."""
     sz = an.sizing
     if sz is None:
         rows = [[_e(m["name"]), _e(m["kind"]), _e(f'{m["from"]} – {m["to"]}'), _num(m["length_mm"], 1)]
@@ -326,32 +374,78 @@ def _sizing_sections(an: Analysis, members: list[dict]) -> tuple[str, str]:
         t = _table(["member", "kind", "between points", "centre-to-centre [mm]"], rows, num_from=3)
         t += ('<p class="note">Tube, material, mass, worst load case and utilisation need the sizing part and '
               'a loads description (see the notes); only the centre-to-centre lengths are given here.</p>')
-        return t, ""
-    rows = []
-    names = sz.member_names
-    for j, name in enumerate(names):
+        return t, "", ""
+    from tiltopt.kinematics.sizing import CHECKS
+
+    rows, srows = [], []
+    for j, name in enumerate(sz.member_names):
         mb = sz.members[j]
-        rows.append([_e(name), _e(getattr(mb, "kind", "")), _num(sz.length_mm[0, j], 1), _e(sz.tube_label(0, j)),
-                     _e(getattr(mb, "material", "")), _num(sz.mass_kg[0, j], 3), _e(sz.worst_case_name(0, j)),
-                     _util(sz.utilisation[0, j])])
-    t = _table(["member", "kind", "centre-to-centre [mm]", "tube OD x wall [mm]", "material", "mass [kg]",
-                "worst case", "utilisation"], rows, num_from=2)
+        rows.append([_e(name), _e(mb.kind), _e(mb.material), _e(sz.worst_case_name(0, j)).replace("_", "_<wbr>"),
+                     _num(sz.length_mm[0, j], 1), _e(sz.tube_label(0, j)), _num(sz.mass_kg[0, j], 3),
+                     _util(sz.utilisation[0, j]) + f" {_e(sz.governing_check(0, j))}",
+                     _util(sz.fatigue_utilisation[0, j])])
+        f = sz.section_force[0, j]
+        srows.append([_e(name), _e(sz.section_name(0, j)), _num(f[0], 0), _num(f[1], 0), _num(f[2], 1)]
+                     + [_util(sz.check[k][0, j]) for k in CHECKS])
+    t = _table(["member", "kind", "material", "worst case", "centre-to-centre [mm]", "tube OD x wall [mm]",
+                "mass [kg]", "utilisation, check", "fatigue (screening)"], rows, num_from=4)
     t += (f'<p class="note">Linkage mass {_num(sz.linkage_mass_kg[0], 2)} kg, including {sz.n_pivots} pivots at '
           f'{_num(sz.pivot_mass_kg / max(sz.n_pivots, 1) * 1000, 0)} g each. Safety factor '
           f'{_num(getattr(sz, "safety_factor", float("nan")), 2)} on yield and buckling. '
           f'{"All members pass." if bool(sz.feasible[0]) else "Not all members pass: " + _e(sz.reason[0])}</p>')
+    t += "<h3>Governing section of each member (worst case)</h3>" + _table(
+        ["member", "section", "axial [N]", "shear [N]", "moment [N·m]", "axial", "bending", "combined", "shear",
+         "buckling"], srows, num_from=2)
+    t += ('<p class="note">Each member is checked at every point where a load enters and at both ends of every '
+          'segment: axial, bending (in- and out-of-plane), combined, transverse shear (with the axial stress by '
+          'von Mises) and, for two-force members in compression, buckling. Axial force tension positive.</p>')
+    t += _fatigue_html(sz)
     t += "".join(f'<p class="note">{_e(n)}</p>' for n in getattr(sz, "notes", []) or [])
-    loads = [f"<p>Tilt-lock torque (largest parked state): <b>{_num(sz.tilt_lock_torque_nm[0], 1)} N·m</b></p>"]
-    states = getattr(sz, "states", []) or []
-    if states:
-        srow = []
-        for s in states:
-            srow.append([_e(getattr(s, "name", "")), _e(getattr(s, "kind", "")), _num(getattr(s, "lean_deg", None), 1),
-                         _num(getattr(s, "travel_mm", None), 0), _num(getattr(s, "front_load_n", None), 0),
-                         _num(getattr(s, "brake_g", None), 2), "yes" if getattr(s, "locked", False) else "no"])
-        loads.append(_table(["load state", "kind", "lean [deg]", "travel [mm]", "front load [N]", "brake [g]",
-                             "tilt locked"], srow, num_from=2))
-    return t, "".join(loads)
+    return t, _lock_html(sz), _cases_html(sz)
+
+
+def _fatigue_html(sz) -> str:
+    fat = sz.loads.fatigue
+    mats = sorted({m.material for m in sz.members})
+    classes = "; ".join(
+        f"{m}: FAT {sz.loads.materials[m].fatigue_fat_mpa:g} MPa, m = {sz.loads.materials[m].fatigue_slope:g} "
+        f"({sz.loads.materials[m].fatigue_source})" if sz.loads.materials[m].fatigue_fat_mpa else
+        f"{m}: no welded-joint class, not screened" for m in mats)
+    return (f'<h3>Fatigue screening of the welded joints</h3><p class="note"><b>A screening, not a fatigue '
+            f'design.</b> {fat.cycles:,.0f} cycles of the load change from 1 g to {fat.peak_g:g} g on the front '
+            f'axle, at every section of the chosen tube; fatigue utilisation = {fat.partial_factor:g} x stress '
+            f'range / the range the joint class survives that often, FAT (2e6 / n)^(1/m), no fatigue limit. '
+            f'{_e(classes)}. A member above 100 % needs a fatigue design.</p>')
+
+
+def _lock_html(sz) -> str:
+    k = int(sz.tilt_lock_case[0])
+    tl, T = sz.loads.tilt_lock, sz.tilt_lock_torque_nm[0]
+    if k < 0 or not np.isfinite(T):
+        return '<p class="note">No load case holds the tilt lock.</p>'
+    return (f"<p>Tilt-lock torque (largest locked case, '{_e(sz.states[k].name)}'): <b>{_num(T, 1)} N·m</b></p>"
+            f"<p>Disc-and-caliper lock: clamp force at least <b>{_num(sz.tilt_lock_clamp_n[0], 0)} N</b> at an "
+            f"effective radius of {_num(tl.effective_radius_mm, 0)} mm with friction {tl.friction:g} "
+            f"({_e(tl.friction_source)}) on {tl.faces} faces and the safety factor {sz.safety_factor:g}: "
+            f"F = SF T / (faces x friction x radius).</p>")
+
+
+def _cases_html(sz) -> str:
+    fo = sz.forces
+    rows, seen = [], set()
+    for i, s in enumerate(sz.states):
+        if s.role != "case":
+            continue
+        ok = bool(fo.ok[i])
+        wl = fo.wheel_load[i] if ok else (float("nan"), float("nan"))
+        rows.append([_e(s.name).replace("_", "_<wbr>"), _num(s.lean_deg, 1),
+                     _num(s.slope_deg, 1) if s.slope_deg else "–", _num(s.front_load_n, 0), _num(wl[0], 0),
+                     _num(wl[1], 0), _num(max(abs(v) for v in s.kerb_force_n), 0) if any(s.kerb_force_n) else "–",
+                     _num(s.brake_g, 2), "yes" if s.locked else "no",
+                     "as above" if s.case in seen else f"{_e(s.kind)}: {_e(s.source)}"])
+        seen.add(s.case)
+    return _table(["case", "lean [deg]", "slope [deg]", "front load [N]", "tyre L [N]", "tyre R [N]", "kerb [N]",
+                   "brake [g]", "tilt locked", "kind and source"], rows, text=(8, 9))
 
 
 def _short(text: str, n: int = 160) -> str:
@@ -502,8 +596,8 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
         f'<p class="bad">The lean limit was not reached: {_e(r.status_text(0, ti0, len(r.lean_deg) - 1))}</p>'
     del pose0
     members = _members(model, P)
-    member_html, loads_html = _sizing_sections(an, members)
-    spring_rows, spring_notes = _spring_data(model, an, inp)
+    member_html, lock_html, cases_html = _sizing_sections(an, members)
+    spring_rows, spring_notes, spring_setup = _spring_data(model, an, inp)
 
     metric_rows = []
     metric_names = {c for c in inp.row if not c.startswith(("obj.", "var.", "__"))}
@@ -583,10 +677,11 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
   {_table(["joint", "kind", "joins", "y [mm]", "z [mm]"], _joint_rows(model, P), num_from=3)}
 </section>
 <section class="avoid-break"><h2>Springs</h2>
-  {_table(["spring", "installed length [mm]", "at full bump [mm]", "at full droop [mm]", "stroke [mm]",
-           "motion ratio", "rate in file [N/mm]", "suggested rate [N/mm]"], spring_rows) if spring_rows else ''}
+  {_table(["spring", "kind", "installed length [mm]", "at full bump [mm]", "at full droop [mm]", "stroke [mm]",
+           "motion ratio", "rate in file [N/mm]"], spring_rows, text=(1,)) if spring_rows else ''}
   {''.join(f'<p class="note">{_e(n)}</p>' for n in spring_notes)}
   <p class="note">Motion ratio: spring shortening per mm of wheel travel at lean 0, both wheels together.</p>
+  {('<h3>Spring setup</h3>' + spring_setup) if spring_setup else ''}
 </section>
 <section class="avoid-break"><h2>Kinematic curves against lean</h2>{_curves(an)}</section>
 <section class="avoid-break"><h2>Clearance at the envelope corners</h2>{_clearance_section(an)}</section>
@@ -595,8 +690,11 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
   <div class="figure small">{lean_draw}</div>
   <p class="note">Lean {inp.lean_limit_deg:g} deg, travel {float(r.travel_mm[ti0]):g} mm. Red: smallest
   front-view gap of each tyre, mm.</p></div>
-  <div><h2>Loads and tilt lock</h2>{loads_html or '<p class="note">Not available for this sheet (see the notes).</p>'}</div>
+  <div><h2>Loads and tilt lock</h2>{lock_html or '<p class="note">Not available for this sheet (see the notes).</p>'}</div>
 </section>
+{('<section class="avoid-break"><h2>Load cases</h2>' + cases_html + '<p class="note">Tyre loads from the force '
+  'analysis; cases with a lean, a slope or one wheel are also evaluated mirrored. Sources as given in the loads '
+  'description.</p></section>') if cases_html else ''}
 <section class="avoid-break safety"><h2>Safety</h2><ul>{safety}</ul></section>
 {('<section class="avoid-break"><h2>Notes</h2><ul class="notes">' + notes + '</ul></section>') if notes else ''}
 <footer>Files in this folder: sheet.html, pivots.csv, candidate.toml (re-read by <code>tiltopt sweep</code>),
