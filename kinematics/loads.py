@@ -77,6 +77,7 @@ from typing import Any
 
 import numpy as np
 
+from tiltopt.base import inputs
 from tiltopt.base.errors import InputError, check_keys, read_text, read_toml
 from tiltopt.base.limits import (MAX_COORD_MM, MAX_FATIGUE_CYCLES, MAX_FRICTION_FACES, MAX_LEAN_LIMIT_DEG,
                                  MAX_MASS_KG, MAX_SAFETY_FACTOR, MAX_SN_EXPONENT, MAX_TRAVEL_MM)
@@ -356,7 +357,7 @@ def parse_loads(data: dict, src: str = "<memory>", base_dir: str | Path | None =
 
     def rel(key):
         p = Path(_str(st, key, src, "sizing"))
-        return p if p.is_absolute() else base / p
+        return inputs.resolve(p if p.is_absolute() else base / p, f"sizing.{key}")   # a run folder's copy
 
     materials = load_materials(rel("materials") if "materials" in st else None)
     catalogue = load_catalogue(rel("catalogue") if "catalogue" in st else None)

@@ -21,7 +21,16 @@ Batch file (TOML, our own format; paths relative to the batch file)::
     "constraints.max_width_mm" = [850.0, 950.0]
 
 A run whose ``run.json`` says finished is never run again when the batch is
-restarted; an unfinished one continues from its checkpoint.
+restarted; an unfinished one continues from its checkpoint. Either only when it
+is the same run: the same resolved config (``config_sha256`` of run.json: the
+config file with the ``set`` and grid values applied) and the same input files
+(their sha256). A run that differs is refused, or with ``rerun_changed``
+started again from generation 1.
+
+One process drives a batch at a time (``batch.lock`` in the batch folder, an
+OS lock), each run folder has its own ``run.lock``, and a local worker dies
+with the batch process that started it (Linux ``PR_SET_PDEATHSIG``, and a
+watchdog thread that polls the parent's pid elsewhere).
 """
 from __future__ import annotations
 
@@ -30,6 +39,10 @@ import itertools
 import json
 import math
 import multiprocessing as mp
+import os
+import signal
+import sys
+import threading
 import time
 from dataclasses import asdict, dataclass, field
 from pathlib import Path
@@ -38,9 +51,12 @@ from typing import Any
 import pandas as pd
 
 from tiltopt.base.errors import InputError
+from tiltopt.base.inputs import reading_copies
 from tiltopt.base.limits import MAX_BATCH_RUNS, check_count
 
+from . import checkpoint as CK
 from . import results as R
+from . import runfolder as RF
 from .config import parse_config, read_toml
 
 BATCH_KEYS = ("batch", "runs", "grid")
@@ -65,6 +81,8 @@ class BatchItem:
     overrides: dict
     data: dict
     run_dir: str
+    config_sha256: str = ""
+    inputs: list = field(default_factory=list)   # [{role, path, builtin}] of the files the config reads
 
     def to_dict(self) -> dict:
         return asdict(self)
@@ -95,7 +113,7 @@ def _set_dotted(data: dict, key: str, value, src: str, where: str):
 def _label(value) -> str:
     if isinstance(value, float):
         return f"{value:g}"
-    return str(value).replace("/", "_").replace(" ", "")
+    return RF.safe_label(str(value).replace(" ", ""))
 
 
 def _seeds(v, src, where):
@@ -132,9 +150,7 @@ def parse_batch(data: dict, src: str, base_dir: Path, confirm_above: int | None 
         raise InputError("a batch file needs a [batch] table (name, output).", src, "batch")
     b = data["batch"]
     _table(b, BATCH_TABLE_KEYS, src, "batch", ("name",))
-    name = b["name"]
-    if not isinstance(name, str) or not name or any(c in name for c in '/\\:*?"<>|'):
-        raise InputError(f"expected a short name usable as a folder name. Got {name!r}.", src, "batch.name")
+    name = RF.check_name(b["name"], "batch name", src, "batch.name")
     out = Path(_path_text(b.get("output", "results"), src, "batch.output"))
     out = (out if out.is_absolute() else base_dir / out).resolve()
     retries = b.get("retries", 2)
@@ -182,18 +198,21 @@ def parse_batch(data: dict, src: str, base_dir: Path, confirm_above: int | None 
                 over = {**sets, **combo, "run.seed": seed}
                 for k, v in over.items():
                     _set_dotted(d, k, v, src, where)
-                cfg = parse_config(d, f"{cpath} (batch {where}, {combo or 'as written'}, seed {seed})", cpath.parent)
+                cfg, files = RF.collect_inputs(d, f"{cpath} (batch {where}, {combo or 'as written'}, seed {seed})",
+                                               cpath.parent, cpath)
                 label = "_".join(f"{k.split('.')[-1]}{_label(v)}" for k, v in combo.items())
-                rid = "-".join(x for x in (cfg.run.name, label, f"s{seed}") if x)
+                rid = "-".join(x for x in (RF.safe_label(cfg.run.name), label, f"s{seed}") if x)
                 if rid in seen:
                     j = 2
                     while f"{rid}-{j}" in seen:
                         j += 1
                     rid = f"{rid}-{j}"
                 seen.add(rid)
+                RF.check_name(rid, "run id", src, where)
                 items.append(BatchItem(run_id=rid, config=str(cpath), base_dir=str(cpath.parent), seed=seed,
                                        overrides={k: v for k, v in over.items()}, data=d,
-                                       run_dir=str(batch_dir / rid)))
+                                       run_dir=str(batch_dir / rid), config_sha256=RF.config_hash(cfg.data),
+                                       inputs=files))
     return Batch(name=name, source=src, batch_dir=batch_dir, retries=retries, items=items)
 
 
@@ -217,17 +236,9 @@ def load_batch(path: str | Path, confirm_above: int | None = None) -> Batch:
 
 
 # ------------------------------------------------------------------ one run
-def _status(run_dir: Path) -> dict | None:
-    try:
-        meta = json.loads((run_dir / R.RUN_JSON).read_text(encoding="utf-8"))
-    except (OSError, ValueError, RecursionError):
-        return None
-    return meta if isinstance(meta, dict) else None
-
-
 def summary_row(item: dict, attempts: int = 0, status: str | None = None, error: str = "") -> dict:
     d = Path(item["run_dir"])
-    meta = _status(d) or {}
+    meta = RF.read_meta(d) or {}
     hv = float("nan")
     if (d / R.GENERATIONS).is_file():
         try:
@@ -249,33 +260,178 @@ def summary_row(item: dict, attempts: int = 0, status: str | None = None, error:
 def execute_item(item: dict) -> dict:
     """Run one batch item to the end (resuming from its checkpoint, skipping it when finished).
 
-    Returns its summary row. Errors of the run itself are returned as status
-    'failed' (they would repeat on a retry); only a dead worker is retried.
+    Holds the run folder's lock throughout. Returns its summary row. Errors of the
+    run itself (a damaged checkpoint, a changed input file, a bug) are returned as
+    status 'failed' with their message: they would repeat on a retry. Only a dead
+    worker is retried.
     """
-    from .runner import Runner, config_record
+    from .runner import Runner, config_record, prepare_fresh
 
     d = Path(item["run_dir"])
-    meta = _status(d)
-    if meta is not None and meta.get("status") == "finished":
-        return summary_row(item)
     try:
-        cfg = parse_config(item["data"], item["config"], item["base_dir"])
-        problem = cfg.make_problem()
-        runner = Runner(problem, cfg.run, d, item["run_id"], config_record(cfg), progress=False, notices=False)
-        runner.run(resume=(d / R.CHECKPOINT).is_file())
-    except KeyboardInterrupt:   # a second Ctrl-C, or one before the run started: the last checkpoint stays valid
-        return summary_row(item, status="interrupted")
-    except Exception as exc:
-        return summary_row(item, status="failed", error=f"{type(exc).__name__}: {exc}")
+        RF.refuse_foreign(d, "batch name")
+        lock = RF.FolderLock.acquire(d, command=f"tiltopt batch (run {item['run_id']}, pid {os.getpid()})")
+    except InputError as exc:
+        return summary_row(item, status="failed", error=str(exc))
+    with lock:
+        meta = RF.read_meta(d)
+        same = meta is not None and _stored_hash(meta) == item.get("config_sha256")
+        if meta is not None and not same:
+            return summary_row(item, status="failed", error="the run folder holds a run of another config "
+                                                            "(restart the batch with --rerun-changed)")
+        if meta is not None and meta.get("status") == "finished":
+            return summary_row(item)
+        try:
+            if meta is not None and CK.present(d / R.CHECKPOINT):
+                copies = RF.verify_inputs(d, meta, flag="--rerun-changed")
+                with reading_copies(copies):
+                    cfg = parse_config(item["data"], item["config"], item["base_dir"])
+                    problem = cfg.make_problem()
+                record, resume = config_record(cfg, meta.get("inputs")), True
+            else:
+                RF.clear_run_files(d)
+                cfg = parse_config(item["data"], item["config"], item["base_dir"])
+                cfg, problem, record = prepare_fresh(cfg, d, item["config"])
+                resume = False
+            Runner(problem, cfg.run, d, item["run_id"], record, progress=False, notices=False,
+                   lock=lock, restart_hint=BATCH_RESTART_HINT).run(resume=resume)
+        except KeyboardInterrupt:   # a second Ctrl-C, or one before the run started: the last checkpoint stays valid
+            return summary_row(item, status="interrupted")
+        except InputError as exc:   # a damaged file of the run folder, a changed input: the message names it
+            return summary_row(item, status="failed", error=str(exc))
+        except Exception as exc:
+            return summary_row(item, status="failed", error=f"{type(exc).__name__}: {exc}")
     return summary_row(item)
 
 
-EXIT_FAILED, EXIT_INTERRUPTED = 3, 4
+EXIT_FAILED, EXIT_INTERRUPTED, EXIT_ORPHANED = 3, 4, 5
+#: what to do about a damaged checkpoint of a batch run
+BATCH_RESTART_HINT = ("Delete it and start the batch again: this run then starts again from generation 1 (its "
+                      "other files are replaced).")
+MAX_ERROR_CHARS = 4000     # of a failed run's message sent from its worker
 
 
-def _process_main(item: dict) -> None:
+def _die_with_parent(parent_pid: int, poll_s: float = 0.5) -> None:
+    """End this worker process as soon as the batch process that started it is gone (kill -9 included).
+
+    Linux: ``prctl(PR_SET_PDEATHSIG, SIGKILL)``, so the kernel kills it with its parent; everywhere,
+    a daemon thread that polls ``os.getppid()`` (a dead parent's children are re-parented).
+    The run folder's lock goes with the process; its files are whole (atomic writes).
+    """
+    if sys.platform.startswith("linux"):
+        try:
+            import ctypes
+
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(1, signal.SIGKILL, 0, 0, 0)        # 1 = PR_SET_PDEATHSIG (linux/prctl.h)
+        except (OSError, AttributeError):
+            pass
+    if os.getppid() != parent_pid:   # the parent died before the line above
+        os._exit(EXIT_ORPHANED)
+
+    def watch():
+        while True:
+            time.sleep(poll_s)
+            if os.getppid() != parent_pid:
+                os._exit(EXIT_ORPHANED)
+
+    threading.Thread(target=watch, name="tiltopt-parent-watch", daemon=True).start()
+
+
+def _process_main(item: dict, parent_pid: int | None = None, report=None) -> None:
+    """A local worker: run ``item``, send its summary row through ``report`` (a pipe to the batch
+    process: a failed run's message lives only there), exit with a code that says how it ended."""
+    if parent_pid is not None:
+        _die_with_parent(parent_pid)
     row = execute_item(item)
+    if report is not None:
+        try:
+            report.send({**row, "error": str(row.get("error", ""))[:MAX_ERROR_CHARS]})
+            report.close()
+        except OSError:     # the batch process is gone; the exit code still tells
+            pass
     raise SystemExit({"finished": 0, "interrupted": EXIT_INTERRUPTED}.get(row["status"], EXIT_FAILED))
+
+
+# ------------------------------------------------------------------ same run or not
+def _stored_hash(meta: dict) -> str | None:
+    h = meta.get("config_sha256")
+    if isinstance(h, str):
+        return h
+    return RF.config_hash(meta["config"]) if isinstance(meta.get("config"), dict) else None
+
+
+def _dotted_diff(a, b, prefix="") -> list[str]:
+    if isinstance(a, dict) and isinstance(b, dict):
+        out = []
+        for k in sorted(set(a) | set(b), key=str):
+            out += _dotted_diff(a.get(k, _ABSENT), b.get(k, _ABSENT), f"{prefix}{k}.")
+        return out
+    same = json.dumps(a, sort_keys=True, default=str) == json.dumps(b, sort_keys=True, default=str)
+    return [] if same else [prefix[:-1]]
+
+
+_ABSENT = object()
+
+
+def changed_runs(batch: Batch) -> list[tuple[BatchItem, str]]:
+    """Items whose run folder holds a run of another resolved config or other input files, with what differs.
+
+    Raises
+    ------
+    InputError
+        When an item's folder exists and is not a tiltopt run folder.
+    """
+    out = []
+    hashes: dict[str, str | None] = {}
+
+    def current(path):
+        if path not in hashes:
+            try:
+                hashes[path] = RF.sha256_file(path)
+            except OSError:
+                hashes[path] = None
+        return hashes[path]
+
+    for it in batch.items:
+        d = Path(it.run_dir)
+        RF.refuse_foreign(d, "batch name")
+        if RF.folder_kind(d) != "run":
+            continue
+        meta = RF.read_meta(d) or {}
+        if _stored_hash(meta) != it.config_sha256:
+            keys = _dotted_diff(meta.get("config"), it.data) if isinstance(meta.get("config"), dict) else []
+            out.append((it, "config differs" + (f" ({', '.join(keys[:4])}{' ...' if len(keys) > 4 else ''})"
+                                                if keys else "")))
+            continue
+        now = {e["role"]: e["path"] for e in it.inputs if e["role"] != "config"}
+        then = {r.get("role"): r for r in (meta.get("inputs") or [])
+                if isinstance(r, dict) and r.get("role") != "config"}
+        if meta.get("inputs") is None:
+            continue      # a run folder of an older tiltopt: no input hashes to compare
+        diff = [role for role in sorted(set(now) | set(then), key=str)
+                if role not in now or role not in then or current(now[role]) != then[role].get("sha256")]
+        if diff:
+            out.append((it, "input files changed (" + ", ".join(f"{r} {now.get(r, '(none now)')}" for r in diff) + ")"))
+    return out
+
+
+def settle_changed(batch: Batch, rerun_changed: bool, echo=None) -> None:
+    """Refuse a batch whose runs changed, or (``rerun_changed``) clear those runs so they start again."""
+    changed = changed_runs(batch)
+    if not changed:
+        return
+    if not rerun_changed:
+        shown = "; ".join(f"{it.run_id}: {why}" for it, why in changed[:5])
+        more = f" and {len(changed) - 5} more" if len(changed) > 5 else ""
+        raise InputError(f"{len(changed)} runs of this batch already have folders from another config or other "
+                         f"input files ({shown}{more}). A run is kept or continued only when its resolved config "
+                         f"and inputs are the same. Pass --rerun-changed to start them again (their old results "
+                         f"are replaced), or give the batch another name.", batch.source, "batch.name")
+    for it, why in changed:
+        with RF.FolderLock.acquire(it.run_dir, command=f"tiltopt batch --rerun-changed (pid {os.getpid()})"):
+            RF.clear_run_files(it.run_dir)
+        _log(echo, f"{it.run_id}: {why}; starting it again")
 
 
 # ------------------------------------------------------------------ executors
@@ -292,37 +448,67 @@ def _log(echo, text):
         echo(text)
 
 
-def run_local(batch: Batch, workers: int = 2, echo=None, poll_s: float = 0.2) -> pd.DataFrame:
-    """Run a batch in local worker processes (one process per run, ``workers`` at a time)."""
+def _batch_lock(batch: Batch) -> RF.FolderLock:
+    """Take the batch folder's lock (a second driver of the same batch is refused, naming the holder's pid)."""
+    lock = RF.FolderLock.acquire(batch.batch_dir, RF.BATCH_LOCK, "batch")
+    RF.clean_temp_files(batch.batch_dir)
+    return lock
+
+
+def run_local(batch: Batch, workers: int = 2, echo=None, poll_s: float = 0.2,
+              rerun_changed: bool = False) -> pd.DataFrame:
+    """Run a batch in local worker processes (one process per run, ``workers`` at a time).
+
+    Raises
+    ------
+    InputError
+        When another process drives this batch, or runs changed (see :func:`settle_changed`).
+    """
+    with _batch_lock(batch):
+        settle_changed(batch, rerun_changed, echo)
+        _log(echo, f"batch {batch.name}: {len(batch.items)} runs in {batch.batch_dir}")
+        return _run_local(batch, workers, echo, poll_s)
+
+
+def _run_local(batch: Batch, workers: int, echo, poll_s: float) -> pd.DataFrame:
     ctx = mp.get_context("spawn")
-    batch.batch_dir.mkdir(parents=True, exist_ok=True)
     rows = {it.run_id: summary_row(it.to_dict()) for it in batch.items}
     todo = [it for it in batch.items if rows[it.run_id]["status"] != "finished"]
     for it in batch.items:
         if rows[it.run_id]["status"] == "finished":
             _log(echo, f"{it.run_id}: finished earlier, kept")
     attempts = {it.run_id: 0 for it in batch.items}
-    running: dict[str, tuple[Any, BatchItem]] = {}
+    running: dict[str, tuple[Any, BatchItem, Any]] = {}
+    told: dict[str, dict] = {}        # the row each worker sent before it ended
     _write_summary(batch, rows)
     try:
         while todo or running:
             while todo and len(running) < max(1, workers):
                 it = todo.pop(0)
                 attempts[it.run_id] += 1
-                p = ctx.Process(target=_process_main, args=(it.to_dict(),), name=f"tiltopt-{it.run_id}")
+                recv, send = ctx.Pipe(duplex=False)
+                p = ctx.Process(target=_process_main, args=(it.to_dict(), os.getpid(), send),
+                                name=f"tiltopt-{it.run_id}")
                 p.start()
-                running[it.run_id] = (p, it)
+                send.close()          # the worker holds the only sending end: a dead worker leaves the pipe empty
+                running[it.run_id] = (p, it, recv)
                 _log(echo, f"{it.run_id}: started (attempt {attempts[it.run_id]}, pid {p.pid})")
             time.sleep(poll_s)
-            for rid, (p, it) in list(running.items()):
+            for rid, (p, it, recv) in list(running.items()):
+                _receive(recv, rid, told)
                 if p.is_alive():
                     continue
                 p.join()
+                _receive(recv, rid, told)
+                recv.close()
                 del running[rid]
                 row = summary_row(it.to_dict(), attempts[rid])
+                sent = told.pop(rid, None)
                 if row["status"] == "finished":
                     _log(echo, f"{rid}: finished, front of {row['front_size']}")
-                elif p.exitcode == EXIT_FAILED and row["status"] == "failed":
+                elif p.exitcode == EXIT_FAILED:     # the run itself failed: the same on every attempt, not retried
+                    row["status"] = "failed"
+                    row["error"] = (sent or {}).get("error") or row["error"] or "the run failed (no message arrived)"
                     _log(echo, f"{rid}: failed: {row['error']}")
                 elif p.exitcode == EXIT_INTERRUPTED:
                     row["status"] = "interrupted"
@@ -341,7 +527,7 @@ def run_local(batch: Batch, workers: int = 2, echo=None, poll_s: float = 0.2) ->
         # Ctrl-C reaches the workers too (same process group): each stops after its generation
         # with a checkpoint. Wait for them, record where they are, start nothing new.
         _log(echo, "stopping: the running runs write a checkpoint after their generation ...")
-        for rid, (p, it) in running.items():
+        for rid, (p, it, _recv) in running.items():
             p.join(timeout=120)
             if p.is_alive():
                 p.terminate()
@@ -355,56 +541,137 @@ def run_local(batch: Batch, workers: int = 2, echo=None, poll_s: float = 0.2) ->
     return pd.DataFrame([rows[it.run_id] for it in batch.items], columns=list(SUMMARY_UNITS))
 
 
-def run_dask(batch: Batch, scheduler, echo=None) -> pd.DataFrame:
+def _receive(conn, rid: str, told: dict) -> None:
+    """Keep the row a worker sent, if one is waiting (a pipe that breaks is a worker that died)."""
+    try:
+        if conn.poll():
+            told[rid] = conn.recv()
+    except (EOFError, OSError):
+        pass
+
+
+def scheduler_address(text) -> str:
+    """A Dask scheduler address as ``tiltopt batch --scheduler`` takes it (``tcp://host:port``; a bare
+    ``host:port`` means tcp).
+
+    Raises
+    ------
+    InputError
+        When it is not such an address.
+    """
+    from urllib.parse import urlsplit
+
+    t = str(text).strip()
+    bad = InputError(f"expected the address of a Dask scheduler, like tcp://192.168.1.20:8786 (the address "
+                     f"'dask scheduler' prints). Got {text!r}.", "--scheduler")
+    if "://" not in t:
+        t = "tcp://" + t
+    try:
+        u = urlsplit(t)
+        port = u.port
+    except ValueError:
+        raise bad from None
+    if u.scheme == "inproc":
+        return t
+    if u.scheme not in ("tcp", "tls", "ws", "wss") or not u.hostname or port is None or u.path not in ("", "/") \
+            or u.query or u.fragment or any(c.isspace() for c in t):
+        raise bad
+    return t
+
+
+def _probe_scheduler(address: str, timeout_s: float = 5.0) -> None:
+    """Fail fast with a clear message when nothing listens at a scheduler's host and port."""
+    import socket
+    from urllib.parse import urlsplit
+
+    u = urlsplit(address)
+    if u.scheme == "inproc":
+        return
+    try:
+        with socket.create_connection((u.hostname, u.port), timeout=timeout_s):
+            pass
+    except socket.gaierror as exc:
+        raise InputError(f"cannot reach the Dask scheduler at {address}: unknown host {u.hostname!r} ({exc}).",
+                         "--scheduler") from None
+    except (ConnectionRefusedError, TimeoutError, OSError) as exc:
+        why = ("connection refused: nothing listens there" if isinstance(exc, ConnectionRefusedError)
+               else f"no answer within {timeout_s:g} s" if isinstance(exc, TimeoutError) else str(exc))
+        raise InputError(f"cannot reach the Dask scheduler at {address} ({why}). Start one ('dask scheduler', "
+                         f"then 'dask worker ADDRESS' on each machine) or check the address.",
+                         "--scheduler") from None
+
+
+def connect_scheduler(scheduler, timeout_s: float = 10.0):
+    """A ``distributed.Client`` for an address (checked first), or the given client. Returns ``(client, own)``."""
+    from distributed import Client
+
+    if isinstance(scheduler, Client):
+        return scheduler, False
+    address = scheduler_address(scheduler)
+    _probe_scheduler(address)
+    try:
+        return Client(address, timeout=f"{timeout_s:g}s"), True
+    except (OSError, TimeoutError) as exc:
+        raise InputError(f"cannot connect to the Dask scheduler at {address} ({type(exc).__name__}: {exc}). Is it "
+                         f"a Dask scheduler, of a compatible version?", "--scheduler") from None
+
+
+def run_dask(batch: Batch, scheduler, echo=None, rerun_changed: bool = False) -> pd.DataFrame:
     """Run a batch on a Dask distributed cluster (``scheduler``: an address or a ``Client``).
 
     Workers need the same files at the same paths (configs, shells, the
-    results folder): a shared filesystem, or one machine.
+    results folder): a shared filesystem, or one machine. Each run folder is
+    locked by the worker that writes it; the batch folder by this process.
     """
-    from distributed import Client, as_completed
+    from distributed import as_completed
 
-    own = not isinstance(scheduler, Client)
-    client = Client(scheduler) if own else scheduler
+    client, own = connect_scheduler(scheduler)
     try:
-        batch.batch_dir.mkdir(parents=True, exist_ok=True)
-        rows = {it.run_id: summary_row(it.to_dict()) for it in batch.items}
-        attempts = {it.run_id: 0 for it in batch.items}
-        _write_summary(batch, rows)
-        futs = {}
-
-        def submit(it):
-            attempts[it.run_id] += 1
-            f = client.submit(execute_item, it.to_dict(), pure=False,
-                              key=f"tiltopt-{batch.name}-{it.run_id}-{attempts[it.run_id]}-{time.time_ns()}")
-            futs[f.key] = it
-            return f
-
-        pending = []
-        for it in batch.items:
-            if rows[it.run_id]["status"] == "finished":
-                _log(echo, f"{it.run_id}: finished earlier, kept")
-            else:
-                pending.append(submit(it))
-        ac = as_completed(pending)
-        for f in ac:
-            it = futs[f.key]
-            try:
-                row = f.result()
-                row["attempts"] = attempts[it.run_id]
-                _log(echo, f"{it.run_id}: {row['status']}" + (f", front of {row['front_size']}"
-                                                              if row["status"] == "finished" else f": {row['error']}"))
-            except Exception as exc:  # worker lost (KilledWorker, connection closed ...)
-                row = summary_row(it.to_dict(), attempts[it.run_id])
-                if attempts[it.run_id] <= batch.retries:
-                    _log(echo, f"{it.run_id}: worker lost ({type(exc).__name__}); starting it again")
-                    row["status"] = "retrying"
-                    ac.add(submit(it))
-                else:
-                    row["status"] = "died"
-                    row["error"] = f"{type(exc).__name__}: {exc}"
-            rows[it.run_id] = row
-            _write_summary(batch, rows)
-        return pd.DataFrame([rows[it.run_id] for it in batch.items], columns=list(SUMMARY_UNITS))
+        with _batch_lock(batch):
+            settle_changed(batch, rerun_changed, echo)
+            _log(echo, f"batch {batch.name}: {len(batch.items)} runs in {batch.batch_dir} (Dask)")
+            return _run_dask(batch, client, echo, as_completed)
     finally:
         if own:
             client.close()
+
+
+def _run_dask(batch: Batch, client, echo, as_completed) -> pd.DataFrame:
+    rows = {it.run_id: summary_row(it.to_dict()) for it in batch.items}
+    attempts = {it.run_id: 0 for it in batch.items}
+    _write_summary(batch, rows)
+    futs = {}
+
+    def submit(it):
+        attempts[it.run_id] += 1
+        f = client.submit(execute_item, it.to_dict(), pure=False,
+                          key=f"tiltopt-{batch.name}-{it.run_id}-{attempts[it.run_id]}-{time.time_ns()}")
+        futs[f.key] = it
+        return f
+
+    pending = []
+    for it in batch.items:
+        if rows[it.run_id]["status"] == "finished":
+            _log(echo, f"{it.run_id}: finished earlier, kept")
+        else:
+            pending.append(submit(it))
+    ac = as_completed(pending)
+    for f in ac:
+        it = futs[f.key]
+        try:
+            row = f.result()
+            row["attempts"] = attempts[it.run_id]
+            _log(echo, f"{it.run_id}: {row['status']}" + (f", front of {row['front_size']}"
+                                                          if row["status"] == "finished" else f": {row['error']}"))
+        except Exception as exc:  # worker lost (KilledWorker, connection closed ...)
+            row = summary_row(it.to_dict(), attempts[it.run_id])
+            if attempts[it.run_id] <= batch.retries:
+                _log(echo, f"{it.run_id}: worker lost ({type(exc).__name__}); starting it again")
+                row["status"] = "retrying"
+                ac.add(submit(it))
+            else:
+                row["status"] = "died"
+                row["error"] = f"{type(exc).__name__}: {exc}"
+        rows[it.run_id] = row
+        _write_summary(batch, rows)
+    return pd.DataFrame([rows[it.run_id] for it in batch.items], columns=list(SUMMARY_UNITS))

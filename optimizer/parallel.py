@@ -67,8 +67,8 @@ class ParallelProblem:
     Every other attribute is the wrapped problem's.
     """
 
-    def __init__(self, cfg, workers: int):
-        self._problem = cfg.make_problem()
+    def __init__(self, cfg, workers: int, problem=None):
+        self._problem = problem if problem is not None else cfg.make_problem()
         self.workers = int(workers)
         self._cfg_bytes = pickle.dumps(cfg)
         self._pool = None
@@ -116,10 +116,10 @@ class ParallelProblem:
             pass
 
 
-def make_parallel(cfg, workers: int | None):
-    """The problem of ``cfg`` on ``workers`` processes (default :data:`DEFAULT_WORKERS`); a plain
-    problem for one worker or a benchmark config."""
+def make_parallel(cfg, workers: int | None, problem=None):
+    """The problem of ``cfg`` (or ``problem``, already made from it) on ``workers`` processes (default
+    :data:`DEFAULT_WORKERS`); the plain problem for one worker or a benchmark config."""
     n = DEFAULT_WORKERS if workers is None else int(workers)
     if n < 2 or cfg.spec is None:
-        return cfg.make_problem()
-    return ParallelProblem(cfg, n)
+        return problem if problem is not None else cfg.make_problem()
+    return ParallelProblem(cfg, n, problem)

@@ -86,6 +86,14 @@ class Normaliser:
         F = np.asarray(F, dtype=float)
         return cls(F.min(axis=0), F.max(axis=0))
 
+    @classmethod
+    def restored(cls, lower, upper) -> "Normaliser":
+        """A normaliser with exactly these (already processed) bounds, as a checkpoint stores them."""
+        n = cls.__new__(cls)
+        n.lower = np.array(lower, dtype=float)
+        n.upper = np.array(upper, dtype=float)
+        return n
+
     def __call__(self, F) -> np.ndarray:
         return (np.asarray(F, dtype=float) - self.lower) / (self.upper - self.lower)
 

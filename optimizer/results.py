@@ -12,7 +12,12 @@ Files (every one written atomically: a temp file in the same folder, then
   share, front size, hypervolume on normalised objectives, times.
 - ``run.json``: config as run, seed, problem description, template,
   package versions, timings, status.
-- ``checkpoint.pkl``: the algorithm state for ``tiltopt run --resume``.
+- ``checkpoint.npz``: the algorithm and run state for ``tiltopt run --resume``
+  (arrays and JSON only, never a pickle: :mod:`tiltopt.optimizer.checkpoint`).
+- ``inputs/``: a copy of every input file (config, mechanism, shell, loads ...),
+  hashed in ``run.json``; resume, explorer and sheet read these copies.
+- ``run.lock``: the OS lock of the process writing the folder
+  (:mod:`tiltopt.optimizer.runfolder`).
 
 Columns of front/evaluations: ``candidate_id``, ``generation``, ``feasible``,
 ``violation``, ``reason``, ``var.<name>``, ``obj.<name>`` (as minimised),
@@ -40,7 +45,7 @@ import pyarrow.parquet as pq
 from tiltopt.base.errors import InputError, read_text
 
 FRONT, EVALUATIONS, GENERATIONS, RUN_JSON, CHECKPOINT = (
-    "front.parquet", "evaluations.parquet", "generations.parquet", "run.json", "checkpoint.pkl")
+    "front.parquet", "evaluations.parquet", "generations.parquet", "run.json", "checkpoint.npz")
 from tiltopt.base.safety import SAFETY_CAUTION
 PARTS_DIR = "evaluations.parts"
 META_KEY = b"tiltopt"
@@ -218,11 +223,12 @@ class Run:
         if not isinstance(cfg, dict):
             raise InputError("run.json holds no config (this folder is a merge of runs).", str(self.run_dir / RUN_JSON),
                              "config")
-        base = self.meta.get("config_base_dir")
-        if base is not None and not isinstance(base, str):
-            raise InputError(f"expected the config's folder as a string. Got {base!r} instead.",
-                             str(self.run_dir / RUN_JSON), "config_base_dir")
-        return parse_config(cfg, str(self.run_dir / RUN_JSON), base)
+        from tiltopt.base.inputs import reading_copies
+
+        from .runfolder import copies_of
+
+        with reading_copies(copies_of(self.meta, self.run_dir)):   # the files the run started with
+            return parse_config(cfg, str(self.run_dir / RUN_JSON), self.meta.get("config_base_dir"))
 
     @cached_property
     def template(self):
@@ -285,7 +291,7 @@ def load_run(run_dir: str | Path) -> Run:
         raise InputError("expected a run folder (results/<run-id>/). " + ("This is not a folder." if d.exists() else
                                                                           "It does not exist."), str(d))
     rj = d / RUN_JSON
-    if not rj.is_file():
+    if not rj.exists():        # a device or pipe in its place gets its own message from the reader
         raise InputError("expected a run folder with run.json; none found. Is this a results/<run-id>/ folder?", str(d))
     meta = read_run_json(rj)
     units: dict = {}
@@ -305,8 +311,9 @@ def load_run(run_dir: str | Path) -> Run:
 
 
 #: run.json keys the readers use, with the JSON type each must have when present
-_META_TYPES = {"run_id": str, "status": str, "problem": dict, "template": dict, "config": dict, "seed": int,
-               "sources": list, "envelope": dict}
+_META_TYPES = {"format": str, "run_id": str, "status": str, "problem": dict, "template": dict, "config": dict,
+               "config_base_dir": str, "config_sha256": str, "inputs": list, "seed": int, "sources": list,
+               "envelope": dict, "timings": dict}
 
 
 _JSON_NAMES = {dict: "object", list: "array", str: "string", int: "integer", float: "number", bool: "boolean"}

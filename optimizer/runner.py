@@ -2,9 +2,13 @@
 
 The loop is pymoo's ask / tell: each generation's designs go to one batched
 ``evaluate_designs(X)`` call, every evaluated design is recorded, and the
-algorithm (with its random generator) is pickled every ``checkpoint_every``
-generations. A resumed run therefore continues to the same front as an
-uninterrupted run with the same seed.
+algorithm's state (population, random generator ...) is written every
+``checkpoint_every`` generations as arrays and JSON (:mod:`tiltopt.optimizer.checkpoint`;
+never a pickle, so resuming a folder from anyone runs no code of theirs). A
+resumed run continues to the same front as an uninterrupted run with the same seed.
+
+One process writes a run folder at a time: :class:`~tiltopt.optimizer.runfolder.FolderLock`
+(``run.lock``) is held from start to end, and the OS drops it when the process dies.
 
 Any object works as the problem if it has ``n_var``, ``n_obj``,
 ``n_ieq_constr``, ``xl``, ``xu`` and ``evaluate_designs(X)`` returning an
@@ -15,8 +19,6 @@ object with ``F``, ``G``, ``feasible``, ``violation``, ``reason``,
 from __future__ import annotations
 
 import math
-import pickle
-import shutil
 import signal
 import threading
 import time
@@ -25,7 +27,6 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-import cloudpickle
 import numpy as np
 import pandas as pd
 from pymoo.core.evaluator import Evaluator
@@ -34,16 +35,18 @@ from pymoo.problems.static import StaticProblem
 
 from tiltopt.base.errors import InputError
 
+from tiltopt.base.inputs import reading_copies
+
+from . import checkpoint as CK
 from . import results as R
+from . import runfolder as RF
 from .config import RunConfig, RunSettings, parse_config
 from .pareto import HV_REFERENCE, Normaliser, dominated_by, hypervolume, nondominated_mask
 from .progress import Progress
 
-CHECKPOINT_FORMAT = "tiltopt-checkpoint-1"
-
 
 class _Bounds(Problem):
-    """What the algorithm sees of the problem: sizes and bounds only (cheap to pickle)."""
+    """What the algorithm sees of the problem: sizes and bounds only."""
 
     def __init__(self, n_var, n_obj, n_ieq_constr, xl, xu):
         super().__init__(n_var=n_var, n_obj=n_obj, n_ieq_constr=n_ieq_constr, xl=xl, xu=xu, elementwise=False)
@@ -225,11 +228,15 @@ class Runner:
         Stop (as after Ctrl-C, with a checkpoint) once this many generations are done.
     notices : bool
         Print notices (stop requested, how to resume) on stderr.
+    lock : FolderLock, optional
+        The run folder's lock, when the caller holds it already (else :meth:`run` takes it).
     """
 
     def __init__(self, problem, settings: RunSettings, run_dir: Path, run_id: str, config: dict | None = None,
-                 progress: bool = True, stop_after: int | None = None, notices: bool = True):
+                 progress: bool = True, stop_after: int | None = None, notices: bool = True,
+                 lock: RF.FolderLock | None = None, restart_hint: str = CK.RESTART_HINT):
         self.problem = problem
+        self.restart_hint = restart_hint     # the end of the message about a damaged checkpoint
         self.settings = settings
         self.run_dir = Path(run_dir)
         self.run_id = run_id
@@ -242,6 +249,7 @@ class Runner:
         self.state = RunState()
         self.units = self._units()
         self.versions = R.package_versions()
+        self.lock = lock
 
     # -------------------------------------------------------------- setup
     def _units(self) -> dict:
@@ -273,29 +281,20 @@ class Runner:
 
     # -------------------------------------------------------------- checkpoint
     def _write_checkpoint(self):
-        s = self.state
-        # cloudpickle (a dask dependency): NSGA-III's operators hold local functions plain pickle refuses
-        blob = cloudpickle.dumps({"format": CHECKPOINT_FORMAT, "algorithm": self.algorithm, "state": s,
-                             "problem": self.info.to_dict(), "settings": self.settings.to_dict()},
-                            protocol=pickle.HIGHEST_PROTOCOL)
+        blob = CK.encode(self.algorithm, self.state, self.info.to_dict(), self.settings.to_dict(), self.versions)
         R.write_bytes(self.run_dir / R.CHECKPOINT, blob)
 
     def _load_checkpoint(self) -> bool:
         path = self.run_dir / R.CHECKPOINT
-        if not path.is_file():
+        if not CK.present(path):     # anything else at its path is refused by decode
+            refuse_old_checkpoint(self.run_dir)
             return False
-        try:
-            ck = pickle.loads(path.read_bytes())
-        except Exception as exc:  # a checkpoint from another version, or damaged
-            raise InputError(f"cannot read the checkpoint ({exc}). Start the run again without --resume.",
-                             str(path)) from None
-        if not isinstance(ck, dict) or ck.get("format") != CHECKPOINT_FORMAT:
-            raise InputError("not a tiltopt checkpoint of this version.", str(path))
-        if ck["problem"] != self.info.to_dict():
-            raise InputError("the checkpoint belongs to a different problem (variables, objectives or constraints "
-                             "differ from the config). Start a new run instead.", str(path))
-        self.algorithm = ck["algorithm"]
-        self.state = ck["state"]
+        alg = self._new_algorithm()     # the same construction as a new run; the checkpoint holds its state
+        p = self.problem
+        fields = CK.decode(path, alg, self.info.to_dict(), p.n_var, p.n_obj, p.n_ieq_constr, self.restart_hint)
+        norm = fields.pop("normaliser")
+        self.algorithm = alg
+        self.state = RunState(**fields, normaliser=None if norm is None else Normaliser.restored(*norm))
         # parts written after the checkpoint belong to generations that will run again
         parts = self.run_dir / R.PARTS_DIR
         if parts.is_dir():
@@ -443,6 +442,8 @@ class Runner:
             "config": self.config.get("config"),
             "config_source": self.config.get("config_source"),
             "config_base_dir": self.config.get("config_base_dir"),
+            "config_sha256": self.config.get("config_sha256"),
+            "inputs": self.config.get("inputs"),
             "problem": self.info.to_dict(),
             "template": self.info.template,
             "hypervolume": {"normalisation": s.normaliser.to_dict() if s.normaliser else None,
@@ -485,14 +486,38 @@ class Runner:
             self.progress.message(f"compiled the solver kernels in {dt:.0f} s (once per install; cached)")
 
     def run(self, resume: bool = False) -> RunOutcome:
-        """Run (or continue) to the configured number of generations, or until stopped."""
-        self.run_dir.mkdir(parents=True, exist_ok=True)
+        """Run (or continue) to the configured number of generations, or until stopped.
+
+        Holds the run folder's lock throughout (taken here unless the caller holds it).
+
+        Raises
+        ------
+        InputError
+            When another process writes the folder, the checkpoint is damaged, or the disk is full
+            (the message says how to continue).
+        """
+        own = self.lock is None
+        if own:
+            self.lock = RF.FolderLock.acquire(self.run_dir)
+        try:
+            return self._run(resume)
+        except OSError as exc:
+            if exc.errno not in RF.DISK_FULL:
+                raise
+            raise InputError(f"the disk is full (writing {exc.filename or 'a result file'}). Every file written "
+                             f"before is whole and the last checkpoint is valid: free some space, then continue "
+                             f"with: tiltopt run --resume {self.run_dir}", str(self.run_dir)) from None
+        finally:
+            if own:
+                self.lock.release()
+                self.lock = None
+
+    def _run(self, resume: bool) -> RunOutcome:
+        RF.clean_temp_files(self.run_dir)      # left by a writer killed mid-write; we hold the lock
         if not (resume and self._load_checkpoint()):
             self.algorithm = self._new_algorithm()
             self.state = RunState(started_utc=datetime.now(timezone.utc).isoformat())
-            for f in (R.FRONT, R.EVALUATIONS, R.GENERATIONS, R.CHECKPOINT):
-                (self.run_dir / f).unlink(missing_ok=True)
-            shutil.rmtree(self.run_dir / R.PARTS_DIR, ignore_errors=True)
+            RF.clear_run_files(self.run_dir, results_only=True)
             self._write_run_json("running")
         alg, s = self.algorithm, self.state
         p = self.problem
@@ -556,7 +581,8 @@ class Runner:
             raise
         except BaseException as exc:
             self.progress.close()
-            self._write_run_json("failed", error=f"{type(exc).__name__}: {exc}")
+            if not (isinstance(exc, OSError) and exc.errno in RF.DISK_FULL):   # a full disk takes no more writes
+                self._write_run_json("failed", error=f"{type(exc).__name__}: {exc}")
             raise
         self.progress.close()
         self._flush_part()
@@ -565,7 +591,7 @@ class Runner:
         self._write_evaluations()
         self._write_run_json(status)
         if status == "finished":   # evaluations.parquet now holds every part
-            shutil.rmtree(self.run_dir / R.PARTS_DIR, ignore_errors=True)
+            _remove_parts(self.run_dir)
         if status == "interrupted":
             self.progress.message(f"stopped at generation {s.generation}; continue with: "
                                   f"tiltopt run --resume {self.run_dir}")
@@ -588,21 +614,71 @@ def _concat_cols(blocks: list) -> dict:
 
 
 # ------------------------------------------------------------------ entry points
-def config_record(cfg: RunConfig) -> dict:
-    return {"config": cfg.data, "config_source": cfg.source, "config_base_dir": str(cfg.base_dir)}
+def _remove_parts(run_dir: Path) -> None:
+    """Delete the part files (evaluations.parquet holds them all now), and their folder when empty."""
+    parts = Path(run_dir) / R.PARTS_DIR
+    if parts.is_dir() and not parts.is_symlink():
+        for f in parts.iterdir():
+            if RF.PART_RE.match(f.name):
+                f.unlink(missing_ok=True)
+        try:
+            parts.rmdir()
+        except OSError:
+            pass
+
+
+def refuse_old_checkpoint(run_dir: Path) -> None:
+    """An InputError when the folder holds an old pickled checkpoint (never loaded)."""
+    old = Path(run_dir) / RF.OLD_CHECKPOINT
+    if old.exists():
+        raise InputError("a checkpoint of an older tiltopt (a Python pickle). tiltopt never loads pickles: loading "
+                         "one runs whatever code its author put in it. Start the run again with: tiltopt run CONFIG "
+                         "--overwrite (or delete checkpoint.pkl; --resume then starts it again from generation 1).",
+                         str(old))
+
+
+def config_record(cfg: RunConfig, inputs: list | None = None) -> dict:
+    """What run.json keeps of a config: the data as run, where it came from, its hash, the input files."""
+    return {"config": cfg.data, "config_source": cfg.source, "config_base_dir": str(cfg.base_dir),
+            "config_sha256": RF.config_hash(cfg.data), "inputs": inputs}
+
+
+def prepare_fresh(cfg: RunConfig, run_dir: Path, config_file=None):
+    """Copy and hash a new run's input files into ``run_dir/inputs/`` (lock held) and build its problem from the
+    copies, so that the run, its resume and its reports read the same bytes.
+
+    Returns
+    -------
+    cfg : RunConfig
+        Parsed from the copies.
+    problem
+    record : dict
+        For run.json (:func:`config_record` with the input records).
+    """
+    cfg, entries = RF.collect_inputs(cfg.data, cfg.source, cfg.base_dir, config_file)
+    recs = RF.copy_inputs(run_dir, entries)
+    copies = {r["role"]: Path(run_dir) / r["copy"] for r in recs if r["copy"] and r["role"] != "config"}
+    with reading_copies(copies):
+        cfg = parse_config(cfg.data, cfg.source, cfg.base_dir)
+        problem = cfg.make_problem()
+    return cfg, problem, config_record(cfg, recs)
 
 
 def default_run_id(cfg: RunConfig) -> str:
     return f"{cfg.run.name}-s{cfg.run.seed}"
 
 
-def _status(run_dir: Path) -> str | None:
-    try:
-        import json
-
-        return json.loads((run_dir / R.RUN_JSON).read_text(encoding="utf-8")).get("status")
-    except (OSError, ValueError, AttributeError, RecursionError):   # a run.json that is not an object
-        return None
+def _exists_message(run_dir: Path, meta: dict) -> str:
+    st = meta.get("status")
+    if st == "finished":
+        return ("a run folder with this id already exists and holds a finished run; pass --overwrite to replace it, or "
+                "--run-id NAME for a new folder.")
+    what = {"running": "a run that stopped without finishing (no process holds its lock: it was killed)",
+            "interrupted": "an interrupted run", "failed": "a failed run"}.get(st, f"a run ({st or 'status unknown'})")
+    how = ("from its last checkpoint" if (run_dir / R.CHECKPOINT).is_file()
+           else "it stopped before its first checkpoint, so this starts it again from generation 1")
+    return (f"a run folder with this id already exists and holds {what}. Continue it with: "
+            f"tiltopt run --resume {run_dir} ({how}), or pass --overwrite to start it again.")
 
 
 def start_run(cfg: RunConfig, run_id: str | None = None, output: str | Path | None = None, overwrite: bool = False,
@@ -613,11 +689,12 @@ def start_run(cfg: RunConfig, run_id: str | None = None, output: str | Path | No
     ----------
     cfg : RunConfig
     run_id : str, optional
-        Default ``<name>-s<seed>``.
+        A plain name (:func:`~tiltopt.optimizer.runfolder.check_name`); default ``<name>-s<seed>``.
     output : path, optional
         Folder for the run folder (default: the config's ``[run] output``).
     overwrite : bool
-        Replace an existing run folder of the same id.
+        Replace an existing run folder of the same id (only a tiltopt run folder, and only the files
+        tiltopt wrote in it).
     workers : int, optional
         Processes that evaluate each batch (default ``optimizer.parallel.DEFAULT_WORKERS``); the
         front is the same for any number.
@@ -625,57 +702,97 @@ def start_run(cfg: RunConfig, run_id: str | None = None, output: str | Path | No
     Raises
     ------
     InputError
-        When the run folder exists and ``overwrite`` is false.
+        When the id is not a plain name, the folder exists (without ``overwrite``), is not a tiltopt
+        run folder, or another process writes it.
     """
-    rid = run_id or default_run_id(cfg)
+    if run_id is not None:
+        rid = RF.check_name(run_id, "run id", "--run-id")
+    else:
+        rid = RF.check_name(default_run_id(cfg), "run id (run.name and run.seed)", cfg.source, "run.name")
     root = Path(output) if output is not None else cfg.run.output
     run_dir = root / rid
-    if (run_dir / R.RUN_JSON).exists() and not overwrite:
-        st = _status(run_dir)
-        hint = (f"continue it with: tiltopt run --resume {run_dir}" if st in ("running", "interrupted", "failed")
-                else "pass --overwrite to replace it, or --run-id NAME for a new folder")
-        raise InputError(f"a run folder with this id already exists ({st or 'unknown'} run); {hint}.", str(run_dir))
-    if overwrite and run_dir.exists():
-        shutil.rmtree(run_dir)
-    from .parallel import make_parallel
+    RF.refuse_foreign(run_dir)
+    with RF.FolderLock.acquire(run_dir) as lock:
+        RF.refuse_foreign(run_dir)     # again, now that nobody else writes it
+        if RF.folder_kind(run_dir) == "run" and not overwrite:
+            raise InputError(_exists_message(run_dir, RF.read_meta(run_dir) or {}), str(run_dir))
+        RF.clear_run_files(run_dir)
+        cfg, problem, record = prepare_fresh(cfg, run_dir, cfg.source)
+        from .parallel import make_parallel
 
-    problem = make_parallel(cfg, workers)
-    try:
-        return Runner(problem, cfg.run, run_dir, rid, config_record(cfg), progress, stop_after).run(resume=False)
-    finally:
-        getattr(problem, "close", lambda: None)()
+        problem = make_parallel(cfg, workers, problem)
+        try:
+            return Runner(problem, cfg.run, run_dir, rid, record, progress, stop_after, lock=lock).run(resume=False)
+        finally:
+            getattr(problem, "close", lambda: None)()
+
+
+def _stderr(text: str) -> None:
+    import sys
+
+    sys.stderr.write(text + "\n")
+    sys.stderr.flush()
 
 
 def resume_run(run_dir: str | Path, progress: bool = True, stop_after: int | None = None,
-               problem=None) -> RunOutcome:
+               problem=None, allow_changed_inputs: bool = False, workers: int | None = None) -> RunOutcome:
     """Continue a run from its checkpoint to the configured number of generations.
 
-    ``problem`` may be given for runs of a problem object made in code (no config in run.json).
+    A run killed before its first checkpoint starts again from generation 1 (same config, same
+    input copies, same seed: the same front). ``problem`` may be given for runs of a problem object
+    made in code (no config in run.json). The config is the one in run.json, the input files are the
+    run folder's copies; an original that changed since the start is refused unless
+    ``allow_changed_inputs``.
     """
     d = Path(run_dir)
-    meta = R.load_run(d).meta if (d / R.RUN_JSON).is_file() else None
-    if meta is None:
-        raise InputError("expected a run folder with run.json and checkpoint.pkl.", str(d))
-    if not (d / R.CHECKPOINT).is_file():
-        raise InputError("this run folder has no checkpoint.pkl to resume from; start the run again.", str(d))
-    if meta.get("config") is not None:
-        cfg = parse_config(meta["config"], str(d / R.RUN_JSON), meta.get("config_base_dir"))
-        settings, record = cfg.run, config_record(cfg)
-        record["config_source"] = meta.get("config_source")
-        problem = problem if problem is not None else cfg.make_problem()
-    else:
-        if problem is None:
-            raise InputError("this run was started from code, not a config; resume it from code with its problem.",
-                             str(d))
-        run = meta["run"]
-        settings = RunSettings(**{**run, "output": Path(run["output"])})
-        record = {}
-    runner = Runner(problem, settings, d, meta.get("run_id", d.name), record, progress, stop_after)
-    if meta.get("status") == "finished":
-        s = R.load_run(d)
-        return RunOutcome(d, runner.run_id, "finished", int(meta["timings"]["generations_done"]), len(s.front),
-                          float(meta["timings"]["elapsed_s"]))
-    return runner.run(resume=True)
+    if not d.is_dir():
+        raise InputError("expected a run folder (results/<run-id>/). It does not exist.", str(d))
+    if not (d / R.RUN_JSON).exists():
+        raise InputError("expected a run folder with run.json; none found. Is this a results/<run-id>/ folder?",
+                         str(d))
+    meta = R.read_run_json(d / R.RUN_JSON)      # a damaged one is a message naming what is wrong
+    if str(meta.get("format", "")).startswith("tiltopt-merge-"):
+        raise InputError("this folder holds a merged front (tiltopt merge), not a run: there is nothing to resume.",
+                         str(d))
+    notice = _stderr        # notices are printed with or without the progress line (as the runner's own)
+    with RF.FolderLock.acquire(d) as lock:
+        meta = RF.read_meta(d) or meta
+        if meta.get("status") == "finished":        # nothing to run, nothing to check
+            t = meta.get("timings") or {}
+            return RunOutcome(d, str(meta.get("run_id", d.name)), "finished", int(t.get("generations_done", 0)),
+                              len(R.load_run(d).front), float(t.get("elapsed_s", 0.0)))
+        if meta.get("config") is not None:
+            copies = RF.verify_inputs(d, meta, allow_changed_inputs, notice)
+            with reading_copies(copies):
+                cfg = parse_config(meta["config"], str(d / R.RUN_JSON), meta.get("config_base_dir"))
+                if problem is None:
+                    from .parallel import make_parallel
+
+                    problem = make_parallel(cfg, workers)
+            settings = cfg.run
+            record = {"config": meta["config"], "config_source": meta.get("config_source"),
+                      "config_base_dir": meta.get("config_base_dir"),
+                      "config_sha256": meta.get("config_sha256") or RF.config_hash(meta["config"]),
+                      "inputs": meta.get("inputs")}
+        else:
+            if problem is None:
+                raise InputError("this run was started from code, not a config; resume it from code with its "
+                                 "problem.", str(d))
+            run = meta.get("run")
+            if not isinstance(run, dict):
+                raise InputError("run.json holds neither a config nor run settings.", str(d / R.RUN_JSON), "run")
+            settings = RunSettings(**{**run, "output": Path(run["output"])})
+            record = {}
+        runner = Runner(problem, settings, d, meta.get("run_id", d.name), record, progress, stop_after, lock=lock)
+        has_checkpoint = CK.present(d / R.CHECKPOINT)
+        if not has_checkpoint:
+            refuse_old_checkpoint(d)
+            notice(f"{d}: no checkpoint yet (the run stopped before its first one): starting it again from "
+                   f"generation 1")
+        try:
+            return runner.run(resume=has_checkpoint)
+        finally:
+            getattr(problem, "close", lambda: None)()
 
 
 def run_problem(problem, settings: RunSettings, run_dir: str | Path, run_id: str | None = None,

@@ -62,6 +62,7 @@ from typing import Any
 
 import numpy as np
 
+from tiltopt.base import inputs
 from tiltopt.base.errors import InputError, check_keys
 from tiltopt.base.limits import (MAX_ABS_LEAN_DEG, MAX_COORD_MM, MAX_FORCE_N, MAX_LEAN_LIMIT_DEG, MAX_RANGE_VALUES,
                                  MAX_STATES, MAX_TRAVEL_MM, check_count)
@@ -213,7 +214,7 @@ def _path(v: Any, src: str, key: str, base_dir: Path) -> Path:
     if not isinstance(v, str) or not v:
         raise InputError(f"expected a file path (a string, relative to the config). Got {v!r} instead.", src, key)
     p = Path(v)
-    p = p if p.is_absolute() else base_dir / p
+    p = inputs.resolve(p if p.is_absolute() else base_dir / p, key)   # a run folder's copy, when resuming
     if not p.is_file():
         raise InputError(f"file not found: {p}. Give a path relative to the config's folder.", src, key)
     return p

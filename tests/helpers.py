@@ -295,3 +295,48 @@ def make_tiny_run(folder: Path) -> Path:
     cfg.write_text(TINY_CONFIG, encoding="utf-8")
     out = start_run(load_config(cfg), overwrite=True, progress=False)
     return Path(out.run_dir)
+
+
+# a constrained NSGA-III run config: many random wishbone designs fail to assemble (ties on violation)
+NSGA3_TILT = """
+objectives = ["overall_width", "max_scrub", "max_heave"]
+
+[run]
+name = "n3"
+seed = 4
+algorithm = "nsga3"
+population = 20
+generations = 8
+output = "out"
+checkpoint_every = 3
+
+[template]
+name = "wishbone_rocker"
+
+[envelope]
+lean_limit_deg = 30.0
+lean_step_deg = 10.0
+travel_mm = [0.0]
+
+[constraints]
+max_width_mm = 900.0
+"""
+
+
+# ------------------------------------------------------------------ the command line
+def cli_command(*args) -> list[str]:
+    """``tiltopt ARGS`` as a subprocess command line (this interpreter, this checkout)."""
+    import sys
+
+    return [sys.executable, "-c", "from tiltopt.cli import main; main()", *map(str, args)]
+
+
+def one_error(result, *needles) -> str:
+    """A click result that ended as a user error: exit 2, one line 'error: ...' holding every needle."""
+    assert result.exit_code == 2, result.output
+    assert "Traceback" not in result.output
+    lines = [ln for ln in result.output.splitlines() if ln.strip()]
+    assert len(lines) == 1 and lines[0].startswith("error: "), result.output
+    for n in needles:
+        assert n in lines[0], result.output
+    return lines[0]

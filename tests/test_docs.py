@@ -479,9 +479,75 @@ def test_run_json_keys(tiny_run):
 
 
 def test_run_folder_files(tiny_run):
+    from tiltopt.optimizer import runfolder as RF
+    from tiltopt.optimizer.results import PARTS_DIR
+
     rows = documented("Run folder", "", column="file")
     files = {p.name for p in tiny_run.iterdir()}
     assert files <= set(rows)
+    # every file tiltopt writes (and so may delete) at the top of a run folder is documented
+    names = {r.split("/")[0] for r in rows}
+    assert set(RF.RUN_FILES) | {RF.RUN_LOCK, RF.INPUTS_DIR, PARTS_DIR} | set(RF.REPORT_FILES) - {"plotly.min.js"} \
+        <= names, sorted(set(RF.RUN_FILES) - names)
+
+
+def _nested_keys(doc: dict, tables) -> set[str]:
+    keys = set(doc)
+    for k in tables:
+        if isinstance(doc.get(k), dict):
+            keys |= {f"{k}.{kk}" for kk in doc[k]}
+    return keys
+
+
+def test_checkpoint_json_keys(tiny_run):
+    """The key table of checkpoint.npz against the JSON member of a real checkpoint, both ways."""
+    import numpy as np
+
+    from tiltopt.optimizer.checkpoint import FORMAT, JSON_KEY
+
+    rows = documented("Run folder", "checkpoint.npz")
+    with np.load(tiny_run / "checkpoint.npz", allow_pickle=False) as z:
+        doc = json.loads(z[JSON_KEY].tobytes())
+        members = set(z.files)
+    assert _nested_keys(doc, ("algorithm", "state")) == set(rows)
+    assert doc["format"] == FORMAT and f'`"{FORMAT}"`' in rows["format"]["meaning"]
+    assert JSON_KEY in FORMATS and all(m == JSON_KEY or re.fullmatch(r"a\d+", m) for m in members)
+
+
+def test_lock_file_keys(tiny_run):
+    from tiltopt.optimizer.runfolder import BATCH_LOCK, RUN_LOCK
+
+    lock = json.loads((tiny_run / RUN_LOCK).read_text(encoding="utf-8"))
+    assert set(lock) == set(documented("Run folder", "run.lock"))
+    assert BATCH_LOCK in documented("Batch file", "Batch folder", column="file")
+
+
+def test_input_roles_and_records(tiny_run):
+    from tiltopt.optimizer.runfolder import INPUT_ROLES
+
+    assert list(documented("Run folder", "inputs/")) == list(INPUT_ROLES)
+    meta = json.loads((tiny_run / "run.json").read_text(encoding="utf-8"))
+    described = set(re.findall(r"`([a-z0-9_]+)`", documented("Run folder", "run.json")["inputs"]["meaning"]))
+    for rec in meta["inputs"]:
+        assert set(rec) <= described, sorted(set(rec) - described)
+        assert rec["copy"] is None or rec["copy"].startswith("inputs/" + rec["role"])
+
+
+def test_merged_front_run_json_keys(tiny_run, tmp_path):
+    from tiltopt.optimizer.merge import MERGE_FORMAT, merge_fronts
+
+    out, _ = merge_fronts([tiny_run], tmp_path / "merged")
+    meta = json.loads((out / "run.json").read_text(encoding="utf-8"))
+    rows = documented("Run folder", "Merged front folder")
+    assert set(meta) == set(rows)
+    assert meta["format"] == MERGE_FORMAT and f'`"{MERGE_FORMAT}"`' in rows["format"]["meaning"]
+    assert {p.name for p in out.iterdir()} == {"front.parquet", "run.json", "run.lock"}
+
+
+def test_batch_folder_files():
+    from tiltopt.optimizer.batch import SUMMARY
+
+    assert SUMMARY in documented("Batch file", "Batch folder", column="file")
 
 
 def test_batch_summary_columns():

@@ -8,7 +8,11 @@ Three parts:
   variable file, a run's run.json) replaced in turn by a set of wrong and extreme values, read by its
   parser: the only exception allowed is ``InputError``;
 - hypothesis over typed ranges: any text either gives values within the limits of
-  :mod:`tiltopt.base.limits` or an ``InputError``.
+  :mod:`tiltopt.base.limits` or an ``InputError``;
+- run folders: bad run.json records and input lists for ``run --resume`` (with and without
+  ``--allow-changed-inputs``), foreign and damaged run folders for ``batch --rerun-changed``, a table
+  of hostile ``checkpoint.npz`` files through the CLI, and every value and array of a real
+  checkpoint replaced in turn and decoded.
 
 Each limit is a design choice of the project (README "Limits"), not a number from a source.
 """
@@ -656,3 +660,290 @@ def test_range_size_is_found_before_allocating(monkeypatch):
         units.parse_leans("0:1e10:1")
     assert asked == []
     assert len(units.parse_leans("0:40:0.5")) == 81 and asked == [81]
+
+
+# ------------------------------------------------------------------ run folders: resume, batches, checkpoints
+ZDT_STOPPED = """
+[run]
+name = "fz"
+seed = 7
+population = 10
+generations = 6
+output = "out"
+checkpoint_every = 2
+
+[benchmark]
+name = "zdt1"
+n_var = 5
+"""
+
+
+@pytest.fixture(scope="module")
+def stopped_run(tmp_path_factory):
+    """A benchmark run stopped after 3 generations (interrupted, with a checkpoint of generation 3)."""
+    from tiltopt.optimizer.config import load_config
+    from tiltopt.optimizer.runner import start_run
+
+    t = tmp_path_factory.mktemp("stopped")
+    cfg = _write(t / "fz.toml", ZDT_STOPPED)
+    o = start_run(load_config(cfg), progress=False, stop_after=3)
+    assert o.status == "interrupted" and (o.run_dir / "checkpoint.npz").is_file()
+    return o.run_dir
+
+
+@pytest.fixture
+def stopped(stopped_run, tmp_path):
+    """A copy of the stopped run to damage (its config file stays where it was)."""
+    d = tmp_path / "run"
+    shutil.copytree(stopped_run, d)
+    return d
+
+
+def _resume(d, *extra):
+    return run_cli(["run", "--resume", d, "--quiet", *extra])
+
+
+def _edit_meta(d: Path, edit) -> None:
+    m = json.loads((d / "run.json").read_text())
+    edit(m)
+    (d / "run.json").write_text(json.dumps(m))
+
+
+def _input_record(role: str, path, copy=None) -> dict:
+    return {"role": role, "path": str(path), "sha256": "0" * 64, "bytes": 10, "builtin": False, "copy": copy}
+
+
+RESUME_CASES = [
+    # (case id, damage of the run folder copy d (gets d and tmp_path), extra options, fragments)
+    ("run-json-list", lambda d, t: (d / "run.json").write_text("[]"), [], ["run.json", "JSON object"]),
+    ("run-json-huge", lambda d, t: _huge(d, "run.json"), [], ["run.json", "larger than the limit"]),
+    ("run-json-fifo", lambda d, t: ((d / "run.json").unlink(), os.mkfifo(d / "run.json")), [],
+     ["run.json", "not a regular file"]),
+    ("config-sha256-number", lambda d, t: _edit_meta(d, lambda m: m.__setitem__("config_sha256", 5)), [],
+     ["config_sha256"]),
+    ("inputs-not-a-list", lambda d, t: _edit_meta(d, lambda m: m.__setitem__("inputs", "x")), [], ["inputs"]),
+    ("inputs-record-not-a-table", lambda d, t: _edit_meta(d, lambda m: m.__setitem__("inputs", [5])), [],
+     ["inputs", "damaged"]),
+    ("inputs-copy-outside", lambda d, t: _edit_meta(d, lambda m: m["inputs"].append(
+        _input_record("shell", t / "s.toml", "../../etc/passwd"))), ["--allow-changed-inputs"], ["inputs", "damaged"]),
+    ("inputs-unknown-role", lambda d, t: _edit_meta(d, lambda m: m["inputs"].append(
+        _input_record("secrets", t / "s.toml"))), [], ["inputs", "damaged"]),
+    # an input named by someone's run.json that is a device or a pipe is never read (no hang), and without its
+    # copy the run cannot go on, with or without --allow-changed-inputs
+    ("inputs-device-no-copy", lambda d, t: _edit_meta(d, lambda m: m["inputs"].append(
+        _input_record("shell", "/dev/zero", "inputs/shell.toml"))), [], ["shell", "/dev/zero", "cannot go on"]),
+    ("inputs-fifo-no-copy", lambda d, t: (os.mkfifo(t / "pipe.toml"), _edit_meta(d, lambda m: m["inputs"].append(
+        _input_record("loads", t / "pipe.toml", "inputs/loads.toml")))), ["--allow-changed-inputs"],
+     ["loads", "cannot go on"]),
+    ("config-changed", lambda d, t: _edit_meta(d, lambda m: m["inputs"][0].__setitem__("sha256", "1" * 64)), [],
+     ["changed since the run started", "--allow-changed-inputs"]),
+    ("old-pickle-only", lambda d, t: ((d / "checkpoint.npz").unlink(), (d / "checkpoint.pkl").write_bytes(b"x")), [],
+     ["checkpoint.pkl", "never loads pickles"]),
+]
+
+
+@pytest.mark.parametrize("case, damage, extra, fragments", RESUME_CASES, ids=[c[0] for c in RESUME_CASES])
+def test_bad_run_folder_for_resume_gives_one_message(stopped, tmp_path, case, damage, extra, fragments):
+    damage(stopped, tmp_path)
+    assert_one_error(_resume(stopped, *extra), *fragments)
+
+
+@pytest.mark.parametrize("args, fragments", [
+    (["--allow-changed-inputs"], ["--allow-changed-inputs", "--resume"]),
+    (["--resume", "{d}", "--run-id", "x"], ["--resume takes only the run folder"]),
+    (["--resume", "{d}", "--overwrite"], ["--resume takes only the run folder"]),
+    (["--resume", "{d}/run.json"], ["--resume"]),
+    (["--resume", "{t}/none"], ["does not exist"]),
+], ids=["allow-without-resume", "resume-run-id", "resume-overwrite", "resume-a-file", "resume-missing"])
+def test_run_folder_options_give_one_message(stopped, tmp_path, args, fragments):
+    cfg = _write(tmp_path / "fz.toml", ZDT_STOPPED)
+    args = [a.format(d=stopped, t=tmp_path) for a in args]
+    assert_one_error(run_cli(["run", *([cfg] if args[0] == "--allow-changed-inputs" else []), *args]), *fragments)
+
+
+# hostile checkpoints: each is refused with one message naming checkpoint.npz, runs no code, does not hang
+def _npz_members(ck: Path) -> dict:
+    with np.load(ck, allow_pickle=False) as z:
+        return {k: z[k] for k in z.files}
+
+
+def _npz_write(ck: Path, members: dict, compressed: bool = False) -> None:
+    import io
+
+    buf = io.BytesIO()
+    (np.savez_compressed if compressed else np.savez)(buf, **members)
+    ck.write_bytes(buf.getvalue())
+
+
+def _npz_json(ck: Path, raw: bytes) -> None:
+    m = _npz_members(ck)
+    m["checkpoint.json"] = np.frombuffer(raw, np.uint8)
+    _npz_write(ck, m)
+
+
+def _npz_doc(ck: Path, edit) -> None:
+    m = _npz_members(ck)
+    doc = json.loads(m["checkpoint.json"].tobytes())
+    edit(doc, m)
+    m["checkpoint.json"] = np.frombuffer(json.dumps(doc).encode(), np.uint8)
+    _npz_write(ck, m)
+
+
+def _npz_raw_member(ck: Path, name: str, data: bytes) -> None:
+    import zipfile
+
+    with zipfile.ZipFile(ck, "a", compression=zipfile.ZIP_STORED) as z:
+        z.writestr(name, data)
+
+
+def _npy_header(shape, descr="<f8", version=(1, 0)) -> bytes:
+    import io
+
+    h = io.BytesIO()
+    (np.lib.format.write_array_header_1_0 if version == (1, 0) else np.lib.format.write_array_header_2_0)(
+        h, {"descr": descr, "fortran_order": False, "shape": shape})
+    return h.getvalue()
+
+
+def _x_key(doc) -> str:
+    return doc["algorithm"]["pop"]["X"]["key"]
+
+
+CHECKPOINT_CASES = [
+    ("empty", lambda ck: ck.write_bytes(b""), ["not an .npz archive"]),
+    ("truncated", lambda ck: ck.write_bytes(ck.read_bytes()[:500]), ["not an .npz archive"]),
+    ("text", lambda ck: ck.write_text("checkpoint"), ["not an .npz archive"]),
+    ("pickle", lambda ck: ck.write_bytes(__import__("pickle").dumps({"a": 1})), ["not an .npz archive"]),
+    ("folder", lambda ck: (ck.unlink(), ck.mkdir()), ["checkpoint.npz"]),
+    ("fifo", lambda ck: (ck.unlink(), os.mkfifo(ck)), ["not a regular file"]),
+    ("link-to-dev-zero", lambda ck: (ck.unlink(), ck.symlink_to("/dev/zero")), ["not a regular file"]),
+    ("dangling-link", lambda ck: (ck.unlink(), ck.symlink_to(ck.parent / "nowhere")), ["checkpoint.npz"]),
+    ("compressed", lambda ck: _npz_write(ck, _npz_members(ck), compressed=True), ["is compressed"]),
+    ("zip-bomb", lambda ck: _npz_raw_member(ck, "a9999.npy", b""), []),   # replaced below
+    ("object-member", lambda ck: _npz_doc(ck, lambda d, m: m.__setitem__(_x_key(d), np.array([{"a": 1}] * 10,
+                                                                                               dtype=object))),
+     ["holds Python objects"]),
+    ("string-member", lambda ck: _npz_doc(ck, lambda d, m: m.__setitem__(_x_key(d), np.array(["x"] * 10))),
+     ["expected numbers"]),
+    ("huge-shape", lambda ck: _npz_raw_member(ck, "a9999.npy", _npy_header((10 ** 12,)) + b"\0" * 8),
+     ["claims shape"]),
+    ("negative-shape", lambda ck: _npz_raw_member(ck, "a9999.npy", _npy_header((2,)).replace(b"(2,)", b"(-2,)")),
+     ["a9999.npy"]),
+    ("npy-version-3", lambda ck: _npz_raw_member(ck, "a9999.npy", b"\x93NUMPY\x03\x00" + b"\0" * 16),
+     ["a9999.npy"]),
+    ("not-npy-member", lambda ck: _npz_raw_member(ck, "notes.txt", b"hello"), ["is not an array"]),
+    ("bad-magic", lambda ck: _npz_raw_member(ck, "a9999.npy", b"hello world, not an array"), ["a9999.npy"]),
+    ("json-missing", lambda ck: _npz_write(ck, {k: v for k, v in _npz_members(ck).items()
+                                                if k != "checkpoint.json"}), ["checkpoint.json is missing"]),
+    ("json-floats", lambda ck: _npz_write(ck, {**_npz_members(ck), "checkpoint.json": np.zeros(4)}),
+     ["expected bytes"]),
+    ("json-not-utf8", lambda ck: _npz_json(ck, b"\xff\xfe{}"), ["is not JSON"]),
+    ("json-broken", lambda ck: _npz_json(ck, b'{"format": '), ["is not JSON"]),
+    ("json-nested-too-deep", lambda ck: _npz_json(ck, b"[" * 100000 + b"]" * 100000), ["checkpoint.json"]),
+    ("json-list", lambda ck: _npz_json(ck, b"[]"), ["expected a table"]),
+    ("json-nan-timing", lambda ck: _npz_doc(ck, lambda d, m: d["state"].__setitem__("elapsed_s", math.nan)),
+     ["finite"]),
+    ("json-format", lambda ck: _npz_doc(ck, lambda d, m: d.__setitem__("format", "tiltopt-checkpoint-1")),
+     ["format"]),
+    ("json-other-problem", lambda ck: _npz_doc(ck, lambda d, m: d["problem"].__setitem__("objectives", ["f9"])),
+     ["different problem"]),
+    ("json-algorithm-class", lambda ck: _npz_doc(ck, lambda d, m: d["algorithm"].__setitem__("class", "Evil")),
+     ["Evil"]),
+    ("json-random-state", lambda ck: _npz_doc(ck, lambda d, m: d["algorithm"].__setitem__(
+        "random_state", {"bit_generator": "os.system", "state": "rm -rf /"})), ["random_state"]),
+    ("json-key-of-json", lambda ck: _npz_doc(ck, lambda d, m: d["algorithm"]["pop"]["X"].__setitem__(
+        "key", "checkpoint.json")), ["is missing"]),
+    ("json-population-count", lambda ck: _npz_doc(ck, lambda d, m: d["algorithm"]["pop"].__setitem__("n", 10 ** 15)),
+     ["rows"]),
+]
+
+
+def _zip_bomb(ck: Path) -> None:
+    import zipfile
+
+    with zipfile.ZipFile(ck, "w", compression=zipfile.ZIP_DEFLATED) as z:
+        z.writestr("checkpoint.json.npy", b"\0" * (1 << 24))       # 16 MiB of zeros in a few kB
+
+
+CHECKPOINT_CASES = [c if c[0] != "zip-bomb" else ("zip-bomb", _zip_bomb, ["is compressed"]) for c in CHECKPOINT_CASES]
+
+
+@pytest.mark.parametrize("case, damage, fragments", CHECKPOINT_CASES, ids=[c[0] for c in CHECKPOINT_CASES])
+def test_hostile_checkpoint_gives_one_message(stopped, case, damage, fragments):
+    ck = stopped / "checkpoint.npz"
+    damage(ck)
+    assert_one_error(_resume(stopped), str(ck), *fragments)
+
+
+def test_too_many_checkpoint_members_are_refused(stopped, monkeypatch):
+    monkeypatch.setattr("tiltopt.optimizer.checkpoint.MAX_MEMBERS", 5)
+    assert_one_error(_resume(stopped), str(stopped / "checkpoint.npz"), "members")
+
+
+def test_checkpoint_reader_raises_only_input_errors(stopped_run, tmp_path):
+    """Every value of a real checkpoint's JSON document, and every array, replaced in turn: decode raises
+    InputError or restores a state; nothing else."""
+    from tiltopt.optimizer import checkpoint as CK
+    from tiltopt.optimizer.config import parse_config
+    from tiltopt.optimizer.runner import Runner
+
+    meta = json.loads((stopped_run / "run.json").read_text())
+    cfg = parse_config(meta["config"], "run.json", meta["config_base_dir"])
+    problem = cfg.make_problem()
+    runner = Runner(problem, cfg.run, tmp_path / "scratch", "fz", progress=False)
+    members = _npz_members(stopped_run / "checkpoint.npz")
+    doc = json.loads(members.pop("checkpoint.json").tobytes())
+    ck = tmp_path / "checkpoint.npz"
+
+    def read(d, arrays=members):
+        _npz_write(ck, {"checkpoint.json": np.frombuffer(json.dumps(d, allow_nan=True).encode(), np.uint8), **arrays})
+        CK.decode(ck, runner._new_algorithm(), runner.info.to_dict(), problem.n_var, problem.n_obj,
+                  problem.n_ieq_constr)
+
+    read(doc)                                                 # the real one restores
+    assert _only_input_errors(doc, read, every=7) > 300
+    bad_arrays = [np.zeros(0), np.zeros((2, 2, 2)), np.array([math.nan, math.inf]), np.array([1, 2], np.int8),
+                  np.array([True]), np.float64(1.0), np.zeros((10 ** 5,))]
+    n = 0
+    for key in members:
+        for a in bad_arrays:
+            n += 1
+            try:
+                read(doc, {**members, key: a})
+            except InputError:
+                pass
+    assert n > 50
+
+
+def test_batch_options_on_foreign_and_damaged_run_folders(tmp_path):
+    """--rerun-changed never deletes a folder tiltopt did not write (one message instead), and a changed run
+    without it is one message naming the run and the option."""
+    _write(tmp_path / "fz.toml", ZDT_STOPPED)
+    batch = _write(tmp_path / "b.toml", '[batch]\nname = "fb"\noutput = "res"\n[[runs]]\nconfig = "fz.toml"\n'
+                                        'seeds = [7]\n')
+    run_dir = tmp_path / "res" / "fb" / "fz-s7"
+    run_dir.mkdir(parents=True)
+    keep = _write(run_dir / "notes.txt", "mine")
+    assert_one_error(run_cli(["batch", batch, "--rerun-changed"]), str(run_dir), "not a tiltopt run folder")
+    assert keep.read_text() == "mine"
+    (run_dir / "run.json").write_text("[]")                # a damaged run.json is not tiltopt's either
+    assert_one_error(run_cli(["batch", batch, "--rerun-changed"]), str(run_dir), "not a tiltopt run folder")
+    assert keep.read_text() == "mine"
+    keep.unlink()
+    (run_dir / "run.json").write_text(json.dumps({"format": "tiltopt-run-1", "run_id": "fz-s7", "status": "finished",
+                                                  "config": {"run": {"name": "fz", "generations": 99}}}))
+    assert_one_error(run_cli(["batch", batch]), "fz-s7", "config differs", "--rerun-changed")
+    assert (run_dir / "run.json").is_file()
+    # a run folder that is a link, a name that is not plain, a batch too big: each is refused before anything
+    # is written or cleared, --rerun-changed or not
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    _write(elsewhere / "notes.txt", "mine")
+    shutil.rmtree(run_dir)
+    run_dir.symlink_to(elsewhere)
+    assert_one_error(run_cli(["batch", batch, "--rerun-changed"]), str(run_dir), "symbolic link")
+    assert [p.name for p in elsewhere.iterdir()] == ["notes.txt"]
+    named = _write(tmp_path / "b2.toml", '[batch]\nname = ".."\noutput = "res"\n[[runs]]\nconfig = "fz.toml"\n')
+    assert_one_error(run_cli(["batch", named, "--rerun-changed"]), "batch.name", "plain name")
+    assert_one_error(run_cli(["batch", "--rerun-changed", "--yes", _batch(tmp_path, 1001, 1000)]),
+                     "more than the limit")

@@ -91,7 +91,7 @@ def test_a_big_batch_starts_with_yes(tmp_path, monkeypatch):
     monkeypatch.setattr("tiltopt.commands.runs.BATCH_CONFIRM_RUNS", 3)
     started = []
 
-    def fake_run_local(b, workers, echo):
+    def fake_run_local(b, workers, echo, rerun_changed=False):
         started.append(len(b.items))
         return pd.DataFrame({"status": ["finished"] * len(b.items)})
 

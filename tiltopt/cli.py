@@ -1,11 +1,13 @@
 """The ``tiltopt`` command line.
 
 Each command lives in a module of :mod:`tiltopt.commands` and is added here.
-User errors (:class:`kinematics.InputError`, click usage errors) print one
-message and exit with status 2, without a traceback.
+User errors (:class:`kinematics.InputError`, click usage errors) and a full disk
+print one message and exit with status 2, without a traceback; Ctrl-C ends with
+status 130, as shells report it.
 """
 from __future__ import annotations
 
+import errno
 import sys
 
 import click
@@ -15,6 +17,9 @@ from tiltopt.base.errors import InputError
 from . import __version__
 
 
+DISK_FULL = {errno.ENOSPC, getattr(errno, "EDQUOT", errno.ENOSPC)}
+
+
 class _Group(click.Group):
     def invoke(self, ctx):
         try:
@@ -22,6 +27,16 @@ class _Group(click.Group):
         except InputError as exc:
             click.echo(f"error: {exc}", err=True)
             sys.exit(2)
+        except OSError as exc:
+            if exc.errno not in DISK_FULL:
+                raise
+            where = f" (writing {exc.filename})" if exc.filename else ""
+            click.echo(f"error: the disk is full{where}. Files tiltopt wrote before are whole (it writes each to "
+                       f"a temporary file first); free some space and run the command again.", err=True)
+            sys.exit(2)
+        except KeyboardInterrupt:       # a second Ctrl-C: stopped at once (a run's last checkpoint stays valid)
+            click.echo("\naborted", err=True)
+            sys.exit(130)
 
 
 @click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})

@@ -3,6 +3,7 @@ from __future__ import annotations
 
 import functools
 import http.server
+import os
 import threading
 import webbrowser
 from pathlib import Path
@@ -17,19 +18,81 @@ from ..cli import main
 from . import output_path
 
 
-class _QuietHandler(http.server.SimpleHTTPRequestHandler):
+class _PageHandler(http.server.BaseHTTPRequestHandler):
+    """Serves the explorer page and ``plotly.min.js`` beside it, and nothing else.
+
+    No directory listings, no other file of the folder (a run folder holds its checkpoint and
+    inputs), no symbolic link that leads out of the folder, and only requests whose ``Host`` is
+    ``127.0.0.1:<port>`` or ``localhost:<port>``: a web page elsewhere that points a DNS name at
+    127.0.0.1 (DNS rebinding) gets 421, not the data.
+    """
+
+    server_version = "tiltopt"
+    sys_version = ""
+
+    def __init__(self, *args, root: Path, page: str, **kw):
+        self.root = Path(root)
+        self.page = page
+        super().__init__(*args, **kw)
+
     def log_message(self, format, *args):  # noqa: A002 (the base class's name)
         pass
 
+    def _send(self, code: int, body: bytes, ctype: str = "text/plain; charset=utf-8", head: bool = False,
+              extra: dict | None = None):
+        self.send_response(code)
+        self.send_header("Content-Type", ctype)
+        self.send_header("Content-Length", str(len(body)))
+        self.send_header("X-Content-Type-Options", "nosniff")
+        self.send_header("Cache-Control", "no-store")
+        self.send_header("Referrer-Policy", "no-referrer")
+        for k, v in (extra or {}).items():
+            self.send_header(k, v)
+        self.end_headers()
+        if not head:
+            self.wfile.write(body)
+
+    def _serve(self, head: bool):
+        from urllib.parse import unquote, urlsplit
+
+        port = self.server.server_address[1]
+        host = (self.headers.get("Host") or "").strip().lower()
+        if host not in (f"127.0.0.1:{port}", f"localhost:{port}"):
+            return self._send(421, b"wrong Host header: open http://127.0.0.1:%d/\n" % port, head=head)
+        path = unquote(urlsplit(self.path).path)
+        if path == "/":
+            return self._send(302, b"", head=head, extra={"Location": "/" + self.page})
+        name = path[1:]
+        ctype = {self.page: "text/html; charset=utf-8", "plotly.min.js": "text/javascript; charset=utf-8"}.get(name)
+        if ctype is None:
+            return self._send(404, b"not found\n", head=head)
+        target = self.root / name
+        real, root = os.path.realpath(target), os.path.realpath(self.root)
+        if os.path.dirname(real) != root or not os.path.isfile(real):   # a symbolic link out of the folder
+            return self._send(404, b"not found\n", head=head)
+        try:
+            with open(real, "rb") as fh:
+                body = fh.read()
+        except OSError:
+            return self._send(404, b"not found\n", head=head)
+        return self._send(200, body, ctype, head=head)
+
+    def do_GET(self):  # noqa: N802 (the base class's name)
+        self._serve(head=False)
+
+    def do_HEAD(self):  # noqa: N802
+        self._serve(head=True)
+
 
 def make_server(path: Path, port: int = 0) -> http.server.ThreadingHTTPServer:
-    """An HTTP server for the page's folder, bound to 127.0.0.1 only (never all interfaces)."""
-    handler = functools.partial(_QuietHandler, directory=str(Path(path).parent))
+    """An HTTP server for the page (and plotly.min.js beside it), bound to 127.0.0.1 only."""
+    path = Path(path)
+    handler = functools.partial(_PageHandler, root=path.parent, page=path.name)
     return http.server.ThreadingHTTPServer(("127.0.0.1", port), handler)
 
 
 def serve(path: Path, port: int = 0, open_browser: bool = True):
-    """Serve the page's folder on 127.0.0.1 only, until Ctrl-C."""
+    """Serve the page (and plotly.min.js beside it) on 127.0.0.1 only, until Ctrl-C."""
     httpd = make_server(path, port)
     url = f"http://127.0.0.1:{httpd.server_address[1]}/{path.name}"
     click.echo(f"serving {url} (127.0.0.1 only; Ctrl-C stops)")
@@ -53,12 +116,16 @@ def serve(path: Path, port: int = 0, open_browser: bool = True):
 @click.option("--detail-limit", type=click.IntRange(1, 5000), default=800, show_default=True,
               help="Front designs per run whose drawings and curves are precomputed.")
 @click.option("--plotly-beside", is_flag=True, help="Write plotly.min.js next to the page instead of inside it.")
-def explore_cmd(run_dirs, output, do_serve, port, detail_limit, plotly_beside):
+@click.option("--allow-changed-inputs", is_flag=True,
+              help="Go on when a run's shell, loads or mechanism file changed since it ran (the page uses the "
+                   "run's own copies).")
+def explore_cmd(run_dirs, output, do_serve, port, detail_limit, plotly_beside, allow_changed_inputs):
     """Write the Pareto explorer of one or more runs: one offline HTML page."""
     from ..reports.runs import explore_runs
 
     out = Path(output) if output else Path(run_dirs[0]) / "explorer.html"
-    path = explore_runs(list(run_dirs), out, beside=plotly_beside, detail_limit=detail_limit)
+    path = explore_runs(list(run_dirs), out, beside=plotly_beside, detail_limit=detail_limit,
+                        allow_changed_inputs=allow_changed_inputs, notice=lambda t: click.echo(t, err=True))
     click.echo(f"explorer: {path}")
     if do_serve:
         serve(path.resolve(), port)
@@ -83,7 +150,11 @@ def explore_cmd(run_dirs, output, do_serve, port, detail_limit, plotly_beside):
 @click.option("--lean-limit", type=float, default=30.0, show_default=True,
               help="Mechanism file only: lean limit, deg (0 < limit <= 60).")
 @click.option("--travel", default="-30,0,30", show_default=True, help="Mechanism file only: travels, mm.")
-def sheet_cmd(source, candidate, output, jig_datum, sag_mm, corner_load_n, loads_file, shell_file, lean_limit, travel):
+@click.option("--allow-changed-inputs", is_flag=True,
+              help="Run folder only: go on when the run's shell, loads or mechanism file changed since it ran "
+                   "(the sheet uses the run's own copies).")
+def sheet_cmd(source, candidate, output, jig_datum, sag_mm, corner_load_n, loads_file, shell_file, lean_limit, travel,
+              allow_changed_inputs):
     """Write the build sheet of a design: sheet.html, pivots.csv, candidate.toml, linkage.dxf.
 
     SOURCE is a results folder (with --candidate ID) or a mechanism .toml file.
@@ -127,6 +198,7 @@ def sheet_cmd(source, candidate, output, jig_datum, sag_mm, corner_load_n, loads
         from ..reports.runs import sheet_from_run
 
         paths = sheet_from_run(src, candidate, output, jig_datum=jig, sag_mm=sag_mm, corner_load_n=corner_load_n,
-                               **extra)
+                               allow_changed_inputs=allow_changed_inputs,
+                               notice=lambda t: click.echo(t, err=True), **extra)
     for key in ("sheet", "pivots", "candidate", "dxf"):
         click.echo(f"{key}: {paths[key]}")

@@ -18,6 +18,9 @@ def _caution():
     click.echo(CAUTION)
 
 
+EXIT_INTERRUPTED = 130   # as shells report a command stopped by Ctrl-C (128 + SIGINT)
+
+
 def _report_outcome(o):
     click.echo(f"run {o.run_id}: {o.status} after {o.generations} generations ({o.elapsed_s:.1f} s); "
                f"front of {o.front_size} designs")
@@ -33,25 +36,33 @@ def _report_outcome(o):
 @click.option("--run-id", default=None, help="Name of the run folder (default: <name>-s<seed>).")
 @click.option("--overwrite", is_flag=True, help="Replace an existing run folder of the same id.")
 @click.option("--quiet", is_flag=True, help="No progress line.")
+@click.option("--allow-changed-inputs", is_flag=True,
+              help="With --resume: go on when an input file changed since the run started (the run continues "
+                   "with its own copies in RUN_DIR/inputs/).")
 @click.option("--processes", type=click.IntRange(1, 64), default=None,
               help="Processes that evaluate each generation (default: this machine's cores, at most 4); "
                    "the front is the same for any number.")
-def run_cmd(config, resume, output, run_id, overwrite, quiet, processes):
-    """Optimise a run config (NSGA-II/III); Ctrl-C stops cleanly with a checkpoint."""
+def run_cmd(config, resume, output, run_id, overwrite, quiet, allow_changed_inputs, processes):
+    """Optimise a run config (NSGA-II/III); Ctrl-C stops cleanly with a checkpoint (exit status 130)."""
     from tiltopt.optimizer.config import load_config
     from tiltopt.optimizer.runner import resume_run, start_run
 
     if resume:
         if config or output or run_id or overwrite:
             raise InputError("--resume takes only the run folder; the config is the one stored in it.", "--resume")
-        o = resume_run(resume, progress=not quiet)
+        o = resume_run(resume, progress=not quiet, allow_changed_inputs=allow_changed_inputs, workers=processes)
     else:
         if not config:
             raise InputError("expected a run config (tiltopt run CONFIG) or --resume RUN_DIR.", "run")
+        if allow_changed_inputs:
+            raise InputError("--allow-changed-inputs goes with --resume RUN_DIR; a new run reads its files as "
+                             "they are.", "--allow-changed-inputs")
         o = start_run(load_config(config), run_id=run_id, output=output, overwrite=overwrite, progress=not quiet,
                       workers=processes)
     _report_outcome(o)
     _caution()
+    if o.status == "interrupted":
+        raise SystemExit(EXIT_INTERRUPTED)
 
 
 @main.command("batch")
@@ -59,20 +70,25 @@ def run_cmd(config, resume, output, run_id, overwrite, quiet, processes):
 @click.option("--workers", type=click.IntRange(1, None), default=2, show_default=True,
               help="Local worker processes (one run each at a time).")
 @click.option("--scheduler", default=None, help="Address of a Dask distributed scheduler (tcp://host:8786).")
+@click.option("--rerun-changed", is_flag=True,
+              help="Start again the runs whose resolved config or input files differ from those in their folders "
+                   "(their old results are replaced); without it such a batch is refused.")
 @click.option("--yes", is_flag=True, help=f"Start a batch of more than {BATCH_CONFIRM_RUNS:,} runs.")
-def batch_cmd(batch_file, workers, scheduler, yes):
-    """Run many configs / seeds / grid points; finished runs are kept on restart."""
-    from tiltopt.optimizer.batch import SUMMARY, load_batch, run_dask, run_local
+def batch_cmd(batch_file, workers, scheduler, rerun_changed, yes):
+    """Run many configs / seeds / grid points; finished runs of the same config are kept on restart."""
+    from tiltopt.optimizer.batch import SUMMARY, load_batch, run_dask, run_local, scheduler_address
 
     b = load_batch(batch_file, confirm_above=None if yes else BATCH_CONFIRM_RUNS)
-    click.echo(f"batch {b.name}: {len(b.items)} runs in {b.batch_dir}")
     if scheduler:
-        df = run_dask(b, scheduler, echo=click.echo)
+        scheduler_address(scheduler)       # a clear message before anything else
+        df = run_dask(b, scheduler, echo=click.echo, rerun_changed=rerun_changed)
     else:
-        df = run_local(b, workers=workers, echo=click.echo)
+        df = run_local(b, workers=workers, echo=click.echo, rerun_changed=rerun_changed)
     counts = df["status"].value_counts().to_dict()
     click.echo("status: " + ", ".join(f"{k} {v}" for k, v in sorted(counts.items())))
     click.echo(f"summary: {b.batch_dir / SUMMARY}")
+    if "interrupted" in counts:
+        raise SystemExit(EXIT_INTERRUPTED)
     if set(counts) - {"finished"}:
         raise SystemExit(1)
 

@@ -20,6 +20,21 @@ def load(run_dir):
     return load_run(run_dir)
 
 
+def check_inputs(run, allow_changed: bool = False, notice=None) -> None:
+    """Refuse a run whose input files (shell, loads, mechanism) changed since it ran, naming the file.
+
+    The pages are drawn from the run folder's own copies (``inputs/``) either way;
+    ``allow_changed`` turns the refusal into a notice. Runs without recorded inputs
+    (merged fronts, runs of an older tiltopt, fixtures) pass.
+    """
+    from tiltopt.optimizer.runfolder import verify_inputs
+
+    meta = getattr(run, "meta", None)
+    run_dir = getattr(run, "run_dir", None)
+    if isinstance(meta, dict) and meta.get("inputs") is not None and run_dir is not None:
+        verify_inputs(run_dir, meta, allow_changed, notice, include_config=False)
+
+
 def best_compromise(front: pd.DataFrame) -> str:
     """Candidate id of the feasible front design nearest the ideal point.
 
@@ -55,12 +70,17 @@ def _row_of(run, candidate_id: str) -> tuple[dict, bool]:
 
 def sheet_from_run(run_dir, candidate_id: str, out_dir=None, *, run=None, jig_datum=(0.0, 0.0),
                    sag_mm: float | None = None, corner_load_n: float | None = None, loads=None,
-                   shell=None) -> dict[str, Path]:
-    """Write the build sheet of one candidate of a run (default folder ``RUN_DIR/sheets/ID``)."""
+                   shell=None, allow_changed_inputs: bool = False, notice=None) -> dict[str, Path]:
+    """Write the build sheet of one candidate of a run (default folder ``RUN_DIR/sheets/ID``).
+
+    Shell and loads are the run's own copies unless given; a changed original is refused
+    (:func:`check_inputs`) unless ``allow_changed_inputs``.
+    """
     from .sheet import SheetInputs, write_sheet
 
     run_dir = Path(run_dir)
     run = run if run is not None else load(run_dir)
+    check_inputs(run, allow_changed_inputs, notice)
     row, on_front = _row_of(run, candidate_id)
     mech = run.candidate_mechanism(candidate_id)
     env = run_envelope(run)
@@ -95,11 +115,14 @@ def sheet_from_run(run_dir, candidate_id: str, out_dir=None, *, run=None, jig_da
     return write_sheet(out_dir, inp)
 
 
-def explore_runs(run_dirs: Sequence, out_path, *, runs=None, beside: bool = False, **kw) -> Path:
-    """Write the explorer page of one or more run folders."""
+def explore_runs(run_dirs: Sequence, out_path, *, runs=None, beside: bool = False,
+                 allow_changed_inputs: bool = False, notice=None, **kw) -> Path:
+    """Write the explorer page of one or more run folders (input changes: see :func:`check_inputs`)."""
     from .explorer import run_from_results, write_explorer
 
     runs = runs if runs is not None else [load(d) for d in run_dirs]
+    for r in runs:
+        check_inputs(r, allow_changed_inputs, notice)
     ex = [run_from_results(r, d) for r, d in zip(runs, run_dirs)]
     ids = [e.run_id for e in ex]
     if len(set(ids)) != len(ids):
