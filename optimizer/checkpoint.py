@@ -68,11 +68,14 @@ class _Arrays:
 
 
 def _plain(v):
-    """A JSON value for a scalar of an individual's data, or None when it is not plain."""
+    """A JSON value for a scalar of an individual's data, or None when it is not plain.
+
+    numpy scalars first: ``np.float64`` is also a Python ``float``, and must come back as itself.
+    """
+    if isinstance(v, np.generic):
+        return {"np": v.dtype.str, "v": v.item()} if v.dtype.kind in _NUMERIC else None
     if isinstance(v, (bool, int, float, str)) or v is None:
         return {"py": v}
-    if isinstance(v, np.generic) and v.dtype.kind in _NUMERIC:
-        return {"np": v.dtype.str, "v": v.item()}
     return None
 
 

@@ -10,6 +10,7 @@ from __future__ import annotations
 import errno
 import http.client
 import json
+import re
 import os
 import threading
 import time
@@ -219,7 +220,7 @@ def test_edited_input_is_refused_on_resume_and_the_run_keeps_its_copy(edit_run):
     assert (o.run_dir / roles["shell"]["copy"]).read_bytes() == (t / "shell.toml").read_bytes()
     assert roles["template.mechanism"]["builtin"] and roles["template.mechanism"]["copy"] is None
     shell = t / "shell.toml"
-    shell.write_text(shell.read_text().replace("half_width_mm = 200.0", "half_width_mm = 170.0"))
+    shell.write_text(shell.read_text().replace("half_width_mm = 190.0", "half_width_mm = 150.0", 1))  # the linkage station
     r = _invoke("run", "--resume", o.run_dir, "--quiet")
     one_error(r, str(shell), "changed since the run started", "--allow-changed-inputs")
     r = _invoke("run", "--resume", o.run_dir, "--quiet", "--allow-changed-inputs")
