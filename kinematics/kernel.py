@@ -22,7 +22,7 @@ import numba
 import numpy as np
 
 from .model import ANGLE, Model
-from .solver import Solved, _layout, n_rows   # solver imports this module only inside functions
+from .solver import Solved, _layout, n_rows  # solver imports this module only inside functions
 
 _STAGE = {"lean": 0, "travel": 1}
 _CONVERGED, _STALLED, _MAX_ITER, _NONFINITE = 0, 1, 2, 3
@@ -325,8 +325,8 @@ def _add_point(J, n, r, j, cy, cz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coo
 @numba.njit(cache=True, error_model="numpy")
 def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, sc0, Lc, L_link, n0, zc0, scale,
             n_pts, src_col, ang_coord, pk_src, p_start, p_col, ty, tz, sl_pk, sl_pt, sl_coord, eq_pin, eq_slider,
-            sl_src, eq_link, eq_spring, eq_wheel, usrc, angle_col, r_travel, tol, max_iter, max_step, chord_below, final_jacobian,
-            status, resid, iters, J, tan, det, X):
+            sl_src, eq_link, eq_spring, eq_wheel, usrc, angle_col, r_travel, tol, max_iter, max_step, chord_below,
+            final_jacobian, status, resid, iters, J, tan, det, X):
     N, nq = Q.shape
     rows = J.shape[1]
     ang = np.empty(ang_coord.shape[0] + 1)

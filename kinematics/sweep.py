@@ -14,15 +14,24 @@ continuation steps.
 """
 from __future__ import annotations
 
-import math
 import dataclasses
+import math
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from .model import Geometry, Model
-from .solver import (CONVERGED, FOLD, SKIPPED, STATUS_TEXT, Batch, SolveSettings, hold_free_directions, n_rows,
-                     solve_states)
+from .solver import (
+    CONVERGED,
+    FOLD,
+    SKIPPED,
+    STATUS_TEXT,
+    Batch,
+    SolveSettings,
+    hold_free_directions,
+    n_rows,
+    solve_states,
+)
 
 
 @dataclass

@@ -117,7 +117,8 @@ def _label(value) -> str:
 
 
 def _seeds(v, src, where):
-    if not isinstance(v, list) or not v or not all(isinstance(s, int) and not isinstance(s, bool) and s >= 0 for s in v):
+    if not isinstance(v, list) or not v or not all(isinstance(s, int) and not isinstance(s, bool) and s >= 0
+                                                   for s in v):
         raise InputError(f"expected a list of whole numbers >= 0. Got {v!r} instead.", src, where)
     return v
 

@@ -364,7 +364,8 @@ class Template:
             a, b, r = (p[:, self._sliders[:, k]] for k in range(3))
             u = b - a
             Lg = np.linalg.norm(u, axis=-1)
-            off = np.abs((r[..., 0] - a[..., 0]) * u[..., 1] - (r[..., 1] - a[..., 1]) * u[..., 0]) / np.maximum(Lg, 1e-12)
+            off = (np.abs((r[..., 0] - a[..., 0]) * u[..., 1] - (r[..., 1] - a[..., 1]) * u[..., 0])
+                   / np.maximum(Lg, 1e-12))
             bad = (Lg < MIN_MEMBER_MM) | (off > 0.01)
             checks.append((bad.any(1), lambda c, off=off, bad=bad: "invalid geometry: " + ", ".join(
                 f"slider {self._slider_names[j]}: runner {off[c, j]:.2f} mm off its guide line"

@@ -57,9 +57,8 @@ def page(browser, tmp_path_factory):
 
     folder = tmp_path_factory.mktemp("page")
     try:   # a real tiny run of the optimiser when that part is installed, else the fixture run
-        from tiltopt.optimizer.results import load_run
-
         from tests.helpers import make_tiny_run
+        from tiltopt.optimizer.results import load_run
         from tiltopt.reports.runs import explore_runs
 
         run_dir = make_tiny_run(folder)

@@ -17,14 +17,13 @@ import pytest
 from click.testing import CliRunner
 from scipy.optimize import minimize_scalar
 
+from tests.helpers import CONFIGS, twin_beam
+from tiltopt.cli import main
 from tiltopt.kinematics.clearance import ClearanceSettings, evaluate_clearance
 from tiltopt.kinematics.mechanism import load_mechanism, mechanism_to_toml, parse_mechanism
 from tiltopt.kinematics.model import Model
 from tiltopt.kinematics.shell import load_shell, superellipse_shell
 from tiltopt.kinematics.sweep import sweep
-from tiltopt.cli import main
-
-from tests.helpers import CONFIGS, twin_beam
 
 RHO = 227.0          # crown circle radius R - r
 R_CROWN = 23.0

@@ -383,7 +383,7 @@ def test_objectives_table_is_the_registry():
 
 
 def test_constraints_table_is_the_registry_in_column_order():
-    from tiltopt.problems.registry import CONSTRAINTS, CLEARANCE
+    from tiltopt.problems.registry import CLEARANCE, CONSTRAINTS
 
     rows = documented("Names", "Constraints")
     assert list(rows) == list(CONSTRAINTS)

@@ -8,18 +8,13 @@ from __future__ import annotations
 
 import json
 import re
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 
-from tiltopt.kinematics.mechanism import load_mechanism
-from tiltopt.kinematics.model import Model
-from tiltopt.kinematics.sweep import sweep
-
 from tests.helpers import CONFIGS, LEAN_LIMIT, TRAVEL, fixture_run, make_tiny_run
-
+from tiltopt.kinematics.sweep import sweep
 
 
 # ----------------------------------------------------------------- tests
@@ -232,7 +227,6 @@ def test_explorer_of_a_real_run(tiny, tmp_path):
     assert data["runs"][0]["lean_deg"][-1] == 30.0 and data["runs"][0]["travel_mm"] == [-30.0, 0.0, 30.0]
     assert {c["key"]: c["unit"] for c in data["columns"]}["obj.max_scrub"] == "mm"
     # the precomputed drawing of the first front design is the template's geometry swept by the kinematics
-    from tiltopt.kinematics.sweep import sweep
 
     x = run.candidate_x(data["ids"][0])
     res = sweep(run.template.model, run.template.geometry(x[None]), [0.0], [0.0])

@@ -18,8 +18,8 @@ import numpy as np
 import pytest
 
 from tests.helpers import mech_of
-from tiltopt.kinematics.model import Model
 from tests.reference_solver import reference_sweep
+from tiltopt.kinematics.model import Model
 from tiltopt.kinematics.sweep import sweep
 
 # Norton, Design of Machinery, Example 4-1 (link lengths from memory): crank a, coupler b,

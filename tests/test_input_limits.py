@@ -154,8 +154,8 @@ def test_one_force_limit_for_springs_the_sheet_and_the_constraints(tmp_path, val
     mech["springs"][0]["preload_n"] = value
     sprung = tomllib.loads((CONFIGS / "twin_beam_sprung.toml").read_text(encoding="utf-8"))
     sprung["springs"][0]["curve"][-1][1] = value
-    problem = {"objectives": ["max_scrub"], "template": {"name": "wishbone_rocker"}, "vehicle": _demo_loads()["vehicle"],
-               "constraints": {"max_spring_force_n": value}}
+    problem = {"objectives": ["max_scrub"], "template": {"name": "wishbone_rocker"},
+               "vehicle": _demo_loads()["vehicle"], "constraints": {"max_spring_force_n": value}}
     r = CliRunner().invoke(main, ["sheet", str(CONFIGS / "twin_beam.toml"), "-o", str(tmp_path / "s"), "--travel", "0",
                                   "--corner-load-n", repr(value)])
     checks = ((parse_mechanism, mech, "springs[0].preload_n"), (parse_mechanism, sprung, "springs[0].curve[7][1]"),

@@ -13,9 +13,9 @@ import numpy as np
 import pytest
 
 from tests.helpers import CONFIGS, mech_of, sprung_twin_beam, twin_beam, wishbone_rocker
+from tests.reference_solver import free_modes, prepare, reference_solve_state, reference_sweep, residuals
 from tiltopt.kinematics.mechanism import load_mechanism
 from tiltopt.kinematics.model import Model
-from tests.reference_solver import free_modes, prepare, reference_solve_state, reference_sweep, residuals
 from tiltopt.kinematics.sweep import SweepSettings, sweep
 
 LENGTH_KEYS = ["track_mm", "track_change_mm", "scrub_mm", "heave_mm", "lean_point_offset_mm"]
@@ -245,6 +245,7 @@ def _own_mobility(mech):
 @pytest.mark.parametrize("name", ["twin_beam", "twin_beam_sprung", "wishbone_rocker"])
 def test_check_mobility_matches_own_rank_and_count(name):
     from click.testing import CliRunner
+
     from tiltopt.cli import main
     mech = load_mechanism(CONFIGS / f"{name}.toml")
     held, free = _own_mobility(mech)
@@ -304,6 +305,7 @@ def swing_arms() -> dict:
 
 def test_swing_arms_travel_but_do_not_lean(write_mech):
     from click.testing import CliRunner
+
     from tiltopt.cli import main
     mech = mech_of(swing_arms())
     # both solvers: every travel reached at lean 0, no lean reached with the springs held

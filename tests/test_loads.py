@@ -10,9 +10,9 @@ from click.testing import CliRunner
 
 from tests.helpers import CONFIGS, mech_of, twin_beam
 from tiltopt.base.errors import InputError
+from tiltopt.cli import main
 from tiltopt.kinematics.loads import G, load_catalogue, load_loads, load_materials, parse_loads
 from tiltopt.kinematics.mechanism import mechanism_to_toml, mirror, parse_mechanism
-from tiltopt.cli import main
 
 DEMO_LOADS = CONFIGS / "loads_demo.toml"
 VEHICLE = dict(total_mass_kg=200.0, com_height_mm=600.0, front_share=0.5, wheelbase_mm=1500.0, lean_limit_deg=25.0)

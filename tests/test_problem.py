@@ -2,19 +2,18 @@
 kinematic objectives against a closed form of the twin-beam parallelogram."""
 from __future__ import annotations
 
-
 import numpy as np
 import pytest
 from pymoo.core.evaluator import Evaluator
 from pymoo.core.population import Population
 
+from tests.helpers import CONFIGS
 from tiltopt.base.errors import InputError
 from tiltopt.kinematics.mechanism import Link, load_mechanism
 from tiltopt.problems.problem import TiltProblem
 from tiltopt.problems.registry import ALGORITHMS, CONSTRAINTS, OBJECTIVES, TEMPLATES, names
 from tiltopt.problems.spec import lean_grid, parse_problem
 from tiltopt.problems.templates import template_from_mechanism
-from tests.helpers import CONFIGS
 
 
 def _cfg(**kw):

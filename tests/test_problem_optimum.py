@@ -52,9 +52,8 @@ def test_ideal_parallelogram_is_found(tmp_path):
     # the NSGA-II front must hold a feasible design with max scrub and max heave under 1 mm, and that
     # design has its pivots on the wheel plane (the twin-beam closed form of test_problem: |scrub(30
     # deg)| ~ 0.27 |wheel_offset|, so |offset| < 4 mm).
-    from tiltopt.kinematics.mechanism import mechanism_to_toml, parse_mechanism
-
     from tests.helpers import hub_centre_ideal
+    from tiltopt.kinematics.mechanism import mechanism_to_toml, parse_mechanism
 
     (tmp_path / "ideal.toml").write_text(mechanism_to_toml(parse_mechanism(hub_centre_ideal(), "<t>")))
     spec = parse_problem({"template": {"mechanism": "ideal.toml", "variables": [

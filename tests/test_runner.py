@@ -17,12 +17,11 @@ import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 
+from tests.helpers import NSGA3_TILT, cli_command
 from tiltopt.optimizer.config import RunSettings, load_config
 from tiltopt.optimizer.progress import Progress
 from tiltopt.optimizer.reference_problems import ZDTProblem
 from tiltopt.optimizer.runner import resume_run, run_problem, start_run
-
-from tests.helpers import NSGA3_TILT, cli_command
 
 ROOT = Path(__file__).resolve().parents[1]
 

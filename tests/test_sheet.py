@@ -10,11 +10,10 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from tests.helpers import LEAN_LIMIT, TRAVEL, fixture_run
 from tiltopt.kinematics.mechanism import load_mechanism
 from tiltopt.kinematics.model import Model
 from tiltopt.kinematics.sweep import sweep
-
-from tests.helpers import LEAN_LIMIT, TRAVEL, fixture_run
 
 
 @pytest.fixture(scope="module")
@@ -219,7 +218,6 @@ def test_clearance_section_when_the_part_is_present(tmp_path):
 @pytest.fixture(scope="module")
 def real_sheet(tmp_path_factory):
     from tests.helpers import make_tiny_run
-
     from tiltopt.optimizer.results import load_run
     from tiltopt.reports.runs import sheet_from_run
 

@@ -13,13 +13,23 @@ import numpy as np
 import pytest
 from scipy.optimize import minimize_scalar
 
+from tests.helpers import CONFIGS, twin_beam
 from tiltopt.base.errors import InputError
 from tiltopt.kinematics.mechanism import load_mechanism, mechanism_to_toml, mirror, parse_mechanism
-from tiltopt.kinematics.shell import (load_shell, outline_position, parse_polygon_csv, polygon_distance, polygon_sections,
-                              shell_signed_distance, superellipse_distance, superellipse_distance_lower_bound,
-                              superellipse_params, superellipse_shell, support, to_chassis_frame)
-
-from tests.helpers import CONFIGS, twin_beam
+from tiltopt.kinematics.shell import (
+    load_shell,
+    outline_position,
+    parse_polygon_csv,
+    polygon_distance,
+    polygon_sections,
+    shell_signed_distance,
+    superellipse_distance,
+    superellipse_distance_lower_bound,
+    superellipse_params,
+    superellipse_shell,
+    support,
+    to_chassis_frame,
+)
 
 
 # ----------------------------------------------------------- superellipse vs scipy

@@ -1,14 +1,13 @@
 """``tiltopt sweep`` and ``tiltopt check``."""
 from __future__ import annotations
 
-
 import click
 
 from tiltopt.base.errors import read_toml
 from tiltopt.base.safety import SAFETY_CAUTION
+from tiltopt.base.units import parse_states
 from tiltopt.kinematics.mechanism import load_mechanism
 from tiltopt.kinematics.model import Model
-from tiltopt.base.units import parse_states
 
 from ..cli import main
 from ..output import table, to_csv, to_json

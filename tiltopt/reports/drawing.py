@@ -22,7 +22,6 @@ from typing import Sequence
 import numba
 import numpy as np
 
-
 # Our own palette ("harbour"): bodies take these in order, the chassis is slate.
 CHASSIS_COLOUR = "#3b4a5a"
 BODY_COLOURS = ["#0d7c86", "#c8553d", "#6a4c93", "#d4a017", "#2f8f4e", "#b0417a", "#4d7ea8", "#8a6d3b"]
@@ -477,14 +476,15 @@ def front_view_svg(spec: dict, points, camber, pose=(0.0, 0.0, 0.0), shell_poly=
                      f'stroke-linecap="round"><title>{html.escape(name)}</title></polyline>')
     for i, j, name in spec["springs"]:
         parts.append(f'<polyline points="{_pts(_coil(P[i], P[j], lw * 9))}" fill="none" stroke="{SPRING_COLOUR}" '
-                     f'stroke-width="{_f(lw * 1.6)}" stroke-linejoin="round"><title>{html.escape(name)}</title></polyline>')
+                     f'stroke-width="{_f(lw * 1.6)}" stroke-linejoin="round"><title>{html.escape(name)}</title>'
+                     f'</polyline>')
     for a, b, r_, name in spec["sliders"]:
         parts.append(f'<polyline points="{_pts(P[[a, b]])}" stroke="#555" stroke-width="{_f(lw * 1.2)}" '
                      f'stroke-dasharray="{_f(lw * 3)},{_f(lw * 2)}"/>')
     for w in spec["wheels"]:
         c = P[w["centre"]]
-        parts.append(f'<circle cx="{_f(c[0])}" cy="{_f(-c[1])}" r="{_f(lw * 2.5)}" fill="{TYRE_FILL}" stroke="{TYRE_FILL}" '
-                     f'stroke-width="{_f(lw)}"/>')
+        parts.append(f'<circle cx="{_f(c[0])}" cy="{_f(-c[1])}" r="{_f(lw * 2.5)}" fill="{TYRE_FILL}" '
+                     f'stroke="{TYRE_FILL}" stroke-width="{_f(lw)}"/>')
     for k, (i, name) in enumerate(spec["pivots"]):
         c = P[i]
         parts.append(f'<circle cx="{_f(c[0])}" cy="{_f(-c[1])}" r="{_f(lw * 3.2)}" fill="#fff" stroke="#111" '
@@ -567,7 +567,8 @@ def _dim_h(x1, x2, y, text, lw, fs, ext_from=None):
          f'M{_f(x2 - a)},{_f(y - a / 2)}L{_f(x2)},{_f(y)}L{_f(x2 - a)},{_f(y + a / 2)}"/>']
     if ext_from is not None:
         for x, y0 in ext_from:
-            s.append(f'<line x1="{_f(x)}" y1="{_f(y0)}" x2="{_f(x)}" y2="{_f(y + a)}" stroke-dasharray="{_f(lw * 2)},{_f(lw * 2)}"/>')
+            s.append(f'<line x1="{_f(x)}" y1="{_f(y0)}" x2="{_f(x)}" y2="{_f(y + a)}" '
+                     f'stroke-dasharray="{_f(lw * 2)},{_f(lw * 2)}"/>')
     s.append("</g>")
     s.append(f'<text x="{_f(0.5 * (x1 + x2))}" y="{_f(y - lw * 2.5)}" font-size="{_f(fs)}" text-anchor="middle" '
              f'fill="#222">{html.escape(text)}</text>')

@@ -204,7 +204,8 @@ def build_data(runs: Sequence[ExplorerRun], *, detail_limit: int = 800, infeasib
     common_obj = [c for c in obj_cols if all(c in r.front.columns for r in runs)]
     var_cols = [c for c in rows.columns if c.startswith("var.")]
     con_cols = [c for c in rows.columns if c.startswith("con.") and pd.api.types.is_numeric_dtype(rows[c])]
-    metric_cols = [c for c in rows.columns if not c.startswith(("obj.", "var.", "con.", "__")) and c not in _META_COLUMNS
+    metric_cols = [c for c in rows.columns
+                   if not c.startswith(("obj.", "var.", "con.", "__")) and c not in _META_COLUMNS
                    and pd.api.types.is_numeric_dtype(rows[c]) and not pd.api.types.is_bool_dtype(rows[c])]
     feasible = rows["feasible"].astype(bool).to_numpy()
     merged = np.zeros(len(rows), bool)
