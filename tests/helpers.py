@@ -18,6 +18,10 @@ from tiltopt.kinematics.sweep import sweep
 
 CONFIGS = Path(__file__).resolve().parents[1] / "configs"
 
+# standard acceleration of gravity, m/s^2: CGPM 1901 / ISO 80000-3, exact by definition. Tests compute
+# weights with this value, never with the code's own constant, so a wrong constant there fails them.
+G = 9.80665
+
 
 # ------------------------------------------------------------------ TOML text
 def _value(v) -> str:

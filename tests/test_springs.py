@@ -11,9 +11,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from tests.helpers import CONFIGS, mech_of, sprung_twin_beam
+from tests.helpers import CONFIGS, G, mech_of, sprung_twin_beam
 from tiltopt.base.errors import InputError
-from tiltopt.kinematics.loads import G, SpringSetup, parse_loads
+from tiltopt.kinematics.loads import SpringSetup, parse_loads
 from tiltopt.kinematics.mechanism import Spring, mechanism_to_toml, parse_mechanism
 from tiltopt.kinematics.model import Model
 from tiltopt.kinematics.sizing import size_linkage
