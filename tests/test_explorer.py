@@ -7,6 +7,7 @@ outputs and CLI commands are also driven by a real tiny run of it (``tests.helpe
 """
 from __future__ import annotations
 
+import csv
 import json
 import re
 
@@ -166,10 +167,23 @@ def test_cli_explore_and_sheet(tiny, tmp_path):
     assert r.exit_code == 0, r.output
     assert (tmp_path / "x.html").exists() and (tmp_path / "plotly.min.js").exists()
     assert '<script src="plotly.min.js"></script>' in (tmp_path / "x.html").read_text(encoding="utf-8")
-    cid = str(front["candidate_id"].iloc[0])
+    # the front design farthest from the template's base design (the seeded first population holds the base)
+    template = tiny[1].template
+    X = front[[f"var.{v.name}" for v in template.variables]].to_numpy(float)
+    k = int(np.argmax(np.abs((X - template.defaults) / (template.xu - template.xl)).max(axis=1)))
+    cid, x = str(front["candidate_id"].iloc[k]), X[k:k + 1]
     r = CliRunner().invoke(main, ["sheet", str(run_dir), "--candidate", cid, "--jig-datum", "0,120"])
     assert r.exit_code == 0, r.output
     assert (run_dir / "sheets" / cid / "linkage.dxf").exists()
+    # the sheet is of that design: its pivots are the template's batched geometry of the design variables
+    # the front file holds for it (read here from the row, not through the run's own lookup)
+    want = dict(zip(template.model.point_refs, template.geometry(x).points[0]))
+    text = (run_dir / "sheets" / cid / "pivots.csv").read_text(encoding="utf-8")
+    rows = list(csv.DictReader(ln for ln in text.splitlines() if not ln.startswith("#")))
+    assert len(rows) == len(want)
+    for row in rows:
+        np.testing.assert_allclose([float(row["y_mm"]), float(row["z_mm"])], want[f"{row['body']}.{row['point']}"],
+                                   atol=1e-9)
     r = CliRunner().invoke(main, ["sheet", str(run_dir)])
     assert r.exit_code == 2 and "--candidate" in r.output
     r = CliRunner().invoke(main, ["sheet", str(run_dir), "--candidate", cid, "--jig-datum", "abc"])
