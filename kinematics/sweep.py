@@ -323,9 +323,12 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
         hp = [paths[item_branch[ok], j] for j in range(lo, k)]
         phi = paths[item_branch[ok], k]
         qs, st, res, it, suspect, tn, xs = advance(ok, hq, hp, ht, phi)
-        if suspect.any():
-            # redo the suspect items' step in substeps
-            si = np.flatnonzero(suspect)
+        # redo in substeps the steps that look like a jump and those whose Newton corrector failed
+        # (a long step can stall where shorter ones reach the state: never report a reachable state
+        # as not reached)
+        redo = suspect | (st != CONVERGED)
+        if redo.any():
+            si = np.flatnonzero(redo)
             idx = ok[si]
             sq = [h[si] for h in hq]
             st_ = [h[si] for h in ht]
