@@ -22,10 +22,23 @@ import numba
 import numpy as np
 
 from .model import ANGLE, Model
-from .solver import Solved, _layout, n_rows  # solver imports this module only inside functions
+
+# solver imports this module only inside functions; the step rules and status codes are solver's
+from .solver import (
+    BEST_FROM_ITER,
+    CHORD_CUT,
+    STALL_FROM_ITER,
+    STALL_RATIO,
+    Solved,
+    _layout,
+    n_rows,
+)
+from .solver import CONVERGED as _CONVERGED
+from .solver import MAX_ITER as _MAX_ITER
+from .solver import NONFINITE as _NONFINITE
+from .solver import STALLED as _STALLED
 
 _STAGE = {"lean": 0, "travel": 1}
-_CONVERGED, _STALLED, _MAX_ITER, _NONFINITE = 0, 1, 2, 3
 
 
 def tables(model: Model) -> dict:
@@ -510,10 +523,10 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, sc0, Lc, L_link, n0, zc
             if rmax <= tol:
                 st = _CONVERGED
                 break
-            if it >= 4 and rmax > 0.9 * prev:
+            if it >= STALL_FROM_ITER and rmax > STALL_RATIO * prev:
                 st = _STALLED
                 break
-            if it >= 2:
+            if it >= BEST_FROM_ITER:
                 if rmax < prev:
                     prev = rmax
             else:
@@ -523,7 +536,7 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, sc0, Lc, L_link, n0, zc
             iters[it_] += 1
             # near the solution the factors of the last Jacobian serve again (a chord step)
             # unless the last chord step did not cut the residual tenfold
-            if was_chord and rmax > 0.1 * r_last:
+            if was_chord and rmax > CHORD_CUT * r_last:
                 chord_ok = False
             use_chord = chord_ok and rmax <= chord_below
             if not use_chord:

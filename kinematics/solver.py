@@ -31,6 +31,12 @@ MAX_ITER = 2       # iteration limit reached
 NONFINITE = 3      # geometry degenerated (zero-length member, NaN)
 SKIPPED = 4        # not attempted: an earlier state of the same path failed
 FOLD = 5           # the path passed a toggle: the solution found lies on another assembly branch
+# Newton step rules, shared by this numpy path and the compiled kernel (kinematics/kernel.py reads them
+# from here; numba takes module globals as compile-time constants):
+STALL_FROM_ITER = 4       # from this iteration on, an item whose residual ...
+STALL_RATIO = 0.9         # ... is above this share of its best earlier residual is stalled
+BEST_FROM_ITER = 2        # the best earlier residual counts from this iteration (the first steps may rise)
+CHORD_CUT = 0.1           # a chord step must cut the residual to this share, or chord steps stop for the item
 STATUS_TEXT = {
     CONVERGED: "converged",
     STALLED: "cannot reach this state (locked: the equations have no solution here)",
@@ -381,12 +387,12 @@ def _newton_numpy(model: Model, b: Batch, q0, lean, target, stage: str, settings
         done = finite & (rmax <= settings.tol_mm)
         bad = ~finite
         # stalled: no longer decreasing although not converged
-        stalled = finite & ~done & (it >= 4) & (rmax > 0.9 * prev[active])
+        stalled = finite & ~done & (it >= STALL_FROM_ITER) & (rmax > STALL_RATIO * prev[active])
         status[active[done]] = 0
         status[active[bad]] = NONFINITE
         status[active[stalled]] = STALLED
         keep = ~(done | bad | stalled)
-        prev[active] = np.where(rmax < prev[active], rmax, prev[active]) if it >= 2 else rmax
+        prev[active] = np.where(rmax < prev[active], rmax, prev[active]) if it >= BEST_FROM_ITER else rmax
         if it == settings.max_iter or not keep.any():
             status[active[keep]] = MAX_ITER
             break
@@ -396,7 +402,7 @@ def _newton_numpy(model: Model, b: Batch, q0, lean, target, stage: str, settings
             sub, ls, ts = b.take(active), lean[active], target[active]
         iters[active] += 1
         a = active
-        chord_ok[a] &= ~(was_chord[a] & (rmax > 0.1 * r_last[a]))
+        chord_ok[a] &= ~(was_chord[a] & (rmax > CHORD_CUT * r_last[a]))
         use = chord_ok[a] & (rmax <= settings.chord_below_mm)
         if use.any():
             J = np.where(use[:, None, None], Jstep[a], J)

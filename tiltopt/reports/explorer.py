@@ -27,10 +27,12 @@ from typing import Callable, Sequence
 import numpy as np
 import pandas as pd
 
+from tiltopt.base.provenance import package_versions
 from tiltopt.kinematics.model import Geometry, Model
+from tiltopt.optimizer.pareto import nondominated_mask
 
 from .analysis import analyse, lean_grid, state_clearance
-from .common import SAFETY, atomic_write_text, column_label, column_unit, versions
+from .common import SAFETY, atomic_write_text, column_label, column_unit
 
 # Our own colour scheme: categorical colours for runs/templates, and a
 # continuous scale from deep sea blue through teal to sand.
@@ -67,6 +69,7 @@ class ExplorerRun:
     lean_limit_deg: float
     travel_mm: Sequence[float] = (0.0,)
     lean_step_deg: float | None = None
+    both_sides: bool = False
     evaluations: pd.DataFrame | None = None
     template: str = ""
     units: dict = field(default_factory=dict)
@@ -89,27 +92,23 @@ def run_from_results(run, run_dir: str | Path | None = None) -> ExplorerRun:
     return ExplorerRun(
         run_id=str(run.run_id), front=run.front, model=tpl.model, geometry_for=geometry_for,
         lean_limit_deg=env["lean_limit_deg"], travel_mm=env["travel_mm"], lean_step_deg=env.get("lean_step_deg"),
+        both_sides=env["both_sides"],
         evaluations=run.evaluations, template=getattr(tpl, "name", ""), units=run_units(run),
         run_dir=str(run_dir) if run_dir is not None else None, shell=run_shell(run), meta=dict(run.meta or {}))
 
 
 # ----------------------------------------------------------------- helpers
 def non_dominated(F: np.ndarray) -> np.ndarray:
-    """Boolean mask of the non-dominated rows of F (all objectives minimised).
+    """Boolean mask of the non-dominated rows of F (all objectives minimised): the optimiser's own filter
+    (:func:`tiltopt.optimizer.pareto.nondominated_mask`) over the rows with every objective finite; a row
+    with NaN or inf is neither kept nor counted as dominating.
 
-    F : ndarray of shape (n, m). Rows with NaN are dominated by definition.
+    F : ndarray of shape (n, m).
     """
     F = np.asarray(F, float)
-    n = len(F)
     ok = np.all(np.isfinite(F), axis=1)
-    keep = ok.copy()
-    for start in range(0, n, 512):
-        blk = F[start:start + 512]
-        # dominated[i, j]: row j dominates row start+i
-        le = np.all(F[None, :, :] <= blk[:, None, :], axis=2)
-        lt = np.any(F[None, :, :] < blk[:, None, :], axis=2)
-        dom = le & lt & ok[None, :]
-        keep[start:start + 512] &= ~np.any(dom, axis=1)
+    keep = np.zeros(len(F), dtype=bool)
+    keep[ok] = nondominated_mask(F[ok])
     return keep
 
 
@@ -225,7 +224,7 @@ def build_data(runs: Sequence[ExplorerRun], *, detail_limit: int = 800, infeasib
     run_info = []
     detail: dict[str, dict] = {}
     for ri, (run, fr) in enumerate(zip(runs, frames)):
-        lean = lean_grid(run.lean_limit_deg, run.lean_step_deg, finest_deg=5.0)
+        lean = lean_grid(run.lean_limit_deg, run.lean_step_deg, finest_deg=5.0, both_sides=run.both_sides)
         travel = _travel_subset(run.travel_mm)
         offset = sum(len(f) for f in frames[:ri])
         is_front = fr["__front"].to_numpy()
@@ -263,7 +262,7 @@ def build_data(runs: Sequence[ExplorerRun], *, detail_limit: int = 800, infeasib
     return {
         "title": title,
         "generated": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
-        "versions": versions(),
+        "versions": package_versions(),
         "safety": SAFETY,
         "runs": run_info,
         "templates": templates,
