@@ -191,6 +191,7 @@ def loads_cmd(mech, loads_path, fmt):
     _echo_mass_lock_springs(rep)
     click.echo("\n" + rep["caution"])
 
+
 def _echo_forces(rep: dict) -> None:
     """The forces table per load case, pin forces and the out-of-plane braking moments."""
     springs = list(rep["states"][0]["spring_force_n"]) if rep["states"] else []
