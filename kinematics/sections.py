@@ -203,14 +203,7 @@ def section_loads(member: Member, fm: ForceModel, forces: ForceResult, both: boo
     nrm = np.stack([-t[..., 1], t[..., 0]], -1)
     E, K = len(member.edges), member.n_stations
     if member.link >= 0:
-        f = forces.link_tension[:, member.link]
-        z = np.zeros((N, 1, 2))
-        F1 = -f[:, None, None, None] * t[:, :, None, :]      # end a's side: the pull of end b's part
-        return SectionLoads(axial=np.broadcast_to(f[:, None, None], (N, 1, 2)).copy(), shear=z.copy(), moment=z.copy(),
-                            out_of_plane_moment=z.copy(), out_of_plane_shear=z.copy(), position=xe,
-                            force_first=np.broadcast_to(F1, (N, 1, 2, 2)).copy(), moment_first=z.copy(),
-                            force_second=-np.broadcast_to(F1, (N, 1, 2, 2)) if both else None,
-                            moment_second=z.copy() if both else None)
+        return _link_loads(forces.link_tension[:, member.link], t, xe, both)
     loads = forces.body_loads[member.body]
     node_pos = {p: k for k, p in enumerate(member.nodes)}
     frc = np.stack([l.force for l in loads], 1)                  # (N, L, 2)
@@ -219,25 +212,7 @@ def section_loads(member: Member, fm: ForceModel, forces: ForceResult, both: boo
     node = np.tile(np.array([node_pos[l.point] for l in loads]), (N, 1))             # (N, L)
     tau = np.zeros((N, E, K))
     tau[:, :, 1] = 1.0
-    hosted = []
-    for h, (k, chain) in enumerate(member.guides):
-        li = next(i for i, l in enumerate(loads) if l.slider == k)
-        # where the runner lies on the guide chain (per item): segment and parameter along it
-        a, b = xe[:, chain, 0], xe[:, chain, 1]                                       # (N, nc, 2)
-        d = b - a
-        tt = np.einsum("ncd,ncd->nc", pos[:, li, None] - a, d) / np.einsum("ncd,ncd->nc", d, d)
-        inside = (tt >= 0.0) & (tt <= 1.0)
-        first = np.argmax(inside, 1)
-        has = inside.any(1)
-        seg = np.array(chain)[first]                                                 # (N,)
-        tpar = tt[np.arange(N), first]
-        # off the guide (runner beyond its ends): the load enters at the nearest chain point
-        cn = np.array([member.edges[e][i] for e in chain for i in (0, 1)])
-        near = cn[np.argmin(np.linalg.norm(x[:, np.array(member.nodes)[cn]] - pos[:, li, None], axis=-1), 1)]
-        node[:, li] = np.where(has, np.array([member.edges[e][0] for e in range(E)])[seg], near)
-        hosted.append((li, has, seg, tpar))
-        tau[:, :, 2 + 2 * h] = np.where(has[:, None] & (np.arange(E)[None] == seg[:, None]), tpar[:, None], 0.0)
-        tau[:, :, 3 + 2 * h] = tau[:, :, 2 + 2 * h]
+    hosted = _runners(member, loads, x, xe, pos, node, tau)
     W = member.sides[np.arange(E)[None, :, None], node[:, None, :]]                    # (N, E, L)
     W = np.repeat(W[:, :, None, :], K, axis=2)                                        # (N, E, K, L)
     for h, (li, has, seg, tpar) in enumerate(hosted):
@@ -263,6 +238,56 @@ def section_loads(member: Member, fm: ForceModel, forces: ForceResult, both: boo
     if both:
         F2 = np.einsum("nekl,nld->nekd", 1.0 - Wf, frc)
         M2 = np.einsum("nekl,nl->nek", 1.0 - Wf, q) - (F2[..., 0] * c[..., 1] - F2[..., 1] * c[..., 0])
+    Mo, Vo = _brake_out_of_plane(member, fm, forces, ends, N, K)
+    return SectionLoads(axial=-np.einsum("nekd,ned->nek", F1, t), shear=np.einsum("nekd,ned->nek", F1, nrm),
+                        moment=M1, out_of_plane_moment=Mo, out_of_plane_shear=Vo, position=c, force_first=F1,
+                        moment_first=M1, force_second=F2, moment_second=M2)
+
+
+def _link_loads(f: np.ndarray, t: np.ndarray, xe: np.ndarray, both: bool) -> SectionLoads:
+    """A two-force link: its tension ``f`` (N,) along its axis ``t`` at both ends, nothing else."""
+    N = f.shape[0]
+    z = np.zeros((N, 1, 2))
+    F1 = -f[:, None, None, None] * t[:, :, None, :]      # end a's side: the pull of end b's part
+    return SectionLoads(axial=np.broadcast_to(f[:, None, None], (N, 1, 2)).copy(), shear=z.copy(), moment=z.copy(),
+                        out_of_plane_moment=z.copy(), out_of_plane_shear=z.copy(), position=xe,
+                        force_first=np.broadcast_to(F1, (N, 1, 2, 2)).copy(), moment_first=z.copy(),
+                        force_second=-np.broadcast_to(F1, (N, 1, 2, 2)) if both else None,
+                        moment_second=z.copy() if both else None)
+
+
+def _runners(member: Member, loads, x, xe, pos, node, tau) -> list:
+    """Where each slider runner of the member's guides lies (per item): the node its load enters at
+    (``node``, updated in place) and the stations on either side of it (``tau``, in place).
+
+    Returns one (load index, on the guide, segment, parameter along it) per guide.
+    """
+    N, E = xe.shape[0], len(member.edges)
+    hosted = []
+    for h, (k, chain) in enumerate(member.guides):
+        li = next(i for i, l in enumerate(loads) if l.slider == k)
+        # where the runner lies on the guide chain (per item): segment and parameter along it
+        a, b = xe[:, chain, 0], xe[:, chain, 1]                                       # (N, nc, 2)
+        d = b - a
+        tt = np.einsum("ncd,ncd->nc", pos[:, li, None] - a, d) / np.einsum("ncd,ncd->nc", d, d)
+        inside = (tt >= 0.0) & (tt <= 1.0)
+        first = np.argmax(inside, 1)
+        has = inside.any(1)
+        seg = np.array(chain)[first]                                                 # (N,)
+        tpar = tt[np.arange(N), first]
+        # off the guide (runner beyond its ends): the load enters at the nearest chain point
+        cn = np.array([member.edges[e][i] for e in chain for i in (0, 1)])
+        near = cn[np.argmin(np.linalg.norm(x[:, np.array(member.nodes)[cn]] - pos[:, li, None], axis=-1), 1)]
+        node[:, li] = np.where(has, np.array([member.edges[e][0] for e in range(E)])[seg], near)
+        hosted.append((li, has, seg, tpar))
+        tau[:, :, 2 + 2 * h] = np.where(has[:, None] & (np.arange(E)[None] == seg[:, None]), tpar[:, None], 0.0)
+        tau[:, :, 3 + 2 * h] = tau[:, :, 2 + 2 * h]
+    return hosted
+
+
+def _brake_out_of_plane(member: Member, fm: ForceModel, forces: ForceResult, ends, N: int, K: int):
+    """Out-of-plane braking moment and shear (N, E, K) at the member's stations on chassis pivots."""
+    E = len(ends)
     Mo = np.zeros((N, E, K))
     Vo = np.zeros((N, E, K))
     for k in fm.chassis_pins:
@@ -275,9 +300,7 @@ def section_loads(member: Member, fm: ForceModel, forces: ForceResult, both: boo
         at[:, 1] = ends[:, 1] == p
         Mo = Mo + at[None] * forces.brake_pivot_moment[:, k][:, None, None]
         Vo = Vo + at[None] * forces.brake_pivot_shear[:, k][:, None, None]
-    return SectionLoads(axial=-np.einsum("nekd,ned->nek", F1, t), shear=np.einsum("nekd,ned->nek", F1, nrm),
-                        moment=M1, out_of_plane_moment=Mo, out_of_plane_shear=Vo, position=c, force_first=F1,
-                        moment_first=M1, force_second=F2, moment_second=M2)
+    return Mo, Vo
 
 
 def station_label(model, member: Member, e: int, k: int) -> str:
