@@ -13,6 +13,7 @@ import datetime as _dt
 import html
 import io
 import math
+import string
 from dataclasses import dataclass, field
 from importlib import resources
 from pathlib import Path
@@ -596,11 +597,17 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
     paths["dxf"] = write_dxf(out_dir / "linkage.dxf", model, jig_datum=jig, provenance=f"tiltopt: {prov}")
 
     # sheet.html
+    paths["sheet"] = atomic_write_text(out_dir / "sheet.html", _sheet_html(inp, an, prow, prov, stamp))
+    return paths
+
+
+def _sheet_html(inp: SheetInputs, an: Analysis, prow: list[dict], prov: str, stamp: str) -> str:
+    """sheet.html: the fragments of the page (each escaped HTML) put into templates/sheet.html."""
+    model, geom, spec, r = an.model, an.geom, an.spec, an.sweep
+    mech, P = inp.mech, np.asarray(an.geom.points[0])
+    jig = tuple(float(v) for v in inp.jig_datum)
     labels = [f"P{k + 1}" for k in range(len(spec["pivots"]))]
-    r = an.sweep
     ti0 = int(np.argmin(np.abs(np.asarray(r.travel_mm))))
-    li0 = int(np.argmin(np.abs(r.lean_deg)))                     # lean 0: the design position
-    pose0 = an.pose[0, ti0, li0] if r.converged[0, ti0, li0] else (0.0, 0.0, 0.0)
     drawing = front_view_svg(spec, P, geom.static_camber[0], (0.0, 0.0, 0.0), an.shell_poly, dimensions=True,
                              jig_datum=jig if any(abs(v) > 1e-9 for v in jig) else None,
                              labels=labels, title=f"{inp.candidate_id}: front view at the design position",
@@ -608,12 +615,45 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
     lean_draw = front_view_svg(spec, r.points[0, ti0, -1], r.camber[0, ti0, -1], an.pose[0, ti0, -1],
                                an.shell_poly, title="at the lean limit") if r.converged[0, ti0, -1] else \
         f'<p class="bad">The lean limit was not reached: {_e(r.status_text(0, ti0, len(r.lean_deg) - 1))}</p>'
-    del pose0
-    members = _members(model, P)
-    member_html, lock_html, cases_html = _sizing_sections(an, members)
-    lock_html = lock_html or '<p class="note">Not available for this sheet (see the notes).</p>'
+    member_html, lock_html, cases_html = _sizing_sections(an, _members(model, P))
     spring_rows, spring_notes, spring_setup = _spring_data(model, an, inp)
+    summary, variables, metrics, scenario = _summary_tables(inp, an, ti0)
+    notes = "".join(f"<li>{_e(n)}</li>" for n in an.notes)
+    piv_table = _table(["tag", "body", "point", "y [mm]", "z [mm]", "y from jig [mm]", "z from jig [mm]"],
+                       [[_e(p["tag"]), _e(p["body"]), _e(p["point"]), _num(p["y_mm"], 2), _num(p["z_mm"], 2),
+                         _num(p["y_jig_mm"], 2), _num(p["z_jig_mm"], 2)] for p in prow], num_from=3)
+    springs = (_table(["spring", "kind", "installed length [mm]", "at full bump [mm]", "at full droop [mm]",
+                       "stroke [mm]", "motion ratio", "rate in file [N/mm]"], spring_rows, text=(1,))
+               if spring_rows else "") + "".join(f'<p class="note">{_e(n)}</p>' for n in spring_notes)
+    fragments = dict(
+        css=_template_text("sheet.css"), candidate=_e(inp.candidate_id), caution=_e(SAFETY),
+        subtitle=_e(mech.name) + (" · run " + _e(inp.run_id) if inp.run_id else "") + " · " + _e(stamp),
+        summary=summary, variables=variables, scenario=scenario, metrics=metrics, choice="",
+        recreate=('<p class="note">Re-create: <code>' + _e(inp.command) + "</code></p>") if inp.command else "",
+        drawing=drawing, jig_y=f"{jig[0]:g}", jig_z=f"{jig[1]:g}", pivots=piv_table, members=member_html,
+        joints=_table(["joint", "kind", "joins", "y [mm]", "z [mm]"], _joint_rows(model, P), num_from=3),
+        springs=springs, spring_setup=("<h3>Spring setup</h3>" + spring_setup) if spring_setup else "",
+        curves=_curves(an), clearance=_clearance_section(an), lean_drawing=lean_draw,
+        lean_limit=f"{inp.lean_limit_deg:g}", lean_travel=f"{float(r.travel_mm[ti0]):g}",
+        tilt_lock=lock_html or '<p class="note">Not available for this sheet (see the notes).</p>',
+        load_cases=('<section class="avoid-break"><h2>Load cases</h2>' + cases_html + '<p class="note">Tyre loads '
+                    'from the force analysis; cases with a lean, a slope or one wheel are also evaluated mirrored. '
+                    'Sources as given in the loads description.</p></section>') if cases_html else "",
+        safety="".join(f"<li>{_e(s)}</li>" for s in SAFETY_POINTS),
+        notes=('<section class="avoid-break"><h2>Notes</h2><ul class="notes">' + notes + "</ul></section>")
+        if notes else "",
+        provenance=_e(prov), stamp=_e(stamp))
+    return string.Template(_template_text("sheet.html")).substitute(fragments)
 
+
+def _template_text(name: str) -> str:
+    return resources.files("tiltopt.reports").joinpath("templates", name).read_text(encoding="utf-8")
+
+
+def _summary_tables(inp: SheetInputs, an: Analysis, ti0: int) -> tuple[str, str, str, str]:
+    """(summary, design variables, objectives and metrics, scenario) tables of the sheet, HTML."""
+    r, mech = an.sweep, inp.mech
+    li0 = int(np.argmin(np.abs(r.lean_deg)))                     # lean 0: the design position
     metric_rows = []
     metric_names = {c for c in inp.row if not c.startswith(("obj.", "var.", "__"))}
     for c, v in inp.row.items():
@@ -650,74 +690,7 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
              ["travel envelope", _e(", ".join(f"{t:g}" for t in inp.travel_mm) + " mm (bump positive)")],
              ["template / mechanism", _e(mech.name + (f" – {_short(mech.description)}" if mech.description else ""))],
              ["linkage station", _e(f"x = {mech.station_x_mm:g} mm")]]
-    piv_table = _table(["tag", "body", "point", "y [mm]", "z [mm]", "y from jig [mm]", "z from jig [mm]"],
-                       [[_e(p["tag"]), _e(p["body"]), _e(p["point"]), _num(p["y_mm"], 2), _num(p["z_mm"], 2),
-                         _num(p["y_jig_mm"], 2), _num(p["z_jig_mm"], 2)] for p in prow], num_from=3)
-    notes = "".join(f"<li>{_e(n)}</li>" for n in an.notes)
-    safety = "".join(f"<li>{_e(s)}</li>" for s in SAFETY_POINTS)
-    css = resources.files("tiltopt.reports").joinpath("templates", "sheet.css").read_text(encoding="utf-8")
-    doc = f"""<!DOCTYPE html>
-<html lang="en"><head><meta charset="utf-8">
-<meta name="viewport" content="width=device-width, initial-scale=1">
-<title>Build sheet {_e(inp.candidate_id)}</title>
-<style>{css}</style></head>
-<body>
-<div class="page">
-<header class="top">
-  <div><div class="kicker">tiltopt build sheet</div><h1>{_e(inp.candidate_id)}</h1>
-  <div class="sub">{_e(mech.name)}{' · run ' + _e(inp.run_id) if inp.run_id else ''} · {_e(stamp)}</div></div>
-  <div class="caution-box">{_e(SAFETY)}</div>
-</header>
-<section class="grid2">
-  <div><h2>Summary</h2>{_table(["figure", "value", "unit"], kin_rows)}
-  {('<h3>Design variables</h3>' + _table(["variable", "value", "unit"], var_rows)) if var_rows else ''}</div>
-  <div><h2>Scenario</h2>{_table(["", ""], scen, num_from=9)}
-  {('<p class="note">Re-create: <code>' + _e(inp.command) + '</code></p>') if inp.command else ''}</div>
-</section>
-{_split_tables("Objectives and metrics from the run", ["figure", "value", "unit"], metric_rows)}
-<section class="avoid-break">
-  <h2>Front view at the design position</h2>
-  <div class="figure">{drawing}</div>
-  <p class="note">Looking from ahead; y to the right, z up, ground z = 0, mm. Tags P1… are the pivots of the
-  table below; + marks the chassis datum O. Dashed outline: body shell section at the linkage station.</p>
-</section>
-<section class="avoid-break">
-  <h2>Pivot coordinates</h2>
-  <p class="note">Design position (upright, ride height, straight ahead). y, z from the chassis datum O
-  (ground level, chassis centre plane); jig datum J at y = {jig[0]:g} mm, z = {jig[1]:g} mm. Pin partners share
-  a tag. The same figures are in pivots.csv; linkage.dxf has them as points per body layer and pivot circles.</p>
-  {piv_table}
-</section>
-<section class="avoid-break">
-  <h2>Members</h2>{member_html}
-</section>
-<section class="avoid-break"><h2>Joints</h2>
-  {_table(["joint", "kind", "joins", "y [mm]", "z [mm]"], _joint_rows(model, P), num_from=3)}
-</section>
-<section class="avoid-break"><h2>Springs</h2>
-  {_table(["spring", "kind", "installed length [mm]", "at full bump [mm]", "at full droop [mm]", "stroke [mm]",
-           "motion ratio", "rate in file [N/mm]"], spring_rows, text=(1,)) if spring_rows else ''}
-  {''.join(f'<p class="note">{_e(n)}</p>' for n in spring_notes)}
-  <p class="note">Motion ratio: spring shortening per mm of wheel travel at lean 0, both wheels together.</p>
-  {('<h3>Spring setup</h3>' + spring_setup) if spring_setup else ''}
-</section>
-<section class="avoid-break"><h2>Kinematic curves against lean</h2>{_curves(an)}</section>
-<section class="avoid-break"><h2>Clearance at the envelope corners</h2>{_clearance_section(an)}</section>
-<section class="avoid-break grid2">
-  <div><h2>At the lean limit</h2>
-  <div class="figure small">{lean_draw}</div>
-  <p class="note">Lean {inp.lean_limit_deg:g} deg, travel {float(r.travel_mm[ti0]):g} mm. Red: smallest
-  front-view gap of each tyre, mm.</p></div>
-  <div><h2>Loads and tilt lock</h2>{lock_html}</div>
-</section>
-{('<section class="avoid-break"><h2>Load cases</h2>' + cases_html + '<p class="note">Tyre loads from the force '
-  'analysis; cases with a lean, a slope or one wheel are also evaluated mirrored. Sources as given in the loads '
-  'description.</p></section>') if cases_html else ''}
-<section class="avoid-break safety"><h2>Safety</h2><ul>{safety}</ul></section>
-{('<section class="avoid-break"><h2>Notes</h2><ul class="notes">' + notes + '</ul></section>') if notes else ''}
-<footer>Files in this folder: sheet.html, pivots.csv, candidate.toml (re-read by <code>tiltopt sweep</code>),
-linkage.dxf. Provenance: {_e(prov)}. Generated {_e(stamp)}.</footer>
-</div></body></html>
-"""
-    paths["sheet"] = atomic_write_text(out_dir / "sheet.html", doc)
-    return paths
+    variables = ("<h3>Design variables</h3>" + _table(["variable", "value", "unit"], var_rows)) if var_rows else ""
+    return (_table(["figure", "value", "unit"], kin_rows), variables,
+            _split_tables("Objectives and metrics from the run", ["figure", "value", "unit"], metric_rows),
+            _table(["", ""], scen, num_from=9))
