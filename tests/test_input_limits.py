@@ -91,9 +91,9 @@ def test_a_big_batch_starts_with_yes(tmp_path, monkeypatch):
     monkeypatch.setattr("tiltopt.commands.runs.BATCH_CONFIRM_RUNS", 3)
     started = []
 
-    def fake_run_local(b, workers, echo, rerun_changed=False):
+    def fake_run_local(b, workers, echo, rerun_changed=False, monitor=None):
         started.append(len(b.items))
-        return pd.DataFrame({"status": ["finished"] * len(b.items)})
+        return pd.DataFrame([batch.summary_row(it.to_dict(), status="finished") for it in b.items])
 
     monkeypatch.setattr(batch, "run_local", fake_run_local)
     path = _batch_file(tmp_path, 4)
