@@ -32,8 +32,8 @@ import numpy as np
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
-from tiltopt.kinematics import Model, load_mechanism, sweep  # noqa: E402
 from tests.reference_solver import reference_sweep  # noqa: E402
+from tiltopt.kinematics import Model, load_mechanism, sweep  # noqa: E402
 from tiltopt.kinematics.solver import n_rows  # noqa: E402
 
 

@@ -232,7 +232,7 @@ def parse_cases(raw, vehicle, src: str) -> tuple[LoadCase, ...]:
     """
     from tiltopt.base.errors import check_keys
 
-    from .loads import _num, _str   # the loads file's number and string readers
+    from .loads import _num, _str  # the loads file's number and string readers
 
     if raw is None:
         cases = default_cases(vehicle)

@@ -65,8 +65,18 @@ from . import clearance_kernel as _kernel
 from . import wheel_solid as _solid
 from .mechanism import body_tubes, split_ref
 from .model import Geometry, Model
-from .shell import (Shell, inside_level, outline_position, polygon_section_edges, section_distance,
-                    shell_signed_distance, signed_distance_yz, superellipse_params, support, to_chassis_frame)
+from .shell import (
+    Shell,
+    inside_level,
+    outline_position,
+    polygon_section_edges,
+    section_distance,
+    shell_signed_distance,
+    signed_distance_yz,
+    superellipse_params,
+    support,
+    to_chassis_frame,
+)
 
 _REACH = 6            # initial local-search step, in coarse half-spacings (covers +-3 cells)
 _NEAREST_MEMBERS = 3   # members searched per (state, wheel); the rest only enter through their bound

@@ -79,12 +79,30 @@ import numpy as np
 
 from tiltopt.base import inputs
 from tiltopt.base.errors import InputError, check_keys, read_text, read_toml
-from tiltopt.base.limits import (MAX_COORD_MM, MAX_FATIGUE_CYCLES, MAX_FRICTION_FACES, MAX_LEAN_LIMIT_DEG,
-                                 MAX_MASS_KG, MAX_SAFETY_FACTOR, MAX_SN_EXPONENT, MAX_TRAVEL_MM)
+from tiltopt.base.limits import (
+    MAX_COORD_MM,
+    MAX_FATIGUE_CYCLES,
+    MAX_FRICTION_FACES,
+    MAX_LEAN_LIMIT_DEG,
+    MAX_MASS_KG,
+    MAX_SAFETY_FACTOR,
+    MAX_SN_EXPONENT,
+    MAX_TRAVEL_MM,
+)
 from tiltopt.base.resources import data_path
 
-from .cases import (DEFAULT_BRAKE_G, DEFAULT_BUMP_G, KINDS, LoadCase, LoadState,  # noqa: F401 (re-exported)
-                    case_states, default_cases, extra_states, G, parse_cases)
+from .cases import (  # noqa: F401 (re-exported)
+    DEFAULT_BRAKE_G,
+    DEFAULT_BUMP_G,
+    KINDS,
+    G,
+    LoadCase,
+    LoadState,
+    case_states,
+    default_cases,
+    extra_states,
+    parse_cases,
+)
 
 DEFAULT_SAFETY_FACTOR = 2.0
 DEFAULT_PIVOT_ALLOWANCE_G = 60.0

@@ -29,6 +29,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from tiltopt.base.errors import InputError
+
 from .mechanism import Mechanism, split_ref
 
 # coordinate kinds

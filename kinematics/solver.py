@@ -42,7 +42,7 @@ STATUS_TEXT = {
 }
 
 
-@dataclass
+@dataclass(frozen=True)
 class SolveSettings:
     """Newton settings.
 

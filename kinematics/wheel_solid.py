@@ -323,7 +323,8 @@ def _polygon_signed(p, V):
     """Signed distance of points p (..., 2) to convex polygons V (..., k, 2) (counter-clockwise or not)."""
     a, b = V, np.roll(V, -1, axis=-2)
     d = np.min(point_segment_distance(p[..., None, :], a, b), axis=-1)
-    cross = (b[..., 0] - a[..., 0]) * (p[..., None, 1] - a[..., 1]) - (b[..., 1] - a[..., 1]) * (p[..., None, 0] - a[..., 0])
+    cross = ((b[..., 0] - a[..., 0]) * (p[..., None, 1] - a[..., 1])
+             - (b[..., 1] - a[..., 1]) * (p[..., None, 0] - a[..., 0]))
     inside = np.all(cross >= 0, -1) | np.all(cross <= 0, -1)
     return np.where(inside, -d, d)
 

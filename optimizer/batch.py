@@ -118,7 +118,8 @@ def _label(value) -> str:
 
 
 def _seeds(v, src, where):
-    if not isinstance(v, list) or not v or not all(isinstance(s, int) and not isinstance(s, bool) and s >= 0 for s in v):
+    if not isinstance(v, list) or not v or not all(isinstance(s, int) and not isinstance(s, bool) and s >= 0
+                                                   for s in v):
         raise InputError(f"expected a list of whole numbers >= 0. Got {v!r} instead.", src, where)
     return v
 
@@ -648,9 +649,30 @@ def _probe_scheduler(address: str, timeout_s: float = 5.0) -> None:
                          "--scheduler") from None
 
 
+CLUSTER_EXTRA = "tiltopt[cluster]"
+
+
+def require_distributed():
+    """The ``distributed`` package (Dask's cluster part), or one message naming the extra that installs it.
+
+    Raises
+    ------
+    InputError
+        When it is not installed (a default ``pip install tiltopt`` leaves it out).
+    """
+    try:
+        import distributed
+    except ImportError:
+        raise InputError(f"running a batch on a Dask cluster needs Dask's distributed package, which a default "
+                         f"install leaves out: install the cluster extra, pip install '{CLUSTER_EXTRA}', here and on "
+                         f"every worker machine; or leave out --scheduler to run the batch on this machine.",
+                         "--scheduler") from None
+    return distributed
+
+
 def connect_scheduler(scheduler, timeout_s: float = 10.0):
     """A ``distributed.Client`` for an address (checked first), or the given client. Returns ``(client, own)``."""
-    from distributed import Client
+    Client = require_distributed().Client
 
     if isinstance(scheduler, Client):
         return scheduler, False
@@ -674,8 +696,7 @@ def run_dask(batch: Batch, scheduler, echo=None, rerun_changed: bool = False, mo
     running run to stop after its generation (``batch.stop``: no Ctrl-C reaches a Dask worker) and
     waits for them; a second Ctrl-C stops waiting (the runs still stop at their next generation).
     """
-    from distributed import as_completed
-
+    as_completed = require_distributed().as_completed
     client, own = connect_scheduler(scheduler)
     try:
         with _batch_lock(batch):

@@ -30,7 +30,8 @@ from typing import Any
 
 import numpy as np
 
-from tiltopt.base.errors import InputError, read_toml as _read_toml
+from tiltopt.base.errors import InputError
+from tiltopt.base.errors import read_toml as _read_toml
 from tiltopt.base.limits import MAX_GENERATION_STATES, MAX_POPULATION, MAX_REFERENCE_DIRECTIONS, check_count
 
 ALGORITHM_NAMES = ("nsga2", "nsga3")
@@ -291,19 +292,20 @@ def check_config_lines(path: str | Path) -> list[str]:
     problem = cfg.make_problem()
     lines = [f"{path}: run config is valid."]
     if cfg.spec is not None:
-        lines.append(f"problem: template '{size.get('template')}', {size['n_var']} variables, {size['n_obj']} objectives "
-                     f"({', '.join(cfg.spec.objectives)}), {size['n_constr']} constraints "
+        lines.append(f"problem: template '{size.get('template')}', {size['n_var']} variables, "
+                     f"{size['n_obj']} objectives ({', '.join(cfg.spec.objectives)}), {size['n_constr']} constraints "
                      f"({', '.join(cfg.spec.constraints)})")
         lines.append(f"states per candidate: {size['states_per_candidate']} ({size.get('n_lean')} leans x "
                      f"{size.get('n_travel')} travels); clearance {'on' if size.get('clearance') else 'off'}, "
                      f"sizing {'on' if size.get('sizing') else 'off'}")
         lines.append("requirements (constraint: limit, where it comes from):")
         for q in cfg.spec.limits.requirements(cfg.spec.constraints):
-            lim = "" if q["limit"] is None or isinstance(q["limit"], bool) else f" {q['key']} = {q['limit']:g} {q['unit']}"
+            lim = ("" if q["limit"] is None or isinstance(q["limit"], bool)
+                   else f" {q['key']} = {q['limit']:g} {q['unit']}")
             lines.append(f"  {q['name']}:{lim or ' on'} ({q['source']})")
     else:
-        lines.append(f"problem: benchmark '{size['benchmark']}', {size['n_var']} variables, {size['n_obj']} objectives, "
-                     f"{size['n_constr']} constraints; states per candidate: 1")
+        lines.append(f"problem: benchmark '{size['benchmark']}', {size['n_var']} variables, "
+                     f"{size['n_obj']} objectives, {size['n_constr']} constraints; states per candidate: 1")
     lines.append(f"run: {r.algorithm}, population {r.population}, {r.generations} generations "
                  f"({r.population * r.generations} evaluations), seed {r.seed}, checkpoint every "
                  f"{r.checkpoint_every} generations, results in {r.output}")

@@ -75,7 +75,8 @@ def problem_record(run) -> dict | None:
                 "objectives": list(run.objective_names)}
     spec = cfg.spec
     env = spec.envelope
-    embedded = {k: cfg.data[k] for k in ("vehicle", "sizing", "members", "tilt_lock", "springs", "fatigue", "load_cases")
+    embedded = {k: cfg.data[k]
+                for k in ("vehicle", "sizing", "members", "tilt_lock", "springs", "fatigue", "load_cases")
                 if k in cfg.data}
     loads = None
     if spec.loads is not None:

@@ -45,10 +45,10 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from tiltopt.base.errors import InputError, read_text
+from tiltopt.base.safety import SAFETY_CAUTION
 
 FRONT, EVALUATIONS, GENERATIONS, RUN_JSON, CHECKPOINT = (
     "front.parquet", "evaluations.parquet", "generations.parquet", "run.json", "checkpoint.npz")
-from tiltopt.base.safety import SAFETY_CAUTION
 PROGRESS = "progress.json"       # a batch run's latest generation, for the batch's progress lines
 PARTS_DIR = "evaluations.parts"
 META_KEY = b"tiltopt"
@@ -339,8 +339,8 @@ def read_run_json(path: Path) -> dict:
     except (ValueError, RecursionError) as exc:
         raise InputError(f"run.json is not valid JSON ({exc}). Restore it, or run again.", src) from None
     if not isinstance(meta, dict):
-        raise InputError(f"expected a JSON object (the run's record). Got a JSON {_JSON_NAMES.get(type(meta), 'value')} "
-                         f"instead.", src)
+        raise InputError(f"expected a JSON object (the run's record). Got a JSON "
+                         f"{_JSON_NAMES.get(type(meta), 'value')} instead.", src)
     for key, kind in _META_TYPES.items():
         v = meta.get(key)
         if v is not None and (not isinstance(v, kind) or isinstance(v, bool)):

@@ -34,7 +34,6 @@ from pymoo.core.problem import Problem
 from pymoo.problems.static import StaticProblem
 
 from tiltopt.base.errors import InputError
-
 from tiltopt.base.inputs import reading_copies
 
 from . import checkpoint as CK

@@ -262,7 +262,8 @@ def resolve(name: str, front: pd.DataFrame, objectives: Sequence[Objective]) -> 
                      f"a metric or a design variable, for example: {', '.join(names[len(objectives):][:8])} ...", name)
 
 
-def bounds_mask(front: pd.DataFrame, bounds: Sequence[Bound], objectives: Sequence[Objective] | None = None) -> np.ndarray:
+def bounds_mask(front: pd.DataFrame, bounds: Sequence[Bound],
+                objectives: Sequence[Objective] | None = None) -> np.ndarray:
     """True for the rows that meet every bound (NaN never meets one)."""
     objectives = objectives if objectives is not None else objectives_of(front)
     ok = np.ones(len(front), bool)

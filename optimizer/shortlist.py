@@ -19,8 +19,17 @@ from tiltopt.base.errors import InputError
 from . import results as R
 from . import runfolder as RF
 from .merge import check_same_problem, union_front
-from .selection import Bound, Choice, best_compromise, merge_bounds, objectives_of, parse_targets, parse_weight, \
-    parse_where, resolve
+from .selection import (
+    Bound,
+    Choice,
+    best_compromise,
+    merge_bounds,
+    objectives_of,
+    parse_targets,
+    parse_weight,
+    parse_where,
+    resolve,
+)
 
 SHORTLIST_FORMAT = "tiltopt-shortlist-1"
 
@@ -89,7 +98,8 @@ def _bounds(where, targets_file, run, front, objs) -> tuple[tuple, dict, str]:
     return merge_bounds(bounds), weights, ", ".join(from_)
 
 
-def shortlist(run_dirs, output, *, where=(), targets_file=None, weights=(), allow_different: bool = False) -> ShortlistResult:
+def shortlist(run_dirs, output, *, where=(), targets_file=None, weights=(),
+              allow_different: bool = False) -> ShortlistResult:
     """Write the shortlist of one or more fronts (module docs).
 
     Raises

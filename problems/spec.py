@@ -65,8 +65,16 @@ import numpy as np
 
 from tiltopt.base import inputs
 from tiltopt.base.errors import InputError, check_keys
-from tiltopt.base.limits import (MAX_ABS_LEAN_DEG, MAX_COORD_MM, MAX_FORCE_N, MAX_LEAN_LIMIT_DEG, MAX_RANGE_VALUES,
-                                 MAX_STATES, MAX_TRAVEL_MM, check_count)
+from tiltopt.base.limits import (
+    MAX_ABS_LEAN_DEG,
+    MAX_COORD_MM,
+    MAX_FORCE_N,
+    MAX_LEAN_LIMIT_DEG,
+    MAX_RANGE_VALUES,
+    MAX_STATES,
+    MAX_TRAVEL_MM,
+    check_count,
+)
 from tiltopt.kinematics.mechanism import load_mechanism
 
 from .registry import CLEARANCE, CONSTRAINTS, OBJECTIVES, SIZING, SWITCH_KEYS, TEMPLATES

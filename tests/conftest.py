@@ -5,11 +5,12 @@ from pathlib import Path
 
 import pytest
 
-from tests.helpers import toml_text
-
 # a profile for hunting failures fast: `pytest --hypothesis-profile=noshrink` reports the first
 # failing example without the (sometimes minutes-long) shrinking
-from hypothesis import Phase, settings as _hsettings
+from hypothesis import Phase
+from hypothesis import settings as _hsettings
+
+from tests.helpers import toml_text
 
 _hsettings.register_profile("noshrink", phases=[Phase.explicit, Phase.reuse, Phase.generate])
 # CI (CI=true) runs the same examples every time, so a landing never hangs on a new random draw;

@@ -18,6 +18,10 @@ from tiltopt.kinematics.sweep import sweep
 
 CONFIGS = Path(__file__).resolve().parents[1] / "configs"
 
+# standard acceleration of gravity, m/s^2: CGPM 1901 / ISO 80000-3, exact by definition. Tests compute
+# weights with this value, never with the code's own constant, so a wrong constant there fails them.
+G = 9.80665
+
 
 # ------------------------------------------------------------------ TOML text
 def _value(v) -> str:
@@ -403,7 +407,8 @@ def make_big_front(folder: Path, n: int = 10_000, n_infeasible: int = 20_000, se
     X = np.clip(x0 + rng.uniform(-0.02, 0.02, (total, len(x0))) * span, tpl.xl, tpl.xu)
     base = feas.iloc[rng.integers(0, len(feas), total)].reset_index(drop=True)
     rows = base.copy()
-    num = [c for c in rows.columns if pd.api.types.is_float_dtype(rows[c]) and not c.startswith(("obj.", "var.", "con."))
+    num = [c for c in rows.columns
+           if pd.api.types.is_float_dtype(rows[c]) and not c.startswith(("obj.", "var.", "con."))
            and c != "violation"]
     rows[num] = rows[num].to_numpy() * (1.0 + rng.uniform(-0.03, 0.03, (total, len(num))))
     for o in run.objective_names:            # objectives from their metrics, as the problem writes them

@@ -268,10 +268,9 @@ def test_ctrl_c_stops_a_local_batch_and_a_restart_finishes_it(tmp_path):
 
 def _tilt_run(folder: Path, name: str, template: str = "wishbone_rocker", lean: float = 30.0) -> Path:
     """A real tiny tilt run (tests/helpers.py TINY_CONFIG) with another name, template or lean limit."""
+    from tests.helpers import TINY_CONFIG
     from tiltopt.optimizer.config import load_config
     from tiltopt.optimizer.runner import start_run
-
-    from tests.helpers import TINY_CONFIG
 
     folder.mkdir(parents=True, exist_ok=True)
     text = (TINY_CONFIG.replace('name = "tiny"', f'name = "{name}"')
@@ -333,3 +332,38 @@ def test_batch_shows_progress_lines_and_a_final_table(tmp_path):
     summary = pq.read_table(b.batch_dir / "summary.parquet").to_pandas()
     assert [(r[0], r[1], int(r[2]), int(r[3])) for r in rows] == \
         [(s.run_id, "finished", 12, int(s.front_size)) for s in summary.itertuples()]
+
+
+# ------------------------------------------------------------------ Dask is an extra
+def test_dask_is_the_cluster_extra_not_a_dependency():
+    """The installed distribution's own requirements (PEP 508 strings of its metadata): dask comes with
+    ``tiltopt[cluster]`` only, so a default install leaves it out; the test extra pulls the cluster extra
+    in, so these Dask tests run wherever the tests do."""
+    from importlib.metadata import requires
+
+    reqs = requires("tiltopt")
+    dask = [r for r in reqs if r.split(";")[0].strip().lower().startswith(("dask", "distributed"))]
+    assert dask and all(r.replace(" ", "").endswith('extra=="cluster"') for r in dask), dask
+    assert any(r.startswith("tiltopt[cluster]") and 'extra == "test"' in r for r in reqs), reqs
+
+
+def test_scheduler_without_the_cluster_extra_is_one_message(tmp_path, monkeypatch):
+    """Without Dask's distributed package (its import made to fail: None in sys.modules raises
+    ImportError), --scheduler is one user error naming the extra that installs it, exit 2, and nothing runs."""
+    import sys
+
+    from click.testing import CliRunner
+
+    from tests.helpers import one_error
+    from tiltopt.cli import main
+
+    b = _write(tmp_path)
+    monkeypatch.setitem(sys.modules, "distributed", None)
+    r = CliRunner().invoke(main, ["batch", str(tmp_path / "batch.toml"), "--scheduler", "tcp://127.0.0.1:8786"])
+    one_error(r, "pip install 'tiltopt[cluster]'", "--scheduler")
+    assert not any(Path(it.run_dir).exists() for it in b.items)
+    # the library call says the same
+    with pytest.raises(InputError, match=r"tiltopt\[cluster\]"):
+        run_dask(b, "tcp://127.0.0.1:8786")
+    # a local batch needs no Dask
+    assert list(run_local(b, workers=1)["status"]) == ["finished", "finished"]

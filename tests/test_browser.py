@@ -1,10 +1,10 @@
 """The explorer page in a real browser: headless Chromium (system package) driven by Playwright.
 
-Skips, saying why, only where no browser can be had (no playwright package or no Chromium binary).
+Skips, saying why, only where no browser can be had (no Chromium binary, or one that does not start); the
+playwright package is a test dependency.
 """
 from __future__ import annotations
 
-import json
 import os
 import re
 import shutil
@@ -30,7 +30,8 @@ def _chromium() -> str | None:
 
 @pytest.fixture(scope="module")
 def browser():
-    sync_api = pytest.importorskip("playwright.sync_api", reason="the playwright package is not installed")
+    from playwright import sync_api  # a test dependency (the [test] extra), so never a reason to skip
+
     exe = _chromium()
     if exe is None:
         pytest.skip("no Chromium binary (install the Debian package 'chromium'); browser tests skipped")
@@ -62,13 +63,12 @@ def _trace(pg, name):
 
 @pytest.fixture(scope="module")
 def page(browser, tmp_path_factory):
+    from tests.helpers import make_tiny_run
     from tiltopt.optimizer.results import load_run
     from tiltopt.reports.runs import explore_runs
 
-    from tests.helpers import make_tiny_run
-
     folder = tmp_path_factory.mktemp("page")
-    run_dir = make_tiny_run(folder)
+    run_dir = make_tiny_run(folder)               # a real tiny run of the optimiser
     front = load_run(run_dir).front.reset_index(drop=True)
     path = explore_runs([run_dir], folder / "explorer.html", detail_limit=1000)
     front.attrs["sheet_dir"] = str(run_dir)
@@ -209,7 +209,8 @@ def test_page_compromise_is_the_python_one(page):
     assert pg.locator("#compromise-id").inner_text() == best_compromise(f32).candidate_id
     hi = float(np.median(f32["obj.max_scrub"]))
     pg.evaluate(f"window.tiltoptExplorer.setFilter('obj.max_scrub', null, {hi!r})")
-    assert pg.locator("#compromise-id").inner_text() == best_compromise(f32, [Bound("max_scrub", None, hi)]).candidate_id
+    want = best_compromise(f32, [Bound("max_scrub", None, hi)]).candidate_id
+    assert pg.locator("#compromise-id").inner_text() == want
     pg.evaluate("window.tiltoptExplorer.setFilter('obj.max_scrub', null, null)")
     assert errors == []
 
@@ -279,10 +280,9 @@ def test_fronts_of_one_two_and_more_objectives_draw_without_errors(browser, tmp_
 def served(browser, tmp_path_factory):
     """A 10,000-design front (tests/helpers.py make_big_front) written as a page and served as
     ``tiltopt explore --serve`` serves it (127.0.0.1, the detail of any design on request)."""
+    from tests.helpers import make_big_front
     from tiltopt.commands.reports import make_server
     from tiltopt.reports.runs import explore_runs
-
-    from tests.helpers import make_big_front
 
     folder = tmp_path_factory.mktemp("big")
     run_dir = make_big_front(folder, n=10_000, n_infeasible=3000)
@@ -322,7 +322,8 @@ def test_every_front_design_opens_its_detail(served):
     detail_requests = [u for u in requests if "/detail/" in u]
     assert len(detail_requests) >= sum(int(r) not in held for r in rows)
     # no network: every request goes to the page's own server on 127.0.0.1 (or is the page's own data)
-    assert all(u.startswith((origin, "data:", "blob:")) for u in requests), [u for u in requests if not u.startswith(origin)]
+    outside = [u for u in requests if not u.startswith((origin, "data:", "blob:"))]
+    assert outside == []
 
 
 def test_a_filter_narrows_every_view(served):
@@ -342,7 +343,8 @@ def test_a_filter_narrows_every_view(served):
     assert f"{n1} of 10000 front designs left" in pg.locator("#filter-count").inner_text()
     pg.locator("#view-parallel").click()
     pg.wait_for_selector("#parallel .main-svg")
-    dims = pg.evaluate("document.getElementById('parallel')._fullData[0].dimensions.map((d) => [d.label, d.constraintrange])")
+    dims = pg.evaluate("document.getElementById('parallel')._fullData[0].dimensions"
+                       ".map((d) => [d.label, d.constraintrange])")
     heave = [d for d in dims if d[0].startswith("max heave")][0]
     assert heave[1][1] == pytest.approx(hi, rel=1e-6)
     # brushing another axis of the parallel coordinates narrows the count and the matrix the same way
@@ -373,7 +375,8 @@ def test_compare_shows_the_chosen_designs(served):
         pg.evaluate(f"window.tiltoptExplorer.addCompare({r})")
     pg.evaluate("window.tiltoptExplorer.setView('compare')")
     pg.wait_for_function("document.querySelectorAll('#cmp-drawings .cmp-card svg .wheel').length === 6", timeout=30000)
-    assert [int(v) for v in pg.locator("#cmp-drawings .cmp-card").evaluate_all("(c) => c.map((x) => x.dataset.row)")] == rows
+    cards = pg.locator("#cmp-drawings .cmp-card").evaluate_all("(c) => c.map((x) => x.dataset.row)")
+    assert [int(v) for v in cards] == rows
     ids = pg.evaluate(f"{rows}.map((r) => window.tiltoptExplorer.data.ids[r])")
     head = pg.locator("#cmp-table th").all_inner_texts()
     assert all(any(i in h for h in head) for i in ids)

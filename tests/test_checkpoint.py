@@ -22,13 +22,12 @@ import pyarrow.parquet as pq
 import pytest
 from click.testing import CliRunner
 
+from tests.helpers import NSGA3_TILT, one_error
 from tiltopt.base.errors import InputError
 from tiltopt.cli import main
 from tiltopt.optimizer.config import RunSettings, load_config
 from tiltopt.optimizer.reference_problems import ZDTProblem
 from tiltopt.optimizer.runner import Runner, resume_run, run_problem, start_run
-
-from tests.helpers import NSGA3_TILT, one_error
 
 ZDT_CONFIG = """
 [run]

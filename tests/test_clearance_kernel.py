@@ -13,15 +13,20 @@ import tomllib
 import numpy as np
 import pytest
 
+from tests.helpers import CONFIGS
 from tiltopt.kinematics import clearance_kernel as K
 from tiltopt.kinematics.clearance import ClearanceSettings, _shell_tables, evaluate_clearance
 from tiltopt.kinematics.mechanism import parse_mechanism
 from tiltopt.kinematics.model import Model
-from tiltopt.kinematics.shell import (load_shell, polygon_distance, polygon_sections, shell_signed_distance,
-                              superellipse_distance, superellipse_distance_lower_bound)
+from tiltopt.kinematics.shell import (
+    load_shell,
+    polygon_distance,
+    polygon_sections,
+    shell_signed_distance,
+    superellipse_distance,
+    superellipse_distance_lower_bound,
+)
 from tiltopt.kinematics.sweep import sweep
-
-from tests.helpers import CONFIGS
 
 VALUE_TOL = 1e-9      # mm: reached minima (same arithmetic, rounding only)
 ERROR_TOL = 1e-3      # mm: error estimates (numpy's coarse grid is single precision)

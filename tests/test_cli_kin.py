@@ -14,9 +14,9 @@ import pytest
 from click.testing import CliRunner
 
 from tests.helpers import CONFIGS, twin_beam
-from tiltopt.kinematics.mechanism import load_mechanism
 from tests.reference_solver import reference_sweep
 from tiltopt.cli import main
+from tiltopt.kinematics.mechanism import load_mechanism
 
 ISSUE_KEYS = {"lean_deg", "travel_mm", "converged", "residual_mm", "track_mm", "track_change_mm", "scrub_mm",
               "heave_mm", "camber_error_left_deg", "camber_error_right_deg", "lean_point_offset_mm",
@@ -26,9 +26,12 @@ METRICS = ["track_mm", "track_change_mm", "scrub_mm", "heave_mm", "camber_error_
 
 
 def run(*args):
+    """stdout of a command (JSON and CSV go there; the caution goes to stderr)."""
     out = CliRunner().invoke(main, list(args))
     assert out.exit_code == 0, out.output
-    return out.output
+    if "--format" in args:
+        assert "Caution" in out.stderr and "Caution" not in out.stdout
+    return out.stdout
 
 
 def test_json_has_issue_keys_and_nulls_where_not_converged():

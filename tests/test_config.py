@@ -10,9 +10,9 @@ import pytest
 from click.testing import CliRunner
 
 from tiltopt.base.errors import InputError
+from tiltopt.cli import main
 from tiltopt.optimizer.config import check_config_lines, load_config, parse_config
 from tiltopt.problems.templates import get_template
-from tiltopt.cli import main
 
 ROOT = Path(__file__).resolve().parents[1]
 BENCH = {"run": {"name": "b", "seed": 1, "population": 8, "generations": 2}, "benchmark": {"name": "zdt1", "n_var": 4}}

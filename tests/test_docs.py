@@ -383,7 +383,7 @@ def test_objectives_table_is_the_registry():
 
 
 def test_constraints_table_is_the_registry_in_column_order():
-    from tiltopt.problems.registry import CONSTRAINTS, CLEARANCE
+    from tiltopt.problems.registry import CLEARANCE, CONSTRAINTS
 
     rows = documented("Names", "Constraints")
     assert list(rows) == list(CONSTRAINTS)
@@ -583,7 +583,7 @@ def _cli_json(*args):
 
     res = CliRunner().invoke(main, list(args))
     assert res.exit_code == 0, res.output
-    return json.loads(res.output)
+    return json.loads(res.stdout)
 
 
 def test_sweep_json_record_keys():

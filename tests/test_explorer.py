@@ -2,24 +2,21 @@
 
 The fixture (``fixture_run``) builds a run in the docs/formats.md column layout from
 perturbed copies of configs/wishbone_rocker.toml, with metrics computed by the
-kinematics sweep, so the report writers can be tested without the optimiser.
+kinematics sweep, so the report writers can be tested without the optimiser; the explorer, demo
+outputs and CLI commands are also driven by a real tiny run of it (``tests.helpers.make_tiny_run``).
 """
 from __future__ import annotations
 
+import csv
 import json
 import re
-from pathlib import Path
 
 import numpy as np
 import pandas as pd
 import pytest
 
-from tiltopt.kinematics.mechanism import load_mechanism
-from tiltopt.kinematics.model import Model
+from tests.helpers import CONFIGS, fixture_run, make_tiny_run
 from tiltopt.kinematics.sweep import sweep
-
-from tests.helpers import CONFIGS, LEAN_LIMIT, TRAVEL, fixture_run, make_tiny_run
-
 
 
 # ----------------------------------------------------------------- tests
@@ -110,107 +107,6 @@ def test_best_compromise_is_nearest_the_ideal_point():
     assert best_compromise(front) == "b"
 
 
-class _FakeTemplate:
-    """Stands in for tiltopt.problems.templates.Template (docs/formats.md) until the real one lands."""
-
-    def __init__(self, model, mechs, ids, X):
-        self.name, self.model = "wishbone_rocker", model
-        self._by_x = {tuple(np.round(x, 9)): mechs[c] for c, x in zip(ids, X)}
-
-        class V:
-            def __init__(self, n):
-                self.name, self.unit = n, "mm"
-        self.variables = [V("upper_pivot_dz"), V("lower_pivot_dz"), V("outer_dy")]
-
-    def mechanism_for(self, x):
-        return self._by_x[tuple(np.round(np.asarray(x, float), 9))]
-
-    def geometry(self, X):
-        return self.model.batch_geometry(np.stack([self.model.geometry_from(self.mechanism_for(x)).points[0]
-                                                   for x in X]))
-
-
-class _FakeRun:
-    """Stands in for tiltopt.optimizer.results.Run (docs/formats.md) until the real one lands."""
-
-    def __init__(self):
-        run, mechs, front, res = fixture_run()
-        self._run = run
-        self.run_id = "fixture-a"
-        self.front = front
-        self.evaluations = run.evaluations
-        var = [c for c in front.columns if c.startswith("var.")]
-        ev = run.evaluations
-        self.template = _FakeTemplate(run.model, mechs, list(ev["candidate_id"]), ev[var].to_numpy(float))
-        self.meta = {"seed": 3, "config": "configs/fixture.toml", "versions": {"tiltopt": "test"},
-                     "units": run.units}
-
-        class Env:
-            lean_limit_deg, lean_step_deg, travel_mm = LEAN_LIMIT, 2.5, np.array(TRAVEL)
-
-        class Spec:
-            envelope, shell, loads = Env, None, None
-
-        class Config:
-            spec = Spec
-
-        self.config = Config
-        self._mechs = mechs
-
-    def candidate_x(self, cid):
-        row = self.evaluations[self.evaluations["candidate_id"] == cid].iloc[0]
-        return np.array([row[f"var.{v.name}"] for v in self.template.variables])
-
-    def candidate_mechanism(self, cid):
-        return self.template.mechanism_for(self.candidate_x(cid))
-
-
-def test_demo_outputs_from_a_run(tmp_path, monkeypatch):
-    import tiltopt.reports.runs as runs_mod
-    from tiltopt.reports import demo_outputs
-
-    fake = _FakeRun()
-    monkeypatch.setattr(runs_mod, "load", lambda d: fake)
-    out = demo_outputs(tmp_path)
-    assert out["explorer"].exists() and out["sheet"].exists()
-    best = runs_mod.best_compromise(fake.front)
-    assert out["sheet"].parent.name == best
-    html = out["sheet"].read_text(encoding="utf-8")
-    assert f"tiltopt sheet {tmp_path} --candidate {best}" in html
-    assert "configs/fixture.toml" in html and "seed 3" in html
-    with pytest.raises(Exception, match="no candidate 'nope'"):
-        runs_mod.sheet_from_run(tmp_path, "nope", run=fake)
-
-
-def test_cli_explore_and_sheet(tmp_path, monkeypatch):
-    from click.testing import CliRunner
-
-    import tiltopt.reports.runs as runs_mod
-    from tiltopt.cli import main
-
-    fake = _FakeRun()
-    monkeypatch.setattr(runs_mod, "load", lambda d: fake)
-    run_dir = tmp_path / "run"
-    run_dir.mkdir()
-    r = CliRunner().invoke(main, ["explore", str(run_dir), "-o", str(tmp_path / "x.html"), "--plotly-beside"])
-    assert r.exit_code == 0, r.output
-    assert (tmp_path / "x.html").exists() and (tmp_path / "plotly.min.js").exists()
-    assert '<script src="plotly.min.js"></script>' in (tmp_path / "x.html").read_text(encoding="utf-8")
-    cid = str(fake.front["candidate_id"].iloc[0])
-    r = CliRunner().invoke(main, ["sheet", str(run_dir), "--candidate", cid, "--jig-datum", "0,120"])
-    assert r.exit_code == 0, r.output
-    assert (run_dir / "sheets" / cid / "linkage.dxf").exists()
-    r = CliRunner().invoke(main, ["sheet", str(run_dir)])
-    assert r.exit_code == 2 and "--candidate" in r.output
-    r = CliRunner().invoke(main, ["sheet", str(run_dir), "--candidate", cid, "--jig-datum", "abc"])
-    assert r.exit_code == 2 and "Y,Z" in r.output
-    # a mechanism file works as well
-    r = CliRunner().invoke(main, ["sheet", str(CONFIGS / "twin_beam.toml"), "-o", str(tmp_path / "tb"),
-                                  "--travel", "0"])
-    assert r.exit_code == 0, r.output
-    assert (tmp_path / "tb" / "candidate.toml").exists()
-
-
 # ----------------------------------------------------------------- a real tiny run
 @pytest.fixture(scope="module")
 def tiny(tmp_path_factory):
@@ -232,8 +128,7 @@ def test_explorer_of_a_real_run(tiny, tmp_path):
     assert data["runs"][0]["lean_deg"][-1] == 30.0 and data["runs"][0]["travel_mm"] == [-30.0, 0.0, 30.0]
     assert {c["key"]: c["unit"] for c in data["columns"]}["obj.max_scrub"] == "mm"
     # the precomputed drawing of the first front design is the template's geometry swept by the kinematics
-    from tiltopt.kinematics.sweep import sweep
-
+    # (positions on the page's 0.1 mm grid: rounding moves them by at most 0.05 mm)
     x = run.candidate_x(data["ids"][0])
     res = sweep(run.template.model, run.template.geometry(x[None]), [0.0], [0.0])
     P = np.array(data["detail"]["0"]["s"][1][0]["p"]).reshape(-1, 2) / 10.0
@@ -241,12 +136,61 @@ def test_explorer_of_a_real_run(tiny, tmp_path):
 
 
 def test_demo_outputs_of_a_real_run(tiny):
+    from tiltopt.base.errors import InputError
     from tiltopt.reports import demo_outputs
-    from tiltopt.reports.runs import best_compromise
+    from tiltopt.reports.runs import best_compromise, sheet_from_run
 
     run_dir, run = tiny
     out = demo_outputs(run_dir)
+    best = best_compromise(run.front)
     assert out["explorer"] == run_dir / "explorer.html" and out["explorer"].exists()
-    assert out["sheet"] == run_dir / "sheets" / best_compromise(run.front) / "sheet.html"
+    assert out["sheet"] == run_dir / "sheets" / best / "sheet.html"
     html = out["sheet"].read_text(encoding="utf-8")
     assert run.run_id in html and "Caution" in html
+    # the sheet says how to make it again and where it comes from (the run's seed, tests.helpers.TINY_CONFIG)
+    assert f"tiltopt sheet {run_dir} --candidate {best}" in html and "seed 2" in html
+    with pytest.raises(InputError, match="no candidate 'nope'"):
+        sheet_from_run(run_dir, "nope", run=run)
+
+
+def test_cli_explore_and_sheet(tiny, tmp_path):
+    import shutil
+
+    from click.testing import CliRunner
+
+    from tiltopt.cli import main
+
+    run_dir = tmp_path / "run"
+    shutil.copytree(tiny[0], run_dir)            # a run folder of its own: the sheet is written into it
+    front = tiny[1].front
+    r = CliRunner().invoke(main, ["explore", str(run_dir), "-o", str(tmp_path / "x.html"), "--plotly-beside"])
+    assert r.exit_code == 0, r.output
+    assert (tmp_path / "x.html").exists() and (tmp_path / "plotly.min.js").exists()
+    assert '<script src="plotly.min.js"></script>' in (tmp_path / "x.html").read_text(encoding="utf-8")
+    # the front design farthest from the template's base design (the seeded first population holds the base)
+    template = tiny[1].template
+    X = front[[f"var.{v.name}" for v in template.variables]].to_numpy(float)
+    k = int(np.argmax(np.abs((X - template.defaults) / (template.xu - template.xl)).max(axis=1)))
+    cid, x = str(front["candidate_id"].iloc[k]), X[k:k + 1]
+    r = CliRunner().invoke(main, ["sheet", str(run_dir), "--candidate", cid, "--jig-datum", "0,120"])
+    assert r.exit_code == 0, r.output
+    assert (run_dir / "sheets" / cid / "linkage.dxf").exists()
+    # the sheet is of that design: its pivots are the template's batched geometry of the design variables
+    # the front file holds for it (read here from the row, not through the run's own lookup)
+    want = dict(zip(template.model.point_refs, template.geometry(x).points[0]))
+    text = (run_dir / "sheets" / cid / "pivots.csv").read_text(encoding="utf-8")
+    rows = list(csv.DictReader(ln for ln in text.splitlines() if not ln.startswith("#")))
+    assert len(rows) == len(want)
+    for row in rows:
+        np.testing.assert_allclose([float(row["y_mm"]), float(row["z_mm"])], want[f"{row['body']}.{row['point']}"],
+                                   atol=1e-9)
+    r = CliRunner().invoke(main, ["sheet", str(run_dir)])
+    assert r.exit_code == 2 and "--candidate" in r.output
+    r = CliRunner().invoke(main, ["sheet", str(run_dir), "--candidate", cid, "--jig-datum", "abc"])
+    assert r.exit_code == 2 and "Y,Z" in r.output
+    # a mechanism file works as well
+    r = CliRunner().invoke(main, ["sheet", str(CONFIGS / "twin_beam.toml"), "-o", str(tmp_path / "tb"),
+                                  "--travel", "0"])
+    assert r.exit_code == 0, r.output
+    assert (tmp_path / "tb" / "candidate.toml").exists()
+

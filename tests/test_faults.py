@@ -20,12 +20,11 @@ import pandas as pd
 import pyarrow.parquet as pq
 from click.testing import CliRunner
 
+from tests.helpers import cli_command
 from tiltopt.cli import main
 from tiltopt.optimizer.batch import load_batch, run_local
 from tiltopt.optimizer.config import load_config
 from tiltopt.optimizer.runner import start_run
-
-from tests.helpers import cli_command
 
 ROOT = Path(__file__).resolve().parents[1]
 ENV = {**os.environ, "PYTHONUNBUFFERED": "1"}

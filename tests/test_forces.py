@@ -6,9 +6,9 @@ import math
 import numpy as np
 import pytest
 
-from tests.helpers import CONFIGS, mech_of, sprung_twin_beam, tie_link_beam, twin_beam, wishbone_rocker
+from tests.helpers import CONFIGS, G, mech_of, sprung_twin_beam, tie_link_beam, twin_beam, wishbone_rocker
 from tiltopt.kinematics.forces import analyse_forces
-from tiltopt.kinematics.loads import G, load_loads, parse_loads
+from tiltopt.kinematics.loads import load_loads, parse_loads
 from tiltopt.kinematics.mechanism import load_mechanism
 from tiltopt.kinematics.model import Model
 from tiltopt.kinematics.solver import Batch, newton

@@ -16,8 +16,15 @@ import pytest
 from tests.helpers import CONFIGS
 from tiltopt.kinematics.mechanism import load_mechanism
 from tiltopt.kinematics.model import Model
-from tiltopt.kinematics.solver import (CONVERGED, NONFINITE, Batch, SolveSettings, hold_free_directions, residual,
-                               solve_states)
+from tiltopt.kinematics.solver import (
+    CONVERGED,
+    NONFINITE,
+    Batch,
+    SolveSettings,
+    hold_free_directions,
+    residual,
+    solve_states,
+)
 from tiltopt.kinematics.sweep import SweepSettings, sweep
 
 NUMPY = SolveSettings(engine="numpy")

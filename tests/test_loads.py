@@ -8,19 +8,14 @@ import tomllib
 import pytest
 from click.testing import CliRunner
 
-from tests.helpers import CONFIGS, mech_of, twin_beam
+from tests.helpers import CONFIGS, G, mech_of, twin_beam
 from tiltopt.base.errors import InputError
-from tiltopt.kinematics.loads import G, load_catalogue, load_loads, load_materials, parse_loads
-from tiltopt.kinematics.mechanism import mechanism_to_toml, mirror, parse_mechanism
 from tiltopt.cli import main
+from tiltopt.kinematics.loads import load_catalogue, load_loads, load_materials, parse_loads
+from tiltopt.kinematics.mechanism import mechanism_to_toml, mirror, parse_mechanism
 
 DEMO_LOADS = CONFIGS / "loads_demo.toml"
 VEHICLE = dict(total_mass_kg=200.0, com_height_mm=600.0, front_share=0.5, wheelbase_mm=1500.0, lean_limit_deg=25.0)
-
-
-def test_standard_gravity():
-    # CGPM 1901 / ISO 80000-3: standard acceleration of gravity 9.80665 m/s^2 (exact by definition).
-    assert G == 9.80665
 
 
 def test_default_cases_and_front_load_transfer():
@@ -29,7 +24,7 @@ def test_default_cases_and_front_load_transfer():
     # at one contact (common practice); balanced cornering at the lean limit with side force
     # = N tan(lean); braking 0.7 g (common practice, no source); parked on a 5.7 deg (10 %) cross
     # slope. Braking load transfer by hand: m a h / wheelbase (rigid-body pitch balance, closed form):
-    # 200 * 9.80665 * 0.7 * 600 / 1500 = 549.17 N.
+    # 200 * 9.80665 * 0.7 * 600 / 1500 = 549.17 N. W with the standard gravity of tests.helpers (CGPM 1901).
     spec = parse_loads({"vehicle": VEHICLE}, "<test>")
     names = [s.name for s in spec.states()]
     assert names == ["static", "bump", "one_wheel_bump", "one_wheel_bump_mirror", "kerb_strike", "kerb_strike_mirror",

@@ -41,7 +41,8 @@ def _section(c, camber, R, r, hub_half, rho_lo=0.0):
     w = lambda rho: hub_half - (hub_half - r) * rho / rc   # noqa: E731  (half width of the disc at rho)
     parts = [Point(at(0.0, rc)).buffer(r, quad_segs=1024), Point(at(0.0, -rc)).buffer(r, quad_segs=1024)]
     for sgn in (1.0, -1.0):
-        parts.append(Polygon([at(w(rho_lo), sgn * rho_lo), at(r, sgn * rc), at(-r, sgn * rc), at(-w(rho_lo), sgn * rho_lo)]))
+        parts.append(Polygon([at(w(rho_lo), sgn * rho_lo), at(r, sgn * rc), at(-r, sgn * rc),
+                              at(-w(rho_lo), sgn * rho_lo)]))
     return unary_union(parts)
 
 
@@ -71,7 +72,8 @@ def test_wheel_marks_are_the_front_view_distances(name):
             P = res.points[0, t, l]
             for w, wheel in enumerate(mech.wheels):
                 c = P[model.wheel_centre[w]]
-                for kind, lo, sel in (("other", 0.0, ~mem.carries[w]), ("carrier", wheel.hub_radius_mm, mem.carries[w])):
+                for kind, lo, sel in (("other", 0.0, ~mem.carries[w]),
+                                      ("carrier", wheel.hub_radius_mm, mem.carries[w])):
                     sec = _section(c, res.camber[0, t, l, w], geom.outer_radius[0, w], geom.crown_radius[0, w],
                                    0.5 * wheel.hub_width_mm, lo)
                     d = [LineString([P[mem.ia[k]], P[mem.ib[k]]]).distance(sec) - mem.radius[k]
@@ -143,7 +145,7 @@ def test_a_member_through_the_wheel_is_an_overlap():
     """A tube moved through the tyre's disc: the mark is negative, deeper than the tube radius (its axis
     inside the section), and the drawing labels it as an overlap."""
     from tiltopt.reports.drawing import mark_label
-    from tiltopt.reports.marks import section_pieces, _segment_to_section
+    from tiltopt.reports.marks import _segment_to_section, section_pieces
 
     quads, discs = section_pieces(np.array(0.0), np.array(250.0), np.array(0.0), np.array(250.0), np.array(23.0),
                                   np.array(35.0))

@@ -15,8 +15,8 @@ from click.testing import CliRunner
 
 from tests.helpers import CONFIGS, twin_beam
 from tiltopt.base.errors import InputError
-from tiltopt.kinematics.mechanism import load_mechanism
 from tiltopt.cli import main
+from tiltopt.kinematics.mechanism import load_mechanism
 
 
 def _pin_gap(d, gap):

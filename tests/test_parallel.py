@@ -4,11 +4,10 @@ from __future__ import annotations
 import numpy as np
 import pyarrow.parquet as pq
 
+from tests.helpers import CONFIGS, TINY_CONFIG
 from tiltopt.optimizer.config import load_config
 from tiltopt.optimizer.parallel import ParallelProblem, concat_evaluations
 from tiltopt.optimizer.runner import start_run
-
-from tests.helpers import CONFIGS, TINY_CONFIG
 
 
 def test_parallel_batch_equals_the_serial_batch():

@@ -6,17 +6,16 @@ docstrings below from plane geometry.
 """
 from __future__ import annotations
 
-
 import numpy as np
 import pytest
 from click.testing import CliRunner
 
 from tests.helpers import mech_of, twin_beam
-from tiltopt.kinematics.model import Model
 from tests.reference_solver import reference_sweep
+from tiltopt.cli import main
+from tiltopt.kinematics.model import Model
 from tiltopt.kinematics.solver import CONVERGED
 from tiltopt.kinematics.sweep import sweep
-from tiltopt.cli import main
 
 LEANS = np.arange(0.0, 45.0 + 1e-9, 5.0)
 

@@ -2,19 +2,18 @@
 kinematic objectives against a closed form of the twin-beam parallelogram."""
 from __future__ import annotations
 
-
 import numpy as np
 import pytest
 from pymoo.core.evaluator import Evaluator
 from pymoo.core.population import Population
 
+from tests.helpers import CONFIGS
 from tiltopt.base.errors import InputError
 from tiltopt.kinematics.mechanism import Link, load_mechanism
 from tiltopt.problems.problem import TiltProblem
 from tiltopt.problems.registry import ALGORITHMS, CONSTRAINTS, OBJECTIVES, TEMPLATES, names
 from tiltopt.problems.spec import lean_grid, parse_problem
 from tiltopt.problems.templates import template_from_mechanism
-from tests.helpers import CONFIGS
 
 
 def _cfg(**kw):
@@ -200,10 +199,11 @@ def test_F_always_written_and_finite_through_pymoo():
     assert all(ev.reason[j] for j in np.flatnonzero(bad))
     assert all(ev.reason[j] == "" for j in np.flatnonzero(~bad))
     np.testing.assert_array_equal((G > 0).any(1), bad)
-    # a design that does not converge always weighs more than one that only misses a margin
+    # a design that does not converge always weighs more than one that only misses a margin (the sample
+    # holds both: 23 that do not converge, 17 that miss a margin)
     locked = G[:, 0] > 0
-    if locked.any() and (bad & ~locked).any():
-        assert ev.violation[locked].min() > ev.violation[bad & ~locked].max()
+    assert locked.any() and (bad & ~locked).any()
+    assert ev.violation[locked].min() > ev.violation[bad & ~locked].max()
 
 
 def test_invalid_geometry_is_infeasible_not_an_exception():

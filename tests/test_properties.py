@@ -12,7 +12,8 @@ import tomllib
 
 import numpy as np
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from tests.helpers import hub_height, mech_of, sprung_twin_beam, twin_beam, wishbone_rocker
 from tiltopt.kinematics.mechanism import mechanism_to_toml, mirror, parse_mechanism

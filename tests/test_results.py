@@ -7,6 +7,7 @@ import json
 
 import numpy as np
 import pandas as pd
+import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
@@ -117,7 +118,7 @@ def test_atomic_write_keeps_old_file_on_failure(tmp_path):
     path = tmp_path / "f.parquet"
     write_parquet(path, pd.DataFrame({"a_mm": [1.0, 2.0]}), {}, {"run_id": "x"})
     bad = pd.DataFrame({"a_mm": [object(), object()]})     # pyarrow cannot convert: the write fails
-    with pytest.raises(Exception):
+    with pytest.raises(pa.ArrowInvalid, match="object"):     # pyarrow's own error, not one of ours
         write_parquet(path, bad, {}, {"run_id": "x"})
     assert pq.read_table(path).to_pandas()["a_mm"].tolist() == [1.0, 2.0]
     assert [p.name for p in tmp_path.iterdir()] == ["f.parquet"]   # no temp file left behind

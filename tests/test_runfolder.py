@@ -10,7 +10,6 @@ from __future__ import annotations
 import errno
 import http.client
 import json
-import re
 import os
 import threading
 import time
@@ -21,14 +20,13 @@ import pyarrow.parquet as pq
 import pytest
 from click.testing import CliRunner
 
+from tests.helpers import one_error
 from tiltopt.base.errors import InputError
 from tiltopt.cli import main
 from tiltopt.optimizer import results as R
 from tiltopt.optimizer.config import load_config
 from tiltopt.optimizer.runfolder import FolderLock
 from tiltopt.optimizer.runner import resume_run, start_run
-
-from tests.helpers import one_error
 
 ZDT = """
 [run]
@@ -220,7 +218,8 @@ def test_edited_input_is_refused_on_resume_and_the_run_keeps_its_copy(edit_run):
     assert (o.run_dir / roles["shell"]["copy"]).read_bytes() == (t / "shell.toml").read_bytes()
     assert roles["template.mechanism"]["builtin"] and roles["template.mechanism"]["copy"] is None
     shell = t / "shell.toml"
-    shell.write_text(shell.read_text().replace("half_width_mm = 190.0", "half_width_mm = 150.0", 1))  # the linkage station
+    # the shell's section at the linkage station
+    shell.write_text(shell.read_text().replace("half_width_mm = 190.0", "half_width_mm = 150.0", 1))
     r = _invoke("run", "--resume", o.run_dir, "--quiet")
     one_error(r, str(shell), "changed since the run started", "--allow-changed-inputs")
     r = _invoke("run", "--resume", o.run_dir, "--quiet", "--allow-changed-inputs")
@@ -416,7 +415,6 @@ def test_disk_full_during_a_run_says_so_and_the_run_resumes(tmp_path, monkeypatc
 
 def test_disk_full_while_writing_the_explorer_page(tmp_path, monkeypatch):
     import tiltopt.reports.common as common
-
     from tests.helpers import make_tiny_run
 
     run_dir = make_tiny_run(tmp_path)

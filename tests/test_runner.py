@@ -17,12 +17,11 @@ import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 
+from tests.helpers import NSGA3_TILT, cli_command
 from tiltopt.optimizer.config import RunSettings, load_config
 from tiltopt.optimizer.progress import Progress
 from tiltopt.optimizer.reference_problems import ZDTProblem
 from tiltopt.optimizer.runner import resume_run, run_problem, start_run
-
-from tests.helpers import NSGA3_TILT, cli_command
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -91,10 +90,17 @@ def test_resume_equals_uninterrupted(tmp_path):
 
 
 def test_nsga3_runs(tmp_path):
+    from pymoo.indicators.hv import HV
+
+    from tests.test_zdt1 import ZDT1_FRONT_HV, check_zdt1_front_file
+
     out = run_problem(ZDTProblem("zdt1", 10), _settings(tmp_path, gens=30, pop=20, algorithm="nsga3"), tmp_path / "n3")
-    F = _front(out.run_dir)[["obj.f1", "obj.f2"]].to_numpy()
-    assert out.status == "finished" and len(F) > 5
-    assert np.all(F[:, 1] >= 1.0 - np.sqrt(F[:, 0]) - 1e-12)   # ZDT1: nothing below the exact front
+    assert out.status == "finished"
+    F = check_zdt1_front_file(out.run_dir, 10)        # the published ZDT1 of the stored variables
+    # a short run (20 x 30) is far from the exact front (hypervolume 2/3 at (1, 1)); this seeded one reaches
+    # 0.312 with 19 points, from 0 for its random first generation: 0.28 leaves 10 % headroom
+    hv = HV(ref_point=np.array([1.0, 1.0]))(F)
+    assert 0.28 <= hv <= ZDT1_FRONT_HV and len(F) >= 15
 
 
 def _wait_for(path: Path, proc, timeout=60.0):

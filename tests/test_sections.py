@@ -8,14 +8,13 @@ worked in the sizing issue, derived again here.
 """
 from __future__ import annotations
 
-import math
-from types import SimpleNamespace
-
 from pathlib import Path
+from types import SimpleNamespace
 
 import numpy as np
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from tests.helpers import CONFIGS, mech_of, tie_link_beam
 from tests.test_properties import any_mechanism
@@ -23,8 +22,7 @@ from tiltopt.kinematics.forces import BodyLoad, analyse_forces
 from tiltopt.kinematics.loads import Catalogue, load_loads, parse_loads
 from tiltopt.kinematics.mechanism import load_mechanism
 from tiltopt.kinematics.model import Model
-from tiltopt.kinematics.sections import (Member, _sides, _tree, build_members, section_loads, shear_factor,
-                                         tube_checks)
+from tiltopt.kinematics.sections import Member, _sides, _tree, build_members, section_loads, shear_factor, tube_checks
 from tiltopt.kinematics.sizing import size_linkage, tube_section
 
 DEMO_LOADS = CONFIGS / "loads_demo.toml"
@@ -204,7 +202,8 @@ def test_twin_beam_sprung_upright_in_bump_hand_case():
     M = np.abs(sec.moment[i])
     assert M.max() == pytest.approx(0.8 * C, rel=1e-6) and M.max() <= C
     e, k = np.unravel_index(np.argmax(M), M.shape)
-    assert sec.position[i, e, k] == pytest.approx(model.default_geometry.points[0, model.point_index["leg_left.runner"]])
+    runner = model.default_geometry.points[0, model.point_index["leg_left.runner"]]
+    assert sec.position[i, e, k] == pytest.approx(runner)
     assert sec.axial[i, e, k] == pytest.approx(Nt / 2, rel=1e-6)
     assert np.abs(sec.shear[i, e, k]) == pytest.approx(C / 200.0, rel=1e-6)
     A, I, S, r = tube_section(28.6, 1.2)

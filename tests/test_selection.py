@@ -95,9 +95,8 @@ def test_targets_table_errors_name_the_key():
 
 
 def test_run_config_targets(tmp_path):
-    from tiltopt.optimizer.config import parse_config
-
     from tests.helpers import TINY_CONFIG
+    from tiltopt.optimizer.config import parse_config
 
     d = tomllib.loads(TINY_CONFIG + '[targets]\nmax_scrub_mm = { max = 20.0 }\n')
     assert parse_config(d, "t.toml", tmp_path).targets.bounds == (Bound("max_scrub_mm", None, 20.0),)

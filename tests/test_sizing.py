@@ -6,12 +6,11 @@ import math
 import numpy as np
 import pytest
 
-from tests.helpers import CONFIGS, mech_of, twin_beam
+from tests.helpers import CONFIGS, mech_of, tie_link_beam, twin_beam
 from tiltopt.kinematics.loads import load_catalogue, load_loads, parse_loads
 from tiltopt.kinematics.mechanism import load_mechanism
 from tiltopt.kinematics.model import Model
 from tiltopt.kinematics.sizing import critical_stress, euler_load, size_linkage, tube_section
-from tests.helpers import tie_link_beam
 
 DEMO_LOADS = CONFIGS / "loads_demo.toml"
 VEHICLE = dict(total_mass_kg=120.0, com_height_mm=600.0, front_share=1.0, wheelbase_mm=1400.0, lean_limit_deg=20.0)

@@ -11,10 +11,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from tests.helpers import CONFIGS, mech_of, sprung_twin_beam
+from tests.helpers import CONFIGS, G, mech_of, sprung_twin_beam
 from tiltopt.base.errors import InputError
-from tiltopt.kinematics.loads import G, SpringSetup, load_loads, parse_loads
-from tiltopt.kinematics.mechanism import Spring, load_mechanism, mechanism_to_toml, parse_mechanism
+from tiltopt.kinematics.loads import SpringSetup, parse_loads
+from tiltopt.kinematics.mechanism import Spring, mechanism_to_toml, parse_mechanism
 from tiltopt.kinematics.model import Model
 from tiltopt.kinematics.sizing import size_linkage
 from tiltopt.kinematics.springs import DEFAULT_SHAPE, analyse_springs, characteristic
@@ -168,8 +168,8 @@ def test_spring_constraints_in_the_optimiser():
     # G = (figure - limit) / scale for force and stroke, -bottoming margin / scale (the registry's
     # scales: 100 N, 10 mm, 10 mm); the figures come from the same parts as tiltopt loads (checked on
     # the template's base design: the demo mechanism).
-    from tiltopt.problems.registry import CONSTRAINTS
     from tiltopt.problems.problem import TiltProblem
+    from tiltopt.problems.registry import CONSTRAINTS
     from tiltopt.problems.spec import parse_problem
 
     spec = parse_problem(_cfg(max_spring_force_n=1000.0, max_spring_stroke_mm=50.0, spring_bottoming=True), "c.toml")

@@ -102,9 +102,8 @@ def test_front_contains_the_ideal_geometry(tmp_path):
     # planes above the contact points - has zero scrub, heave and camber error at every lean. Built as
     # tests.helpers.hub_centre_ideal (the uprights in the hub zones of hub-centre wheels) it passes every
     # default check in a shell that allows it, and the front of a run must reach it.
-    from tiltopt.kinematics.mechanism import mechanism_to_toml, parse_mechanism
-
     from tests.helpers import hub_centre_ideal
+    from tiltopt.kinematics.mechanism import mechanism_to_toml, parse_mechanism
 
     (tmp_path / "ideal.toml").write_text(mechanism_to_toml(parse_mechanism(hub_centre_ideal(), "<t>")))
     (tmp_path / "shell.toml").write_text(IDEAL_SHELL)

@@ -7,12 +7,12 @@ import tomllib
 import numpy as np
 import pytest
 
+from tests.helpers import CONFIGS
 from tiltopt.base.errors import InputError
 from tiltopt.kinematics.mechanism import load_mechanism, mechanism_to_toml, parse_mechanism
 from tiltopt.kinematics.model import Model
 from tiltopt.kinematics.sweep import sweep
 from tiltopt.problems.templates import TEMPLATES, Template, _swap_lr, get_template, template_from_mechanism
-from tests.helpers import CONFIGS
 
 ALL = list(TEMPLATES)
 

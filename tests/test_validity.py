@@ -9,13 +9,12 @@ import numpy as np
 import pytest
 from click.testing import CliRunner
 
+from tests.helpers import CONFIGS, twin_beam
 from tiltopt.base.errors import InputError
 from tiltopt.cli import main
 from tiltopt.kinematics.mechanism import mechanism_to_toml, parse_mechanism
 from tiltopt.problems.problem import TiltProblem
 from tiltopt.problems.spec import parse_problem
-
-from tests.helpers import CONFIGS, twin_beam
 
 
 def _problem(tmp_path, mech_dict, variables, **extra):
@@ -58,7 +57,8 @@ def test_variable_default_outside_its_bounds_is_an_error_naming_it(tmp_path):
         _problem(tmp_path, twin_beam(), [var])
     assert e.value.key == "template.variables.wheel_offset" and "330" in str(e.value)
     (tmp_path / "run.toml").write_text(
-        'objectives = ["max_scrub"]\n[run]\nname = "x"\nseed = 1\npopulation = 8\ngenerations = 1\n[template]\nmechanism = "m.toml"\n'
+        'objectives = ["max_scrub"]\n[run]\nname = "x"\nseed = 1\npopulation = 8\ngenerations = 1\n'
+        '[template]\nmechanism = "m.toml"\n'
         '[[template.variables]]\nname = "wheel_offset"\npoints = ["upright_right.hub"]\naxis = "y"\n'
         'lower = 0.0\nupper = 100.0\n')
     for cmd in (["check", str(tmp_path / "run.toml")], ["run", str(tmp_path / "run.toml")]):

@@ -174,14 +174,22 @@ def test_steered_clearance_against_dense_sampling(seed):
         f = _signed_distance(q, pts, np.cos(dl), np.sin(dl), q[S.RHOH] if carrier else 0.0) - rad
         brute = f.min()
         if brute <= 0:
-            assert got < 0.5                          # an overlap is reported as one (depth is a reached one)
+            # An overlap is reported as one: the search stops with no cell more than TOLERANCE_MM below its
+            # best (so never above +TOLERANCE_MM when the true minimum is <= 0), and an overlap deeper than
+            # that is negative (its depth a reached one, refined by a local search only)
+            assert got <= S.TOLERANCE_MM
+            if brute < -S.TOLERANCE_MM:
+                assert got < 0.0
             continue
         L = np.hypot(*(b - a))
         spacing = L / 1200 + 300.0 * 2 * q[S.DMAX] / 240    # how far the grid may miss the minimum
         assert got >= brute - spacing - 1e-9
         assert got - err <= brute + 1e-9
+        # the stop rule again: the value is within TOLERANCE_MM of the true minimum, which the grid's
+        # minimum is not below (reached: at most 0.026 mm above it over these 160 trials)
+        assert got - brute <= S.TOLERANCE_MM + 1e-9
         worst = max(worst, got - brute)
-    assert worst < 0.5
+    assert 0.0 < worst <= S.TOLERANCE_MM
 
 
 # ------------------------------------------------------------------ two wheels and the width

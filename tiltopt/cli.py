@@ -16,7 +16,6 @@ from tiltopt.base.errors import InputError
 
 from . import __version__
 
-
 DISK_FULL = {errno.ENOSPC, getattr(errno, "EDQUOT", errno.ENOSPC)}
 
 

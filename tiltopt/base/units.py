@@ -10,8 +10,7 @@ import math
 import numpy as np
 
 from .errors import InputError
-from .limits import (MAX_ABS_LEAN_DEG, MAX_COORD_MM, MAX_RANGE_VALUES, MAX_STATES, MAX_TRAVEL_MM,
-                     check_count)
+from .limits import MAX_ABS_LEAN_DEG, MAX_COORD_MM, MAX_RANGE_VALUES, MAX_STATES, MAX_TRAVEL_MM, check_count
 
 
 def _expected(text: str, unit: str) -> str:

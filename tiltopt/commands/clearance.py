@@ -6,15 +6,14 @@ import math
 import click
 
 from tiltopt.base.errors import InputError
+from tiltopt.base.limits import MAX_CLEARANCE_SAMPLES, MAX_CROWN_SAMPLES, MAX_STEER_SAMPLES, check_count
+from tiltopt.base.safety import SAFETY_CAUTION as CAUTION
+from tiltopt.base.units import parse_states
 from tiltopt.kinematics.mechanism import load_mechanism
 from tiltopt.kinematics.model import Model
-from tiltopt.base.limits import MAX_CLEARANCE_SAMPLES, MAX_CROWN_SAMPLES, MAX_STEER_SAMPLES, check_count
-from tiltopt.base.units import parse_states
 
 from ..cli import main
 from ..output import flatten, table, to_csv, to_json
-
-from tiltopt.base.safety import SAFETY_CAUTION as CAUTION  # noqa: E402
 
 COLUMNS = [
     ("lean_deg", "lean_deg"), ("travel_mm", "travel_mm"), ("steer_deg", "steer_deg"), ("converged", "ok"),

@@ -1,14 +1,13 @@
 """``tiltopt sweep`` and ``tiltopt check``."""
 from __future__ import annotations
 
-
 import click
 
 from tiltopt.base.errors import read_toml
 from tiltopt.base.safety import SAFETY_CAUTION
+from tiltopt.base.units import parse_states
 from tiltopt.kinematics.mechanism import load_mechanism
 from tiltopt.kinematics.model import Model
-from tiltopt.base.units import parse_states
 
 from ..cli import main
 from ..output import table, to_csv, to_json
@@ -42,9 +41,11 @@ def sweep_cmd(mech, lean, travel, fmt):
     rows = res.records(0)
     if fmt == "json":
         click.echo(to_json(rows))
+        click.echo(SAFETY_CAUTION, err=True)     # stdout stays machine-readable; the person still reads it
         return
     if fmt == "csv":
         click.echo(to_csv(rows), nl=False)
+        click.echo(SAFETY_CAUTION, err=True)
         return
     cols = list(SWEEP_COLUMNS) + [(f"spring_lengths_mm.{n}", f"{n}_mm") for n in model.spring_names]
     flat = []

@@ -46,7 +46,8 @@ def loads_report(mech_path: str, loads_path: str) -> dict:
         "tilt_lock_torque_nm": _f(res.tilt_lock_torque_nm[0]), "tilt_lock": _lock_row(res, spec),
         "fatigue": {"screening": FATIGUE_SCREENING, "cycles": spec.fatigue.cycles, "peak_g": spec.fatigue.peak_g,
                     "partial_factor": spec.fatigue.partial_factor,
-                    "classes": {m: {"fat_mpa": spec.materials[m].fatigue_fat_mpa, "slope": spec.materials[m].fatigue_slope,
+                    "classes": {m: {"fat_mpa": spec.materials[m].fatigue_fat_mpa,
+                                    "slope": spec.materials[m].fatigue_slope,
                                     "source": spec.materials[m].fatigue_source}
                                 for m in sorted({mb.material for mb in res.members})}},
         "springs": _spring_rows(springs, res, mech) if springs is not None else [],
@@ -238,8 +239,8 @@ def loads_cmd(mech, loads_path, fmt):
     click.echo("\ngoverning sections (axial tension +):")
     click.echo(table([dict(m, **{"n": m["section_force"]["axial_n"], "v": m["section_force"]["shear_n"],
                                  "mom": m["section_force"]["moment_nm"], "ax": m["checks"]["axial"],
-                                 "be": m["checks"]["bending"], "co": m["checks"]["combined"], "sh": m["checks"]["shear"],
-                                 "bu": m["checks"]["buckling"]}) for m in rep["members"]],
+                                 "be": m["checks"]["bending"], "co": m["checks"]["combined"],
+                                 "sh": m["checks"]["shear"], "bu": m["checks"]["buckling"]}) for m in rep["members"]],
                      [("member", "member"), ("section", "section"), ("n", "axial_N"), ("v", "shear_N"),
                       ("mom", "moment_Nm"), ("ax", "u_axial"), ("be", "u_bending"), ("co", "u_combined"),
                       ("sh", "u_shear"), ("bu", "u_buckling")], digits=3))
@@ -247,7 +248,8 @@ def loads_cmd(mech, loads_path, fmt):
     click.echo(f"\nfatigue screening ({fat['cycles']:.3g} cycles of 1 g -> {fat['peak_g']:g} g, partial factor "
                f"{fat['partial_factor']:g}): {fat['screening']}")
     click.echo(table(rep["members"], [("member", "member"), ("material", "material"),
-                                      ("fatigue_range_mpa", "range_MPa"), ("fatigue_allowable_range_mpa", "allowed_MPa"),
+                                      ("fatigue_range_mpa", "range_MPa"),
+                                      ("fatigue_allowable_range_mpa", "allowed_MPa"),
                                       ("fatigue_utilisation", "fatigue"), ("fatigue_section", "section")], digits=2))
     for m, c in fat["classes"].items():
         click.echo(f"  {m}: " + (f"FAT {c['fat_mpa']:g} MPa, m = {c['slope']:g}: {c['source']}" if c["fat_mpa"]

@@ -5,11 +5,10 @@ import functools
 import http.server
 import os
 import re
+import shlex
 import threading
 import webbrowser
 from pathlib import Path
-
-import shlex
 
 import click
 
@@ -157,7 +156,8 @@ def explore_cmd(run_dirs, output, do_serve, port, detail_limit, plotly_beside, a
 
 @main.command("sheet")
 @click.argument("source", type=click.Path())
-@click.option("--candidate", "candidate", default=None, help="Candidate id (see the explorer). Needed for a run folder.")
+@click.option("--candidate", "candidate", default=None,
+              help="Candidate id (see the explorer). Needed for a run folder.")
 @click.option("-o", "--output", type=click.Path(file_okay=False), default=None, callback=output_path,
               help="Folder to write [default: RUN_DIR/sheets/ID, or next to a mechanism file].")
 @click.option("--jig-datum", default="0,0", show_default=True,

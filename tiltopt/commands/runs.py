@@ -162,7 +162,8 @@ def _template_of(run_dirs) -> dict:
               help="A bound: NAME<=VALUE, NAME>=VALUE or LOW<=NAME<=HIGH; NAME a metric (max_scrub_mm), an "
                    "objective (min_clearance: the clearance, larger is better) or var.NAME. Repeat for more.")
 @click.option("--targets", "targets_file", type=click.Path(dir_okay=False), default=None,
-              help="A TOML file with a [targets] table (the explorer page's 'as targets'), instead of or besides --where.")
+              help="A TOML file with a [targets] table (the explorer page's 'as targets'), instead of or "
+                   "besides --where.")
 @click.option("--weight", "weights", multiple=True, help="OBJECTIVE=W: its weight in the best compromise (default 1).")
 @click.option("-o", "--output", required=True, type=click.Path(dir_okay=False), callback=output_path,
               help="Parquet file to write (the shortlisted front designs, best compromise first).")

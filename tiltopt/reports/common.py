@@ -3,13 +3,13 @@ provenance, and reading what the pages need out of a results run."""
 from __future__ import annotations
 
 import os
-
-import numpy as np
 import re
 import tempfile
 from pathlib import Path
 
-from tiltopt.base.safety import SAFETY_CAUTION as SAFETY  # noqa: E402
+import numpy as np
+
+from tiltopt.base.safety import SAFETY_CAUTION as SAFETY  # noqa: F401 (the report writers import it from here)
 
 _UNIT_SUFFIX = [("_mm", "mm"), ("_deg", "deg"), ("_kg", "kg"), ("_nm", "N·m"), ("_n", "N"), ("_mpa", "MPa"),
                 ("_pct", "%"), ("_n_per_mm", "N/mm")]
@@ -89,12 +89,11 @@ def label_with_unit(col: str, units: dict | None = None) -> str:
 
 
 def versions() -> dict:
+    import ezdxf
     import numpy
     import plotly
 
     from tiltopt import __version__
-
-    import ezdxf
 
     return {"tiltopt": __version__, "numpy": numpy.__version__, "plotly": plotly.__version__,
             "ezdxf": ezdxf.__version__}

@@ -38,7 +38,8 @@ from .marks import KINDS
 MAX_TRAVELS = 5
 
 
-def page_grid(lean_limit_deg: float, lean_step_deg: float | None, travel_mm) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def page_grid(lean_limit_deg: float, lean_step_deg: float | None,
+              travel_mm) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(leans, travels, envelope mask of the leans) of the page's drawings and curves: the envelope's leans,
     each step split to at most 5 deg, and its travels (at most :data:`MAX_TRAVELS`: then the lowest, the one
     nearest 0 and the highest)."""

@@ -24,7 +24,6 @@ from typing import Sequence
 
 import numpy as np
 
-
 # Our own palette ("harbour"): bodies take these in order, the chassis is slate.
 CHASSIS_COLOUR = "#3b4a5a"
 BODY_COLOURS = ["#0d7c86", "#c8553d", "#6a4c93", "#d4a017", "#2f8f4e", "#b0417a", "#4d7ea8", "#8a6d3b"]
@@ -379,7 +378,8 @@ def front_view_svg(spec: dict, points, camber, pose=(0.0, 0.0, 0.0), shell_poly=
                      f'stroke-dasharray="{_f(lw * 3)},{_f(lw * 2)}"/>')
     for w in spec["wheels"]:
         c = P[w["centre"]]
-        parts.append(f'<circle cx="{_f(c[0])}" cy="{_f(-c[1])}" r="{_f(lw * 2.5)}" fill="{TYRE_FILL}"/>')
+        parts.append(f'<circle cx="{_f(c[0])}" cy="{_f(-c[1])}" r="{_f(lw * 2.5)}" fill="{TYRE_FILL}" '
+                     f'stroke="{TYRE_FILL}" stroke-width="{_f(lw)}"/>')
     for k, (i, name) in enumerate(spec["pivots"]):
         c = P[i]
         parts.append(f'<circle class="pivot" cx="{_f(c[0])}" cy="{_f(-c[1])}" r="{_f(lw * 3.2)}" fill="#fff" '
@@ -422,7 +422,8 @@ def _mark_svg(m: dict, lw: float, fs: float) -> list[str]:
     nrm = np.array([-d[1], d[0]]) / L if L > 1e-9 else np.array([0.0, 1.0])
     mid = 0.5 * (p + q) + nrm * fs * 0.6
     out = [f'<g class="mark" data-kind="{m["kind"]}"{wheel} data-mm="{m["mm"]}"><title>'
-           f'{html.escape(MARK_SHORT.get(m["kind"], m["kind"]))}: {html.escape(text)} ({html.escape(str(m.get("to", "")))})'
+           f'{html.escape(MARK_SHORT.get(m["kind"], m["kind"]))}: {html.escape(text)} '
+           f'({html.escape(str(m.get("to", "")))})'
            f'</title>']
     if L > 1e-9:
         out.append(f'<line x1="{_f(p[0])}" y1="{_f(-p[1])}" x2="{_f(q[0])}" y2="{_f(-q[1])}" stroke="{GAP_COLOUR}" '
@@ -480,7 +481,8 @@ def _scale_bar(vb, span: float, lw: float, fs: float) -> list[str]:
     y = vb[1] + vb[3] - fs * 0.9
     t = fs * 0.35
     return [f'<g class="scalebar" data-mm="{L:g}" stroke="#1d2733" stroke-width="{_f(lw * 1.2)}" fill="none">'
-            f'<path d="M{_f(x0)},{_f(y - t)}V{_f(y)}H{_f(x1)}V{_f(y - t)}M{_f((x0 + x1) / 2)},{_f(y)}V{_f(y - t * 0.6)}"/>'
+            f'<path d="M{_f(x0)},{_f(y - t)}V{_f(y)}H{_f(x1)}V{_f(y - t)}'
+            f'M{_f((x0 + x1) / 2)},{_f(y)}V{_f(y - t * 0.6)}"/>'
             f'</g><text x="{_f((x0 + x1) / 2)}" y="{_f(y - t - fs * 0.25)}" font-size="{_f(fs * 0.8)}" '
             f'text-anchor="middle" fill="#1d2733">{L:g} mm</text>']
 
@@ -509,7 +511,8 @@ def _dim_h(x1, x2, y, text, lw, fs, ext_from=None):
          f'M{_f(x2 - a)},{_f(y - a / 2)}L{_f(x2)},{_f(y)}L{_f(x2 - a)},{_f(y + a / 2)}"/>']
     if ext_from is not None:
         for x, y0 in ext_from:
-            s.append(f'<line x1="{_f(x)}" y1="{_f(y0)}" x2="{_f(x)}" y2="{_f(y + a)}" stroke-dasharray="{_f(lw * 2)},{_f(lw * 2)}"/>')
+            s.append(f'<line x1="{_f(x)}" y1="{_f(y0)}" x2="{_f(x)}" y2="{_f(y + a)}" '
+                     f'stroke-dasharray="{_f(lw * 2)},{_f(lw * 2)}"/>')
     s.append("</g>")
     s.append(f'<text x="{_f(0.5 * (x1 + x2))}" y="{_f(y - lw * 2.5)}" font-size="{_f(fs)}" text-anchor="middle" '
              f'fill="#222">{html.escape(text)}</text>')

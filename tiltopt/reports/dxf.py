@@ -69,7 +69,8 @@ def write_dxf(path: str | Path, model, *, candidate: int = 0, geom=None, jig_dat
         msp.add_circle(c, r_hole, dxfattribs={"layer": "PIVOTS"})
         tag = f"P{k + 1}"
         tags.append(tag)
-        msp.add_text(tag, height=8.0, dxfattribs={"layer": "NOTES"}).set_placement((c[0] + r_hole + 2, c[1] + r_hole + 2))
+        msp.add_text(tag, height=8.0, dxfattribs={"layer": "NOTES"}).set_placement((c[0] + r_hole + 2,
+                                                                                  c[1] + r_hole + 2))
     ends = set()
     for kind, items in (("LINKS", spec["links"]), ("SPRINGS", spec["springs"])):
         for a, b, _name in items:

@@ -28,7 +28,6 @@ import base64
 import datetime as _dt
 import gzip
 import json
-import math
 import re
 import shlex
 import threading
@@ -334,7 +333,8 @@ class Explorer:
         obj_cols = [c for c in rows.columns if c.startswith("obj.")]
         common_obj = [c for c in obj_cols if all(c in r.front.columns for r in self.runs)]
         var_cols = [c for c in rows.columns if c.startswith("var.")]
-        metric_cols = [c for c in rows.columns if not c.startswith(("obj.", "var.", "con.", "__")) and c not in _META_COLUMNS
+        metric_cols = [c for c in rows.columns
+                       if not c.startswith(("obj.", "var.", "con.", "__")) and c not in _META_COLUMNS
                        and pd.api.types.is_numeric_dtype(rows[c]) and not pd.api.types.is_bool_dtype(rows[c])]
         feasible = rows["feasible"].astype(bool).to_numpy()
         is_front = rows["__front"].to_numpy().astype(bool)
@@ -394,7 +394,8 @@ class Explorer:
                     notes.append(f"The body shell has no section at the linkage station x = "
                                  f"{run.model.mech.station_x_mm:g} mm.")
             else:
-                notes.append("No body shell given: the drawing has no shell section and the shell clearances are absent.")
+                notes.append("No body shell given: the drawing has no shell section and the shell clearances "
+                             "are absent.")
             if len(travel) < len(np.unique(run.travel_mm)):
                 notes.append(f"The drawings and curves show the travels {', '.join(f'{t:g}' for t in travel)} mm of "
                              f"the envelope's {len(np.unique(run.travel_mm))}; the build sheet has them all.")

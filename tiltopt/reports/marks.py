@@ -239,7 +239,8 @@ def _section_gap(qa, da, ra, qb, db, rb):
             pb.append(q)
     for i in range(2):          # a tyre disc of one against the disc pieces of the other
         for j in range(2):
-            for (c, rr, Q, flip) in ((da[..., i, :], ra, qb[..., j, :, :], False), (db[..., i, :], rb, qa[..., j, :, :], True)):
+            for (c, rr, Q, flip) in ((da[..., i, :], ra, qb[..., j, :, :], False),
+                                     (db[..., i, :], rb, qa[..., j, :, :], True)):
                 d, on = polygon_signed(c, Q)
                 u = (on - c) / np.maximum(np.abs(d), 1e-12)[..., None] * np.where(d < 0, -1.0, 1.0)[..., None]
                 surf = c + rr[..., None] * u
@@ -373,9 +374,9 @@ def front_marks(model, geom, sweep_result) -> FrontMarks:
         v = np.where(members[None, None, None], v, np.inf)
         k = np.argmin(np.where(np.isnan(v), np.inf, v), -1)
         val = np.take_along_axis(v, k[..., None], -1)[..., 0]
-        take = lambda A: np.take_along_axis(A, k[..., None, None], -2)[..., 0, :]   # noqa: E731
         idx = np.where(np.isfinite(val), k, -1)
-        out[kind] = (np.where(conv[..., None], val, np.nan), take(p), take(surf), idx)
+        out[kind] = (np.where(conv[..., None], val, np.nan), np.take_along_axis(p, k[..., None, None], -2)[..., 0, :],
+                     np.take_along_axis(surf, k[..., None, None], -2)[..., 0, :], idx)
 
     # the two wheels
     qa, da = section_pieces(centres[..., 0, 0], centres[..., 0, 1], cam[..., 0], R[..., 0], r[..., 0], hub_half[0])

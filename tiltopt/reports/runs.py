@@ -5,7 +5,6 @@ import shlex
 from pathlib import Path
 from typing import Sequence
 
-import numpy as np
 import pandas as pd
 
 from tiltopt.base.errors import InputError

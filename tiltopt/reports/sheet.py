@@ -335,7 +335,8 @@ def _clearance_section(an: Analysis) -> str:
 
     for ti, li, label in _corners(r):
         ok = bool(r.converged[0, ti, li])
-        row = [_num(label[0], 1), _num(label[1], 0), "yes" if ok else f'<span class="bad">{_e(r.status_text(0, ti, li))}</span>',
+        row = [_num(label[0], 1), _num(label[1], 0),
+               "yes" if ok else f'<span class="bad">{_e(r.status_text(0, ti, li))}</span>',
                _clr(lo(fm.other_mm[0, ti, li])), _clr(lo(fm.carrier_mm[0, ti, li])), _clr(fm.pair_mm[0, ti, li]),
                _clr(fm.tubes_mm[0, ti, li]), _clr(fm.ground_mm[0, ti, li])]
         if cr is not None:
@@ -357,7 +358,8 @@ def _clearance_section(an: Analysis) -> str:
              'in 3-D (not only its section at the linkage station): they are the figures the run checks.'
              if cr is not None else '') + '</p>')
     if an.clearance:
-        labels = {"min_wheel_shell_mm": "wheel to shell", "min_wheel_link_mm": "wheel to the members that do not carry it",
+        labels = {"min_wheel_shell_mm": "wheel to shell",
+                  "min_wheel_link_mm": "wheel to the members that do not carry it",
                   "min_wheel_carrier_mm": "wheel to its own upright and arms (only the stub axle may enter the hub)",
                   "min_wheel_pair_mm": "between the two wheels", "min_member_gap_mm": "between member tubes",
                   "min_clearance_mm": "smallest clearance (shell, other members)", "min_ground_mm": "ground clearance",
@@ -634,12 +636,14 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
     del pose0
     members = _members(model, P)
     member_html, lock_html, cases_html = _sizing_sections(an, members)
+    lock_html = lock_html or '<p class="note">Not available for this sheet (see the notes).</p>'
     spring_rows, spring_notes, spring_setup = _spring_data(model, an, inp)
 
     metric_rows = []
     metric_names = {c for c in inp.row if not c.startswith(("obj.", "var.", "__"))}
     for c, v in inp.row.items():
-        if c in ("candidate_id", "reason", "generation", "violation", "feasible") or c.startswith(("__", "var.", "con.")):
+        if (c in ("candidate_id", "reason", "generation", "violation", "feasible")
+                or c.startswith(("__", "var.", "con."))):
             continue
         if isinstance(v, (bool, np.bool_)) or isinstance(v, str):
             continue
@@ -730,7 +734,7 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
   <p class="note">Lean {inp.lean_limit_deg:g} deg, travel {float(r.travel_mm[ti0]):g} mm. Red: the clearances
   of the table above with the wheels straight ahead, mm (each wheel to the nearest other member and to its own
   upright and arms, between the wheels, between tubes, the lowest tube above the ground).</p></div>
-  <div><h2>Loads and tilt lock</h2>{lock_html or '<p class="note">Not available for this sheet (see the notes).</p>'}</div>
+  <div><h2>Loads and tilt lock</h2>{lock_html}</div>
 </section>
 {('<section class="avoid-break"><h2>Load cases</h2>' + cases_html + '<p class="note">Tyre loads from the force '
   'analysis; cases with a lean, a slope or one wheel are also evaluated mirrored. Sources as given in the loads '

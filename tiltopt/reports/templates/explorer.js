@@ -977,5 +977,6 @@
   state.started = true;
   performance.mark("tiltopt:ready");
   window.tiltoptExplorer = { data: D, values: V, state, openDetail, addCompare, setFilter, applyFilters, compromise, getDetail,
-                             traceRows, curves, kept: () => kept.slice(), lastChoice: () => lastChoice, setView, DRAWINGS, ready: true };
+                             traceRows, curves, kept: () => kept.slice(), lastChoice: () => lastChoice, setView, DRAWINGS, ready: true,
+                             readyAt: performance.now() };
 })().catch((e) => { console.error("tiltopt explorer: " + (e && e.stack ? e.stack : e)); });
