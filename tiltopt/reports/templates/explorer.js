@@ -572,6 +572,7 @@
   function closeDetail() {
     $("detail").hidden = true; $("splitter").hidden = true;
     $("layout").classList.remove("with-detail");
+    if (state.foldedForDetail) { state.foldedForDetail = false; toggleFilters(true); }   // the detail folded them
     state.selected = -1; cur = null; redrawMatrix(); resizePlots();
   }
   $("detail-close").addEventListener("click", closeDetail);
@@ -589,7 +590,8 @@
     cur = { i, run, det: null, bounds: null };
     const lay = $("layout");
     $("detail").hidden = false; $("splitter").hidden = false;
-    if (!lay.classList.contains("with-detail") && window.innerWidth < 1800 && !lay.classList.contains("dock-below")) toggleFilters(false);
+    if (!lay.classList.contains("with-detail") && window.innerWidth < 1800 && !lay.classList.contains("dock-below") &&
+        !lay.classList.contains("filters-closed")) { toggleFilters(false); state.foldedForDetail = true; }
     lay.classList.add("with-detail");
     $("detail").dataset.candidate = D.ids[i];
     $("detail-id").textContent = D.ids[i];
