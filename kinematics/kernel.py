@@ -18,14 +18,110 @@ Shapes: ``N`` items, ``n_q`` coordinates, ``m`` equation rows of the stage.
 """
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numba
 import numpy as np
 
 from .model import ANGLE, Model
-from .solver import Solved, _layout, n_rows  # solver imports this module only inside functions
+
+# solver imports this module only inside functions; the step rules and status codes are solver's
+from .solver import (
+    BEST_FROM_ITER,
+    CHORD_CUT,
+    STALL_FROM_ITER,
+    STALL_RATIO,
+    Solved,
+    _layout,
+    n_rows,
+)
+from .solver import CONVERGED as _CONVERGED
+from .solver import MAX_ITER as _MAX_ITER
+from .solver import NONFINITE as _NONFINITE
+from .solver import STALLED as _STALLED
 
 _STAGE = {"lean": 0, "travel": 1}
-_CONVERGED, _STALLED, _MAX_ITER, _NONFINITE = 0, 1, 2, 3
+
+
+class Topology(NamedTuple):
+    """The model's integer tables the Newton kernel reads (from :func:`tables`), one record for numba."""
+
+    n_pts: int
+    src_col: np.ndarray
+    ang_coord: np.ndarray
+    pk_src: np.ndarray
+    p_start: np.ndarray
+    p_col: np.ndarray
+    ty: np.ndarray
+    tz: np.ndarray
+    sl_pk: np.ndarray
+    sl_pt: np.ndarray
+    sl_coord: np.ndarray
+    eq_pin: np.ndarray
+    eq_slider: np.ndarray
+    sl_src: np.ndarray
+    eq_link: np.ndarray
+    eq_spring: np.ndarray
+    eq_wheel: np.ndarray
+    usrc: np.ndarray
+    angle_col: np.ndarray
+    r_travel: int            # first row of the travel equations
+
+
+class Constants(NamedTuple):
+    """Per-candidate constants of a batch (:class:`tiltopt.kinematics.solver.Batch`), one row per item."""
+
+    V: np.ndarray            # (Nb, n_pk) complex design vectors
+    U: np.ndarray            # (Nb, n_sl) complex slide directions
+    R: np.ndarray            # (Nb, 2) tyre outer radius, mm
+    r: np.ndarray            # (Nb, 2) crown radius, mm
+    sc0: np.ndarray          # (Nb, 2, 2) sin, cos of the static cambers
+    Lc: np.ndarray           # (Nb,) length scale, mm
+    L_link: np.ndarray       # (Nb, n_links) link lengths, mm
+    n0: np.ndarray           # (Nb, n_sliders, 2) guide normals
+    zc0: np.ndarray          # (Nb, 2) wheel-centre heights at the design position, mm
+    scale: np.ndarray        # (Nb, n_q) column scales
+
+
+class Options(NamedTuple):
+    """Stage and step rule of one solve (:class:`tiltopt.kinematics.solver.SolveSettings`)."""
+
+    stage: int               # 0 lean, 1 travel
+    tol: float               # mm
+    max_iter: int
+    max_step: float          # rad
+    chord_below: float       # mm
+    final_jacobian: bool
+
+
+class Outputs(NamedTuple):
+    """Arrays the kernel fills in place (:class:`tiltopt.kinematics.solver.Solved`)."""
+
+    status: np.ndarray
+    resid: np.ndarray
+    iters: np.ndarray
+    J: np.ndarray
+    tan: np.ndarray
+    det: np.ndarray
+    X: np.ndarray
+
+
+class Scratch(NamedTuple):
+    """Scratch arrays of one item: angles and their cos/sin, design vectors and their rotations, slide
+    directions, point positions, the residual, the wheels' camber sin/cos, the rotated guide normals."""
+
+    ang: np.ndarray
+    cs: np.ndarray
+    wy: np.ndarray
+    wz: np.ndarray
+    x: np.ndarray
+    ry: np.ndarray
+    rz: np.ndarray
+    uy: np.ndarray
+    uz: np.ndarray
+    F: np.ndarray
+    gsc: np.ndarray
+    sn: np.ndarray
 
 
 def tables(model: Model) -> dict:
@@ -58,6 +154,16 @@ def tables(model: Model) -> dict:
     model.__dict__["_kernel_tables"] = t
     return t
 
+
+
+def topology(model: Model) -> Topology:
+    """:func:`tables` as the kernel's :class:`Topology` record (cached on the model)."""
+    cache = model.__dict__.get("_kernel_topology")
+    if cache is None:
+        t = tables(model)
+        cache = Topology(t["n_pts"], *(t[f] for f in Topology._fields[1:-1]), model.n_loop_rows + len(model.eq_link))
+        model.__dict__["_kernel_topology"] = cache
+    return cache
 
 def positions(model: Model, q: np.ndarray, lean: np.ndarray, V: np.ndarray, U: np.ndarray, cand: np.ndarray,
               which: str = "needed"):
@@ -191,18 +297,15 @@ def solve(model: Model, b, q0: np.ndarray, lean: np.ndarray, target: np.ndarray,
     det = np.zeros(N)
     X = np.empty((N, t["n_pts"], 2))
     n0 = b.n0 if b.n0.shape[1] else np.zeros((Nb, 0, 2))
-    _newton(q, np.ascontiguousarray(lean, dtype=float), tgt, items, hold, st,
-            np.ascontiguousarray(b.V, dtype=np.complex128), np.ascontiguousarray(b.U, dtype=np.complex128),
-            np.ascontiguousarray(b.R), np.ascontiguousarray(b.r),
-            _static_camber_sc(b),
-            np.ascontiguousarray(b.Lc), np.ascontiguousarray(b.L_link.reshape(Nb, len(model.eq_link))),
-            np.ascontiguousarray(n0, dtype=float), np.ascontiguousarray(b.zc0),
-            np.ascontiguousarray(b.col_scale),
-            t["n_pts"], t["src_col"], t["ang_coord"], t["pk_src"], t["p_start"], t["p_col"], t["ty"], t["tz"],
-            t["sl_pk"], t["sl_pt"], t["sl_coord"], t["eq_pin"], t["eq_slider"], t["sl_src"], t["eq_link"],
-            t["eq_spring"], t["eq_wheel"], t["usrc"], t["angle_col"], model.n_loop_rows + len(model.eq_link),
-            float(settings.tol_mm), int(settings.max_iter), float(settings.max_angle_step_rad),
-            float(settings.chord_below_mm), bool(final_jacobian), status, resid, iters, J, tan, det, X)
+    consts = Constants(
+        np.ascontiguousarray(b.V, dtype=np.complex128), np.ascontiguousarray(b.U, dtype=np.complex128),
+        np.ascontiguousarray(b.R), np.ascontiguousarray(b.r), _static_camber_sc(b), np.ascontiguousarray(b.Lc),
+        np.ascontiguousarray(b.L_link.reshape(Nb, len(model.eq_link))), np.ascontiguousarray(n0, dtype=float),
+        np.ascontiguousarray(b.zc0), np.ascontiguousarray(b.col_scale))
+    opts = Options(st, float(settings.tol_mm), int(settings.max_iter), float(settings.max_angle_step_rad),
+                   float(settings.chord_below_mm), bool(final_jacobian))
+    _newton(q, np.ascontiguousarray(lean, dtype=float), tgt, items, hold, consts, topology(model), opts,
+            Outputs(status, resid, iters, J, tan, det, X))
     return Solved(q, status, resid, iters, J, tan, det, X)
 
 
@@ -322,164 +425,206 @@ def _add_point(J, n, r, j, cy, cz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coo
             J[n, r, sl_coord[s]] += cy * uy[s] + cz * uz[s]
 
 
+@numba.njit(cache=True, error_model="numpy", inline="always")
+def _residual(i, n, lean_n, Q, tgt, hold, k_, t, stage, w):
+    """Residual F (m,) of state n, constants in row i (tiltopt.kinematics.solver.residual), into ``w.F``.
+
+    Leaves the rotated pair vectors, slide directions and positions in the scratch arrays ``w``, from
+    which :func:`_jacobian` writes J[n]: a converged state needs no Jacobian unless it is asked for.
+    """
+    V, U, R, r, sc0, Lc, L_link, n0, zc0, scale = k_
+    (n_pts, src_col, ang_coord, pk_src, p_start, p_col, ty, tz, sl_pk, sl_pt, sl_coord, eq_pin, eq_slider,
+     sl_src, eq_link, eq_spring, eq_wheel, usrc, angle_col, r_travel) = t
+    ang, cs, wy, wz, x, ry, rz, uy, uz, F, gsc, sn = w
+    nq = Q.shape[1]
+    ang[0] = lean_n
+    for k in range(ang_coord.shape[0]):
+        ang[k + 1] = Q[n, ang_coord[k]]
+    for k in range(1, ang.shape[0]):     # cs[0]: the lean's, set once per state
+        cs[k, 0] = np.cos(ang[k])
+        cs[k, 1] = np.sin(ang[k])
+    for k in range(V.shape[1]):
+        wy[k] = V[i, k].real
+        wz[k] = V[i, k].imag
+    for s_ in range(sl_pk.shape[0]):
+        qs_ = Q[n, sl_coord[s_]]
+        wy[sl_pk[s_]] += U[i, s_].real * qs_
+        wz[sl_pk[s_]] += U[i, s_].imag * qs_
+        c, s = cs[pk_src[sl_pk[s_]], 0], cs[pk_src[sl_pk[s_]], 1]
+        uy[s_] = c * U[i, s_].real + s * U[i, s_].imag
+        uz[s_] = c * U[i, s_].imag - s * U[i, s_].real
+    for j in range(x.shape[0]):
+        xy = Q[n, ty[j]]
+        xz = Q[n, tz[j]]
+        for k in range(p_start[j], p_start[j + 1]):
+            c, s = cs[pk_src[k], 0], cs[pk_src[k], 1]
+            # exp(-i a) (wy + i wz) = (c wy + s wz) + i (c wz - s wy)
+            ry[k] = c * wy[k] + s * wz[k]
+            rz[k] = c * wz[k] - s * wy[k]
+            xy += ry[k]
+            xz += rz[k]
+        x[j, 0] = xy
+        x[j, 1] = xz
+    r0 = 0
+    for e in range(eq_pin.shape[0]):
+        a, b = eq_pin[e, 0], eq_pin[e, 1]
+        F[r0] = x[a, 0] - x[b, 0]
+        F[r0 + 1] = x[a, 1] - x[b, 1]
+        r0 += 2
+    for e in range(eq_slider.shape[0]):
+        f, p = eq_slider[e, 0], eq_slider[e, 2]
+        c, s = cs[sl_src[e, 0], 0], cs[sl_src[e, 0], 1]
+        sn[e, 0] = c * n0[i, e, 0] + s * n0[i, e, 1]         # the guide normal, rotated
+        sn[e, 1] = -s * n0[i, e, 0] + c * n0[i, e, 1]
+        F[r0] = sn[e, 0] * (x[p, 0] - x[f, 0]) + sn[e, 1] * (x[p, 1] - x[f, 1])
+        F[r0 + 1] = (ang[sl_src[e, 1]] - ang[sl_src[e, 0]]) * Lc[i]
+        r0 += 2
+    n_len = eq_link.shape[0] + (eq_spring.shape[0] if stage == 0 else 0)
+    for e in range(n_len):
+        if e < eq_link.shape[0]:
+            a, b, L0 = eq_link[e, 0], eq_link[e, 1], L_link[i, e]
+        else:
+            k = e - eq_link.shape[0]
+            a, b, L0 = eq_spring[k, 0], eq_spring[k, 1], tgt[n, k]
+        dy, dz = x[a, 0] - x[b, 0], x[a, 1] - x[b, 1]
+        F[r0] = np.sqrt(dy * dy + dz * dz) - L0
+        r0 += 1
+    if stage == 1:
+        for k in range(2):
+            F[r0] = x[eq_wheel[k], 1] - Q[n, 1] - zc0[i, k] - tgt[n, 0]
+            r0 += 1
+        for h in range(hold.shape[1]):
+            s = 0.0
+            for c in range(nq):
+                s += hold[i, h, c] * Q[n, c] / scale[i, c]
+            F[r0] = s
+            r0 += 1
+    lat = 0.0
+    for k in range(2):
+        j = eq_wheel[k]
+        # sin, cos of the camber gamma0 + a from those of the static camber and the angle a
+        c, s = cs[usrc[k], 0], cs[usrc[k], 1]
+        Rr = R[i, k] - r[i, k]
+        gsc[k, 0] = sc0[i, k, 0] * c + sc0[i, k, 1] * s
+        gsc[k, 1] = sc0[i, k, 1] * c - sc0[i, k, 0] * s
+        F[r0 + k] = x[j, 1] - Rr * gsc[k, 1] - r[i, k]
+        lat += x[j, 0] - Rr * gsc[k, 0]
+    F[r0 + 2] = 0.5 * lat
+
+
+@numba.njit(cache=True, error_model="numpy", inline="always")
+def _jacobian(i, n, Q, hold, k_, t, stage, w, J):
+    """Jacobian J[n] (m, n_q + 1) of the state :func:`_residual` was last called for."""
+    V, U, R, r, sc0, Lc, L_link, n0, zc0, scale = k_
+    (n_pts, src_col, ang_coord, pk_src, p_start, p_col, ty, tz, sl_pk, sl_pt, sl_coord, eq_pin, eq_slider,
+     sl_src, eq_link, eq_spring, eq_wheel, usrc, angle_col, r_travel) = t
+    x, ry, rz, uy, uz, gsc, sn = w.x, w.ry, w.rz, w.uy, w.uz, w.gsc, w.sn
+    nq = Q.shape[1]
+    for a in range(J.shape[1]):
+        for c in range(J.shape[2]):
+            J[n, a, c] = 0.0
+    r0 = 0
+    for e in range(eq_pin.shape[0]):
+        a, b = eq_pin[e, 0], eq_pin[e, 1]
+        for d in range(2):
+            _add_point(J, n, r0, a, 1.0 - d, float(d), ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            _add_point(J, n, r0, b, d - 1.0, -float(d), ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            r0 += 1
+    for e in range(eq_slider.shape[0]):
+        f, p = eq_slider[e, 0], eq_slider[e, 2]
+        ny, nz = sn[e, 0], sn[e, 1]
+        dy, dz = x[p, 0] - x[f, 0], x[p, 1] - x[f, 1]
+        _add_point(J, n, r0, p, ny, nz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+        _add_point(J, n, r0, f, -ny, -nz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+        ca, cb = src_col[sl_src[e, 0]], src_col[sl_src[e, 1]]
+        J[n, r0, ca] += nz * dy - ny * dz
+        J[n, r0 + 1, ca] -= Lc[i]
+        J[n, r0 + 1, cb] += Lc[i]
+        r0 += 2
+    n_len = eq_link.shape[0] + (eq_spring.shape[0] if stage == 0 else 0)
+    for e in range(n_len):
+        if e < eq_link.shape[0]:
+            a, b = eq_link[e, 0], eq_link[e, 1]
+        else:
+            a, b = eq_spring[e - eq_link.shape[0], 0], eq_spring[e - eq_link.shape[0], 1]
+        dy, dz = x[a, 0] - x[b, 0], x[a, 1] - x[b, 1]
+        L = np.sqrt(dy * dy + dz * dz)
+        _add_point(J, n, r0, a, dy / L, dz / L, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+        _add_point(J, n, r0, b, -dy / L, -dz / L, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+        r0 += 1
+    if stage == 1:
+        for k in range(2):
+            _add_point(J, n, r0, eq_wheel[k], 0.0, 1.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+            J[n, r0, 1] -= 1.0
+            r0 += 1
+        for h in range(hold.shape[1]):
+            for c in range(nq):
+                J[n, r0, c] = hold[i, h, c] / scale[i, c]
+            r0 += 1
+    for k in range(2):
+        j = eq_wheel[k]
+        Rr = R[i, k] - r[i, k]
+        _add_point(J, n, r0 + k, j, 0.0, 1.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+        _add_point(J, n, r0 + 2, j, 0.5, 0.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
+        col = src_col[usrc[k]]
+        J[n, r0 + k, col] += Rr * gsc[k, 0]
+        J[n, r0 + 2, col] -= 0.5 * Rr * gsc[k, 1]
+
+
+@numba.njit(cache=True, error_model="numpy", inline="always")
+def _max_abs(F, rows):
+    """(all finite, largest |F[k]|) over the first ``rows`` residuals."""
+    rmax = 0.0
+    finite = True
+    for k in range(rows):
+        v = abs(F[k])
+        if not np.isfinite(v):
+            finite = False
+        elif v > rmax:
+            rmax = v
+    return finite, rmax
+
+
+@numba.njit(cache=True, error_model="numpy", inline="always")
+def _final_tangent(i, it_, Jm, rows, stage, r_travel, scale, A, piv, rhs, B, det, tan):
+    """The path tangent and det(J) sign of item ``it_`` from its Jacobian ``Jm`` (least squares)."""
+    nq = tan.shape[1]
+    for k in range(rows):
+        rhs[k, 0] = -Jm[k, nq] if stage == 0 else (1.0 if r_travel <= k < r_travel + 2 else 0.0)
+        rhs[k, 1] = 0.0
+    ok, sign, normal = _ls_factor(Jm, rows, nq, scale[i], A, piv)
+    if ok:
+        _ls_apply(Jm, rows, nq, scale[i], A, piv, normal, rhs, B)
+    det[it_] = sign if rows == nq else 0.0
+    for c in range(nq):
+        tan[it_, c] = B[c, 0] * scale[i, c] if ok else np.nan
+
+
 @numba.njit(cache=True, error_model="numpy")
-def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, sc0, Lc, L_link, n0, zc0, scale,
-            n_pts, src_col, ang_coord, pk_src, p_start, p_col, ty, tz, sl_pk, sl_pt, sl_coord, eq_pin, eq_slider,
-            sl_src, eq_link, eq_spring, eq_wheel, usrc, angle_col, r_travel, tol, max_iter, max_step, chord_below,
-            final_jacobian, status, resid, iters, J, tan, det, X):
+def _newton(Q, lean, tgt, item, hold, k_, t, o, out):
+    """Newton iteration of every item in place (Q, and the arrays of ``out``).
+
+    Q (N, n_q) start states; lean (N,); tgt (N, n_targets) spring lengths or the travel; item (N,) row of
+    each item's constants; hold (Nb, n_hold, n_q) held directions (travel stage). ``k_``: :class:`Constants`,
+    ``t``: :class:`Topology`, ``o``: :class:`Options`, ``out``: :class:`Outputs`.
+    """
+    V, U, R, r, sc0, Lc, L_link, n0, zc0, scale = k_
+    (n_pts, src_col, ang_coord, pk_src, p_start, p_col, ty, tz, sl_pk, sl_pt, sl_coord, eq_pin, eq_slider,
+     sl_src, eq_link, eq_spring, eq_wheel, usrc, angle_col, r_travel) = t
+    stage, tol, max_iter, max_step, chord_below, final_jacobian = o
+    status, resid, iters, J, tan, det, X = out
     N, nq = Q.shape
     rows = J.shape[1]
-    ang = np.empty(ang_coord.shape[0] + 1)
-    cs = np.empty((ang_coord.shape[0] + 1, 2))
-    wy = np.empty(V.shape[1])
-    wz = np.empty(V.shape[1])
-    x = np.empty((n_pts, 2))
-    ry = np.empty(V.shape[1])
-    rz = np.empty(V.shape[1])
-    uy = np.empty(U.shape[1])
-    uz = np.empty(U.shape[1])
-    F = np.empty(rows)
-    gsc = np.empty((2, 2))          # sin, cos of each wheel's camber
-    sn = np.empty((max(eq_slider.shape[0], 1), 2))   # rotated slider guide normals
+    w = Scratch(np.empty(ang_coord.shape[0] + 1), np.empty((ang_coord.shape[0] + 1, 2)), np.empty(V.shape[1]),
+                np.empty(V.shape[1]), np.empty((n_pts, 2)), np.empty(V.shape[1]), np.empty(V.shape[1]),
+                np.empty(U.shape[1]), np.empty(U.shape[1]), np.empty(rows), np.empty((2, 2)),
+                np.empty((max(eq_slider.shape[0], 1), 2)))
+    cs, x, F = w.cs, w.x, w.F
     A = np.empty((nq, nq))
     B = np.empty((nq, 2))
     rhs = np.empty((rows, 2))
     piv = np.empty(nq, np.int64)
     ok, normal = False, False
-    # The residual and the Jacobian of one state, as inner functions, which numba inlines (a call
-    # with forty array arguments costs more than the arithmetic). residual() leaves the rotated
-    # pair vectors, slide directions and positions in the scratch arrays; jacobian() writes
-    # J[n] from them, so a converged state needs no Jacobian unless it is asked for.
-    def residual(i, n, lean_n):
-        """Residual F (m,) of state n, constants in row i (tiltopt.kinematics.solver.residual)."""
-        nq = Q.shape[1]
-        ang[0] = lean_n
-        for k in range(ang_coord.shape[0]):
-            ang[k + 1] = Q[n, ang_coord[k]]
-        for k in range(1, ang.shape[0]):     # cs[0]: the lean's, set once per state
-            cs[k, 0] = np.cos(ang[k])
-            cs[k, 1] = np.sin(ang[k])
-        for k in range(V.shape[1]):
-            wy[k] = V[i, k].real
-            wz[k] = V[i, k].imag
-        for s_ in range(sl_pk.shape[0]):
-            qs_ = Q[n, sl_coord[s_]]
-            wy[sl_pk[s_]] += U[i, s_].real * qs_
-            wz[sl_pk[s_]] += U[i, s_].imag * qs_
-            c, s = cs[pk_src[sl_pk[s_]], 0], cs[pk_src[sl_pk[s_]], 1]
-            uy[s_] = c * U[i, s_].real + s * U[i, s_].imag
-            uz[s_] = c * U[i, s_].imag - s * U[i, s_].real
-        for j in range(x.shape[0]):
-            xy = Q[n, ty[j]]
-            xz = Q[n, tz[j]]
-            for k in range(p_start[j], p_start[j + 1]):
-                c, s = cs[pk_src[k], 0], cs[pk_src[k], 1]
-                # exp(-i a) (wy + i wz) = (c wy + s wz) + i (c wz - s wy)
-                ry[k] = c * wy[k] + s * wz[k]
-                rz[k] = c * wz[k] - s * wy[k]
-                xy += ry[k]
-                xz += rz[k]
-            x[j, 0] = xy
-            x[j, 1] = xz
-        r0 = 0
-        for e in range(eq_pin.shape[0]):
-            a, b = eq_pin[e, 0], eq_pin[e, 1]
-            F[r0] = x[a, 0] - x[b, 0]
-            F[r0 + 1] = x[a, 1] - x[b, 1]
-            r0 += 2
-        for e in range(eq_slider.shape[0]):
-            f, p = eq_slider[e, 0], eq_slider[e, 2]
-            c, s = cs[sl_src[e, 0], 0], cs[sl_src[e, 0], 1]
-            sn[e, 0] = c * n0[i, e, 0] + s * n0[i, e, 1]         # the guide normal, rotated
-            sn[e, 1] = -s * n0[i, e, 0] + c * n0[i, e, 1]
-            F[r0] = sn[e, 0] * (x[p, 0] - x[f, 0]) + sn[e, 1] * (x[p, 1] - x[f, 1])
-            F[r0 + 1] = (ang[sl_src[e, 1]] - ang[sl_src[e, 0]]) * Lc[i]
-            r0 += 2
-        n_len = eq_link.shape[0] + (eq_spring.shape[0] if stage == 0 else 0)
-        for e in range(n_len):
-            if e < eq_link.shape[0]:
-                a, b, L0 = eq_link[e, 0], eq_link[e, 1], L_link[i, e]
-            else:
-                k = e - eq_link.shape[0]
-                a, b, L0 = eq_spring[k, 0], eq_spring[k, 1], tgt[n, k]
-            dy, dz = x[a, 0] - x[b, 0], x[a, 1] - x[b, 1]
-            F[r0] = np.sqrt(dy * dy + dz * dz) - L0
-            r0 += 1
-        if stage == 1:
-            for k in range(2):
-                F[r0] = x[eq_wheel[k], 1] - Q[n, 1] - zc0[i, k] - tgt[n, 0]
-                r0 += 1
-            for h in range(hold.shape[1]):
-                s = 0.0
-                for c in range(nq):
-                    s += hold[i, h, c] * Q[n, c] / scale[i, c]
-                F[r0] = s
-                r0 += 1
-        lat = 0.0
-        for k in range(2):
-            j = eq_wheel[k]
-            # sin, cos of the camber gamma0 + a from those of the static camber and the angle a
-            c, s = cs[usrc[k], 0], cs[usrc[k], 1]
-            Rr = R[i, k] - r[i, k]
-            gsc[k, 0] = sc0[i, k, 0] * c + sc0[i, k, 1] * s
-            gsc[k, 1] = sc0[i, k, 1] * c - sc0[i, k, 0] * s
-            F[r0 + k] = x[j, 1] - Rr * gsc[k, 1] - r[i, k]
-            lat += x[j, 0] - Rr * gsc[k, 0]
-        F[r0 + 2] = 0.5 * lat
-
-    def jacobian(i, n):
-        """Jacobian J[n] (m, n_q + 1) of the state residual() was last called for."""
-        nq = Q.shape[1]
-        for a in range(J.shape[1]):
-            for c in range(J.shape[2]):
-                J[n, a, c] = 0.0
-        r0 = 0
-        for e in range(eq_pin.shape[0]):
-            a, b = eq_pin[e, 0], eq_pin[e, 1]
-            for d in range(2):
-                _add_point(J, n, r0, a, 1.0 - d, float(d), ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-                _add_point(J, n, r0, b, d - 1.0, -float(d), ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-                r0 += 1
-        for e in range(eq_slider.shape[0]):
-            f, p = eq_slider[e, 0], eq_slider[e, 2]
-            ny, nz = sn[e, 0], sn[e, 1]
-            dy, dz = x[p, 0] - x[f, 0], x[p, 1] - x[f, 1]
-            _add_point(J, n, r0, p, ny, nz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-            _add_point(J, n, r0, f, -ny, -nz, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-            ca, cb = src_col[sl_src[e, 0]], src_col[sl_src[e, 1]]
-            J[n, r0, ca] += nz * dy - ny * dz
-            J[n, r0 + 1, ca] -= Lc[i]
-            J[n, r0 + 1, cb] += Lc[i]
-            r0 += 2
-        n_len = eq_link.shape[0] + (eq_spring.shape[0] if stage == 0 else 0)
-        for e in range(n_len):
-            if e < eq_link.shape[0]:
-                a, b = eq_link[e, 0], eq_link[e, 1]
-            else:
-                a, b = eq_spring[e - eq_link.shape[0], 0], eq_spring[e - eq_link.shape[0], 1]
-            dy, dz = x[a, 0] - x[b, 0], x[a, 1] - x[b, 1]
-            L = np.sqrt(dy * dy + dz * dz)
-            _add_point(J, n, r0, a, dy / L, dz / L, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-            _add_point(J, n, r0, b, -dy / L, -dz / L, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-            r0 += 1
-        if stage == 1:
-            for k in range(2):
-                _add_point(J, n, r0, eq_wheel[k], 0.0, 1.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-                J[n, r0, 1] -= 1.0
-                r0 += 1
-            for h in range(hold.shape[1]):
-                for c in range(nq):
-                    J[n, r0, c] = hold[i, h, c] / scale[i, c]
-                r0 += 1
-        for k in range(2):
-            j = eq_wheel[k]
-            Rr = R[i, k] - r[i, k]
-            _add_point(J, n, r0 + k, j, 0.0, 1.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-            _add_point(J, n, r0 + 2, j, 0.5, 0.0, ty, tz, p_start, p_col, ry, rz, sl_pt, sl_coord, uy, uz)
-            col = src_col[usrc[k]]
-            J[n, r0 + k, col] += Rr * gsc[k, 0]
-            J[n, r0 + 2, col] -= 0.5 * Rr * gsc[k, 1]
-
     for it_ in range(N):
         i = item[it_]           # row of the item's constants
         q = Q[it_]
@@ -493,15 +638,8 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, sc0, Lc, L_link, n0, zc
         was_chord = False
         r_last = np.inf
         for it in range(max_iter + 1):
-            residual(i, it_, lean[it_])
-            rmax = 0.0
-            finite = True
-            for k in range(rows):
-                v = abs(F[k])
-                if not np.isfinite(v):
-                    finite = False
-                elif v > rmax:
-                    rmax = v
+            _residual(i, it_, lean[it_], Q, tgt, hold, k_, t, stage, w)
+            finite, rmax = _max_abs(F, rows)
             if not finite:
                 resid[it_] = np.nan
                 st = _NONFINITE
@@ -510,10 +648,10 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, sc0, Lc, L_link, n0, zc
             if rmax <= tol:
                 st = _CONVERGED
                 break
-            if it >= 4 and rmax > 0.9 * prev:
+            if it >= STALL_FROM_ITER and rmax > STALL_RATIO * prev:
                 st = _STALLED
                 break
-            if it >= 2:
+            if it >= BEST_FROM_ITER:
                 if rmax < prev:
                     prev = rmax
             else:
@@ -523,11 +661,11 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, sc0, Lc, L_link, n0, zc
             iters[it_] += 1
             # near the solution the factors of the last Jacobian serve again (a chord step)
             # unless the last chord step did not cut the residual tenfold
-            if was_chord and rmax > 0.1 * r_last:
+            if was_chord and rmax > CHORD_CUT * r_last:
                 chord_ok = False
             use_chord = chord_ok and rmax <= chord_below
             if not use_chord:
-                jacobian(i, it_)
+                _jacobian(i, it_, Q, hold, k_, t, stage, w, J)
                 ok, sign, normal = _ls_factor(Jm, rows, nq, scale[i], A, piv)
                 det[it_] = sign if rows == nq else 0.0
             chord_ok = True
@@ -565,16 +703,8 @@ def _newton(Q, lean, tgt, item, hold, stage, V, U, R, r, sc0, Lc, L_link, n0, zc
             X[it_, j, 1] = x[j, 1]
         if final_jacobian or not stepped:
             # the Jacobian, lean tangent and det(J) sign at the returned state
-            jacobian(i, it_)
-            for k in range(rows):
-                rhs[k, 0] = -Jm[k, nq] if stage == 0 else (1.0 if r_travel <= k < r_travel + 2 else 0.0)
-                rhs[k, 1] = 0.0
-            ok, sign, normal = _ls_factor(Jm, rows, nq, scale[i], A, piv)
-            if ok:
-                _ls_apply(Jm, rows, nq, scale[i], A, piv, normal, rhs, B)
-            det[it_] = sign if rows == nq else 0.0
-            for c in range(nq):
-                tan[it_, c] = B[c, 0] * scale[i, c] if ok else np.nan
+            _jacobian(i, it_, Q, hold, k_, t, stage, w, J)
+            _final_tangent(i, it_, Jm, rows, stage, r_travel, scale, A, piv, rhs, B, det, tan)
 
 
 def predict(hist_q: list, hist_t: list, hist_phi: list, phi_new: np.ndarray) -> np.ndarray:

@@ -251,100 +251,19 @@ def size_linkage(model: Model, geom: Geometry | None, loads: LoadsSpec, sweep_re
     members = build_members(fm, loads.member_material, loads.material)
     M = len(members)
     sf = loads.safety_factor
-    A_all, _, Z_all, r_all = tube_section(cat.outer_diameter_mm, cat.wall_mm)
-    k_all = shear_factor(cat.outer_diameter_mm, cat.wall_mm)
-    mats = np.array(cat.material)
     ok = forces.ok.reshape(C, S)
     is_case = np.array([s.role == "case" for s in states])
     i_fat = next(i for i, s in enumerate(states) if s.role == "fatigue")
-    ci = np.arange(C)
-
-    out = {k: np.zeros((C, M)) for k in ("length", "mass", "util", "fat_u", "fat_r")}
-    tube = np.full((C, M), -1, dtype=int)
-    worst = np.zeros((C, M), dtype=int)
-    passes = np.zeros((C, M), bool)
-    station = np.zeros((C, M, 2), dtype=int)
-    fstation = np.zeros((C, M, 2), dtype=int)
-    sforce = np.full((C, M, 3), np.nan)
-    checks = {k: np.full((C, M), np.nan) for k in CHECKS}
-    fat_allow = np.full(M, np.nan)
-    largest = {}
-    P = geom.points
+    cols = _MemberColumns.empty(C, M)
     for j, mb in enumerate(members):
-        mat = loads.materials[mb.material]
-        rows = np.flatnonzero(mats == mb.material)
-        if not len(rows):
-            from tiltopt.base.errors import InputError
-            raise InputError(f"the tube catalogue {cat.source} has no tubes of {mb.material!r} (member "
-                             f"'{mb.name}'). Add rows for it or choose another material.", loads.source,
-                             f"members.{mb.name}.material")
-        rows = rows[np.argsort(A_all[rows], kind="stable")]
-        A, Z, rg, ks = A_all[rows], Z_all[rows], r_all[rows], k_all[rows]
-        ends = np.array([[mb.nodes[a], mb.nodes[b]] for a, b in mb.edges])
-        seg = np.linalg.norm(P[:, ends[:, 1]] - P[:, ends[:, 0]], axis=-1)    # (C, E)
-        out["length"][:, j] = seg.sum(1)
-        sec = section_loads(mb, fm, forces)
-        E, K = sec.axial.shape[1:]
-        chk = tube_checks(sec, A, Z, ks, mat.allowable_mpa, sf)
-        u = chk.governing                                                     # (N, E, K, T)
-        buck = None
-        if mb.kind == "two-force":
-            lam = np.repeat(seg, S, axis=0)[..., None] / rg                  # (N, E, T)
-            scr = critical_stress(mat.elastic_modulus_gpa * 1000.0, mat.allowable_mpa, lam)
-            buck = sf * np.maximum(-sec.axial, 0.0)[..., None] / (scr * A)[:, :, None, :]
-            u = np.maximum(u, buck)
-        ucase = u.reshape(C, S, E * K, -1).max(2)                             # (C, S, T)
-        ucase = np.where(ok[..., None] & is_case[None, :, None], ucase, -np.inf)
-        umax = ucase.max(1)                                                   # (C, T)
-        good = umax <= 1.0
-        anyg = good.any(1)
-        first = np.where(anyg, np.argmax(good, 1), len(rows) - 1)
-        tube[:, j] = np.where(anyg, rows[first], -1)
-        passes[:, j] = anyg
-        out["util"][:, j] = np.where(np.isfinite(umax[ci, first]), umax[ci, first], np.nan)
-        w = np.argmax(ucase[ci, :, first], axis=1)
-        worst[:, j] = w
-        out["mass"][:, j] = mat.density_g_cm3 * 1e-6 * A[first] * out["length"][:, j]
-        largest[j] = rows[-1]
-        # the governing section of the chosen tube in the governing case
-        item = ci * S + w
-        ug = u[item, :, :, first].reshape(C, -1)                            # (C, E * K)
-        g = np.argmax(ug, 1)
-        e_g, k_g = g // K, g % K
-        station[:, j] = np.stack([e_g, k_g], -1)
-        at = (item, e_g, k_g)
-        sforce[:, j] = np.stack([sec.axial[at], np.hypot(sec.shear[at], sec.out_of_plane_shear[at]),
-                                 np.hypot(sec.moment[at], sec.out_of_plane_moment[at]) / 1000.0], -1)
-        here = chk.at((item, e_g, k_g, first))
-        for name in ("axial", "bending", "combined", "shear"):
-            checks[name][:, j] = getattr(here, name)
-        if buck is not None:
-            checks["buckling"][:, j] = buck[item, e_g, k_g, first]
-        reached = ok[ci, w] & is_case[w]
-        for v in checks.values():
-            v[:, j] = np.where(reached, v[:, j], np.nan)
-        sforce[:, j] = np.where(reached[:, None], sforce[:, j], np.nan)
-        # fatigue screening of the chosen tube: the fatigue-range state
-        if mat.fatigue_fat_mpa is not None:
-            allow = float(fatigue_strength(mat.fatigue_fat_mpa, mat.fatigue_slope, loads.fatigue.cycles))
-            fat_allow[j] = allow
-            fi = ci * S + i_fat
-            rng = (np.abs(sec.axial[fi]) / A[first][:, None, None]
-                   + np.abs(sec.moment[fi]) / Z[first][:, None, None]).reshape(C, -1)
-            gf = np.argmax(rng, 1)
-            fstation[:, j] = np.stack([gf // K, gf % K], -1)
-            r = np.where(ok[:, i_fat], rng[ci, gf], np.nan)
-            out["fat_r"][:, j] = r
-            out["fat_u"][:, j] = loads.fatigue.partial_factor * r / allow
-        else:
-            out["fat_r"][:, j] = np.nan
-            out["fat_u"][:, j] = np.nan
+        _size_member(cols, j, mb, geom.points, fm, forces, loads, cat, ok, is_case, i_fat)
+    out = cols.out
 
     mech = model.mech
     n_piv = len(mech.pins) + 2 * len(mech.links) + 2 * len(mech.springs) + len(mech.sliders)
     piv_kg = n_piv * loads.pivot_allowance_g / 1000.0
     reached = np.all(ok, axis=1)
-    feasible = reached & np.all(passes, axis=1)
+    feasible = reached & np.all(cols.passes, axis=1)
     util = out["util"]
     maxu = np.where(reached, np.nanmax(np.where(np.isnan(util), -np.inf, util), axis=1) if M else 0.0, np.nan)
     lock, lock_case = _tilt_lock(states, forces.lean_moment.reshape(C, S), ok)
@@ -356,16 +275,121 @@ def size_linkage(model: Model, geom: Geometry | None, loads: LoadsSpec, sweep_re
     min_wl = np.where(reached, np.min(np.where(ok[:, case_idx, None], wl, np.inf), axis=(1, 2)), np.nan)
     res = SizingResult(
         members=members, states=states, catalogue=cat, model=model, linkage_mass_kg=out["mass"].sum(1) + piv_kg,
-        max_utilisation=maxu, feasible=feasible, reason=[""] * C, length_mm=out["length"], tube_index=tube,
-        mass_kg=out["mass"], worst_case=worst, utilisation=util, member_passes=passes, station=station,
-        section_force=sforce, check=checks, fatigue_utilisation=out["fat_u"], fatigue_range_mpa=out["fat_r"],
-        fatigue_station=fstation, fatigue_allowable_mpa=fat_allow, tilt_lock_torque_nm=lock,
+        max_utilisation=maxu, feasible=feasible, reason=[""] * C, length_mm=out["length"], tube_index=cols.tube,
+        mass_kg=out["mass"], worst_case=cols.worst, utilisation=util, member_passes=cols.passes,
+        station=cols.station, section_force=cols.sforce, check=cols.checks, fatigue_utilisation=out["fat_u"],
+        fatigue_range_mpa=out["fat_r"], fatigue_station=cols.fstation, fatigue_allowable_mpa=cols.fat_allow,
+        tilt_lock_torque_nm=lock,
         tilt_lock_clamp_n=clamp, tilt_lock_case=lock_case, spring_static_n=sp_static, spring_max_n=sp_max,
         spring_max_case=sp_case, n_pivots=n_piv, pivot_mass_kg=piv_kg, loads=loads, min_wheel_load_n=min_wl,
         forces=forces, state_status=status, safety_factor=sf)
-    res.reason = _reasons(res, ok, status, largest)
+    res.reason = _reasons(res, ok, status, cols.largest)
     res.notes = _notes(res, fm)
     return res
+
+
+@dataclass
+class _MemberColumns:
+    """Per-member results of :func:`size_linkage` as they are filled in, arrays (C, M, ...)."""
+
+    out: dict              # length mm, mass kg, util, fat_u, fat_r MPa: (C, M)
+    tube: np.ndarray       # chosen catalogue row, -1 where none passes
+    worst: np.ndarray      # governing state of the chosen tube
+    passes: np.ndarray
+    station: np.ndarray    # (C, M, 2) governing (span, section)
+    fstation: np.ndarray   # (C, M, 2) governing fatigue section
+    sforce: np.ndarray     # (C, M, 3) axial N, shear N, moment N*m at the governing section
+    checks: dict           # CHECKS -> (C, M)
+    fat_allow: np.ndarray  # (M,) MPa
+    largest: dict          # member -> largest catalogue row of its material
+
+    @classmethod
+    def empty(cls, C: int, M: int) -> _MemberColumns:
+        return cls(out={k: np.zeros((C, M)) for k in ("length", "mass", "util", "fat_u", "fat_r")},
+                   tube=np.full((C, M), -1, dtype=int), worst=np.zeros((C, M), dtype=int),
+                   passes=np.zeros((C, M), bool), station=np.zeros((C, M, 2), dtype=int),
+                   fstation=np.zeros((C, M, 2), dtype=int), sforce=np.full((C, M, 3), np.nan),
+                   checks={k: np.full((C, M), np.nan) for k in CHECKS}, fat_allow=np.full(M, np.nan), largest={})
+
+
+def _size_member(cols: _MemberColumns, j: int, mb: Member, P: np.ndarray, fm, forces, loads: LoadsSpec,
+                 cat: Catalogue, ok: np.ndarray, is_case: np.ndarray, i_fat: int) -> None:
+    """Member ``j``: the lightest catalogue tube of its material that passes every case, for every candidate
+    at once (its utilisation, governing case and section, the checks there), and its fatigue screening."""
+    C, S = ok.shape
+    ci = np.arange(C)
+    out = cols.out
+    sf = loads.safety_factor
+    A_all, _, Z_all, r_all = tube_section(cat.outer_diameter_mm, cat.wall_mm)
+    k_all = shear_factor(cat.outer_diameter_mm, cat.wall_mm)
+    mat = loads.materials[mb.material]
+    rows = np.flatnonzero(np.array(cat.material) == mb.material)
+    if not len(rows):
+        from tiltopt.base.errors import InputError
+        raise InputError(f"the tube catalogue {cat.source} has no tubes of {mb.material!r} (member "
+                         f"'{mb.name}'). Add rows for it or choose another material.", loads.source,
+                         f"members.{mb.name}.material")
+    rows = rows[np.argsort(A_all[rows], kind="stable")]
+    A, Z, rg, ks = A_all[rows], Z_all[rows], r_all[rows], k_all[rows]
+    ends = np.array([[mb.nodes[a], mb.nodes[b]] for a, b in mb.edges])
+    seg = np.linalg.norm(P[:, ends[:, 1]] - P[:, ends[:, 0]], axis=-1)    # (C, E)
+    out["length"][:, j] = seg.sum(1)
+    sec = section_loads(mb, fm, forces)
+    E, K = sec.axial.shape[1:]
+    chk = tube_checks(sec, A, Z, ks, mat.allowable_mpa, sf)
+    u = chk.governing                                                     # (N, E, K, T)
+    buck = None
+    if mb.kind == "two-force":
+        lam = np.repeat(seg, S, axis=0)[..., None] / rg                  # (N, E, T)
+        scr = critical_stress(mat.elastic_modulus_gpa * 1000.0, mat.allowable_mpa, lam)
+        buck = sf * np.maximum(-sec.axial, 0.0)[..., None] / (scr * A)[:, :, None, :]
+        u = np.maximum(u, buck)
+    ucase = u.reshape(C, S, E * K, -1).max(2)                             # (C, S, T)
+    ucase = np.where(ok[..., None] & is_case[None, :, None], ucase, -np.inf)
+    umax = ucase.max(1)                                                   # (C, T)
+    good = umax <= 1.0
+    anyg = good.any(1)
+    first = np.where(anyg, np.argmax(good, 1), len(rows) - 1)
+    cols.tube[:, j] = np.where(anyg, rows[first], -1)
+    cols.passes[:, j] = anyg
+    out["util"][:, j] = np.where(np.isfinite(umax[ci, first]), umax[ci, first], np.nan)
+    w = np.argmax(ucase[ci, :, first], axis=1)
+    cols.worst[:, j] = w
+    out["mass"][:, j] = mat.density_g_cm3 * 1e-6 * A[first] * out["length"][:, j]
+    cols.largest[j] = rows[-1]
+    # the governing section of the chosen tube in the governing case
+    item = ci * S + w
+    ug = u[item, :, :, first].reshape(C, -1)                            # (C, E * K)
+    g = np.argmax(ug, 1)
+    e_g, k_g = g // K, g % K
+    cols.station[:, j] = np.stack([e_g, k_g], -1)
+    at = (item, e_g, k_g)
+    cols.sforce[:, j] = np.stack([sec.axial[at], np.hypot(sec.shear[at], sec.out_of_plane_shear[at]),
+                             np.hypot(sec.moment[at], sec.out_of_plane_moment[at]) / 1000.0], -1)
+    here = chk.at((item, e_g, k_g, first))
+    for name in ("axial", "bending", "combined", "shear"):
+        cols.checks[name][:, j] = getattr(here, name)
+    if buck is not None:
+        cols.checks["buckling"][:, j] = buck[item, e_g, k_g, first]
+    reached = ok[ci, w] & is_case[w]
+    for v in cols.checks.values():
+        v[:, j] = np.where(reached, v[:, j], np.nan)
+    cols.sforce[:, j] = np.where(reached[:, None], cols.sforce[:, j], np.nan)
+    # fatigue screening of the chosen tube: the fatigue-range state
+    if mat.fatigue_fat_mpa is not None:
+        allow = float(fatigue_strength(mat.fatigue_fat_mpa, mat.fatigue_slope, loads.fatigue.cycles))
+        cols.fat_allow[j] = allow
+        fi = ci * S + i_fat
+        rng = (np.abs(sec.axial[fi]) / A[first][:, None, None]
+               + np.abs(sec.moment[fi]) / Z[first][:, None, None]).reshape(C, -1)
+        gf = np.argmax(rng, 1)
+        cols.fstation[:, j] = np.stack([gf // K, gf % K], -1)
+        r = np.where(ok[:, i_fat], rng[ci, gf], np.nan)
+        out["fat_r"][:, j] = r
+        out["fat_u"][:, j] = loads.fatigue.partial_factor * r / allow
+    else:
+        out["fat_r"][:, j] = np.nan
+        out["fat_u"][:, j] = np.nan
 
 
 def _tilt_lock(states, lean_m, ok):

@@ -31,6 +31,12 @@ MAX_ITER = 2       # iteration limit reached
 NONFINITE = 3      # geometry degenerated (zero-length member, NaN)
 SKIPPED = 4        # not attempted: an earlier state of the same path failed
 FOLD = 5           # the path passed a toggle: the solution found lies on another assembly branch
+# Newton step rules, shared by this numpy path and the compiled kernel (kinematics/kernel.py reads them
+# from here; numba takes module globals as compile-time constants):
+STALL_FROM_ITER = 4       # from this iteration on, an item whose residual ...
+STALL_RATIO = 0.9         # ... is above this share of its best earlier residual is stalled
+BEST_FROM_ITER = 2        # the best earlier residual counts from this iteration (the first steps may rise)
+CHORD_CUT = 0.1           # a chord step must cut the residual to this share, or chord steps stop for the item
 STATUS_TEXT = {
     CONVERGED: "converged",
     STALLED: "cannot reach this state (locked: the equations have no solution here)",
@@ -199,60 +205,24 @@ def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np
         Jf += lay["Jc"]
     else:
         J = Jf = None
-    B = lay["blocks"]
+    rs = _Rows(F, J, Jf, lay["blocks"], x)
     r0 = 0
-    # loop pins
-    if len(m.eq_pin):
+    if len(m.eq_pin):                    # loop pins
         a, bb = m.eq_pin[:, 0], m.eq_pin[:, 1]
         k = 2 * len(a)
         F[:, r0:r0 + k] = (x[:, a] - x[:, bb]).reshape(N, k)
         if jac:
-            J[:, r0:r0 + k] = Jf[:, B["pin"]]
+            J[:, r0:r0 + k] = Jf[:, rs.blocks["pin"]]
         r0 += k
-    # loop sliders
-    if len(m.eq_slider):
-        f, p = m.eq_slider[:, 0], m.eq_slider[:, 2]
-        srca, srcb = lay["slider_src"]
-        th_a, th_b = ang[:, srca], ang[:, srcb]
-        c, s = np.cos(th_a), np.sin(th_a)
-        n = np.stack([c * b.n0[..., 0] + s * b.n0[..., 1], -s * b.n0[..., 0] + c * b.n0[..., 1]], -1)
-        d = x[:, p] - x[:, f]
-        ns = len(f)
-        F[:, r0:r0 + 2 * ns:2] = np.sum(n * d, -1)
-        F[:, r0 + 1:r0 + 2 * ns:2] = (th_b - th_a) * b.Lc[:, None]
-        if jac:
-            Jd = Jf[:, B["slider"]].reshape(N, ns, 2, nq)
-            J[:, r0:r0 + 2 * ns:2] = n[..., 0, None] * Jd[:, :, 0] + n[..., 1, None] * Jd[:, :, 1]
-            J[:, r0 + 1:r0 + 2 * ns:2] = 0.0
-            dn = np.stack([n[..., 1], -n[..., 0]], -1)
-            for j in range(ns):  # few sliders; loop over joints, not items
-                col_a = m.ang_coord[srca[j] - 1] if srca[j] > 0 else m.n_q
-                col_b = m.ang_coord[srcb[j] - 1] if srcb[j] > 0 else m.n_q
-                J[:, r0 + 2 * j, col_a] += np.sum(dn[:, j] * d[:, j], -1)
-                J[:, r0 + 2 * j + 1, col_a] -= b.Lc
-                J[:, r0 + 2 * j + 1, col_b] += b.Lc
-        r0 += 2 * ns
-
-    def lengths(eq, L0, r0, blk):
-        a, bb = eq[:, 0], eq[:, 1]
-        d = x[:, a] - x[:, bb]
-        L = np.sqrt(np.sum(d * d, -1))
-        k = len(a)
-        F[:, r0:r0 + k] = L - L0
-        if jac:
-            Jd = Jf[:, B[blk]].reshape(N, k, 2, nq)
-            u = d / L[..., None]
-            J[:, r0:r0 + k] = u[..., 0, None] * Jd[:, :, 0] + u[..., 1, None] * Jd[:, :, 1]
-        return r0 + k
-
+    if len(m.eq_slider):                 # loop sliders
+        r0 = _slider_rows(m, b, lay, ang, rs, r0)
     if len(m.eq_link):
-        r0 = lengths(m.eq_link, b.L_link, r0, "link")
-    wc = m.eq_wheel
+        r0 = _length_rows(m.eq_link, b.L_link, rs, r0, "link")
     if stage == "travel":
         # wheel centres move s relative to the chassis datum (lean 0: chassis frame = global)
-        F[:, r0:r0 + 2] = x[:, wc, 1] - q[:, 1, None] - b.zc0 - target[:, None]
+        F[:, r0:r0 + 2] = x[:, m.eq_wheel, 1] - q[:, 1, None] - b.zc0 - target[:, None]
         if jac:
-            J[:, r0:r0 + 2] = Jf[:, B["travel"]]
+            J[:, r0:r0 + 2] = Jf[:, rs.blocks["travel"]]
         r0 += 2
         if n_hold:
             # hold: v^T (q / col_scale) = 0 for each free direction v (scaled coordinates, mm)
@@ -262,22 +232,80 @@ def residual(model: Model, b: Batch, q: np.ndarray, lean: np.ndarray, target: np
                 J[:, r0:r0 + n_hold, m.n_q] = 0.0
             r0 += n_hold
     elif len(m.eq_spring):
-        r0 = lengths(m.eq_spring, target, r0, "spring")
-    # ground and lateral reference
+        r0 = _length_rows(m.eq_spring, target, rs, r0, "spring")
+    _ground_rows(m, b, lay, ang, rs, r0)
+    return F, J
+
+
+class _Rows(NamedTuple):
+    """What the row writers of :func:`residual` share: F (N, m), J (N, m, n_q + 1) or None, the elementary
+    Jacobian rows Jf, the row blocks of ``Jf`` and the point positions x (N, n_pts, 2)."""
+
+    F: np.ndarray
+    J: np.ndarray | None
+    Jf: np.ndarray | None
+    blocks: dict
+    x: np.ndarray
+
+
+def _slider_rows(m: Model, b: Batch, lay: dict, ang: np.ndarray, rs: _Rows, r0: int) -> int:
+    """Slider rows from ``r0``: the point on the guide line (normal offset) and the guide's angle held."""
+    F, J, x, N = rs.F, rs.J, rs.x, rs.F.shape[0]
+    f, p = m.eq_slider[:, 0], m.eq_slider[:, 2]
+    srca, srcb = lay["slider_src"]
+    th_a, th_b = ang[:, srca], ang[:, srcb]
+    c, s = np.cos(th_a), np.sin(th_a)
+    n = np.stack([c * b.n0[..., 0] + s * b.n0[..., 1], -s * b.n0[..., 0] + c * b.n0[..., 1]], -1)
+    d = x[:, p] - x[:, f]
+    ns = len(f)
+    F[:, r0:r0 + 2 * ns:2] = np.sum(n * d, -1)
+    F[:, r0 + 1:r0 + 2 * ns:2] = (th_b - th_a) * b.Lc[:, None]
+    if J is not None:
+        Jd = rs.Jf[:, rs.blocks["slider"]].reshape(N, ns, 2, J.shape[2])
+        J[:, r0:r0 + 2 * ns:2] = n[..., 0, None] * Jd[:, :, 0] + n[..., 1, None] * Jd[:, :, 1]
+        J[:, r0 + 1:r0 + 2 * ns:2] = 0.0
+        dn = np.stack([n[..., 1], -n[..., 0]], -1)
+        for j in range(ns):  # few sliders; loop over joints, not items
+            col_a = m.ang_coord[srca[j] - 1] if srca[j] > 0 else m.n_q
+            col_b = m.ang_coord[srcb[j] - 1] if srcb[j] > 0 else m.n_q
+            J[:, r0 + 2 * j, col_a] += np.sum(dn[:, j] * d[:, j], -1)
+            J[:, r0 + 2 * j + 1, col_a] -= b.Lc
+            J[:, r0 + 2 * j + 1, col_b] += b.Lc
+    return r0 + 2 * ns
+
+
+def _length_rows(eq: np.ndarray, L0, rs: _Rows, r0: int, blk: str) -> int:
+    """Length rows |x_a - x_b| - L0 from ``r0`` for the point pairs ``eq`` (links or held springs)."""
+    F, J, x, N = rs.F, rs.J, rs.x, rs.F.shape[0]
+    a, bb = eq[:, 0], eq[:, 1]
+    d = x[:, a] - x[:, bb]
+    L = np.sqrt(np.sum(d * d, -1))
+    k = len(a)
+    F[:, r0:r0 + k] = L - L0
+    if J is not None:
+        Jd = rs.Jf[:, rs.blocks[blk]].reshape(N, k, 2, J.shape[2])
+        u = d / L[..., None]
+        J[:, r0:r0 + k] = u[..., 0, None] * Jd[:, :, 0] + u[..., 1, None] * Jd[:, :, 1]
+    return r0 + k
+
+
+def _ground_rows(m: Model, b: Batch, lay: dict, ang: np.ndarray, rs: _Rows, r0: int) -> None:
+    """The last three rows: each tyre touching the ground, and the lateral reference (docs/domain.md)."""
+    F, J, x = rs.F, rs.J, rs.x
+    wc = m.eq_wheel
     usrc = lay["usrc"]
     gamma = b.gamma0 + ang[:, usrc]
     Rr = b.R - b.r
     sg, cg = np.sin(gamma), np.cos(gamma)
     F[:, r0:r0 + 2] = x[:, wc, 1] - Rr * cg - b.r
     F[:, r0 + 2] = 0.5 * (x[:, wc[0], 0] + x[:, wc[1], 0] - Rr[:, 0] * sg[:, 0] - Rr[:, 1] * sg[:, 1])
-    if jac:
-        J[:, r0:r0 + 2] = Jf[:, B["ground"]]
-        J[:, r0 + 2] = Jf[:, B["lateral"].start]
+    if J is not None:
+        J[:, r0:r0 + 2] = rs.Jf[:, rs.blocks["ground"]]
+        J[:, r0 + 2] = rs.Jf[:, rs.blocks["lateral"].start]
         for w in range(2):
             col = m.ang_coord[usrc[w] - 1] if usrc[w] > 0 else m.n_q
             J[:, r0 + w, col] += Rr[:, w] * sg[:, w]
             J[:, r0 + 2, col] -= 0.5 * Rr[:, w] * cg[:, w]
-    return F, J
 
 
 def _ls_step(model: Model, Js: np.ndarray, F: np.ndarray, minnorm: bool) -> np.ndarray:
@@ -381,12 +409,12 @@ def _newton_numpy(model: Model, b: Batch, q0, lean, target, stage: str, settings
         done = finite & (rmax <= settings.tol_mm)
         bad = ~finite
         # stalled: no longer decreasing although not converged
-        stalled = finite & ~done & (it >= 4) & (rmax > 0.9 * prev[active])
+        stalled = finite & ~done & (it >= STALL_FROM_ITER) & (rmax > STALL_RATIO * prev[active])
         status[active[done]] = 0
         status[active[bad]] = NONFINITE
         status[active[stalled]] = STALLED
         keep = ~(done | bad | stalled)
-        prev[active] = np.where(rmax < prev[active], rmax, prev[active]) if it >= 2 else rmax
+        prev[active] = np.where(rmax < prev[active], rmax, prev[active]) if it >= BEST_FROM_ITER else rmax
         if it == settings.max_iter or not keep.any():
             status[active[keep]] = MAX_ITER
             break
@@ -396,7 +424,7 @@ def _newton_numpy(model: Model, b: Batch, q0, lean, target, stage: str, settings
             sub, ls, ts = b.take(active), lean[active], target[active]
         iters[active] += 1
         a = active
-        chord_ok[a] &= ~(was_chord[a] & (rmax > 0.1 * r_last[a]))
+        chord_ok[a] &= ~(was_chord[a] & (rmax > CHORD_CUT * r_last[a]))
         use = chord_ok[a] & (rmax <= settings.chord_below_mm)
         if use.any():
             J = np.where(use[:, None, None], Jstep[a], J)

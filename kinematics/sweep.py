@@ -208,6 +208,190 @@ def _angles(model: Model, q: np.ndarray, lean: np.ndarray) -> np.ndarray:
 BRANCH_JUMP_RATIO = 0.2
 
 
+@dataclass
+class _TravelStage:
+    """Step 1 of the sweep: each (candidate, travel) item solved at lean 0. Arrays have N = C * T rows."""
+
+    batch: Batch               # the items' geometry
+    q: np.ndarray              # (N, nq) solved coordinates
+    status: np.ndarray         # (N,) solver status
+    resid: np.ndarray          # (N,) residual of each item's last travel solve
+    dq_ds: np.ndarray          # (N, nq) travel path tangent at the solved state
+    x: np.ndarray              # (N, n_pts, 2) equation points at the solved state
+
+
+def _travel_stage(model: Model, geom: Geometry, travel: np.ndarray, settings: SweepSettings) -> _TravelStage:
+    """Solve every travel at lean 0 by continuation from the design position (steps of at most
+    ``max_travel_step_mm``), every candidate and travel in one batch."""
+    C, T = geom.n_candidates, len(travel)
+    cand_t = np.repeat(np.arange(C), T)
+    s_item = np.tile(travel, C)
+    bt = Batch(model, geom, cand_t)
+    bc = bt.take(np.arange(C) * T)                 # one item per candidate: the design Jacobian
+    hold_free_directions(model, bc)
+    bt.hold = bc.hold[cand_t]
+    N = C * T
+    q = model.design_q(N)
+    zero = np.zeros(N)
+    K = max(1, math.ceil(np.max(np.abs(travel)) / settings.max_travel_step_mm - 1e-9))
+    status = np.zeros(N, dtype=np.int8)
+    resid = np.full(N, np.nan)
+    dq_ds = np.zeros((N, model.n_q))
+    x = np.full((N, model._np["n"], 2), np.nan)
+    s_prev = np.zeros(N)
+    for k in range(1, K + 1):
+        s_k = s_item * (k / K)
+        ok = np.flatnonzero(status == CONVERGED)
+        if len(ok) == 0:
+            break
+        q_guess = q[ok] + dq_ds[ok] * (s_k - s_prev)[ok, None]
+        r = solve_states(model, bt, q_guess, zero[ok], s_k[ok], "travel", settings.solve, ok)
+        q[ok], status[ok], resid[ok], dq_ds[ok], x[ok] = r.q, r.status, r.resid, r.tangent, r.x
+        s_prev = s_k
+    return _TravelStage(bt, q, status, resid, dq_ds, x)
+
+
+@dataclass
+class _LeanStage:
+    """Step 3 of the sweep: every item leaned along its continuation paths. Arrays have M = N * n_branch
+    rows (item of (n, branch) is n * n_branch + branch) and one column per path node."""
+
+    q: np.ndarray              # (M, K, nq)
+    status: np.ndarray         # (M, K)
+    resid: np.ndarray          # (M, K)
+    iters: np.ndarray          # (M, K)
+    x: np.ndarray              # (M, K, n_pts, 2) equation points of every solved node
+    J0: np.ndarray             # (M, rows, nq + 1) Jacobian at lean 0
+
+
+class _Continuation:
+    """The lean continuation of docs/domain.md: one step of a set of items (:meth:`advance`) with its
+    branch guard, and the redo of doubtful or failed steps in substeps (:meth:`redo`).
+
+    Branch guard. Along one assembly branch the corrector only mends the predictor's small error; a step
+    whose secant disagrees with its end tangents means Newton landed somewhere else (past a toggle, where
+    the lean path folds back). Such steps are redone in substeps; if a substep still jumps, the state is
+    reported as beyond a fold. On a square system a sign change of det(J) (J passing singular) is caught
+    as well.
+    """
+
+    N_SUB = 4          # substeps of a redone step
+
+    def __init__(self, model: Model, batch: Batch, held: np.ndarray, sign0: np.ndarray, settings: SweepSettings):
+        self.model, self.bl, self.held, self.sign0, self.settings = model, batch, held, sign0, settings
+        self.square = n_rows(model, "lean") == model.n_q
+
+    def advance(self, idx, hist_q, hist_phi, hist_t, phi_new):
+        """One continuation step of items ``idx`` from their last states.
+
+        ``hist_q``, ``hist_phi``, ``hist_t``: the last one or two solved states of each item,
+        their leans and their path tangents dq/dphi. The predictor (:func:`kernel.predict`) is
+        the cubic Hermite extrapolation through the last two states and their tangents (the
+        tangent line from a single state); its error is O(h^4) in the step h, against O(h^3)
+        for a Lagrange extrapolation through three states, which saves Newton iterations.
+
+        Returns (q, status, resid, iters, suspect, tangent, x) of the new states.
+        """
+        from . import kernel  # noqa: PLC0415
+
+        bl = self.bl
+        guess = kernel.predict(hist_q, hist_t, hist_phi, phi_new)
+        # tangent and det sign of each state's last Newton step (saves a factorisation per state)
+        r = solve_states(self.model, bl, guess, phi_new, self.held[idx], "lean", self.settings.solve, idx,
+                         final_jacobian=False)
+        # trapezoid test of the step, and the tangent may not turn by more than a right angle
+        ratio, turned = kernel.branch_test(r.q, r.tangent, hist_q[-1], hist_t[-1], hist_phi[-1], phi_new,
+                                           bl.col_scale, bl.Lc, idx)
+        suspect = (r.status == CONVERGED) & ((ratio > BRANCH_JUMP_RATIO) | turned)
+        if self.square:
+            suspect |= (r.status == CONVERGED) & (r.det_sign != self.sign0[idx])
+        return r.q, r.status, r.resid, r.iters, suspect, r.tangent, r.x
+
+    def redo(self, idx, hq, hp, ht, phi0, phi1, first):
+        """The step phi0 -> phi1 of items ``idx`` redone in :attr:`N_SUB` substeps from their histories.
+
+        ``first``: (q, resid, iters, x) of the long step that is redone (its iterations are counted). A
+        substep that fails or looks like a jump ends the item there: its status is the substep's (FOLD
+        for a jump). Returns (q, status, resid, iters, tangent, x) at phi1 (the last reached substep's
+        values where one failed; the status says so).
+        """
+        n = len(idx)
+        live = np.ones(n, bool)
+        fst = np.full(n, CONVERGED, dtype=np.int8)
+        fq, fres, fit, fx = (a.copy() for a in first)
+        for j in range(1, self.N_SUB + 1):
+            li = np.flatnonzero(live)
+            if len(li) == 0:
+                break
+            pj = phi0[li] + (phi1[li] - phi0[li]) * (j / self.N_SUB)
+            q2, s2, r2, i2, sus2, t2, x2 = self.advance(idx[li], [h[li] for h in hq], [h[li] for h in hp],
+                                                        [h[li] for h in ht], pj)
+            failed = (s2 != CONVERGED) | sus2
+            fst[li[failed]] = np.where(s2[failed] == CONVERGED, FOLD, s2[failed])
+            live[li[failed]] = False
+            good = li[~failed]
+            fq[good], fres[good], fit[good] = q2[~failed], r2[~failed], fit[good] + i2[~failed]
+            fx[good] = x2[~failed]
+            new_q, new_p, new_t = hq[-1].copy(), hp[-1].copy(), ht[-1].copy()
+            new_q[good], new_p[good], new_t[good] = q2[~failed], pj[~failed], t2[~failed]
+            hq, hp, ht = (hq + [new_q])[-2:], (hp + [new_p])[-2:], (ht + [new_t])[-2:]
+        return fq, fst, fres, fit, ht[-1], fx
+
+
+def _lean_stage(model: Model, ts: _TravelStage, paths: np.ndarray, held: np.ndarray,
+                settings: SweepSettings) -> _LeanStage:
+    """Lean every item of the travel stage along ``paths`` (n_branch, K) by continuation, with the
+    spring lengths ``held`` (N, n_springs); a path that fails stops there, its later nodes SKIPPED."""
+    nq = model.n_q
+    N = len(ts.q)
+    nb, Kl = paths.shape
+    item_ct = np.repeat(np.arange(N), nb)
+    item_branch = np.tile(np.arange(nb), N)
+    bl = ts.batch.take(item_ct)
+    bl.hold = bl.hold[:, :0]
+    M = len(item_ct)
+    held = held[item_ct]
+    Q = np.zeros((M, Kl, nq))
+    S = np.full((M, Kl), SKIPPED, dtype=np.int8)
+    RES = np.full((M, Kl), np.nan)
+    IT = np.zeros((M, Kl), dtype=int)
+    alive = ts.status[item_ct] == CONVERGED
+    Q[:, 0] = ts.q[item_ct]
+    S[:, 0] = np.where(alive, CONVERGED, ts.status[item_ct])
+    RES[:, 0] = ts.resid[item_ct]
+    # the path tangent and det(J) sign at lean 0 (no iteration: the state is solved)
+    at0 = dataclasses.replace(settings.solve, max_iter=0)
+    r0 = solve_states(model, bl, Q[:, 0], np.zeros(M), held, "lean", at0)
+    step = _Continuation(model, bl, held, r0.det_sign, settings)
+    TQ = np.zeros((M, Kl, nq))          # path tangent at every solved node
+    TQ[:, 0] = r0.tangent
+    XQ = np.zeros((M, Kl) + ts.x.shape[1:])
+    XQ[:, 0] = ts.x[item_ct]
+    for k in range(1, Kl):
+        ok = np.flatnonzero(alive)
+        if len(ok) == 0:
+            break
+        lo = max(0, k - 2)
+        hq = [Q[ok, j] for j in range(lo, k)]
+        ht = [TQ[ok, j] for j in range(lo, k)]
+        hp = [paths[item_branch[ok], j] for j in range(lo, k)]
+        qs, st, res, it, suspect, tn, xs = step.advance(ok, hq, hp, ht, paths[item_branch[ok], k])
+        # redo in substeps the steps that look like a jump and those whose Newton corrector failed
+        # (a long step can stall where shorter ones reach the state: never report a reachable state
+        # as not reached)
+        redo = suspect | (st != CONVERGED)
+        if redo.any():
+            si = np.flatnonzero(redo)
+            idx = ok[si]
+            qs[si], st[si], res[si], it[si], tn[si], xs[si] = step.redo(
+                idx, [h[si] for h in hq], [h[si] for h in hp], [h[si] for h in ht],
+                paths[item_branch[idx], k - 1], paths[item_branch[idx], k], (qs[si], res[si], it[si], xs[si]))
+        Q[ok, k], S[ok, k], RES[ok, k], IT[ok, k] = qs, st, res, it
+        TQ[ok, k], XQ[ok, k] = tn, xs
+        alive[ok] = st == CONVERGED
+    return _LeanStage(Q, S, RES, IT, XQ, r0.J)
+
+
 def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm=(0.0,),
           settings: SweepSettings | None = None) -> SweepResult:
     """Sweep lean x travel for every candidate of ``geom`` in one batch.
@@ -231,164 +415,48 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
     geom = geom or model.default_geometry
     lean_deg = np.atleast_1d(np.asarray(lean_deg, dtype=float))
     travel = np.atleast_1d(np.asarray(travel_mm, dtype=float))
-    C, T, L = geom.n_candidates, len(travel), len(lean_deg)
     nq, ns = model.n_q, len(model.eq_spring)
 
-    # ---------------------------------------------------------------- travel
-    cand_t = np.repeat(np.arange(C), T)
-    s_item = np.tile(travel, C)
-    bt = Batch(model, geom, cand_t)
-    bc = bt.take(np.arange(C) * T)                 # one item per candidate: the design Jacobian
-    hold_free_directions(model, bc)
-    bt.hold = bc.hold[cand_t]
-    N = C * T
-    q = model.design_q(N)
-    zero = np.zeros(N)
-    K = max(1, math.ceil(np.max(np.abs(travel)) / settings.max_travel_step_mm - 1e-9))
-    tstatus = np.zeros(N, dtype=np.int8)
-    t_resid = np.full(N, np.nan)          # residual of each item's last travel solve
-    dq_ds = np.zeros((N, nq))             # travel path tangent at the solved state
-    x0 = np.full((N, model._np["n"], 2), np.nan)    # equation points at the solved state
-    s_prev = np.zeros(N)
-    for k in range(1, K + 1):
-        s_k = s_item * (k / K)
-        ok = np.flatnonzero(tstatus == CONVERGED)
-        if len(ok) == 0:
-            break
-        q_guess = q[ok] + dq_ds[ok] * (s_k - s_prev)[ok, None]
-        r = solve_states(model, bt, q_guess, zero[ok], s_k[ok], "travel", settings.solve, ok)
-        q[ok], tstatus[ok], t_resid[ok], dq_ds[ok], x0[ok] = r.q, r.status, r.resid, r.tangent, r.x
-        s_prev = s_k
+    ts = _travel_stage(model, geom, travel, settings)
+    N = len(ts.q)
     # lean-0 references of the lean metrics, and the spring lengths held from here
-    g0, contact0, Ls = kernel.contacts(model, x0, _angles(model, q, zero), bt, np.arange(N))
-
-    # ------------------------------------------------------------------ lean
+    g0, contact0, Ls = kernel.contacts(model, ts.x, _angles(model, ts.q, np.zeros(N)), ts.batch, np.arange(N))
     lean_rad = np.radians(lean_deg)
     paths, index = _lean_paths(lean_rad, math.radians(settings.max_lean_step_deg))
-    nb, Kl = paths.shape
-    # items: (candidate, travel, branch)
-    item_ct = np.repeat(np.arange(N), nb)
-    item_branch = np.tile(np.arange(nb), N)
-    bl = bt.take(item_ct)
-    bl.hold = bl.hold[:, :0]
-    M = len(item_ct)
-    held = Ls[item_ct]
-    Q = np.zeros((M, Kl, nq))
-    S = np.full((M, Kl), SKIPPED, dtype=np.int8)
-    RES = np.full((M, Kl), np.nan)
-    IT = np.zeros((M, Kl), dtype=int)
-    alive = tstatus[item_ct] == CONVERGED
-    Q[:, 0] = q[item_ct]
-    S[:, 0] = np.where(alive, CONVERGED, tstatus[item_ct])
-    RES[:, 0] = t_resid[item_ct]
-    # Branch guard. Along one assembly branch the corrector only mends the predictor's small
-    # error; a step whose secant disagrees with its end tangents means Newton landed somewhere
-    # else (past a toggle, where the lean path folds back). Such steps are redone in substeps;
-    # if a substep still jumps, the state is reported as beyond a fold. On a square system a
-    # sign change of det(J) (J passing singular) is caught as well.
-    square = n_rows(model, "lean") == nq
-    # the path tangent and det(J) sign at lean 0 (no iteration: the state is solved)
-    at0 = dataclasses.replace(settings.solve, max_iter=0)
-    r0 = solve_states(model, bl, Q[:, 0], np.zeros(M), held, "lean", at0)
-    J0, T0, sign0 = r0.J, r0.tangent, r0.det_sign
+    nb = paths.shape[0]
+    ls = _lean_stage(model, ts, paths, Ls, settings)
     # motion ratios: spring shortening per mm of travel, from the spring rows of J at lean 0
     off = model.n_loop_rows + len(model.eq_link)
-    dLs = J0[np.arange(N) * nb, off:off + ns, :nq]
-    motion_ratio = -np.einsum("nkq,nq->nk", dLs, dq_ds)
+    dLs = ls.J0[np.arange(N) * nb, off:off + ns, :nq]
+    motion_ratio = -np.einsum("nkq,nq->nk", dLs, ts.dq_ds)
 
-    def advance(idx, hist_q, hist_phi, hist_t, phi_new):
-        """One continuation step of items ``idx`` from their last states.
-
-        ``hist_q``, ``hist_phi``, ``hist_t``: the last one or two solved states of each item,
-        their leans and their path tangents dq/dphi. The predictor (:func:`kernel.predict`) is
-        the cubic Hermite extrapolation through the last two states and their tangents (the
-        tangent line from a single state); its error is O(h^4) in the step h, against O(h^3)
-        for a Lagrange extrapolation through three states, which saves Newton iterations.
-        """
-        guess = kernel.predict(hist_q, hist_t, hist_phi, phi_new)
-        # tangent and det sign of each state's last Newton step (saves a factorisation per state)
-        r = solve_states(model, bl, guess, phi_new, held[idx], "lean", settings.solve, idx, final_jacobian=False)
-        qs, st, res, it, t_new = r.q, r.status, r.resid, r.iters, r.tangent
-        # trapezoid test of the step, and the tangent may not turn by more than a right angle
-        ratio, turned = kernel.branch_test(qs, t_new, hist_q[-1], hist_t[-1], hist_phi[-1], phi_new,
-                                           bl.col_scale, bl.Lc, idx)
-        suspect = (st == CONVERGED) & ((ratio > BRANCH_JUMP_RATIO) | turned)
-        if square:
-            suspect |= (st == CONVERGED) & (r.det_sign != sign0[idx])
-        return qs, st, res, it, suspect, t_new, r.x
-
-    n_sub = 4
-    TQ = np.zeros((M, Kl, nq))          # path tangent at every solved node
-    TQ[:, 0] = T0
-    XQ = np.zeros((M, Kl) + x0.shape[1:])      # equation points of every solved node
-    XQ[:, 0] = x0[item_ct]
-    for k in range(1, Kl):
-        ok = np.flatnonzero(alive)
-        if len(ok) == 0:
-            break
-        lo = max(0, k - 2)
-        hq = [Q[ok, j] for j in range(lo, k)]
-        ht = [TQ[ok, j] for j in range(lo, k)]
-        hp = [paths[item_branch[ok], j] for j in range(lo, k)]
-        phi = paths[item_branch[ok], k]
-        qs, st, res, it, suspect, tn, xs = advance(ok, hq, hp, ht, phi)
-        # redo in substeps the steps that look like a jump and those whose Newton corrector failed
-        # (a long step can stall where shorter ones reach the state: never report a reachable state
-        # as not reached)
-        redo = suspect | (st != CONVERGED)
-        if redo.any():
-            si = np.flatnonzero(redo)
-            idx = ok[si]
-            sq = [h[si] for h in hq]
-            st_ = [h[si] for h in ht]
-            sp = [h[si] for h in hp]
-            live = np.ones(len(si), bool)
-            fst = np.full(len(si), CONVERGED, dtype=np.int8)
-            fq, fres, fit, fx = qs[si].copy(), res[si].copy(), it[si].copy(), xs[si].copy()
-            phi0, phi1 = paths[item_branch[idx], k - 1], paths[item_branch[idx], k]
-            for j in range(1, n_sub + 1):
-                li = np.flatnonzero(live)
-                if len(li) == 0:
-                    break
-                pj = phi0[li] + (phi1[li] - phi0[li]) * (j / n_sub)
-                q2, s2, r2, i2, sus2, t2, x2 = advance(idx[li], [h[li] for h in sq], [h[li] for h in sp],
-                                                   [h[li] for h in st_], pj)
-                failed = (s2 != CONVERGED) | sus2
-                fst[li[failed]] = np.where(s2[failed] == CONVERGED, FOLD, s2[failed])
-                live[li[failed]] = False
-                good = li[~failed]
-                fq[good], fres[good], fit[good] = q2[~failed], r2[~failed], fit[good] + i2[~failed]
-                fx[good] = x2[~failed]
-                new_q, new_p, new_t = sq[-1].copy(), sp[-1].copy(), st_[-1].copy()
-                new_q[good], new_p[good], new_t[good] = q2[~failed], pj[~failed], t2[~failed]
-                sq, sp, st_ = (sq + [new_q])[-2:], (sp + [new_p])[-2:], (st_ + [new_t])[-2:]
-            qs[si], st[si], res[si], it[si], xs[si] = fq, fst, fres, fit, fx
-            tn[si] = st_[-1]
-        Q[ok, k], S[ok, k], RES[ok, k], IT[ok, k] = qs, st, res, it
-        TQ[ok, k], XQ[ok, k] = tn, xs
-        alive[ok] = st == CONVERGED
-
-    # ----------------------------------------------------- gather requested
+    # requested states: the item of (n, branch) is n * nb + branch
     sel_b = np.array([w[0] for w in index])
     sel_k = np.array([w[1] for w in index])
-    # item of (n, branch) is n * nb + branch
     rows = (np.arange(N)[:, None] * nb + sel_b[None, :])           # (N, L)
-    q_out = Q[rows, sel_k[None, :]]                                  # (N, L, nq)
-    st_out = S[rows, sel_k[None, :]]
-    res_out = RES[rows, sel_k[None, :]]
-    it_out = IT[rows, sel_k[None, :]]
-    # lean-0 reference of the same travel (always node 0)
-    q_ref = Q[np.arange(N) * nb, 0]
+    return _result(model, geom, lean_deg, travel, settings, ts, ls, rows, sel_k, (g0, contact0), motion_ratio)
 
-    # ------------------------------------------------------------ metrics
-    NL = N * L
+
+def _result(model, geom, lean_deg, travel, settings, ts: _TravelStage, ls: _LeanStage, rows, sel_k, ref0,
+            motion_ratio) -> SweepResult:
+    """The per-state metrics of docs/domain.md of the requested states ``(rows, sel_k)`` of the lean stage."""
+    from . import kernel  # noqa: PLC0415
+
+    C, T, L = geom.n_candidates, len(travel), len(lean_deg)
+    nq, N, NL = model.n_q, C * T, C * T * L
+    nb = ls.q.shape[0] // N
+    g0, contact0 = ref0
+    bt = ts.batch
+    q_out = ls.q[rows, sel_k[None, :]]                               # (N, L, nq)
+    st_out = ls.status[rows, sel_k[None, :]]
+    q_ref = ls.q[np.arange(N) * nb, 0]                               # lean 0 of the same travel (node 0)
+    lean_rad = np.radians(lean_deg)
     flat_q = q_out.reshape(NL, nq)
     flat_lean = np.broadcast_to(lean_rad, (N, L)).reshape(NL)
-    item_nl = np.repeat(np.arange(N), L)
-    x_np = XQ[rows, sel_k[None, :]].reshape((NL,) + x0.shape[1:])
+    x_np = ls.x[rows, sel_k[None, :]].reshape((NL,) + ts.x.shape[1:])
     ang = _angles(model, flat_q, flat_lean)
     body_angle = model.body_angles(ang)
-    gamma, contact, spring_len = kernel.contacts(model, x_np, ang, bt, item_nl)
+    gamma, contact, spring_len = kernel.contacts(model, x_np, ang, bt, np.repeat(np.arange(N), L))
 
     # references at lean 0 of the same travel
     track0 = contact0[:, 1, 0] - contact0[:, 0, 0]
@@ -414,7 +482,7 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
                     * np.sin(geom.static_camber[:, 1])) - \
         (geom.points[:, model.wheel_centre[0], 0] - (geom.outer_radius[:, 0] - geom.crown_radius[:, 0])
          * np.sin(geom.static_camber[:, 0]))
-    t_ok = (tstatus == CONVERGED).reshape(C, T)
+    t_ok = (ts.status == CONVERGED).reshape(C, T)
     bump_track = np.where(t_ok, track0.reshape(C, T) - design_track[:, None], np.nan)
     bump_camber = np.where(t_ok[..., None], (g0 - bt.gamma0).reshape(C, T, 2), np.nan)
     motion_ratio = np.where(t_ok[..., None], motion_ratio.reshape(C, T, -1), np.nan)
@@ -427,7 +495,8 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
 
     return SweepResult(
         model=model, lean_deg=lean_deg, travel_mm=travel,
-        status=st_out.reshape(shape), residual_mm=res_out.reshape(shape), iterations=it_out.reshape(shape),
+        status=st_out.reshape(shape), residual_mm=ls.resid[rows, sel_k[None, :]].reshape(shape),
+        iterations=ls.iters[rows, sel_k[None, :]].reshape(shape),
         q=q_out.reshape(shape + (nq,)),
         geometry=geom,
         body_angle=mask(body_angle.reshape(shape + (-1,))),
@@ -436,5 +505,5 @@ def sweep(model: Model, geom: Geometry | None = None, lean_deg=(0.0,), travel_mm
         track=mask(track), track_change=mask(track_change), scrub=mask(scrub), heave=mask(heave),
         camber_error=mask(camber_error), lean_point_offset=mask(lean_point),
         bump_track_change=bump_track, bump_camber_change=bump_camber, motion_ratio=motion_ratio,
-        travel_status=tstatus.reshape(C, T), engine=settings.solve.engine,
+        travel_status=ts.status.reshape(C, T), engine=settings.solve.engine,
     )

@@ -31,9 +31,6 @@ columns (names end in their unit). The Parquet schema metadata key
 from __future__ import annotations
 
 import json
-import os
-import platform
-import tempfile
 from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
@@ -44,8 +41,11 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
+from tiltopt.base import files
 from tiltopt.base.errors import InputError, read_text
+from tiltopt.base.provenance import package_versions  # noqa: F401 (R.package_versions for the run writers)
 from tiltopt.base.safety import SAFETY_CAUTION
+from tiltopt.base.units import unit_of_name
 
 FRONT, EVALUATIONS, GENERATIONS, RUN_JSON, CHECKPOINT = (
     "front.parquet", "evaluations.parquet", "generations.parquet", "run.json", "checkpoint.npz")
@@ -59,42 +59,11 @@ GENERATION_UNITS = {"generation": "1", "evaluations": "1", "feasible": "1", "fea
                     "elapsed_s": "s", "generation_s": "s", "evaluation_s": "s"}
 BASE_UNITS = {"candidate_id": "", "generation": "1", "feasible": "", "violation": "sum of positive constraint "
               "values (units of each constraint)", "reason": ""}
-_SUFFIX_UNITS = (("_mm", "mm"), ("_deg", "deg"), ("_kg", "kg"), ("_nm", "N*m"), ("_mpa", "MPa"), ("_n", "N"),
-                 ("_s", "s"), ("_share", "1"))
 
-
-# ------------------------------------------------------------------ atomic writes
-def _file_mode() -> int:
-    old = os.umask(0)
-    os.umask(old)
-    return 0o666 & ~old
-
-
-_MODE = _file_mode()   # the mode an ordinary open() would give (mkstemp makes 0600 files)
-
-
-def _atomic(path: Path, write) -> None:
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            write(fh)
-            fh.flush()
-            os.fsync(fh.fileno())
-        os.chmod(tmp, _MODE)
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except FileNotFoundError:
-            pass
-        raise
-
-
+# ------------------------------------------------------------------ atomic writes (tiltopt.base.files)
 def write_bytes(path: Path, data: bytes) -> None:
     """Write ``data`` to ``path`` atomically."""
-    _atomic(path, lambda fh: fh.write(data))
+    files.atomic_write_bytes(path, data)
 
 
 def write_json(path: Path, obj: Any) -> None:
@@ -104,11 +73,7 @@ def write_json(path: Path, obj: Any) -> None:
 
 def metric_unit(name: str) -> str:
     """Unit of a metric column from the end of its name (``_mm`` -> mm ...); "1" otherwise."""
-    low = name.lower()
-    for suf, unit in _SUFFIX_UNITS:
-        if low.endswith(suf):
-            return unit
-    return "1"
+    return unit_of_name(name)
 
 
 def write_parquet(path: Path, df: pd.DataFrame, units: dict, meta: dict) -> None:
@@ -119,7 +84,7 @@ def write_parquet(path: Path, df: pd.DataFrame, units: dict, meta: dict) -> None
     md = dict(table.schema.metadata or {})
     md[META_KEY] = json.dumps(info, default=str).encode("utf-8")
     table = table.replace_schema_metadata(md)
-    _atomic(path, lambda fh: pq.write_table(table, fh))
+    files.atomic_write(path, lambda fh: pq.write_table(table, fh))
 
 
 def read_parquet(path: Path) -> tuple[pd.DataFrame, dict]:
@@ -152,19 +117,6 @@ def _require_columns(df: pd.DataFrame, columns, path: Path, why: str) -> None:
     if missing:
         raise InputError(f"the column(s) {', '.join(missing)} that {why} are missing: the file is damaged or "
                          f"belongs to another run.", str(path))
-
-
-def package_versions() -> dict:
-    """Versions of Python and the packages a run depends on."""
-    from importlib import metadata
-
-    out = {"python": platform.python_version()}
-    for name in ("tiltopt", "numpy", "scipy", "pandas", "pyarrow", "pymoo", "dask", "distributed"):
-        try:
-            out[name] = metadata.version(name)
-        except metadata.PackageNotFoundError:
-            out[name] = None
-    return out
 
 
 # ------------------------------------------------------------------ reading a run

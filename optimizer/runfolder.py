@@ -25,6 +25,7 @@ from pathlib import Path
 
 from tiltopt.base import inputs as _inputs
 from tiltopt.base.errors import InputError
+from tiltopt.base.files import FILE_MODE
 
 from . import results as R
 
@@ -88,8 +89,8 @@ class FolderLock:
         try:
             folder.mkdir(parents=True, exist_ok=True)
             path = folder / name
-            # R._MODE: the mode an ordinary open() gives; O_NOFOLLOW: a planted link is not followed
-            fd = os.open(path, os.O_RDWR | os.O_CREAT | getattr(os, "O_NOFOLLOW", 0), R._MODE)
+            # FILE_MODE: the mode an ordinary open() gives; O_NOFOLLOW: a planted link is not followed
+            fd = os.open(path, os.O_RDWR | os.O_CREAT | getattr(os, "O_NOFOLLOW", 0), FILE_MODE)
         except OSError as exc:
             if exc.errno in DISK_FULL:
                 raise

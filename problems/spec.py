@@ -107,6 +107,7 @@ class Envelope:
     lean_deg: np.ndarray
     travel_mm: np.ndarray
     steer: tuple[tuple[float, float], ...] | None = None
+    both_sides: bool = False
 
     @property
     def n_states(self) -> int:
@@ -238,6 +239,14 @@ def lean_grid(limit_deg: float, step_deg: float) -> np.ndarray:
     return np.array(vals, dtype=float)
 
 
+def envelope_leans(limit_deg: float, step_deg: float | None = None, both_sides: bool = False) -> np.ndarray:
+    """The envelope's leans as the problem sweeps them (degrees, ascending): :func:`lean_grid` of the limit
+    and step (no step: 0 and the limit), mirrored to -limit when ``both_sides``. The one source of the
+    envelope's leans for the optimiser, the explorer and the sheet."""
+    leans = lean_grid(float(limit_deg), float(step_deg) if step_deg else float(limit_deg))
+    return np.concatenate([-leans[:0:-1], leans]) if both_sides else leans
+
+
 # ------------------------------------------------------------------ parts
 def _parse_template(t: Any, src: str, base_dir: Path) -> Template:
     _keys(t, {"name", "mechanism", "variables", "bounds", "fixed", "allow_crossing"}, src, "template")
@@ -327,10 +336,7 @@ def _parse_envelope(e: Any, src: str, template: Template, default_limit: float) 
         steer = tuple(zip(ld, ms))
     check_count(n_lean * (2 if both else 1) * len(travel), MAX_STATES, "lean x travel states per candidate",
                 "Use a larger lean_step_deg or fewer travel_mm values.", src, "envelope")
-    leans = lean_grid(limit, step)
-    if both:
-        leans = np.concatenate([-leans[:0:-1], leans])
-    return Envelope(limit, step, leans, travel, steer)
+    return Envelope(limit, step, envelope_leans(limit, step, both), travel, steer, both)
 
 
 def _parse_constraints(c: Any, src: str, has_shell: bool, has_loads: bool) -> Limits:

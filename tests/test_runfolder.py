@@ -21,6 +21,7 @@ import pytest
 from click.testing import CliRunner
 
 from tests.helpers import one_error
+from tiltopt.base import files
 from tiltopt.base.errors import InputError
 from tiltopt.cli import main
 from tiltopt.optimizer import results as R
@@ -400,7 +401,7 @@ def _full_after(monkeypatch, module, name, n):
 def test_disk_full_during_a_run_says_so_and_the_run_resumes(tmp_path, monkeypatch):
     cfg_path = _zdt(tmp_path, gens=8)
     straight = start_run(load_config(cfg_path), run_id="straight", progress=False)
-    _full_after(monkeypatch, R, "_atomic", 14)     # a few checkpoints, then the disk is full
+    _full_after(monkeypatch, files, "atomic_write", 14)     # a few checkpoints, then the disk is full
     r = _invoke("run", cfg_path, "--quiet")
     line = one_error(r, "the disk is full", "tiltopt run --resume")
     run_dir = tmp_path / "out" / "z-s5"
@@ -414,11 +415,10 @@ def test_disk_full_during_a_run_says_so_and_the_run_resumes(tmp_path, monkeypatc
 
 
 def test_disk_full_while_writing_the_explorer_page(tmp_path, monkeypatch):
-    import tiltopt.reports.common as common
     from tests.helpers import make_tiny_run
 
     run_dir = make_tiny_run(tmp_path)
-    _full_after(monkeypatch, common, "atomic_write_bytes", 0)
+    _full_after(monkeypatch, files, "atomic_write", 0)
     r = _invoke("explore", run_dir)
     one_error(r, "the disk is full", "free some space")
     assert not list(run_dir.glob("*.html"))

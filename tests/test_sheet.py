@@ -243,3 +243,40 @@ def test_real_pivots_and_dxf_match_the_candidate(real_sheet):
         assert np.max(np.abs(got - np.array(list(pts.values())))) < 1e-6
     html = paths["sheet"].read_text(encoding="utf-8")
     assert "tiltopt sheet" in html and f"--candidate {cid}" in html and run.run_id in html
+
+
+def test_sheet_envelope_figures_cover_both_sides(tmp_path):
+    """With ``both_sides`` the sheet's "over the envelope" figures include the negative leans (one source of the
+    envelope's leans, tiltopt.problems.spec.envelope_leans): on a linkage made asymmetric (the right upper ball
+    joint 15 mm lower), max |heave| is the sweep's own maximum over leans -30, 0, 30, which differs from 0..30's."""
+    import re
+    import tomllib
+
+    from tiltopt.kinematics.mechanism import parse_mechanism
+    from tiltopt.problems.spec import envelope_leans
+    from tiltopt.reports.sheet import SheetInputs, write_sheet
+
+    text = (Path(__file__).resolve().parents[1] / "configs" / "wishbone_rocker.toml").read_text(encoding="utf-8")
+    text = text.replace("outer = [320.0, 400.0]", "outer = [320.0, 385.0]")
+    text = text.replace("upper_joint = [320.0, 400.0]", "upper_joint = [320.0, 385.0]")
+    mech = parse_mechanism(tomllib.loads(text), "asymmetric.toml")
+    res = sweep(Model(mech), None, envelope_leans(30.0, None, True), [0.0])
+    assert bool(res.converged.all())
+    both = float(np.max(np.abs(res.heave)))
+    one = float(np.max(np.abs(res.heave[..., res.lean_deg >= 0])))
+    assert abs(both - one) > 1.0                      # the two sides differ, so the test can tell them apart
+
+    def sheet_heave(both_sides):
+        paths = write_sheet(tmp_path / str(both_sides), SheetInputs(mech=mech, lean_limit_deg=30.0, travel_mm=(0.0,),
+                                                                    both_sides=both_sides))
+        html = paths["sheet"].read_text(encoding="utf-8")
+        m = re.search(r"max \|heave\| over the envelope</td>\s*<td[^>]*>([-0-9.]+)</td>", html)
+        assert m, "the sheet has no max |heave| row"
+        return float(m.group(1)), html
+
+    got, html = sheet_heave(True)
+    assert got == pytest.approx(both, abs=0.006)      # the sheet rounds to 2 decimals
+    assert "-30 to 30 deg (both sides)" in html
+    got, html = sheet_heave(False)
+    assert got == pytest.approx(one, abs=0.006)
+    assert "0 to 30 deg (the other side mirrors it)" in html

@@ -1,4 +1,5 @@
-"""Parsing of ranges, lists and numbers typed by a user (degrees and mm at the boundary).
+"""Parsing of ranges, lists and numbers typed by a user (degrees and mm at the boundary), and the unit
+a column or metric name says by its ending (:func:`unit_of_name`, the one table of name endings).
 
 Every value is checked against :mod:`tiltopt.base.limits` before anything is allocated: the size of
 a range is worked out from its start, stop and step first.
@@ -11,6 +12,25 @@ import numpy as np
 
 from .errors import InputError
 from .limits import MAX_ABS_LEAN_DEG, MAX_COORD_MM, MAX_RANGE_VALUES, MAX_STATES, MAX_TRAVEL_MM, check_count
+
+#: the unit a name's ending gives (docs/formats.md, "Units"); the longest ending that matches wins
+NAME_UNITS = (("_n_per_mm", "N/mm"), ("_share", "1"), ("_mpa", "MPa"), ("_pct", "%"), ("_deg", "deg"),
+              ("_mm", "mm"), ("_kg", "kg"), ("_nm", "N*m"), ("_n", "N"), ("_s", "s"))
+
+
+def name_ending(name: str) -> tuple[str, str] | None:
+    """The ``(ending, unit)`` of :data:`NAME_UNITS` that ``name`` ends with (longest first), or None."""
+    low = name.lower()
+    for end, unit in sorted(NAME_UNITS, key=lambda e: -len(e[0])):
+        if low.endswith(end):
+            return end, unit
+    return None
+
+
+def unit_of_name(name: str, default: str = "1") -> str:
+    """Unit of a metric or column from the end of its name (``_mm`` -> mm, ``_n_per_mm`` -> N/mm ...)."""
+    e = name_ending(name)
+    return e[1] if e else default
 
 
 def _expected(text: str, unit: str) -> str:

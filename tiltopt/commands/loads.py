@@ -186,6 +186,14 @@ def loads_cmd(mech, loads_path, fmt):
     if fmt == "json":
         click.echo(to_json(rep))
         return
+    _echo_forces(rep)
+    _echo_members(rep)
+    _echo_mass_lock_springs(rep)
+    click.echo("\n" + rep["caution"])
+
+
+def _echo_forces(rep: dict) -> None:
+    """The forces table per load case, pin forces and the out-of-plane braking moments."""
     springs = list(rep["states"][0]["spring_force_n"]) if rep["states"] else []
     links = list(rep["states"][0]["link_tension_n"]) if rep["states"] else []
     rows = []
@@ -229,6 +237,10 @@ def loads_cmd(mech, loads_path, fmt):
             click.echo(table([{"pivot": k, "moment": v, "bearing": s["brake_bearing_force_n"][k]}
                               for k, v in s["brake_pivot_moment_nm"].items()],
                              [("pivot", "pivot"), ("moment", "moment_Nm"), ("bearing", "bearing_N")], digits=1))
+
+
+def _echo_members(rep: dict) -> None:
+    """Member sizes, their governing sections and the fatigue screening."""
     click.echo(f"\nmembers (safety factor {rep['safety_factor']:g}; utilisation = stress or buckling demand / "
                f"capacity, must be <= 1; checked at every load point and segment end):")
     click.echo(table(rep["members"], [("member", "member"), ("kind", "kind"), ("length_mm", "length_mm"),
@@ -254,6 +266,10 @@ def loads_cmd(mech, loads_path, fmt):
     for m, c in fat["classes"].items():
         click.echo(f"  {m}: " + (f"FAT {c['fat_mpa']:g} MPa, m = {c['slope']:g}: {c['source']}" if c["fat_mpa"]
                                  else "no welded-joint class in the materials file: not screened"))
+
+
+def _echo_mass_lock_springs(rep: dict) -> None:
+    """Linkage mass, the tilt lock, the springs, the load cases with their sources, feasibility and notes."""
     click.echo(f"\nlinkage mass: {rep['linkage_mass_kg']:.3f} kg = members {rep['members_mass_kg']:.3f} kg + "
                f"{rep['pivot_count']} pivots x allowance ({rep['pivot_allowance_kg']:.3f} kg)")
     lk = rep["tilt_lock"]
@@ -284,4 +300,4 @@ def loads_cmd(mech, loads_path, fmt):
         click.echo(f"note: {n}")
     if any(s["wheel_lifts"] for s in rep["states"]):
         click.echo("note: a negative wheel load means that wheel lifts: the vehicle would tip over in that case")
-    click.echo("\n" + rep["caution"])
+

@@ -13,6 +13,7 @@ import numpy as np
 
 from tiltopt.kinematics.model import Geometry, Model
 from tiltopt.kinematics.sweep import SweepResult, sweep
+from tiltopt.problems.spec import envelope_leans
 
 from .drawing import drawing_spec, shell_outline
 from .marks import FrontMarks, front_marks
@@ -51,29 +52,22 @@ class Analysis:
     notes: list[str] = field(default_factory=list)
 
 
-def envelope_leans(lean_limit_deg: float, lean_step_deg: float | None = None) -> np.ndarray:
-    """The envelope's leans: 0, step, 2 step, ..., limit (limit always included), as the problem sweeps them."""
-    step = float(lean_step_deg) if lean_step_deg else float(lean_limit_deg)
-    n = int(math.floor(lean_limit_deg / step + 1e-9))
-    v = list(step * np.arange(n + 1))
-    if lean_limit_deg - v[-1] > 1e-9:
-        v.append(float(lean_limit_deg))
-    return np.array(v, float)
-
-
-def lean_grid(lean_limit_deg: float, lean_step_deg: float | None = None, finest_deg: float = 2.5) -> np.ndarray:
-    """Leans for drawings and curves: the envelope's leans, each interval split to at most ``finest_deg``."""
-    nodes = envelope_leans(lean_limit_deg, lean_step_deg)
-    out = [0.0]
+def lean_grid(lean_limit_deg: float, lean_step_deg: float | None = None, finest_deg: float = 2.5,
+              both_sides: bool = False) -> np.ndarray:
+    """Leans for drawings and curves: the envelope's leans (:func:`tiltopt.problems.spec.envelope_leans`),
+    each interval split to at most ``finest_deg``."""
+    nodes = envelope_leans(lean_limit_deg, lean_step_deg, both_sides)
+    out = [float(nodes[0])]
     for a, b in zip(nodes[:-1], nodes[1:]):
         n = max(1, int(math.ceil((b - a) / finest_deg - 1e-9)))
         out += list(a + (b - a) * np.arange(1, n + 1) / n)
     return np.array(out, float)
 
 
-def envelope_mask(lean_deg, lean_limit_deg: float, lean_step_deg: float | None = None) -> np.ndarray:
+def envelope_mask(lean_deg, lean_limit_deg: float, lean_step_deg: float | None = None,
+                  both_sides: bool = False) -> np.ndarray:
     """True for the leans of ``lean_deg`` that are envelope states."""
-    nodes = envelope_leans(lean_limit_deg, lean_step_deg)
+    nodes = envelope_leans(lean_limit_deg, lean_step_deg, both_sides)
     return np.any(np.abs(np.asarray(lean_deg)[:, None] - nodes[None, :]) < 1e-9, axis=1)
 
 

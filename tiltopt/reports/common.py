@@ -1,47 +1,15 @@
-"""Shared bits of the report writers: the safety caution, atomic writes, labels and units,
+"""Shared bits of the report writers: the safety caution, atomic writes (tiltopt.base.files), labels and units,
 provenance, and reading what the pages need out of a results run."""
 from __future__ import annotations
 
-import os
 import re
-import tempfile
-from pathlib import Path
 
 import numpy as np
 
+from tiltopt.base.files import atomic_write_bytes, atomic_write_text  # noqa: F401 (the report writers' writer)
 from tiltopt.base.safety import SAFETY_CAUTION as SAFETY  # noqa: F401 (the report writers import it from here)
-
-_UNIT_SUFFIX = [("_mm", "mm"), ("_deg", "deg"), ("_kg", "kg"), ("_nm", "N·m"), ("_n", "N"), ("_mpa", "MPa"),
-                ("_pct", "%"), ("_n_per_mm", "N/mm")]
-
-# units of the objectives (docs/formats.md names), as minimised
-OBJECTIVE_UNITS = {"overall_width": "mm", "max_scrub": "mm", "max_heave": "mm", "min_clearance": "mm",
-                   "linkage_mass": "kg", "slot_length": "mm", "max_camber_error": "deg"}
-
-
-def atomic_write_text(path: str | Path, text: str, encoding: str = "utf-8") -> Path:
-    """Write a file atomically: a temp file in the same folder, then os.replace."""
-    return atomic_write_bytes(path, text.encode(encoding))
-
-
-def atomic_write_bytes(path: str | Path, data: bytes) -> Path:
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix="." + path.name + ".", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-        umask = os.umask(0)
-        os.umask(umask)
-        os.chmod(tmp, 0o666 & ~umask)   # mkstemp makes 0600; give the file the usual permissions
-        os.replace(tmp, path)
-    except BaseException:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
-        raise
-    return path
+from tiltopt.base.units import name_ending, unit_of_name
+from tiltopt.problems.registry import OBJECTIVES
 
 
 def column_unit(col: str, units: dict | None = None) -> str:
@@ -54,16 +22,9 @@ def column_unit(col: str, units: dict | None = None) -> str:
         u = str(units[col])
         return "-" if u == "1" else u
     name = col.split(".", 1)[1] if col.startswith(("obj.", "var.")) else col
-    if col.startswith("obj.") and name in OBJECTIVE_UNITS:
-        return OBJECTIVE_UNITS[name]
-    for suf, unit in sorted(_UNIT_SUFFIX, key=lambda s: -len(s[0])):
-        if name.endswith(suf):
-            return unit
-    if col == "violation":
-        return "mm"
-    if col == "generation":
-        return "-"
-    return "-"
+    if col.startswith("obj.") and name in OBJECTIVES:
+        return OBJECTIVES[name].unit
+    return unit_of_name(name, "-")
 
 
 def column_label(col: str) -> str:
@@ -76,27 +37,15 @@ def column_label(col: str) -> str:
     if col.startswith("con."):
         return "constraint " + col[4:].replace("_", " ") + " (feasible at or below 0)"
     name = col[4:] if col.startswith("var.") else col
-    for suf, _ in sorted(_UNIT_SUFFIX, key=lambda s: -len(s[0])):
-        if name.endswith(suf):
-            name = name[: -len(suf)]
-            break
+    end = name_ending(name)
+    if end:
+        name = name[: -len(end[0])]
     return name.replace("_", " ")
 
 
 def label_with_unit(col: str, units: dict | None = None) -> str:
     u = column_unit(col, units)
     return f"{column_label(col)} [{u}]" if u and u != "-" else column_label(col)
-
-
-def versions() -> dict:
-    import ezdxf
-    import numpy
-    import plotly
-
-    from tiltopt import __version__
-
-    return {"tiltopt": __version__, "numpy": numpy.__version__, "plotly": plotly.__version__,
-            "ezdxf": ezdxf.__version__}
 
 
 # ---------------------------------------------------------------- runs
@@ -125,7 +74,7 @@ def _get(obj, *names, default=None):
 
 
 def run_envelope(run) -> dict:
-    """Lean limit, lean step and travels of a run's envelope (config first, then run.json)."""
+    """Lean limit, lean step, both sides and travels of a run's envelope (config first, then run.json)."""
     spec = _get(run, "config.spec")
     env = _get(spec, "envelope")
     meta = getattr(run, "meta", {}) or {}
@@ -137,6 +86,7 @@ def run_envelope(run) -> dict:
     lean, step, travel = pick("lean_limit_deg"), pick("lean_step_deg"), pick("travel_mm")
     return {"lean_limit_deg": float(lean if lean is not None else 30.0),
             "lean_step_deg": float(step) if step is not None else None,
+            "both_sides": bool(pick("both_sides") or False),
             "travel_mm": [float(t) for t in (np.atleast_1d(travel) if travel is not None else [0.0])]}
 
 

@@ -38,16 +38,16 @@ from .marks import KINDS
 MAX_TRAVELS = 5
 
 
-def page_grid(lean_limit_deg: float, lean_step_deg: float | None,
-              travel_mm) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def page_grid(lean_limit_deg: float, lean_step_deg: float | None, travel_mm,
+              both_sides: bool = False) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """(leans, travels, envelope mask of the leans) of the page's drawings and curves: the envelope's leans,
     each step split to at most 5 deg, and its travels (at most :data:`MAX_TRAVELS`: then the lowest, the one
     nearest 0 and the highest)."""
-    lean = lean_grid(lean_limit_deg, lean_step_deg, finest_deg=5.0)
+    lean = lean_grid(lean_limit_deg, lean_step_deg, finest_deg=5.0, both_sides=both_sides)
     t = np.unique(np.asarray(travel_mm, float))
     if len(t) > MAX_TRAVELS:
         t = np.unique([t.min(), t[np.argmin(np.abs(t))], t.max()])
-    return lean, t, envelope_mask(lean, lean_limit_deg, lean_step_deg)
+    return lean, t, envelope_mask(lean, lean_limit_deg, lean_step_deg, both_sides)
 
 
 def _num(v, digits):

@@ -40,9 +40,11 @@ from typing import Callable, Sequence
 import numpy as np
 import pandas as pd
 
+from tiltopt.base.provenance import package_versions
 from tiltopt.kinematics.model import Geometry, Model
+from tiltopt.optimizer.pareto import nondominated_mask
 
-from .common import SAFETY, atomic_write_text, column_label, column_unit, versions
+from .common import SAFETY, atomic_write_text, column_label, column_unit
 
 # Our own colour scheme: categorical colours for runs/templates, and a
 # continuous scale from deep sea blue through teal to sand.
@@ -89,6 +91,7 @@ class ExplorerRun:
     lean_limit_deg: float
     travel_mm: Sequence[float] = (0.0,)
     lean_step_deg: float | None = None
+    both_sides: bool = False
     evaluations: pd.DataFrame | None = None
     template: str = ""
     units: dict = field(default_factory=dict)
@@ -122,28 +125,24 @@ def run_from_results(run, run_dir: str | Path | None = None, front: pd.DataFrame
     return ExplorerRun(
         run_id=str(run.run_id), front=run.front if front is None else front, model=tpl.model,
         geometry_for=geometry_for, lean_limit_deg=env["lean_limit_deg"], travel_mm=env["travel_mm"],
-        lean_step_deg=env.get("lean_step_deg"), evaluations=run.evaluations, template=getattr(tpl, "name", ""),
+        lean_step_deg=env.get("lean_step_deg"), both_sides=env["both_sides"], evaluations=run.evaluations,
+        template=getattr(tpl, "name", ""),
         units=run_units(run), run_dir=str(run_dir) if run_dir is not None else None, shell=run_shell(run),
         meta=dict(run.meta or {}), targets=targets, shortlist_dir=shortlist_dir)
 
 
 # ----------------------------------------------------------------- helpers
 def non_dominated(F: np.ndarray) -> np.ndarray:
-    """Boolean mask of the non-dominated rows of F (all objectives minimised).
+    """Boolean mask of the non-dominated rows of F (all objectives minimised): the optimiser's own filter
+    (:func:`tiltopt.optimizer.pareto.nondominated_mask`) over the rows with every objective finite; a row
+    with NaN or inf is neither kept nor counted as dominating.
 
-    F : ndarray of shape (n, m). Rows with NaN are dominated by definition.
+    F : ndarray of shape (n, m).
     """
     F = np.asarray(F, float)
-    n = len(F)
     ok = np.all(np.isfinite(F), axis=1)
-    keep = ok.copy()
-    for start in range(0, n, 512):
-        blk = F[start:start + 512]
-        # dominated[i, j]: row j dominates row start+i
-        le = np.all(F[None, :, :] <= blk[:, None, :], axis=2)
-        lt = np.any(F[None, :, :] < blk[:, None, :], axis=2)
-        dom = le & lt & ok[None, :]
-        keep[start:start + 512] &= ~np.any(dom, axis=1)
+    keep = np.zeros(len(F), dtype=bool)
+    keep[ok] = nondominated_mask(F[ok])
     return keep
 
 
@@ -253,7 +252,7 @@ class Explorer:
         self.rows = pd.concat(self.frames, ignore_index=True)
         from .detail import page_grid
 
-        self.grids = [page_grid(r.lean_limit_deg, r.lean_step_deg, r.travel_mm) for r in self.runs]
+        self.grids = [page_grid(r.lean_limit_deg, r.lean_step_deg, r.travel_mm, r.both_sides) for r in self.runs]
         self._cache: OrderedDict[int, dict] = OrderedDict()
         self._lock = threading.Lock()
 
@@ -428,7 +427,7 @@ class Explorer:
         return {
             "title": self.title,
             "generated": _dt.datetime.now(_dt.timezone.utc).strftime("%Y-%m-%d %H:%M UTC"),
-            "versions": versions(),
+            "versions": package_versions(),
             "safety": SAFETY,
             "runs": run_info,
             "templates": templates,

@@ -8,8 +8,9 @@ from typing import Sequence
 import pandas as pd
 
 from tiltopt.base.errors import InputError
+from tiltopt.base.provenance import package_versions
 
-from .common import run_envelope, run_loads, run_shell, run_units, versions
+from .common import run_envelope, run_loads, run_shell, run_units
 
 
 def load(run_dir):
@@ -142,11 +143,12 @@ def sheet_from_run(run_dir, candidate_id: str, out_dir=None, *, run=None, jig_da
     inp = SheetInputs(
         mech=mech, candidate_id=str(candidate_id), run_id=str(getattr(run, "run_id", "")),
         lean_limit_deg=env["lean_limit_deg"], travel_mm=env["travel_mm"], lean_step_deg=env.get("lean_step_deg"),
+        both_sides=env["both_sides"],
         row=row, units=run_units(run), shell=shell if shell is not None else run_shell(run),
         loads=loads if loads is not None else run_loads(run), jig_datum=tuple(jig_datum),
         sag_mm=sag_mm, corner_load_n=corner_load_n,
         provenance={"config": meta.get("config"), "seed": meta.get("seed"),
-                    "versions": meta.get("versions") or versions()},
+                    "versions": meta.get("versions") or package_versions()},
         scenario=scenario, choice=choice if choice is not None and choice.candidate_id == str(candidate_id) else None,
         command=f"tiltopt sheet {shlex.quote(str(run_dir))} --candidate {shlex.quote(str(candidate_id))}")
     return write_sheet(out_dir, inp)

@@ -20,15 +20,15 @@ from typing import Sequence
 
 import numpy as np
 
+from tiltopt.base.provenance import package_versions
+from tiltopt.kinematics.cases import G
 from tiltopt.kinematics.mechanism import Mechanism, mechanism_to_toml, split_ref
 from tiltopt.kinematics.model import Model
 
 from .analysis import Analysis, analyse, envelope_mask, lean_grid
-from .common import SAFETY, atomic_write_text, column_label, column_unit, versions
+from .common import SAFETY, atomic_write_text, column_label, column_unit
 from .drawing import BODY_COLOURS, front_view_svg
 from .dxf import write_dxf
-
-G = 9.80665  # m/s^2, standard gravity (CGPM 1901)
 
 SAFETY_POINTS = [
     "The figures on this sheet are geometric and quasi-static estimates from a planar model; "
@@ -51,6 +51,7 @@ class SheetInputs:
     lean_limit_deg: float = 30.0
     travel_mm: Sequence[float] = (0.0,)
     lean_step_deg: float | None = None
+    both_sides: bool = False              # the envelope also leans to -limit (an asymmetric shell)
     row: dict = field(default_factory=dict)
     units: dict = field(default_factory=dict)
     shell: object | None = None
@@ -319,7 +320,7 @@ def _corners(r) -> list[tuple[int, int, str]]:
     L = len(r.lean_deg)
     picks = []
     for ti in sorted({int(np.argmin(travel)), int(np.argmin(np.abs(travel))), int(np.argmax(travel))}):
-        for li in sorted({0, L - 1}):
+        for li in sorted({0, int(np.argmin(np.abs(r.lean_deg))), L - 1}):
             picks.append((ti, li, (float(r.lean_deg[li]), float(travel[ti]))))
     return picks
 
@@ -581,8 +582,8 @@ def _provenance_text(inp: SheetInputs) -> str:
     for k in ("config", "seed"):
         if p.get(k) is not None:
             parts.append(f"{k} {p[k]}")
-    v = p.get("versions") or versions()
-    parts.append("versions " + ", ".join(f"{k} {val}" for k, val in v.items()))
+    v = p.get("versions") or package_versions()
+    parts.append("versions " + ", ".join(f"{k} {val}" for k, val in v.items() if val))
     return "; ".join(parts)
 
 
@@ -593,7 +594,7 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
     mech = inp.mech
     model = Model(mech)
     geom = model.default_geometry
-    lean = lean_grid(inp.lean_limit_deg, inp.lean_step_deg)
+    lean = lean_grid(inp.lean_limit_deg, inp.lean_step_deg, both_sides=inp.both_sides)
     an = analyse(model, geom, lean, inp.travel_mm, shell=inp.shell, loads=inp.loads)
     P = np.asarray(geom.points[0])
     spec = an.spec
@@ -625,7 +626,8 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
     labels = [f"P{k + 1}" for k in range(len(spec["pivots"]))]
     r = an.sweep
     ti0 = int(np.argmin(np.abs(np.asarray(r.travel_mm))))
-    pose0 = an.pose[0, ti0, 0] if r.converged[0, ti0, 0] else (0.0, 0.0, 0.0)
+    li0 = int(np.argmin(np.abs(r.lean_deg)))                     # lean 0: the design position
+    pose0 = an.pose[0, ti0, li0] if r.converged[0, ti0, li0] else (0.0, 0.0, 0.0)
     drawing = front_view_svg(spec, P, geom.static_camber[0], (0.0, 0.0, 0.0), an.shell_poly, dimensions=True,
                              jig_datum=jig if any(abs(v) > 1e-9 for v in jig) else None,
                              labels=labels, title=f"{inp.candidate_id}: front view at the design position")
@@ -659,9 +661,9 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
     var_rows = [[_e(column_label(c)), _num(v, 2), _e(column_unit(c, inp.units))]
                 for c, v in inp.row.items() if c.startswith("var.")]
     conv_all = bool(r.converged[0].all())
-    em = envelope_mask(r.lean_deg, inp.lean_limit_deg, inp.lean_step_deg)
+    em = envelope_mask(r.lean_deg, inp.lean_limit_deg, inp.lean_step_deg, inp.both_sides)
     kin_rows = [
-        ["track at the design position", _num(float(r.track[0, ti0, 0]), 1), "mm"],
+        ["track at the design position", _num(float(r.track[0, ti0, li0]), 1), "mm"],
         ["max |scrub| over the envelope", _num(np.nanmax(np.abs(r.scrub[0][:, em])), 2), "mm"],
         ["max |heave| over the envelope", _num(np.nanmax(np.abs(r.heave[0][:, em])), 2), "mm"],
         ["max |camber error| over the envelope", _num(np.degrees(np.nanmax(np.abs(r.camber_error[0][:, em]))), 2),
@@ -669,7 +671,9 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
         ["every envelope state reached", "yes" if conv_all else '<span class="bad">NO</span>', ""],
     ]
     scen = [[_e(k), _e(v)] for k, v in inp.scenario.items()]
-    scen += [["lean envelope", _e(f"0 to {inp.lean_limit_deg:g} deg (symmetric)")],
+    lim = inp.lean_limit_deg
+    scen += [["lean envelope", _e(f"-{lim:g} to {lim:g} deg (both sides)" if inp.both_sides else
+                                   f"0 to {lim:g} deg (the other side mirrors it)")],
              ["travel envelope", _e(", ".join(f"{t:g}" for t in inp.travel_mm) + " mm (bump positive)")],
              ["template / mechanism", _e(mech.name + (f" – {_short(mech.description)}" if mech.description else ""))],
              ["linkage station", _e(f"x = {mech.station_x_mm:g} mm")]]
