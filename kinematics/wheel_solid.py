@@ -329,9 +329,10 @@ def _polygon_signed(p, V):
     return np.where(inside, -d, d)
 
 
-def _polygon_gap(V, W):
-    """Signed gap between convex polygons V, W (..., k, 2): their distance, or minus the overlap
-    along the best separating edge normal (separating-axis test) where they intersect."""
+def polygon_separation(V, W):
+    """Separating-axis test of convex polygons V, W (..., k, 2): the largest gap between their projections
+    on an edge normal of either; positive when they are apart, minus the overlap along the best axis when
+    they intersect."""
     def sep(A, B):
         a, b = A, np.roll(A, -1, axis=-2)
         e = b - a
@@ -339,7 +340,13 @@ def _polygon_gap(V, W):
         pa = np.einsum("...kd,...jd->...kj", nrm, A)
         pb = np.einsum("...kd,...jd->...kj", nrm, B)
         return np.max(np.maximum(pb.min(-1) - pa.max(-1), pa.min(-1) - pb.max(-1)), -1)
-    s = np.maximum(sep(V, W), sep(W, V))
+    return np.maximum(sep(V, W), sep(W, V))
+
+
+def _polygon_gap(V, W):
+    """Signed gap between convex polygons V, W (..., k, 2): their distance, or minus the overlap
+    along the best separating edge normal (separating-axis test) where they intersect."""
+    s = polygon_separation(V, W)
     d = np.minimum(np.min(_polygon_signed_abs(V, W), -1), np.min(_polygon_signed_abs(W, V), -1))
     return np.where(s > 0, d, s)
 

@@ -64,6 +64,7 @@ BATCH_TABLE_KEYS = ("name", "output", "retries")
 RUNS_KEYS = ("config", "seeds", "set")
 GRID_KEYS = ("config", "seeds", "set", "values")
 SUMMARY = "summary.parquet"
+STOP_FILE = "batch.stop"      # in the batch folder: written on Ctrl-C; every run stops after its generation
 SUMMARY_UNITS = {"run_id": "", "config": "", "seed": "1", "overrides": "JSON of dotted config keys", "status": "",
                  "attempts": "1", "front_size": "1", "generations": "1", "evaluations": "1",
                  "hypervolume": "1 (normalised objectives, reference 1.1 each)", "elapsed_s": "s", "error": "",
@@ -295,7 +296,8 @@ def execute_item(item: dict) -> dict:
                 cfg, problem, record = prepare_fresh(cfg, d, item["config"])
                 resume = False
             Runner(problem, cfg.run, d, item["run_id"], record, progress=False, notices=False,
-                   lock=lock, restart_hint=BATCH_RESTART_HINT).run(resume=resume)
+                   lock=lock, restart_hint=BATCH_RESTART_HINT, report_progress=True,
+                   stop_file=d.parent / STOP_FILE).run(resume=resume)
         except KeyboardInterrupt:   # a second Ctrl-C, or one before the run started: the last checkpoint stays valid
             return summary_row(item, status="interrupted")
         except InputError as exc:   # a damaged file of the run folder, a changed input: the message names it
@@ -450,15 +452,44 @@ def _log(echo, text):
 
 
 def _batch_lock(batch: Batch) -> RF.FolderLock:
-    """Take the batch folder's lock (a second driver of the same batch is refused, naming the holder's pid)."""
+    """Take the batch folder's lock (a second driver of the same batch is refused, naming the holder's pid);
+    a stop request left by an earlier session is removed."""
     lock = RF.FolderLock.acquire(batch.batch_dir, RF.BATCH_LOCK, "batch")
     RF.clean_temp_files(batch.batch_dir)
+    _clear_stop(batch)
     return lock
 
 
+def _request_stop(batch: Batch) -> None:
+    """Ask every run of the batch to stop after its generation with a checkpoint (``batch.stop``)."""
+    try:
+        (batch.batch_dir / STOP_FILE).write_text("stop requested by Ctrl-C\n", encoding="utf-8")
+    except OSError:
+        pass
+
+
+def _clear_stop(batch: Batch) -> None:
+    p = batch.batch_dir / STOP_FILE
+    if p.is_file() and not p.is_symlink():
+        p.unlink(missing_ok=True)
+
+
+def _show(monitor, running_ids, batch_dir: Path, force: bool = False) -> None:
+    """The progress lines of the running runs (their progress.json)."""
+    if monitor is None:
+        return
+    from .progress import read_progress
+
+    monitor.show({rid: read_progress(batch_dir / rid) for rid in running_ids}, force=force)
+
+
 def run_local(batch: Batch, workers: int = 2, echo=None, poll_s: float = 0.2,
-              rerun_changed: bool = False) -> pd.DataFrame:
+              rerun_changed: bool = False, monitor=None) -> pd.DataFrame:
     """Run a batch in local worker processes (one process per run, ``workers`` at a time).
+
+    ``monitor``: a :class:`tiltopt.optimizer.progress.BatchMonitor` for the progress lines of the
+    running runs. Ctrl-C stops every running run after its generation with a checkpoint (a second
+    Ctrl-C stops waiting for them); every run can be continued by starting the batch again.
 
     Raises
     ------
@@ -468,10 +499,15 @@ def run_local(batch: Batch, workers: int = 2, echo=None, poll_s: float = 0.2,
     with _batch_lock(batch):
         settle_changed(batch, rerun_changed, echo)
         _log(echo, f"batch {batch.name}: {len(batch.items)} runs in {batch.batch_dir}")
-        return _run_local(batch, workers, echo, poll_s)
+        try:
+            return _run_local(batch, workers, echo, poll_s, monitor)
+        finally:
+            _clear_stop(batch)
+            if monitor is not None:
+                monitor.close()
 
 
-def _run_local(batch: Batch, workers: int, echo, poll_s: float) -> pd.DataFrame:
+def _run_local(batch: Batch, workers: int, echo, poll_s: float, monitor=None) -> pd.DataFrame:
     ctx = mp.get_context("spawn")
     rows = {it.run_id: summary_row(it.to_dict()) for it in batch.items}
     todo = [it for it in batch.items if rows[it.run_id]["status"] != "finished"]
@@ -495,6 +531,7 @@ def _run_local(batch: Batch, workers: int, echo, poll_s: float) -> pd.DataFrame:
                 running[it.run_id] = (p, it, recv)
                 _log(echo, f"{it.run_id}: started (attempt {attempts[it.run_id]}, pid {p.pid})")
             time.sleep(poll_s)
+            _show(monitor, list(running), batch.batch_dir)
             for rid, (p, it, recv) in list(running.items()):
                 _receive(recv, rid, told)
                 if p.is_alive():
@@ -525,11 +562,21 @@ def _run_local(batch: Batch, workers: int, echo, poll_s: float) -> pd.DataFrame:
                 rows[rid] = row
                 _write_summary(batch, rows)
     except KeyboardInterrupt:
-        # Ctrl-C reaches the workers too (same process group): each stops after its generation
-        # with a checkpoint. Wait for them, record where they are, start nothing new.
-        _log(echo, "stopping: the running runs write a checkpoint after their generation ...")
+        # Ctrl-C reaches the workers too (same process group); the stop request reaches those it does not
+        # (a worker started in another session): each stops after its generation with a checkpoint.
+        # Wait for them, record where they are, start nothing new.
+        _request_stop(batch)
+        _log(echo, "stopping: the running runs write a checkpoint after their generation (Ctrl-C again to stop "
+                   "waiting; every run continues from its last checkpoint when the batch is started again) ...")
+        try:
+            for rid, (p, it, _recv) in running.items():
+                t_end = time.monotonic() + 120
+                while p.is_alive() and time.monotonic() < t_end:
+                    p.join(timeout=poll_s)
+                    _show(monitor, [r for r, (q, _, _) in running.items() if q.is_alive()], batch.batch_dir)
+        except KeyboardInterrupt:
+            pass
         for rid, (p, it, _recv) in running.items():
-            p.join(timeout=120)
             if p.is_alive():
                 p.terminate()
                 p.join()
@@ -638,12 +685,16 @@ def connect_scheduler(scheduler, timeout_s: float = 10.0):
                          f"a Dask scheduler, of a compatible version?", "--scheduler") from None
 
 
-def run_dask(batch: Batch, scheduler, echo=None, rerun_changed: bool = False) -> pd.DataFrame:
+def run_dask(batch: Batch, scheduler, echo=None, rerun_changed: bool = False, monitor=None,
+             poll_s: float = 0.5) -> pd.DataFrame:
     """Run a batch on a Dask distributed cluster (``scheduler``: an address or a ``Client``).
 
     Workers need the same files at the same paths (configs, shells, the
     results folder): a shared filesystem, or one machine. Each run folder is
     locked by the worker that writes it; the batch folder by this process.
+    ``monitor``: as :func:`run_local` (the runs' progress.json on the shared folder). Ctrl-C asks every
+    running run to stop after its generation (``batch.stop``: no Ctrl-C reaches a Dask worker) and
+    waits for them; a second Ctrl-C stops waiting (the runs still stop at their next generation).
     """
     as_completed = require_distributed().as_completed
     client, own = connect_scheduler(scheduler)
@@ -651,13 +702,18 @@ def run_dask(batch: Batch, scheduler, echo=None, rerun_changed: bool = False) ->
         with _batch_lock(batch):
             settle_changed(batch, rerun_changed, echo)
             _log(echo, f"batch {batch.name}: {len(batch.items)} runs in {batch.batch_dir} (Dask)")
-            return _run_dask(batch, client, echo, as_completed)
+            try:
+                return _run_dask(batch, client, echo, as_completed, monitor, poll_s)
+            finally:
+                _clear_stop(batch)
+                if monitor is not None:
+                    monitor.close()
     finally:
         if own:
             client.close()
 
 
-def _run_dask(batch: Batch, client, echo, as_completed) -> pd.DataFrame:
+def _run_dask(batch: Batch, client, echo, as_completed, monitor=None, poll_s: float = 0.5) -> pd.DataFrame:
     rows = {it.run_id: summary_row(it.to_dict()) for it in batch.items}
     attempts = {it.run_id: 0 for it in batch.items}
     _write_summary(batch, rows)
@@ -677,22 +733,62 @@ def _run_dask(batch: Batch, client, echo, as_completed) -> pd.DataFrame:
         else:
             pending.append(submit(it))
     ac = as_completed(pending)
-    for f in ac:
+    live = {f.key: f for f in pending}
+    stopping, waited = False, False
+
+    def done(f):
         it = futs[f.key]
+        live.pop(f.key, None)
         try:
             row = f.result()
             row["attempts"] = attempts[it.run_id]
             _log(echo, f"{it.run_id}: {row['status']}" + (f", front of {row['front_size']}"
-                                                          if row["status"] == "finished" else f": {row['error']}"))
+                                                          if row["status"] == "finished" else
+                                                          (" (continues from its checkpoint next time)"
+                                                           if row["status"] == "interrupted" else f": {row['error']}")))
         except Exception as exc:  # worker lost (KilledWorker, connection closed ...)
             row = summary_row(it.to_dict(), attempts[it.run_id])
-            if attempts[it.run_id] <= batch.retries:
+            if attempts[it.run_id] <= batch.retries and not stopping:
                 _log(echo, f"{it.run_id}: worker lost ({type(exc).__name__}); starting it again")
                 row["status"] = "retrying"
-                ac.add(submit(it))
+                g = submit(it)
+                live[g.key] = g
+                ac.add(g)
             else:
-                row["status"] = "died"
-                row["error"] = f"{type(exc).__name__}: {exc}"
+                row["status"] = "interrupted" if stopping else "died"
+                row["error"] = "" if stopping else f"{type(exc).__name__}: {exc}"
         rows[it.run_id] = row
         _write_summary(batch, rows)
+
+    while not ac.is_empty():
+        try:
+            for f in ac.next_batch(block=False):
+                done(f)
+            started = [futs[k].run_id for k, f in live.items() if f.status != "pending" or _started(futs[k])]
+            _show(monitor, started, batch.batch_dir)
+            time.sleep(poll_s)
+        except KeyboardInterrupt:
+            if stopping:               # a second Ctrl-C: stop waiting; the runs stop at their next generation
+                waited = True
+                break
+            stopping = True
+            _request_stop(batch)
+            _log(echo, "stopping: the running runs write a checkpoint after their generation (Ctrl-C again to stop "
+                       "waiting; every run continues from its last checkpoint when the batch is started again) ...")
+            for k, f in list(live.items()):     # runs not started yet are not started
+                if not _started(futs[k]):
+                    f.cancel()
+                    it = futs[k]
+                    live.pop(k)
+                    rows[it.run_id] = {**summary_row(it.to_dict(), attempts[it.run_id]), "status": "interrupted"}
+    if waited:
+        for k in list(live):
+            it = futs[k]
+            rows[it.run_id] = {**summary_row(it.to_dict(), attempts[it.run_id]), "status": "interrupted"}
+    _write_summary(batch, rows)
     return pd.DataFrame([rows[it.run_id] for it in batch.items], columns=list(SUMMARY_UNITS))
+
+
+def _started(item: BatchItem) -> bool:
+    """A run a worker has taken up (its progress.json exists, from this session or an earlier one)."""
+    return (Path(item.run_dir) / R.PROGRESS).is_file()

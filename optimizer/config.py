@@ -14,6 +14,10 @@
 
 Instead of the problem tables, a ``[benchmark]`` table selects a published test
 problem (:mod:`tiltopt.optimizer.reference_problems`), for checking the optimiser.
+
+An optional ``[targets]`` table says which designs of the front the user would build and how the
+objectives weigh in the best compromise (:mod:`tiltopt.optimizer.selection`); it does not change
+the problem.
 """
 from __future__ import annotations
 
@@ -81,6 +85,8 @@ class RunConfig:
         The ``[benchmark]`` table.
     data : dict
         The config as read (JSON-able; run.json stores it).
+    targets : tiltopt.optimizer.selection.Targets
+        The ``[targets]`` table (empty without one).
     source : str
         The file it came from.
     base_dir : Path
@@ -93,6 +99,7 @@ class RunConfig:
     data: dict
     source: str
     base_dir: Path = field(default_factory=Path)
+    targets: Any = None
 
     def make_problem(self):
         """A fresh problem object with ``evaluate_designs`` (TiltProblem, or a benchmark)."""
@@ -190,12 +197,36 @@ def parse_config(data: dict, src: str = "<memory>", base_dir: str | Path | None 
 
         n_obj = parse_benchmark(data["benchmark"], src).n_obj
         _check_size(run, n_obj, 1, src)
-        return RunConfig(run=run, spec=None, benchmark=dict(data["benchmark"]), data=data, source=src, base_dir=base)
+        return RunConfig(run=run, spec=None, benchmark=dict(data["benchmark"]), data=data, source=src, base_dir=base,
+                         targets=_empty_targets())
     from tiltopt.problems.spec import parse_problem
 
     spec = parse_problem(data, src, base)
     _check_size(run, len(spec.objectives), spec.envelope.n_states, src)
-    return RunConfig(run=run, spec=spec, benchmark=None, data=data, source=src, base_dir=base)
+    return RunConfig(run=run, spec=spec, benchmark=None, data=data, source=src, base_dir=base,
+                     targets=parse_run_targets(data.get("targets", {}), src, spec))
+
+
+def target_names(spec) -> list[str]:
+    """The names a ``[targets]`` bound may name for a problem: its metric columns, objective names and
+    ``obj.`` columns, and its design variables (``var.NAME``)."""
+    from tiltopt.problems.problem import METRIC_UNITS
+
+    return (list(METRIC_UNITS) + list(spec.objectives) + [f"obj.{o}" for o in spec.objectives]
+            + [f"var.{v}" for v in spec.template.names])
+
+
+def parse_run_targets(table, src: str, spec):
+    """The ``[targets]`` table of a run config (:func:`tiltopt.optimizer.selection.parse_targets`)."""
+    from .selection import parse_targets
+
+    return parse_targets(table, src, target_names(spec), list(spec.objectives))
+
+
+def _empty_targets():
+    from .selection import Targets
+
+    return Targets()
 
 
 def _check_size(run: RunSettings, n_obj: int, states: int, src: str) -> None:

@@ -18,6 +18,8 @@ Files (every one written atomically: a temp file in the same folder, then
   hashed in ``run.json``; resume, explorer and sheet read these copies.
 - ``run.lock``: the OS lock of the process writing the folder
   (:mod:`tiltopt.optimizer.runfolder`).
+- ``progress.json``: in a batch, the run's latest generation (generation, front size, ETA), for the
+  batch's progress lines; rewritten about once a second.
 
 Columns of front/evaluations: ``candidate_id``, ``generation``, ``feasible``,
 ``violation``, ``reason``, ``var.<name>``, ``obj.<name>`` (as minimised),
@@ -47,6 +49,7 @@ from tiltopt.base.units import unit_of_name
 
 FRONT, EVALUATIONS, GENERATIONS, RUN_JSON, CHECKPOINT = (
     "front.parquet", "evaluations.parquet", "generations.parquet", "run.json", "checkpoint.npz")
+PROGRESS = "progress.json"       # a batch run's latest generation, for the batch's progress lines
 PARTS_DIR = "evaluations.parts"
 META_KEY = b"tiltopt"
 CAUTION = SAFETY_CAUTION

@@ -33,7 +33,7 @@ RUN_LOCK, BATCH_LOCK = "run.lock", "batch.lock"
 INPUTS_DIR = "inputs"
 OLD_CHECKPOINT = "checkpoint.pkl"   # written by tiltopt before checkpoint.npz; never loaded
 #: files a run writes at the top of its folder
-RUN_FILES = (R.FRONT, R.EVALUATIONS, R.GENERATIONS, R.RUN_JSON, R.CHECKPOINT, OLD_CHECKPOINT)
+RUN_FILES = (R.FRONT, R.EVALUATIONS, R.GENERATIONS, R.RUN_JSON, R.CHECKPOINT, OLD_CHECKPOINT, R.PROGRESS)
 #: files the report commands write into a run folder (explorer page; sheets/<candidate>/...)
 REPORT_FILES = ("explorer.html", "plotly.min.js")
 SHEET_FILES = ("sheet.html", "pivots.csv", "candidate.toml", "linkage.dxf")

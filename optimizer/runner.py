@@ -229,11 +229,18 @@ class Runner:
         Print notices (stop requested, how to resume) on stderr.
     lock : FolderLock, optional
         The run folder's lock, when the caller holds it already (else :meth:`run` takes it).
+    report_progress : bool
+        Write ``progress.json`` in the run folder (about once a second and at the end): the
+        generation, front size and ETA a batch shows (docs/formats.md, "Run folder").
+    stop_file : Path, optional
+        Stop after the current generation, as after Ctrl-C, once this file exists (a batch's stop
+        request: how a Dask worker, which no Ctrl-C reaches, is stopped).
     """
 
     def __init__(self, problem, settings: RunSettings, run_dir: Path, run_id: str, config: dict | None = None,
                  progress: bool = True, stop_after: int | None = None, notices: bool = True,
-                 lock: RF.FolderLock | None = None, restart_hint: str = CK.RESTART_HINT):
+                 lock: RF.FolderLock | None = None, restart_hint: str = CK.RESTART_HINT,
+                 report_progress: bool = False, stop_file: Path | None = None):
         self.problem = problem
         self.restart_hint = restart_hint     # the end of the message about a damaged checkpoint
         self.settings = settings
@@ -249,6 +256,9 @@ class Runner:
         self.units = self._units()
         self.versions = R.package_versions()
         self.lock = lock
+        self.report_progress = report_progress
+        self.stop_file = Path(stop_file) if stop_file is not None else None
+        self._reported = -math.inf
 
     # -------------------------------------------------------------- setup
     def _units(self) -> dict:
@@ -463,6 +473,35 @@ class Runner:
             doc["error"] = error
         R.write_json(self.run_dir / R.RUN_JSON, doc)
 
+    def _progress_report(self, status: str, eta_s: float = float("nan"), evals_per_s: float = float("nan"),
+                         force: bool = False) -> None:
+        """``progress.json`` (a batch's progress lines read it): at most once a second unless ``force``."""
+        if not self.report_progress:
+            return
+        now = time.monotonic()
+        if not force and now - self._reported < 1.0:
+            return
+        self._reported = now
+        s = self.state
+        last = s.generations[-1] if s.generations else {}
+        doc = {"run_id": self.run_id, "status": status, "generation": s.generation,
+               "generations": self.settings.generations, "front_size": self._front_size(),
+               "elapsed_s": s.elapsed_s, "eta_s": eta_s if math.isfinite(eta_s) else None,
+               "evals_per_s": evals_per_s if math.isfinite(evals_per_s) else None,
+               "feasible_share": last.get("feasible_share"),
+               "hypervolume": last.get("hypervolume") if math.isfinite(last.get("hypervolume", float("nan"))) else None,
+               "updated_utc": datetime.now(timezone.utc).isoformat()}
+        try:
+            R.write_json(self.run_dir / R.PROGRESS, doc)
+        except OSError:      # a progress line is not worth stopping a run for
+            pass
+
+    def _stop_requested(self) -> bool:
+        try:
+            return self.stop_file is not None and self.stop_file.exists()
+        except OSError:
+            return False
+
     def _checkpoint(self, status="running"):
         self._flush_part()
         self._write_front_and_generations()
@@ -528,8 +567,10 @@ class Runner:
         session_gens = 0
         try:
             with _StopFlag(self.progress) as stop:
+                self._progress_report("running", force=True)
                 while alg.has_next():
-                    if stop.requested or (self.stop_after is not None and s.generation >= self.stop_after):
+                    if stop.requested or (self.stop_after is not None and s.generation >= self.stop_after) \
+                            or self._stop_requested():
                         status = "interrupted"
                         break
                     t0 = time.perf_counter()
@@ -566,8 +607,9 @@ class Runner:
                         "evaluation_s": eval_dt})
                     session_gens += 1
                     per_gen = (now - session_t0) / session_gens
-                    self.progress.update(s.generation, len(X) / max(now - t0, 1e-9), float(feas.mean()), hv,
-                                         per_gen * (self.settings.generations - s.generation))
+                    eta = per_gen * (self.settings.generations - s.generation)
+                    self.progress.update(s.generation, len(X) / max(now - t0, 1e-9), float(feas.mean()), hv, eta)
+                    self._progress_report("running", eta, len(X) / max(now - t0, 1e-9))
                     if s.generation % every == 0 and alg.has_next():
                         self._checkpoint()
         except KeyboardInterrupt:
@@ -577,11 +619,13 @@ class Runner:
             self._write_front_and_generations()
             self._write_evaluations()
             self._write_run_json("interrupted")
+            self._progress_report("interrupted", force=True)
             raise
         except BaseException as exc:
             self.progress.close()
             if not (isinstance(exc, OSError) and exc.errno in RF.DISK_FULL):   # a full disk takes no more writes
                 self._write_run_json("failed", error=f"{type(exc).__name__}: {exc}")
+                self._progress_report("failed", force=True)
             raise
         self.progress.close()
         self._flush_part()
@@ -589,6 +633,7 @@ class Runner:
         self._write_checkpoint()
         self._write_evaluations()
         self._write_run_json(status)
+        self._progress_report(status, 0.0 if status == "finished" else float("nan"), force=True)
         if status == "finished":   # evaluations.parquet now holds every part
             _remove_parts(self.run_dir)
         if status == "interrupted":

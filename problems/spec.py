@@ -51,7 +51,8 @@ Tables (TOML, our own format; lengths mm, angles degrees)::
     max_spring_stroke_mm = 50.0     # sprung: spring stroke over the envelope
     spring_bottoming = false        # with loads, sprung: no spring solid over the envelope
 
-A ``[run]`` table is the optimiser's and is skipped here.
+The ``[run]`` and ``[targets]`` tables are the optimiser's (:mod:`tiltopt.optimizer.config`) and are
+skipped here: targets choose among the designs of a front, they do not change the problem.
 """
 from __future__ import annotations
 
@@ -82,7 +83,7 @@ from .templates import Template, get_template, template_from_mechanism
 PROBLEM_KEYS = ("template", "envelope", "objectives", "constraints", "shell", "loads", "vehicle", "sizing",
                 "members", "tilt_lock", "load_cases", "springs", "fatigue")
 LOADS_TABLES = ("vehicle", "sizing", "members", "tilt_lock", "springs", "fatigue")   # embedded loads tables
-SKIPPED_KEYS = ("run",)
+SKIPPED_KEYS = ("run", "targets")   # the optimiser's tables (optimizer/config.py)
 DEFAULT_LEAN_LIMIT_DEG = 30.0
 DEFAULT_LEAN_STEP_DEG = 5.0
 DEFAULT_SPRUNG_TRAVEL_MM = (-30.0, 0.0, 30.0)

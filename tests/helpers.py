@@ -344,3 +344,90 @@ def one_error(result, *needles) -> str:
     for n in needles:
         assert n in lines[0], result.output
     return lines[0]
+
+
+# a large front for the explorer's browser tests and benchmarks/explorer.py
+BIG_CONFIG = """
+objectives = ["overall_width", "max_scrub", "max_heave", "min_clearance", "linkage_mass"]
+shell = "{configs}/shell_demo.toml"
+loads = "{configs}/loads_demo.toml"
+[run]
+name = "big"
+seed = 3
+algorithm = "nsga3"
+population = 12
+generations = 2
+output = "out"
+checkpoint_every = 1
+[template]
+name = "wishbone_rocker"
+fixed = {{ outer_spacing_delta = 0.0, outer_split_delta = 0.0 }}
+[envelope]
+lean_limit_deg = 30.0
+lean_step_deg = 5.0
+travel_mm = [-30.0, 0.0, 30.0]
+[constraints]
+max_width_mm = 900.0
+[targets]
+max_scrub_mm = {{ max = 40.0 }}
+"""
+
+
+def make_big_front(folder: Path, n: int = 10_000, n_infeasible: int = 20_000, seed: int = 0) -> Path:
+    """A run folder with an ``n``-design front and ``n_infeasible`` infeasible evaluations.
+
+    A real short run of a demo-like problem (five objectives, the demo shell and loads) gives the folder,
+    its inputs and its column layout; its front is then replaced by ``n`` designs: the template's base
+    design with each variable moved by up to 2 % of its range (so every design assembles and its detail
+    can be computed), with the objective and metric values of a feasible evaluated design each scaled by
+    up to +-3 % (seeded noise: a synthetic front for the page, not an optimisation result). The infeasible
+    rows are such designs marked infeasible with a reason.
+    """
+    import pandas as pd
+
+    from tiltopt.optimizer import results as R
+    from tiltopt.optimizer.config import load_config
+    from tiltopt.optimizer.runner import start_run
+    from tiltopt.problems.registry import OBJECTIVES
+
+    folder = Path(folder)
+    folder.mkdir(parents=True, exist_ok=True)
+    cfg = folder / "big.toml"
+    cfg.write_text(BIG_CONFIG.format(configs=CONFIGS), encoding="utf-8")
+    run_dir = Path(start_run(load_config(cfg), overwrite=True, progress=False).run_dir)
+    run = R.load_run(run_dir)
+    ev = run.evaluations
+    feas = ev[ev["feasible"].astype(bool)]
+    assert len(feas), "the short run found no feasible design"
+    tpl = run.template
+    rng = np.random.default_rng(seed)
+    total = n + n_infeasible
+    x0 = tpl.defaults
+    span = tpl.xu - tpl.xl
+    X = np.clip(x0 + rng.uniform(-0.02, 0.02, (total, len(x0))) * span, tpl.xl, tpl.xu)
+    base = feas.iloc[rng.integers(0, len(feas), total)].reset_index(drop=True)
+    rows = base.copy()
+    num = [c for c in rows.columns
+           if pd.api.types.is_float_dtype(rows[c]) and not c.startswith(("obj.", "var.", "con."))
+           and c != "violation"]
+    rows[num] = rows[num].to_numpy() * (1.0 + rng.uniform(-0.03, 0.03, (total, len(num))))
+    for o in run.objective_names:            # objectives from their metrics, as the problem writes them
+        spec = OBJECTIVES[o]
+        rows[f"obj.{o}"] = spec.sign * rows[spec.metric]
+    for j, v in enumerate(tpl.variables):
+        rows[f"var.{v.name}"] = X[:, j]
+    rows["candidate_id"] = [f"g{1 + k // 1000:03d}-{k % 1000:04d}" for k in range(total)]
+    rows["generation"] = np.array([1 + k // 1000 for k in range(total)], dtype=np.int64)
+    bad = np.arange(total) >= n
+    rows["feasible"] = ~bad
+    rows["violation"] = np.where(bad, rng.uniform(0.1, 5.0, total), 0.0)
+    rows["reason"] = np.where(bad, [f"max scrub {v:.1f} mm over the limit" for v in rng.uniform(0.1, 9.0, total)], "")
+    meta = {"run_id": run.run_id, "seed": run.meta.get("seed"), "config": run.meta.get("config"),
+            "versions": run.meta.get("versions"), "caution": R.CAUTION,
+            "note": "synthetic front for tests and benchmarks (tests/helpers.py make_big_front)"}
+    R.write_parquet(run_dir / R.FRONT, rows[~bad].reset_index(drop=True), run.units, meta)
+    R.write_parquet(run_dir / R.EVALUATIONS, rows, run.units, meta)
+    meta_json = dict(run.meta)
+    meta_json["front_size"] = int(n)
+    R.write_json(run_dir / R.RUN_JSON, meta_json)
+    return run_dir

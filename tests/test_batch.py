@@ -6,6 +6,7 @@ from __future__ import annotations
 
 import json
 import os
+import re
 import signal
 import threading
 import time
@@ -263,6 +264,74 @@ def test_ctrl_c_stops_a_local_batch_and_a_restart_finishes_it(tmp_path):
     for it in b.items:
         ev = pq.read_table(Path(it.run_dir) / "evaluations.parquet").to_pandas()
         assert len(ev) == 40 * 12 and ev["candidate_id"].is_unique
+
+
+def _tilt_run(folder: Path, name: str, template: str = "wishbone_rocker", lean: float = 30.0) -> Path:
+    """A real tiny tilt run (tests/helpers.py TINY_CONFIG) with another name, template or lean limit."""
+    from tests.helpers import TINY_CONFIG
+    from tiltopt.optimizer.config import load_config
+    from tiltopt.optimizer.runner import start_run
+
+    folder.mkdir(parents=True, exist_ok=True)
+    text = (TINY_CONFIG.replace('name = "tiny"', f'name = "{name}"')
+            .replace('name = "wishbone_rocker"', f'name = "{template}"')
+            .replace("lean_limit_deg = 30.0", f"lean_limit_deg = {lean}"))
+    (folder / f"{name}.toml").write_text(text, encoding="utf-8")
+    return Path(start_run(load_config(folder / f"{name}.toml"), overwrite=True, progress=False).run_dir)
+
+
+def test_merge_refuses_fronts_of_different_problems(tmp_path):
+    from click.testing import CliRunner
+
+    from tiltopt.cli import main
+
+    a = _tilt_run(tmp_path, "a30")
+    b = _tilt_run(tmp_path, "b35", lean=35.0)
+    c = _tilt_run(tmp_path, "c30", template="twin_beam_sprung")
+    r = CliRunner().invoke(main, ["merge", str(a), str(b), "-o", str(tmp_path / "m")])
+    assert r.exit_code == 2 and "Traceback" not in r.output
+    assert "envelope lean limit deg: 30 in a30-s2, 35 in b35-s2" in r.output and "--allow-different" in r.output
+    assert not (tmp_path / "m" / "front.parquet").exists()
+    # anyway, on request: each source keeps its problem
+    r = CliRunner().invoke(main, ["merge", str(a), str(b), "-o", str(tmp_path / "m"), "--allow-different"])
+    assert r.exit_code == 0, r.output
+    meta = json.loads((tmp_path / "m" / "run.json").read_text())
+    assert meta["allow_different"] is True and meta["problem_record"] is None
+    assert [s["problem_record"]["envelope"]["lean_limit_deg"] for s in meta["sources"]] == [30.0, 35.0]
+    # different templates over one problem merge freely, and the command says who owns the front
+    r = CliRunner().invoke(main, ["merge", str(a), str(c), "-o", str(tmp_path / "t")])
+    assert r.exit_code == 0, r.output
+    meta = json.loads((tmp_path / "t" / "run.json").read_text())
+    assert meta["allow_different"] is False and meta["problem_record"]["envelope"]["lean_limit_deg"] == 30.0
+    merged = pq.read_table(tmp_path / "t" / "front.parquet").to_pandas()
+    if merged["source_run"].nunique() > 1:
+        n = merged["source_run"].value_counts()
+        assert f"wishbone_rocker {n['a30-s2']} (" in r.output and f"twin_beam_sprung {n['c30-s2']} (" in r.output
+    # a merged front merges again with a run of its problem, and is refused with another
+    r = CliRunner().invoke(main, ["merge", str(tmp_path / "t"), str(b), "-o", str(tmp_path / "tb")])
+    assert r.exit_code == 2 and "lean limit" in r.output
+
+
+def test_batch_shows_progress_lines_and_a_final_table(tmp_path):
+    """Two workers, output not a terminal (a log): a progress line per run (generation, front, ETA), then the table."""
+    import subprocess
+    import sys
+
+    b = _slow_batch(tmp_path, "p", 12, [1, 2])
+    cmd = [sys.executable, "-c", "from tiltopt.cli import main; main()", "batch", str(tmp_path / "batch.toml"),
+           "--workers", "2", "--progress-every", "0.5"]
+    out = subprocess.run(cmd, capture_output=True, text=True, timeout=300).stdout
+    lines = out.splitlines()
+    for rid in ("z-s1", "z-s2"):      # run ids: the config's run name and the seed
+        prog = [ln for ln in lines if ln.startswith(f"progress {rid} ")]
+        assert prog, out
+        assert all(re.search(r"gen \d+/12  front \d+  ETA ", ln) for ln in prog), prog
+    head = next(k for k, ln in enumerate(lines) if ln.split() == ["run", "status", "generations", "front", "size",
+                                                                   "time", "attempts"])
+    rows = [ln.split() for ln in lines[head + 2:head + 4]]
+    summary = pq.read_table(b.batch_dir / "summary.parquet").to_pandas()
+    assert [(r[0], r[1], int(r[2]), int(r[3])) for r in rows] == \
+        [(s.run_id, "finished", 12, int(s.front_size)) for s in summary.itertuples()]
 
 
 # ------------------------------------------------------------------ Dask is an extra

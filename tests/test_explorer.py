@@ -194,30 +194,3 @@ def test_cli_explore_and_sheet(tiny, tmp_path):
     assert r.exit_code == 0, r.output
     assert (tmp_path / "tb" / "candidate.toml").exists()
 
-
-def test_drawing_gaps_compiled_match_numpy_and_shapely():
-    """Front-view polyline-to-segments gaps: the compiled path against the numpy one, and
-    against shapely's distance (a general-purpose geometry library, independent reference)."""
-    import shapely
-    from shapely.geometry import LinearRing, LineString
-
-    from tiltopt.reports.drawing import _poly_seg_gap, poly_seg_gap
-
-    rng = np.random.default_rng(3)
-    ang = np.linspace(0, 2 * np.pi, 16, endpoint=False)
-    P = np.stack([np.cos(ang), np.sin(ang)], -1)[None, None] * rng.uniform(50, 250, (6, 4, 1, 1))
-    P = P + rng.normal(scale=5.0, size=P.shape)
-    A = rng.normal(scale=300.0, size=(6, 4, 5, 2))
-    B = A + rng.normal(scale=80.0, size=A.shape)
-    B[0, 0, 0] = A[0, 0, 0]                      # a segment of zero length
-    got = poly_seg_gap(P, A, B)
-    assert got.shape == (6, 4)
-    crossing = got == 0.0
-    assert crossing.any() and not crossing.all()
-    assert np.allclose(got[~crossing], _poly_seg_gap(P, A, B)[~crossing], rtol=0, atol=1e-9)
-    for i in range(6):
-        for j in range(4):
-            ring = LinearRing(P[i, j])
-            segs = [LineString([A[i, j, s], B[i, j, s]]) if np.any(A[i, j, s] != B[i, j, s])
-                    else shapely.geometry.Point(A[i, j, s]) for s in range(5)]
-            assert got[i, j] == pytest.approx(min(ring.distance(g) for g in segs), abs=1e-6)

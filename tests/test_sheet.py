@@ -145,36 +145,6 @@ def test_tyre_outline_is_the_torus_silhouette():
     assert low[0] == pytest.approx(c[0] - (R - r) * math.sin(g), abs=h / 2)
 
 
-def test_front_view_gaps_against_shapely():
-    """The front-view tyre-to-link gap equals shapely's polygon-to-line distance (reference library)."""
-    from shapely.geometry import LineString, Polygon
-
-    from tiltopt.reports.drawing import front_view_gaps, tyre_outline
-
-    mech = load_mechanism(Path(__file__).resolve().parents[1] / "configs" / "wishbone_rocker.toml")
-    model = Model(mech)
-    from tiltopt.reports.drawing import drawing_spec
-
-    spec = drawing_spec(model)
-    res = sweep(model, None, [0.0, 20.0], [0.0])
-    g = front_view_gaps(spec, res.points, res.camber)
-    P = res.points[0, 0, 1]
-    best = np.inf
-    for w_i, w in enumerate(spec["wheels"]):
-        tyre = Polygon(tyre_outline(P[w["centre"]], res.camber[0, 0, 1, w_i], w["R"], w["r"], 10))
-        lines = []
-        for b_i, b in enumerate(spec["bodies"]):
-            if b_i == w["body"]:
-                continue
-            h = b["hull"]
-            lines += [(h[k], h[(k + 1) % len(h)]) for k in range(len(h) if len(h) > 2 else 1)]
-        lines += [(i, j) for i, j, _ in spec["links"] + spec["springs"]]
-        best = min(best, min(tyre.exterior.distance(LineString([P[i], P[j]])) for i, j in lines))
-    # the same outline and exact segments: equal to rounding (measured 2e-14 mm; here the nearest tyre
-    # feature is a straight side of the outline, so the sampling of the arcs does not enter)
-    assert g["wheel_link_mm"][0, 0, 1] == pytest.approx(best, abs=1e-9)
-
-
 def test_sizing_section_with_a_loads_file(tmp_path):
     """With a loads file the sheet shows the member sizes and tilt-lock torque of the sizing part."""
     from tiltopt.kinematics import loads as loads_mod
@@ -212,7 +182,7 @@ def test_clearance_section_with_a_shell(tmp_path):
     paths = write_sheet(tmp_path, SheetInputs(mech=mech, lean_limit_deg=30.0, travel_mm=(-30.0, 0.0, 30.0),
                                               shell=shell))
     html = paths["sheet"].read_text(encoding="utf-8")
-    assert "wheel to shell, 3-D [mm]" in html and "wheel to its upright and arms, 3-D [mm]" in html
+    assert "to the shell, 3-D [mm]" in html and "to own upright and arms, 3-D [mm]" in html
     # the searched clearances with their error bounds and the conservative figures margins are met by
     assert "conservative (value - bound)" in html and "error bound" in html
     assert "No body shell given" not in html

@@ -4,6 +4,8 @@ from __future__ import annotations
 import functools
 import http.server
 import os
+import re
+import shlex
 import threading
 import webbrowser
 from pathlib import Path
@@ -19,7 +21,8 @@ from . import output_path
 
 
 class _PageHandler(http.server.BaseHTTPRequestHandler):
-    """Serves the explorer page and ``plotly.min.js`` beside it, and nothing else.
+    """Serves the explorer page, ``plotly.min.js`` beside it and, with an explorer, the detail of any of the
+    page's designs (``/detail/<row>.json``, computed on demand), and nothing else.
 
     No directory listings, no other file of the folder (a run folder holds its checkpoint and
     inputs), no symbolic link that leads out of the folder, and only requests whose ``Host`` is
@@ -30,9 +33,10 @@ class _PageHandler(http.server.BaseHTTPRequestHandler):
     server_version = "tiltopt"
     sys_version = ""
 
-    def __init__(self, *args, root: Path, page: str, **kw):
+    def __init__(self, *args, root: Path, page: str, explorer=None, **kw):
         self.root = Path(root)
         self.page = page
+        self.explorer = explorer
         super().__init__(*args, **kw)
 
     def log_message(self, format, *args):  # noqa: A002 (the base class's name)
@@ -63,6 +67,13 @@ class _PageHandler(http.server.BaseHTTPRequestHandler):
         if path == "/":
             return self._send(302, b"", head=head, extra={"Location": "/" + self.page})
         name = path[1:]
+        m = re.fullmatch(r"detail/(\d{1,9})\.json", name)
+        if m and self.explorer is not None:
+            try:
+                body = self.explorer.detail_json(int(m.group(1)))
+            except IndexError:
+                return self._send(404, b"no such design\n", head=head)
+            return self._send(200, body, "application/json", head=head)
         ctype = {self.page: "text/html; charset=utf-8", "plotly.min.js": "text/javascript; charset=utf-8"}.get(name)
         if ctype is None:
             return self._send(404, b"not found\n", head=head)
@@ -84,16 +95,19 @@ class _PageHandler(http.server.BaseHTTPRequestHandler):
         self._serve(head=True)
 
 
-def make_server(path: Path, port: int = 0) -> http.server.ThreadingHTTPServer:
-    """An HTTP server for the page (and plotly.min.js beside it), bound to 127.0.0.1 only."""
+def make_server(path: Path, port: int = 0, explorer=None) -> http.server.ThreadingHTTPServer:
+    """An HTTP server for the page (and plotly.min.js beside it, and with ``explorer`` the detail of its
+    designs), bound to 127.0.0.1 only."""
     path = Path(path)
-    handler = functools.partial(_PageHandler, root=path.parent, page=path.name)
-    return http.server.ThreadingHTTPServer(("127.0.0.1", port), handler)
+    handler = functools.partial(_PageHandler, root=path.parent, page=path.name, explorer=explorer)
+    httpd = http.server.ThreadingHTTPServer(("127.0.0.1", port), handler)
+    httpd.daemon_threads = True
+    return httpd
 
 
-def serve(path: Path, port: int = 0, open_browser: bool = True):
-    """Serve the page (and plotly.min.js beside it) on 127.0.0.1 only, until Ctrl-C."""
-    httpd = make_server(path, port)
+def serve(path: Path, port: int = 0, open_browser: bool = True, explorer=None):
+    """Serve the page (and plotly.min.js beside it, and the detail of any design) on 127.0.0.1 only, until Ctrl-C."""
+    httpd = make_server(path, port, explorer)
     url = f"http://127.0.0.1:{httpd.server_address[1]}/{path.name}"
     click.echo(f"serving {url} (127.0.0.1 only; Ctrl-C stops)")
     if open_browser:
@@ -110,11 +124,15 @@ def serve(path: Path, port: int = 0, open_browser: bool = True):
 @click.argument("run_dirs", nargs=-1, required=True, type=click.Path(file_okay=False))
 @click.option("-o", "--output", type=click.Path(dir_okay=False), default=None, callback=output_path,
               help="Page to write [default: explorer.html in the first run folder].")
-@click.option("--serve", "do_serve", is_flag=True, help="Serve the page on 127.0.0.1 and open it.")
+@click.option("--serve", "do_serve", is_flag=True,
+              help="Serve the page on 127.0.0.1 and open it; the page then opens the detail of every design "
+                   "(computed here when it asks).")
 @click.option("--port", type=click.IntRange(0, 65535), default=0, show_default=True,
               help="Port for --serve, 0 to 65535 (0 = any free port).")
-@click.option("--detail-limit", type=click.IntRange(1, 5000), default=800, show_default=True,
-              help="Front designs per run whose drawings and curves are precomputed.")
+@click.option("--detail-limit", type=click.IntRange(0, 5000), default=24, show_default=True,
+              help="Front designs per run whose detail (drawings, curves, clearances) the page holds, besides "
+                   "its best compromise and each objective's best; with --serve every design's is computed "
+                   "when the page asks.")
 @click.option("--plotly-beside", is_flag=True, help="Write plotly.min.js next to the page instead of inside it.")
 @click.option("--allow-changed-inputs", is_flag=True,
               help="Go on when a run's shell, loads or mechanism file changed since it ran (the page uses the "
@@ -124,11 +142,16 @@ def explore_cmd(run_dirs, output, do_serve, port, detail_limit, plotly_beside, a
     from ..reports.runs import explore_runs
 
     out = Path(output) if output else Path(run_dirs[0]) / "explorer.html"
+    made: list = []
     path = explore_runs(list(run_dirs), out, beside=plotly_beside, detail_limit=detail_limit,
-                        allow_changed_inputs=allow_changed_inputs, notice=lambda t: click.echo(t, err=True))
+                        allow_changed_inputs=allow_changed_inputs, notice=lambda t: click.echo(t, err=True),
+                        explorer_out=made)
     click.echo(f"explorer: {path}")
     if do_serve:
-        serve(path.resolve(), port)
+        serve(path.resolve(), port, explorer=made[0])
+    else:
+        click.echo(f"the page holds the detail of a few designs; for every design's: tiltopt explore "
+                   f"{' '.join(shlex.quote(str(d)) for d in run_dirs)} --serve")
 
 
 @main.command("sheet")

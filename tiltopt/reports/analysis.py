@@ -1,5 +1,5 @@
-"""What the explorer and the sheet show about designs: one batched sweep, front-view gaps,
-and the optional clearance and sizing parts (used when they are installed and have data).
+"""What the explorer and the sheet show about designs: one batched sweep, the front-view clearance
+marks (:mod:`tiltopt.reports.marks`), the 3-D clearance over the steer range and the optional sizing.
 
 Every optional part degrades to a note that the pages show; nothing here is
 an estimate of our own standing in for those parts' figures.
@@ -15,7 +15,8 @@ from tiltopt.kinematics.model import Geometry, Model
 from tiltopt.kinematics.sweep import SweepResult, sweep
 from tiltopt.problems.spec import envelope_leans
 
-from .drawing import drawing_spec, front_view_gaps, shell_outline
+from .drawing import drawing_spec, shell_outline
+from .marks import FrontMarks, front_marks
 
 
 @dataclass
@@ -28,8 +29,8 @@ class Analysis:
         Arrays (C, T, L, ...).
     pose : ndarray of shape (C, T, L, 3)
         Chassis pose (y_O mm, z_O mm, lean rad).
-    gaps : dict of ndarray of shape (C, T, L)
-        Front-view gaps (see :func:`drawing.front_view_gaps`).
+    marks : FrontMarks
+        Front-view clearance marks of every state (wheels straight ahead: :mod:`tiltopt.reports.marks`).
     clearance : dict of ndarray of shape (C,) or None
         ``ClearanceResult.summary()`` when the clearance part and a shell are present.
     sizing : object or None
@@ -43,7 +44,7 @@ class Analysis:
     sweep: SweepResult
     spec: dict
     pose: np.ndarray
-    gaps: dict
+    marks: FrontMarks
     shell_poly: np.ndarray | None = None
     clearance: dict | None = None
     clearance_result: object | None = None
@@ -87,11 +88,11 @@ def analyse(model: Model, geom: Geometry, lean_deg, travel_mm, *, shell=None, lo
             notes.append(f"The body shell has no section at the linkage station x = {x_mm:g} mm.")
     else:
         notes.append("No body shell given: the drawing has no shell section and the shell clearances are absent.")
-    gaps = front_view_gaps(spec, res.points, res.camber, pose, shell_poly)
+    marks = front_marks(model, geom, res)
     clearance = clearance_result = None
     if not want_clearance:
-        notes.append(f"3-D clearances are not precomputed for this many designs ({geom.n_candidates}); the "
-                     f"clearance curve is the front-view gap. The build sheet gives the 3-D figures.")
+        notes.append("The 3-D clearances over the steer range are not computed here; the clearance figures are "
+                     "those of the wheels straight ahead (front view). The build sheet gives the 3-D figures.")
     else:   # the wheel solids, members and widths are checked with or without a shell
         from tiltopt.kinematics.clearance import evaluate_clearance
 
@@ -106,23 +107,20 @@ def analyse(model: Model, geom: Geometry, lean_deg, travel_mm, *, shell=None, lo
             from tiltopt.kinematics.sizing import size_linkage
 
             sizing = size_linkage(model, geom, loads)
-    return Analysis(model=model, geom=geom, sweep=res, spec=spec, pose=pose, gaps=gaps, shell_poly=shell_poly,
+    return Analysis(model=model, geom=geom, sweep=res, spec=spec, pose=pose, marks=marks, shell_poly=shell_poly,
                     clearance=clearance, clearance_result=clearance_result, sizing=sizing, notes=notes)
 
 
-def min_gap(gaps: dict) -> np.ndarray:
-    """Smallest front-view gap of each state (tyre to links, tyre to shell), NaN-aware."""
-    a = np.stack([gaps["wheel_link_mm"], gaps["wheel_shell_mm"]])
-    with np.errstate(all="ignore"):
-        out = np.nanmin(np.where(np.isnan(a), np.inf, a), axis=0)
-    return np.where(np.isfinite(out), out, np.nan)
+CLEARANCE_3D = "smallest clearance to the shell and other members, 3-D over the steer range"
+CLEARANCE_FRONT = "smallest clearance to other members, wheels straight ahead (front view)"
 
 
 def state_clearance(an: Analysis) -> tuple[np.ndarray, str]:
     """Smallest clearance of each state (C, T, L) and what it is.
 
-    The 3-D wheel-to-shell / wheel-to-link clearance over the steer range when
-    the clearance part ran; otherwise the front-view gap of the drawing.
+    The 3-D clearance of the wheel solids to the shell and to the members that do not carry them over
+    the steer range (what the run's ``min_clearance_mm`` is the smallest of) when the clearance part
+    ran; otherwise the front-view marks' clearance to the other members, wheels straight ahead.
     """
     cr = an.clearance_result
     if cr is not None:
@@ -130,5 +128,8 @@ def state_clearance(an: Analysis) -> tuple[np.ndarray, str]:
         with np.errstate(all="ignore"):
             m = np.min(np.where(np.isnan(a), np.inf, a), axis=-1)
         bad = np.any(np.isnan(a), axis=-1) | ~np.isfinite(m)
-        return np.where(bad, np.nan, m), "min clearance, 3-D with steer"
-    return min_gap(an.gaps), "min front-view gap"
+        return np.where(bad, np.nan, m), CLEARANCE_3D
+    a = an.marks.other_mm
+    with np.errstate(all="ignore"):
+        m = np.min(np.where(np.isnan(a), np.inf, a), axis=-1)
+    return np.where(np.any(np.isnan(a), axis=-1) | ~np.isfinite(m), np.nan, m), CLEARANCE_FRONT

@@ -1,17 +1,20 @@
 """Front-view drawing of a mechanism state, shared by the explorer and the build sheet.
 
 The drawing is described once, per topology, by a :func:`drawing_spec` (a
-JSON-able dict: which points make each body, the links, springs, sliders,
-pivots and wheels, and the colour of each body). The explorer's JavaScript
-draws states from that spec and the precomputed point positions; this module
-renders the same spec to SVG in Python for the build sheet, with dimensions.
+JSON-able dict: which points make each body, its tubes, the links, springs,
+sliders, pivots and wheels, and the colour of each body). The explorer's
+JavaScript draws states from that spec and the point positions of each state;
+this module renders the same spec to SVG in Python for the build sheet.
 
 Front view, looking from ahead: y to the right, z up, ground z = 0, mm.
 SVG user units are mm with ``svg_x = y`` and ``svg_y = -z``.
 
-Wheels are drawn as the front-view outline of a toroidal tyre (outer radius
-R, crown radius r): a band 2 r wide and 2 R tall whose ends are the crown
-half-circles of radius r, tilted by the wheel's camber.
+What is drawn is what the clearance checks see (docs/domain.md, "Body shell and
+clearance"): each wheel as its solid (:func:`wheel_outline`: the tyre, and the
+rim-and-spoke disc as wide as the hub at the axle), every member as its tube at
+its outside diameter, the body shell's section at the linkage station. The
+clearance marks (:mod:`tiltopt.reports.marks`) are drawn as leaders labelled in
+mm; every drawing carries a scale bar and a legend of its colours.
 """
 from __future__ import annotations
 
@@ -19,7 +22,6 @@ import html
 import math
 from typing import Sequence
 
-import numba
 import numpy as np
 
 # Our own palette ("harbour"): bodies take these in order, the chassis is slate.
@@ -58,6 +60,12 @@ def _hull(points: np.ndarray) -> list[int]:
     return hull if len(hull) >= 2 else idx[:1] + idx[-1:]
 
 
+def _side_free(name: str) -> str:
+    """A body name with its side taken out (``upper_arm_left`` -> ``upper arm``): mirror bodies share a colour."""
+    words = [w for w in name.replace("-", "_").split("_") if w not in ("left", "right", "l", "r")]
+    return " ".join(words) or name
+
+
 def drawing_spec(model, geom=None, candidate: int = 0) -> dict:
     """The topology-level description of the drawing (JSON-able).
 
@@ -69,12 +77,15 @@ def drawing_spec(model, geom=None, candidate: int = 0) -> dict:
 
     Returns
     -------
-    dict with keys ``point_refs``, ``bodies`` (name, colour, hull: point
-    indices, chassis: bool), ``links``/``springs`` ([i, j, name]),
-    ``sliders`` ([from, to, runner, name]), ``pivots`` ([i, name]),
-    ``wheels`` (name, centre, R, r, body), ``datum`` (index or -1),
-    ``lower_z`` (per point, unused by JS).
+    dict with keys ``point_refs``, ``bodies`` (name, colour, hull: point indices, chassis: bool, kind:
+    the name without its side, shared by mirror bodies and by their colour), ``tubes`` ([i, j,
+    radius_mm, body index or -1 for a link, name]: every member as the clearance checks see it,
+    :func:`tiltopt.kinematics.clearance.members_of`), ``links``/``springs`` ([i, j, name]),
+    ``sliders`` ([from, to, runner, name]), ``pivots`` ([i, name]), ``wheels`` (name, centre, R, r,
+    hub_half: half the hub width, hub_radius, body), ``datum`` (index or -1), ``station_x_mm``.
     """
+    from tiltopt.kinematics.clearance import members_of
+
     mech = model.mech
     geom = geom if geom is not None else model.default_geometry
     P = np.asarray(geom.points[candidate])
@@ -87,18 +98,24 @@ def drawing_spec(model, geom=None, candidate: int = 0) -> dict:
     for s in mech.sliders:
         joint_pts |= {pidx[s.a_from], pidx[s.a_to], pidx[s.b]}
     bodies = []
-    k = 0
+    colour_of: dict[str, str] = {}
     for bi, name in enumerate(model.body_names):
         members = [i for i, r in enumerate(model.point_refs) if model.point_body[i] == bi]
         if bi == model.chassis:
             members = [i for i in members if i in joint_pts] or members
         hull = [members[i] for i in _hull(P[members])]
+        kind = "chassis" if bi == model.chassis else _side_free(name)
         if bi == model.chassis:
             colour = CHASSIS_COLOUR
         else:
-            colour = BODY_COLOURS[k % len(BODY_COLOURS)]
-            k += 1
-        bodies.append({"name": name, "colour": colour, "hull": hull, "chassis": bi == model.chassis})
+            colour = colour_of.setdefault(kind, BODY_COLOURS[len(colour_of) % len(BODY_COLOURS)])
+        bodies.append({"name": name, "colour": colour, "hull": hull, "chassis": bi == model.chassis, "kind": kind})
+    mem = members_of(model)
+    link_names = {l.name for l in mech.links}
+    tubes = []
+    for k, name in enumerate(mem.names):
+        body = -1 if name in link_names else int(model.point_body[mem.ia[k]])
+        tubes.append([int(mem.ia[k]), int(mem.ib[k]), float(mem.radius[k]), body, name])
     pivots = []
     seen = set()
     for p in mech.pins:
@@ -115,16 +132,19 @@ def drawing_spec(model, geom=None, candidate: int = 0) -> dict:
     for w_i, w in enumerate(mech.wheels):
         wheels.append({"name": w.name, "centre": pidx[w.centre],
                        "R": float(geom.outer_radius[candidate, w_i]), "r": float(geom.crown_radius[candidate, w_i]),
+                       "hub_half": 0.5 * float(w.hub_width_mm), "hub_radius": float(w.hub_radius_mm),
                        "body": model.body_names.index(w.upright)})
     return {
         "point_refs": list(model.point_refs),
         "bodies": bodies,
+        "tubes": tubes,
         "links": [[pidx[l.a], pidx[l.b], l.name] for l in mech.links],
         "springs": [[pidx[s.a], pidx[s.b], s.name] for s in mech.springs],
         "sliders": [[pidx[s.a_from], pidx[s.a_to], pidx[s.b], s.name] for s in mech.sliders],
         "pivots": pivots,
         "wheels": wheels,
         "datum": datum,
+        "station_x_mm": float(mech.station_x_mm),
     }
 
 
@@ -162,6 +182,29 @@ def tyre_outline(centre, camber, outer_radius, crown_radius, n_arc: int = 12) ->
     y = centre[..., 0:1] + u * c + w * s
     z = centre[..., 1:2] - u * s + w * c
     return np.stack([y, z], axis=-1)
+
+
+def wheel_outline(centre, camber, outer_radius, crown_radius, hub_half, n_arc: int = 16) -> np.ndarray:
+    """Front-view outline of a wheel solid, unsteered (docs/domain.md): the tyre (torus R, r) and the
+    rim-and-spoke disc, as wide as the hub at the axle (``hub_half`` either side) and tapering to the
+    tyre's width at the crown circle. It is also the solid's section by the plane of its axle (the
+    linkage plane), which :mod:`tiltopt.reports.marks` measures to.
+
+    Returns
+    -------
+    ndarray of shape (2 * n_arc + 2, 2)
+        Closed outline (first point not repeated), mm.
+    """
+    cy, cz = (float(v) for v in np.asarray(centre, float)[:2])
+    g, R, r = float(camber), float(outer_radius), float(crown_radius)
+    h = max(float(hub_half), r)            # a hub narrower than the tyre is hidden behind it
+    rc = R - r
+    ny, nz, uy, uz = math.cos(g), -math.sin(g), math.sin(g), math.cos(g)
+    t = np.linspace(0.0, math.pi, n_arc)
+    s_top, u_top = r * np.cos(t), rc + r * np.sin(t)          # over the top, +s to -s
+    s = np.concatenate([[h], s_top, [-h], -s_top])
+    u = np.concatenate([[0.0], u_top, [0.0], -u_top])
+    return np.stack([cy + s * ny + u * uy, cz + s * nz + u * uz], -1)
 
 
 def chassis_transform(yz, pose) -> np.ndarray:
@@ -206,200 +249,6 @@ def shell_outline(shell, x_mm: float, n_rays: int = 96, reach_mm: float = 4000.0
     return centre + dirs * (0.5 * (lo + hi))[:, None]
 
 
-# ------------------------------------------------------------------ gaps
-def _seg_dist(p, a, b):
-    """Distance of points p (..., 2) to segments a-b (..., 2); returns (dist, closest point)."""
-    ab = b - a
-    L2 = np.maximum(np.sum(ab * ab, -1), 1e-12)
-    t = np.clip(np.sum((p - a) * ab, -1) / L2, 0.0, 1.0)
-    q = a + ab * t[..., None]
-    return np.linalg.norm(p - q, axis=-1), q
-
-
-def _poly_seg_gap(poly, a, b):
-    """Smallest distance between closed polylines ``poly`` (..., k, 2) and segments a-b (..., s, 2), both ways.
-
-    Returns (..., ) distances. Two polylines that do not cross are nearest at a vertex of one of them.
-    """
-    d1, _ = _seg_dist(poly[..., :, None, :], a[..., None, :, :], b[..., None, :, :])
-    pa, pb = poly, np.roll(poly, -1, axis=-2)
-    ends = np.concatenate([a, b], axis=-2)
-    d2, _ = _seg_dist(ends[..., :, None, :], pa[..., None, :, :], pb[..., None, :, :])
-    return np.minimum(np.min(d1, axis=(-1, -2)), np.min(d2, axis=(-1, -2)))
-
-
-def poly_seg_gap(poly, a, b) -> np.ndarray:
-    """Smallest distance between closed polylines and sets of segments, compiled, over any leading axes.
-
-    poly (..., k, 2), a and b (..., s, 2) with broadcastable leading axes; returns (...): the
-    distance between the outline and the segments (as :func:`_poly_seg_gap`, the numpy
-    reference), 0 where a segment crosses the outline.
-    """
-    lead = np.broadcast_shapes(poly.shape[:-2], a.shape[:-2], b.shape[:-2])
-
-    def flat(x):
-        return np.ascontiguousarray(np.broadcast_to(x, lead + x.shape[-2:]).reshape((-1,) + x.shape[-2:]),
-                                    dtype=float)
-
-    P, A, B = flat(poly), flat(a), flat(b)
-    out = np.empty(P.shape[0])
-    _poly_seg_gap_kernel(P, A, B, out)
-    return out.reshape(lead)
-
-
-@numba.njit(cache=True, error_model="numpy")
-def _seg_dist1(py, pz, ay, az, by, bz):
-    """Distance of a point to a segment (as :func:`_seg_dist`)."""
-    aby, abz = by - ay, bz - az
-    L2 = max(aby * aby + abz * abz, 1e-12)
-    t = min(max(((py - ay) * aby + (pz - az) * abz) / L2, 0.0), 1.0)
-    dy, dz = py - (ay + aby * t), pz - (az + abz * t)
-    return np.sqrt(dy * dy + dz * dz)
-
-
-@numba.njit(cache=True, error_model="numpy")
-def _cross(p1, p2, q1, q2):
-    """Whether segments p1-p2 and q1-q2 cross (each one's ends strictly on both sides of the other)."""
-    ry, rz = p2[0] - p1[0], p2[1] - p1[1]
-    sy, sz = q2[0] - q1[0], q2[1] - q1[1]
-    d1 = sy * (p1[1] - q1[1]) - sz * (p1[0] - q1[0])
-    d2 = sy * (p2[1] - q1[1]) - sz * (p2[0] - q1[0])
-    d3 = ry * (q1[1] - p1[1]) - rz * (q1[0] - p1[0])
-    d4 = ry * (q2[1] - p1[1]) - rz * (q2[0] - p1[0])
-    return d1 * d2 < 0.0 and d3 * d4 < 0.0
-
-
-@numba.njit(cache=True, error_model="numpy")
-def _poly_seg_gap_kernel(P, A, B, out):
-    n, k, s = P.shape[0], P.shape[1], A.shape[1]
-    for i in range(n):
-        best = np.inf
-        for p in range(k):                  # polyline vertices to the segments
-            for j in range(s):
-                best = min(best, _seg_dist1(P[i, p, 0], P[i, p, 1], A[i, j, 0], A[i, j, 1], B[i, j, 0], B[i, j, 1]))
-        for j in range(s):                  # segment ends to the polyline's edges
-            for p in range(k):              # a segment crossing an edge: no gap
-                q = (p + 1) % k
-                if _cross(P[i, p], P[i, q], A[i, j], B[i, j]):
-                    best = 0.0
-            for e in range(2):
-                ey = A[i, j, 0] if e == 0 else B[i, j, 0]
-                ez = A[i, j, 1] if e == 0 else B[i, j, 1]
-                for p in range(k):
-                    q = (p + 1) % k
-                    best = min(best, _seg_dist1(ey, ez, P[i, p, 0], P[i, p, 1], P[i, q, 0], P[i, q, 1]))
-        out[i] = best
-
-
-def _by_chunks(fn, *arrays, budget: int = 1 << 18):
-    """``fn(*arrays)`` over the leading axes in chunks of about ``budget`` point pairs.
-
-    Each array is (..., n_i, 2) with broadcastable leading axes; ``fn`` returns (n_lead, ...)
-    for flattened inputs. The pairwise temporaries of ``fn`` (lead x n_i x n_j) stay small
-    enough for the cache, instead of gigabytes for a whole front's states.
-    """
-    lead = np.broadcast_shapes(*(a.shape[:-2] for a in arrays))
-    flat = [np.broadcast_to(a, lead + a.shape[-2:]).reshape((-1,) + a.shape[-2:]) for a in arrays]
-    n = flat[0].shape[0]
-    pairs = max(1, int(np.prod([a.shape[-2] for a in flat[:2]])))
-    step = max(1, budget // pairs)
-    parts = [fn(*(a[i:i + step] for a in flat)) for i in range(0, n, step)] or [fn(*flat)]
-    out = np.concatenate(parts)
-    return out.reshape(lead + out.shape[1:])
-
-
-def _closest_pair(poly, A, B):
-    """Closest pair (distance, point on poly, point on segments) for one state; poly (k, 2), A/B (s, 2)."""
-    d1, q1 = _seg_dist(poly[:, None, :], A[None], B[None])
-    k1 = np.unravel_index(np.argmin(d1), d1.shape)
-    best = (float(d1[k1]), poly[k1[0]], q1[k1])
-    ends = np.concatenate([A, B])
-    pa, pb = poly, np.roll(poly, -1, axis=0)
-    d2, q2 = _seg_dist(ends[:, None, :], pa[None], pb[None])
-    k2 = np.unravel_index(np.argmin(d2), d2.shape)
-    if d2[k2] < best[0]:
-        best = (float(d2[k2]), q2[k2], ends[k2[0]])
-    return best
-
-
-def front_view_gaps(spec: dict, points, camber, pose=None, shell_poly=None) -> dict:
-    """Front-view (2-D, in the linkage plane) gaps of every state, batched.
-
-    These are drawing measurements at the linkage station, not the 3-D
-    clearance of :mod:`tiltopt.kinematics.clearance`; the pages label them so.
-
-    Parameters
-    ----------
-    points : ndarray of shape (..., n_points, 2)
-    camber : ndarray of shape (..., 2), rad
-    pose : ndarray of shape (..., 3), optional
-        Chassis pose (y_O, z_O, phi) for the shell.
-    shell_poly : ndarray of shape (m, 2), optional
-        Shell section, chassis frame.
-
-    Returns
-    -------
-    dict of ndarray of shape (...): ``wheel_link_mm`` (tyre to links, springs
-    and bodies not carrying it), ``wheel_shell_mm`` (positive = tyre outside
-    the section; NaN without a shell), ``ground_mm`` (lowest link/body point).
-    """
-    P = np.asarray(points, float)
-    lead = P.shape[:-2]
-    out = {}
-    tyres = []
-    for w_i, w in enumerate(spec["wheels"]):
-        tyres.append(tyre_outline(P[..., w["centre"], :], np.asarray(camber)[..., w_i], w["R"], w["r"], 10))
-    segs, owner = [], []
-    for b_i, b in enumerate(spec["bodies"]):
-        h = b["hull"]
-        for k in range(len(h) if len(h) > 2 else 1):
-            segs.append((h[k], h[(k + 1) % len(h)]))
-            owner.append(b_i)
-    for i, j, _ in spec["links"] + spec["springs"]:
-        segs.append((i, j))
-        owner.append(-1)
-    gaps = []
-    for w_i, w in enumerate(spec["wheels"]):
-        sel = [s for s, o in zip(segs, owner) if o != w["body"]]
-        if not sel:
-            continue
-        a = P[..., [s[0] for s in sel], :]
-        b = P[..., [s[1] for s in sel], :]
-        gaps.append(poly_seg_gap(tyres[w_i], a, b))
-    out["wheel_link_mm"] = np.min(np.stack(gaps), 0) if gaps else np.full(lead, np.nan)
-    if shell_poly is not None and pose is not None:
-        pose = np.asarray(pose, float)
-        y0, z0, phi = pose[..., 0:1], pose[..., 1:2], pose[..., 2:3]
-        sp = np.asarray(shell_poly, float)
-        c, s = np.cos(phi), np.sin(phi)
-        gy = y0 + c * sp[:, 0] + s * sp[:, 1]
-        gz = z0 - s * sp[:, 0] + c * sp[:, 1]
-        G = np.stack([gy, gz], -1)                                   # (..., m, 2)
-        A, B = G, np.roll(G, -1, axis=-2)
-        best = np.full(lead, np.inf)
-        for tyre in tyres:
-            dmin = poly_seg_gap(tyre, A, B)
-            inside = _by_chunks(_inside, tyre, G)
-            best = np.minimum(best, np.where(np.any(inside, -1), -dmin, dmin))
-        out["wheel_shell_mm"] = best
-    else:
-        out["wheel_shell_mm"] = np.full(lead, np.nan)
-    used = sorted({i for s in segs for i in s})
-    out["ground_mm"] = np.min(P[..., used, 1], axis=-1)
-    return out
-
-
-def _inside(pts, poly):
-    """Even-odd point-in-polygon, batched: pts (..., k, 2), poly (..., m, 2) -> (..., k) bool."""
-    x, y = pts[..., :, None, 0], pts[..., :, None, 1]
-    ax, ay = poly[..., None, :, 0], poly[..., None, :, 1]
-    bx, by = np.roll(poly, -1, axis=-2)[..., None, :, 0], np.roll(poly, -1, axis=-2)[..., None, :, 1]
-    cond = (ay > y) != (by > y)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        xint = ax + (y - ay) * (bx - ax) / (by - ay)
-    return (np.sum(cond & (x < xint), -1) % 2) == 1
-
-
 # -------------------------------------------------------------------- SVG
 def _f(v: float) -> str:
     return f"{v:.2f}".rstrip("0").rstrip(".") if math.isfinite(v) else "0"
@@ -409,10 +258,47 @@ def _pts(a) -> str:
     return " ".join(f"{_f(p[0])},{_f(-p[1])}" for p in a)
 
 
+#: what each mark kind is called in a drawing's legend and labels (tiltopt.reports.marks.KIND_TEXT)
+MARK_SHORT = {"other": "to members", "carrier": "to own upright/arms", "pair": "between wheels",
+              "tubes": "between tubes", "ground": "ground"}
+
+
+def mark_label(mark: dict) -> str:
+    """The text of a mark's label: its value in mm with one decimal, or the overlap."""
+    v = float(mark["mm"])
+    return f"{v:.1f} mm" if v >= 0 else f"overlap {-v:.1f} mm"
+
+
+def nice_length(span_mm: float) -> float:
+    """A round scale-bar length (1, 2, 2.5 or 5 times a power of ten) of about a fifth of ``span_mm``."""
+    raw = max(span_mm, 1.0) / 5.0
+    mag = 10 ** math.floor(math.log10(raw))
+    return max(m * mag for m in (1, 2, 2.5, 5) if m * mag <= raw) if raw >= mag else mag
+
+
+def legend_items(spec: dict, has_shell: bool, has_marks: bool) -> list[tuple[str, str, str]]:
+    """(kind, colour, text) of a drawing's legend: body kinds, links, springs, wheels, shell, marks."""
+    items, seen = [], set()
+    for b in spec["bodies"]:
+        if b["kind"] not in seen:
+            seen.add(b["kind"])
+            items.append(("body", b["colour"], b["kind"]))
+    if spec["links"]:
+        items.append(("body", LINK_COLOUR, "links"))
+    if spec["springs"]:
+        items.append(("spring", SPRING_COLOUR, "springs"))
+    items.append(("wheel", TYRE_FILL, "wheel solid (tyre, rim, hub)"))
+    if has_shell:
+        items.append(("shell", SHELL_COLOUR, f"shell section at x = {spec.get('station_x_mm', 0.0):g} mm"))
+    if has_marks:
+        items.append(("mark", GAP_COLOUR, "clearance, wheels straight ahead, mm"))
+    return items
+
+
 def front_view_svg(spec: dict, points, camber, pose=(0.0, 0.0, 0.0), shell_poly=None, *,
-                   dimensions: bool = False, labels: Sequence[str] | None = None, title: str = "",
-                   width: str = "100%", show_gaps: bool = True, jig_datum=None) -> str:
-    """SVG of one state.
+                   marks: Sequence[dict] | None = None, dimensions: bool = False, labels: Sequence[str] | None = None,
+                   title: str = "", width: str = "100%", jig_datum=None, wheels: Sequence | None = None) -> str:
+    """SVG of one state, with a scale bar and a legend.
 
     Parameters
     ----------
@@ -425,28 +311,39 @@ def front_view_svg(spec: dict, points, camber, pose=(0.0, 0.0, 0.0), shell_poly=
         Chassis pose, for the shell section.
     shell_poly : ndarray of shape (m, 2), optional
         Shell section, chassis frame.
+    marks : list of dict, optional
+        Clearance marks of the state (:meth:`tiltopt.reports.marks.FrontMarks.state`), drawn as
+        leaders labelled with :func:`mark_label`.
     dimensions : bool
-        Add dimension lines (track, overall width, pivot heights) and pivot tags.
+        Add dimension lines (track, outer width of the wheels, pivot heights) and pivot tags.
     labels : list of str, optional
         Tag per pivot of ``spec['pivots']`` (e.g. "P1").
+    wheels : list of (R, r, hub_half), optional
+        The wheels of this design (default: the spec's).
     """
     P = np.asarray(points, float)
     cam = np.asarray(camber, float)
     parts: list[str] = []
-    tyres = [tyre_outline(P[w["centre"]], cam[i], w["R"], w["r"], 16) for i, w in enumerate(spec["wheels"])]
+    wh = wheels or [(w["R"], w["r"], w["hub_half"]) for w in spec["wheels"]]
+    outlines = [wheel_outline(P[w["centre"]], cam[i], *wh[i], 16) for i, w in enumerate(spec["wheels"])]
     shell_g = chassis_transform(shell_poly, pose) if shell_poly is not None else None
-    allp = [P[[i for b in spec["bodies"] for i in b["hull"]]]] + tyres + ([shell_g] if shell_g is not None else [])
+    tube_pts = [P[[t[0], t[1]]] + np.array([[0.0, t[2]], [0.0, -t[2]]]) for t in spec["tubes"]]
+    allp = [P[[i for b in spec["bodies"] for i in b["hull"]]]] + outlines + tube_pts + \
+        ([shell_g] if shell_g is not None else [])
     allp = np.concatenate(allp)
     allp = allp[np.all(np.isfinite(allp), axis=1)]
     ymin, ymax = float(allp[:, 0].min()), float(allp[:, 0].max())
     zmin, zmax = min(0.0, float(allp[:, 1].min())), float(allp[:, 1].max())
     span = max(ymax - ymin, zmax - zmin, 100.0)
-    pad = 0.06 * span
-    pad_b = pad + (0.16 * span if dimensions else 0.02 * span)
-    pad_l = pad + (0.14 * span if dimensions else 0.0)
-    vb = (ymin - pad_l, -(zmax + pad), (ymax - ymin) + pad_l + pad, (zmax - zmin) + pad + pad_b)
     lw = span / 260.0
-    fs = span / (40.0 if dimensions else 48.0)
+    fs = span / (40.0 if dimensions else 44.0)
+    items = legend_items(spec, shell_g is not None, bool(marks))
+    leg_rows, leg_h = _legend_layout(items, fs, (ymax - ymin) + 0.12 * span)
+    pad = 0.06 * span
+    pad_b = pad + (0.16 * span if dimensions else 0.02 * span) + 2.2 * fs
+    pad_l = pad + (0.14 * span if dimensions else 0.0)
+    pad_t = pad + leg_h
+    vb = (ymin - pad_l, -(zmax + pad_t), (ymax - ymin) + pad_l + pad, (zmax - zmin) + pad_t + pad_b)
     parts.append(f'<svg xmlns="http://www.w3.org/2000/svg" viewBox="{_f(vb[0])} {_f(vb[1])} {_f(vb[2])} {_f(vb[3])}" '
                  f'width="{width}" class="frontview" font-family="Helvetica, Arial, sans-serif">')
     if title:
@@ -457,27 +354,25 @@ def front_view_svg(spec: dict, points, camber, pose=(0.0, 0.0, 0.0), shell_poly=
     parts.append(f'<line x1="{_f(vb[0] - 2 * span)}" y1="0" x2="{_f(vb[0] + vb[2] + 2 * span)}" y2="0" '
                  f'stroke="{GROUND_COLOUR}" stroke-width="{_f(lw * 1.2)}"/>')
     if shell_g is not None:
-        parts.append(f'<polygon points="{_pts(shell_g)}" fill="{SHELL_COLOUR}" fill-opacity="0.12" '
+        parts.append(f'<polygon class="shell" points="{_pts(shell_g)}" fill="{SHELL_COLOUR}" fill-opacity="0.12" '
                      f'stroke="{SHELL_COLOUR}" stroke-width="{_f(lw)}" stroke-dasharray="{_f(lw * 6)},{_f(lw * 3)}"/>')
-    for t in tyres:
-        parts.append(f'<polygon points="{_pts(t)}" fill="{TYRE_FILL}" fill-opacity="0.18" stroke="{TYRE_FILL}" '
-                     f'stroke-width="{_f(lw)}"/>')
+    for o in outlines:
+        parts.append(f'<polygon class="wheel" points="{_pts(o)}" fill="{TYRE_FILL}" fill-opacity="0.18" '
+                     f'stroke="{TYRE_FILL}" stroke-width="{_f(lw)}" stroke-linejoin="round"/>')
     for b in spec["bodies"]:
         h = P[b["hull"]]
         if len(h) > 2:
-            parts.append(f'<polygon points="{_pts(h)}" fill="{b["colour"]}" fill-opacity="0.22" stroke="{b["colour"]}" '
-                         f'stroke-width="{_f(lw * 2.2)}" stroke-linejoin="round"><title>{html.escape(b["name"])}'
-                         f'</title></polygon>')
-        elif len(h) == 2:
-            parts.append(f'<polyline points="{_pts(h)}" stroke="{b["colour"]}" stroke-width="{_f(lw * 3)}" '
-                         f'stroke-linecap="round"><title>{html.escape(b["name"])}</title></polyline>')
-    for i, j, name in spec["links"]:
-        parts.append(f'<polyline points="{_pts(P[[i, j]])}" stroke="{LINK_COLOUR}" stroke-width="{_f(lw * 2.4)}" '
-                     f'stroke-linecap="round"><title>{html.escape(name)}</title></polyline>')
+            parts.append(f'<polygon class="body" points="{_pts(h)}" fill="{b["colour"]}" fill-opacity="0.10" '
+                         f'stroke="none"><title>{html.escape(b["name"])}</title></polygon>')
+    colour = {bi: b["colour"] for bi, b in enumerate(spec["bodies"])}
+    for ia, ib, rad, body, name in spec["tubes"]:
+        parts.append(f'<polyline class="tube" points="{_pts(P[[ia, ib]])}" stroke="{colour.get(body, LINK_COLOUR)}" '
+                     f'stroke-opacity="0.85" stroke-width="{_f(2 * rad)}" stroke-linecap="round">'
+                     f'<title>{html.escape(name)} (tube {2 * rad:g} mm)</title></polyline>')
     for i, j, name in spec["springs"]:
-        parts.append(f'<polyline points="{_pts(_coil(P[i], P[j], lw * 9))}" fill="none" stroke="{SPRING_COLOUR}" '
-                     f'stroke-width="{_f(lw * 1.6)}" stroke-linejoin="round"><title>{html.escape(name)}</title>'
-                     f'</polyline>')
+        parts.append(f'<polyline class="spring" points="{_pts(_coil(P[i], P[j], lw * 9))}" fill="none" '
+                     f'stroke="{SPRING_COLOUR}" stroke-width="{_f(lw * 1.6)}" stroke-linejoin="round">'
+                     f'<title>{html.escape(name)}</title></polyline>')
     for a, b, r_, name in spec["sliders"]:
         parts.append(f'<polyline points="{_pts(P[[a, b]])}" stroke="#555" stroke-width="{_f(lw * 1.2)}" '
                      f'stroke-dasharray="{_f(lw * 3)},{_f(lw * 2)}"/>')
@@ -487,8 +382,8 @@ def front_view_svg(spec: dict, points, camber, pose=(0.0, 0.0, 0.0), shell_poly=
                      f'stroke="{TYRE_FILL}" stroke-width="{_f(lw)}"/>')
     for k, (i, name) in enumerate(spec["pivots"]):
         c = P[i]
-        parts.append(f'<circle cx="{_f(c[0])}" cy="{_f(-c[1])}" r="{_f(lw * 3.2)}" fill="#fff" stroke="#111" '
-                     f'stroke-width="{_f(lw * 1.1)}"><title>{html.escape(name)}</title></circle>')
+        parts.append(f'<circle class="pivot" cx="{_f(c[0])}" cy="{_f(-c[1])}" r="{_f(lw * 3.2)}" fill="#fff" '
+                     f'stroke="#111" stroke-width="{_f(lw * 1.1)}"><title>{html.escape(name)}</title></circle>')
         if labels:
             parts.append(f'<text x="{_f(c[0] + lw * 5)}" y="{_f(-c[1] - lw * 5)}" font-size="{_f(fs)}" '
                          f'fill="#111">{html.escape(labels[k])}</text>')
@@ -504,12 +399,92 @@ def front_view_svg(spec: dict, points, camber, pose=(0.0, 0.0, 0.0), shell_poly=
                      f'r="{_f(d * 0.6)}"/><path d="M{_f(jy - d)},{_f(-jz)}H{_f(jy + d)}M{_f(jy)},{_f(-jz + d)}'
                      f'V{_f(-jz - d)}"/></g><text x="{_f(jy + d)}" y="{_f(-jz + fs)}" font-size="{_f(fs)}" '
                      f'fill="#c8553d">J</text>')
-    if show_gaps:
-        parts += _gap_marks(spec, P, tyres, shell_g, lw, fs)
+    from .marks import drawn
+
+    for m in drawn(list(marks or ())):
+        parts += _mark_svg(m, lw, fs)
     if dimensions:
-        parts += _dimensions(spec, P, tyres, lw, fs, span, vb)
+        parts += _dimensions(spec, P, cam, wh, lw, fs, span, vb)
+    parts += _scale_bar(vb, span, lw, fs)
+    parts += _legend_svg(leg_rows, vb, lw, fs)
     parts.append("</svg>")
     return "\n".join(parts)
+
+
+def _mark_svg(m: dict, lw: float, fs: float) -> list[str]:
+    """A clearance mark: a leader between its two points and its label (class ``mark``, data attributes
+    for its kind, wheel and value)."""
+    p, q = np.asarray(m["p"], float), np.asarray(m["q"], float)
+    text = mark_label(m)
+    wheel = "" if m.get("wheel") is None else f' data-wheel="{int(m["wheel"])}"'
+    d = q - p
+    L = float(np.hypot(*d))
+    nrm = np.array([-d[1], d[0]]) / L if L > 1e-9 else np.array([0.0, 1.0])
+    mid = 0.5 * (p + q) + nrm * fs * 0.6
+    out = [f'<g class="mark" data-kind="{m["kind"]}"{wheel} data-mm="{m["mm"]}"><title>'
+           f'{html.escape(MARK_SHORT.get(m["kind"], m["kind"]))}: {html.escape(text)} '
+           f'({html.escape(str(m.get("to", "")))})'
+           f'</title>']
+    if L > 1e-9:
+        out.append(f'<line x1="{_f(p[0])}" y1="{_f(-p[1])}" x2="{_f(q[0])}" y2="{_f(-q[1])}" stroke="{GAP_COLOUR}" '
+                   f'stroke-width="{_f(lw)}"/>')
+        for e in (p, q):
+            out.append(f'<circle cx="{_f(e[0])}" cy="{_f(-e[1])}" r="{_f(lw * 1.4)}" fill="{GAP_COLOUR}"/>')
+    out.append(f'<text x="{_f(mid[0])}" y="{_f(-mid[1])}" font-size="{_f(fs * 0.9)}" fill="{GAP_COLOUR}" '
+               f'text-anchor="middle" stroke="#ffffff" stroke-width="{_f(fs * 0.22)}" paint-order="stroke">'
+               f'{html.escape(text)}</text></g>')
+    return out
+
+
+def _legend_layout(items, fs: float, width: float):
+    """Rows of legend items that fit ``width`` (text widths estimated at 0.55 em a character)."""
+    rows, row, x = [], [], 0.0
+    for it in items:
+        w = fs * (1.6 + 0.52 * len(it[2])) + fs * 1.2
+        if row and x + w > width:
+            rows.append(row)
+            row, x = [], 0.0
+        row.append((it, x))
+        x += w
+    if row:
+        rows.append(row)
+    return rows, len(rows) * fs * 1.35 + fs * 0.6
+
+
+def _legend_svg(rows, vb, lw: float, fs: float) -> list[str]:
+    out = [f'<g class="legend" font-size="{_f(fs)}" fill="#1d2733">']
+    y0 = vb[1] + fs * 1.2
+    for k, row in enumerate(rows):
+        y = y0 + k * fs * 1.35
+        for (kind, colour, text), x in row:
+            x0 = vb[0] + fs * 0.6 + x
+            if kind == "shell":
+                sw = (f'<line x1="{_f(x0)}" y1="{_f(y - fs * 0.3)}" x2="{_f(x0 + fs * 1.2)}" y2="{_f(y - fs * 0.3)}" '
+                      f'stroke="{colour}" stroke-width="{_f(lw * 1.5)}" stroke-dasharray="{_f(lw * 4)},{_f(lw * 2)}"/>')
+            elif kind in ("spring", "mark"):
+                sw = (f'<line x1="{_f(x0)}" y1="{_f(y - fs * 0.3)}" x2="{_f(x0 + fs * 1.2)}" y2="{_f(y - fs * 0.3)}" '
+                      f'stroke="{colour}" stroke-width="{_f(lw * 2)}"/>')
+            else:
+                op = "0.35" if kind == "wheel" else "0.85"
+                sw = (f'<rect x="{_f(x0)}" y="{_f(y - fs * 0.75)}" width="{_f(fs * 1.2)}" height="{_f(fs * 0.8)}" '
+                      f'fill="{colour}" fill-opacity="{op}" rx="{_f(fs * 0.15)}"/>')
+            out.append(f'<g class="key">{sw}<text x="{_f(x0 + fs * 1.6)}" y="{_f(y)}">{html.escape(text)}</text></g>')
+    out.append("</g>")
+    return out
+
+
+def _scale_bar(vb, span: float, lw: float, fs: float) -> list[str]:
+    """A scale bar in the bottom right corner: a round length in mm."""
+    L = nice_length(vb[2])
+    x1 = vb[0] + vb[2] - fs * 0.8
+    x0 = x1 - L
+    y = vb[1] + vb[3] - fs * 0.9
+    t = fs * 0.35
+    return [f'<g class="scalebar" data-mm="{L:g}" stroke="#1d2733" stroke-width="{_f(lw * 1.2)}" fill="none">'
+            f'<path d="M{_f(x0)},{_f(y - t)}V{_f(y)}H{_f(x1)}V{_f(y - t)}'
+            f'M{_f((x0 + x1) / 2)},{_f(y)}V{_f(y - t * 0.6)}"/>'
+            f'</g><text x="{_f((x0 + x1) / 2)}" y="{_f(y - t - fs * 0.25)}" font-size="{_f(fs * 0.8)}" '
+            f'text-anchor="middle" fill="#1d2733">{L:g} mm</text>']
 
 
 def _coil(a, b, amp, n=8):
@@ -525,37 +500,6 @@ def _coil(a, b, amp, n=8):
         pts.append(a + d * f + nrm * amp * (1 if k % 2 else -1))
     pts += [a + d * 0.85, b]
     return np.array(pts)
-
-
-def _gap_marks(spec, P, tyres, shell_g, lw, fs):
-    """Mark the smallest front-view gap of each tyre to the links and to the shell."""
-    out = []
-    segs = []
-    for b_i, b in enumerate(spec["bodies"]):
-        h = b["hull"]
-        for k in range(len(h) if len(h) > 2 else 1):
-            segs.append((P[h[k]], P[h[(k + 1) % len(h)]], b_i))
-    for i, j, _ in spec["links"] + spec["springs"]:
-        segs.append((P[i], P[j], -1))
-    for w_i, w in enumerate(spec["wheels"]):
-        t = tyres[w_i]
-        cands = []
-        sel = [s for s in segs if s[2] != w["body"]]
-        if sel:
-            A = np.array([s[0] for s in sel])
-            B = np.array([s[1] for s in sel])
-            cands.append(_closest_pair(t, A, B))
-        if shell_g is not None:
-            cands.append(_closest_pair(t, shell_g, np.roll(shell_g, -1, axis=0)))
-        for dist, p, q in cands:
-            if not np.all(np.isfinite([dist, *p, *q])):
-                continue
-            out.append(f'<line x1="{_f(p[0])}" y1="{_f(-p[1])}" x2="{_f(q[0])}" y2="{_f(-q[1])}" stroke="{GAP_COLOUR}" '
-                       f'stroke-width="{_f(lw)}"/>')
-            m = 0.5 * (p + q)
-            out.append(f'<text x="{_f(m[0] + lw * 3)}" y="{_f(-m[1])}" font-size="{_f(fs * 0.8)}" fill="{GAP_COLOUR}">'
-                       f'{dist:.0f}</text>')
-    return out
 
 
 def _dim_h(x1, x2, y, text, lw, fs, ext_from=None):
@@ -575,19 +519,27 @@ def _dim_h(x1, x2, y, text, lw, fs, ext_from=None):
     return s
 
 
-def _dimensions(spec, P, tyres, lw, fs, span, vb):
+def _dimensions(spec, P, cam, wh, lw, fs, span, vb):
+    from tiltopt.kinematics.wheel_solid import lateral_reach
+
     out = []
     wl = spec["wheels"][0]
-    # contacts: lowest point of each tyre outline
-    cl = tyres[0][np.argmin(tyres[0][:, 1])]
-    cr = tyres[1][np.argmin(tyres[1][:, 1])]
+    # contacts (docs/domain.md): the lowest point of each tyre, (R - r) sin(camber) inboard of the centre
+    cts, reach = [], []
+    for k, w in enumerate(spec["wheels"]):
+        R, r, h = wh[k]
+        c = P[w["centre"]]
+        cts.append(np.array([c[0] - (R - r) * math.sin(cam[k]), 0.0]))
+        e = float(lateral_reach(R, r, h, cam[k]))
+        reach.append((c[0] - e, c[0] + e))
+    cl, cr = cts
     y1 = 0.06 * span
     out += _dim_h(cl[0], cr[0], y1, f"track {cr[0] - cl[0]:.1f} mm", lw, fs,
                   ext_from=[(cl[0], 0.0), (cr[0], 0.0)])
-    lo = min(t[:, 0].min() for t in tyres)
-    hi = max(t[:, 0].max() for t in tyres)
+    lo = min(a for a, _ in reach)
+    hi = max(b for _, b in reach)
     y2 = 0.13 * span
-    out += _dim_h(lo, hi, y2, f"overall tyre width {hi - lo:.1f} mm", lw, fs,
+    out += _dim_h(lo, hi, y2, f"outer width of the wheels {hi - lo:.1f} mm", lw, fs,
                   ext_from=[(lo, 0.0), (hi, 0.0)])
     # heights of the chassis pivots and the wheel centre, as a chain at the left
     ch = [b for b in spec["bodies"] if b["chassis"]][0]

@@ -5,7 +5,6 @@ import shlex
 from pathlib import Path
 from typing import Sequence
 
-import numpy as np
 import pandas as pd
 
 from tiltopt.base.errors import InputError
@@ -36,24 +35,54 @@ def check_inputs(run, allow_changed: bool = False, notice=None) -> None:
         verify_inputs(run_dir, meta, allow_changed, notice, include_config=False)
 
 
-def best_compromise(front: pd.DataFrame) -> str:
-    """Candidate id of the feasible front design nearest the ideal point.
+def run_targets(run):
+    """The ``[targets]`` of a run's config (:class:`tiltopt.optimizer.selection.Targets`; empty without)."""
+    from tiltopt.optimizer.selection import Targets
 
-    Each objective is scaled to [0, 1] over the feasible front (min-max); the
-    design with the smallest Euclidean distance to the all-zero (ideal) point
-    wins; ties go to the first row.
+    try:
+        t = run.config.targets
+    except Exception:  # a merged front, a run from code, an older tiltopt: no targets
+        t = None
+    return t if t is not None else Targets()
+
+
+def choose(run, bounds=None, weights=None):
+    """The best compromise of a run's front (:func:`tiltopt.optimizer.selection.best_compromise`) with the
+    run config's targets (or the ``bounds`` and ``weights`` given). When no feasible design meets the
+    targets, it is chosen among every feasible design and its ``method`` says so.
+
+    Raises
+    ------
+    InputError
+        When the front has no feasible design.
     """
-    obj = [c for c in front.columns if c.startswith("obj.")]
-    df = front[front["feasible"].astype(bool)] if "feasible" in front else front
-    if not len(df):
+    from tiltopt.optimizer.selection import best_compromise as pick
+
+    t = run_targets(run)
+    bounds = t.bounds if bounds is None else bounds
+    weights = t.weights if weights is None else weights
+    front = run.front
+    units = getattr(run, "units", None)
+    ch = pick(front, bounds, weights, units)
+    if ch.candidate_id is None and bounds:
+        first = ch.method
+        ch = pick(front, (), weights, units)
+        ch.method = f"{first} So it is chosen among every feasible front design: {ch.method}"
+    if ch.candidate_id is None:
         raise InputError("the run has no feasible design on its front, so there is no best compromise to export.")
-    if not obj:
-        return str(df["candidate_id"].iloc[0])
-    F = df[obj].to_numpy(float)
-    lo, hi = np.nanmin(F, axis=0), np.nanmax(F, axis=0)
-    Z = (F - lo) / np.where(hi - lo > 0, hi - lo, 1.0)
-    d = np.sqrt(np.nansum(Z ** 2, axis=1))
-    return str(df["candidate_id"].iloc[int(np.argmin(d))])
+    return ch
+
+
+def best_compromise(front: pd.DataFrame, bounds=(), weights=None) -> str:
+    """Candidate id of the best compromise of a front (:func:`tiltopt.optimizer.selection.best_compromise`):
+    among the feasible designs meeting ``bounds``, each objective scaled from the best of them (0) to the
+    bound or their worst (1), the smallest weighted root-mean-square wins; ties go to the first row."""
+    from tiltopt.optimizer.selection import best_compromise as pick
+
+    ch = pick(front, bounds, weights)
+    if ch.candidate_id is None:
+        raise InputError("the run has no feasible design on its front, so there is no best compromise to export.")
+    return ch.candidate_id
 
 
 def _row_of(run, candidate_id: str) -> tuple[dict, bool]:
@@ -71,11 +100,13 @@ def _row_of(run, candidate_id: str) -> tuple[dict, bool]:
 
 def sheet_from_run(run_dir, candidate_id: str, out_dir=None, *, run=None, jig_datum=(0.0, 0.0),
                    sag_mm: float | None = None, corner_load_n: float | None = None, loads=None,
-                   shell=None, allow_changed_inputs: bool = False, notice=None) -> dict[str, Path]:
+                   shell=None, allow_changed_inputs: bool = False, notice=None, choice=None) -> dict[str, Path]:
     """Write the build sheet of one candidate of a run (default folder ``RUN_DIR/sheets/ID``).
 
     Shell and loads are the run's own copies unless given; a changed original is refused
-    (:func:`check_inputs`) unless ``allow_changed_inputs``.
+    (:func:`check_inputs`) unless ``allow_changed_inputs``. ``choice``: the
+    :class:`tiltopt.optimizer.selection.Choice` that picked this design (the sheet says how it was
+    chosen and what it gives up); by default the sheet of the run's best compromise says it too.
     """
     from .sheet import SheetInputs, write_sheet
 
@@ -103,6 +134,12 @@ def sheet_from_run(run_dir, candidate_id: str, out_dir=None, *, run=None, jig_da
     if tpl is not None and getattr(tpl, "name", None):
         scenario["template"] = tpl.name
     out_dir = Path(out_dir) if out_dir is not None else run_dir / "sheets" / str(candidate_id)
+    if choice is None and on_front:
+        try:
+            best = choose(run)
+            choice = best if best.candidate_id == str(candidate_id) else None
+        except InputError:
+            choice = None
     inp = SheetInputs(
         mech=mech, candidate_id=str(candidate_id), run_id=str(getattr(run, "run_id", "")),
         lean_limit_deg=env["lean_limit_deg"], travel_mm=env["travel_mm"], lean_step_deg=env.get("lean_step_deg"),
@@ -112,22 +149,62 @@ def sheet_from_run(run_dir, candidate_id: str, out_dir=None, *, run=None, jig_da
         sag_mm=sag_mm, corner_load_n=corner_load_n,
         provenance={"config": meta.get("config"), "seed": meta.get("seed"),
                     "versions": meta.get("versions") or package_versions()},
-        scenario=scenario,
+        scenario=scenario, choice=choice if choice is not None and choice.candidate_id == str(candidate_id) else None,
         command=f"tiltopt sheet {shlex.quote(str(run_dir))} --candidate {shlex.quote(str(candidate_id))}")
     return write_sheet(out_dir, inp)
 
 
+def _explorer_runs(run_dirs, runs) -> tuple[list, str | None]:
+    """An :class:`ExplorerRun` per run; a merged front folder stands for the runs behind it, each showing
+    the rows of the merged front that came from it."""
+    from tiltopt.optimizer.merge import MERGE_FORMAT
+
+    from .explorer import run_from_results
+
+    out, merged_name = [], None
+    for r, d in zip(runs, run_dirs):
+        if (getattr(r, "meta", None) or {}).get("format") != MERGE_FORMAT:
+            out.append(run_from_results(r, d))
+            continue
+        merged_name = str(d)
+        front = r.front
+        for s in r.meta.get("sources") or []:
+            src_dir = s.get("run_dir") if isinstance(s, dict) else None
+            rows = front[front["source_run"].astype(str) == str(s.get("run_id"))]
+            if not len(rows):
+                continue
+            if not src_dir or not Path(src_dir).is_dir():
+                raise InputError(f"the run {s.get('run_id')} behind this merged front is not at {src_dir!r} any more; "
+                                 f"the explorer draws each design from its run's template. Give the run folders "
+                                 f"instead, or put the run back.", str(d))
+            src = load(src_dir)
+            rows = rows.copy()
+            rows["candidate_id"] = rows["source_candidate_id"].astype(str)
+            rows = rows.drop(columns=[c for c in ("source_run", "source_candidate_id") if c in rows.columns])
+            out.append(run_from_results(src, src_dir, front=rows.reset_index(drop=True), shortlist_dir=str(d)))
+    return out, merged_name
+
+
 def explore_runs(run_dirs: Sequence, out_path, *, runs=None, beside: bool = False,
-                 allow_changed_inputs: bool = False, notice=None, **kw) -> Path:
-    """Write the explorer page of one or more run folders (input changes: see :func:`check_inputs`)."""
-    from .explorer import run_from_results, write_explorer
+                 allow_changed_inputs: bool = False, notice=None, detail_limit: int | None = None,
+                 explorer_out: list | None = None) -> Path:
+    """Write the explorer page of one or more run folders or merged front folders (input changes: see
+    :func:`check_inputs`). ``explorer_out``: a list the :class:`~tiltopt.reports.explorer.Explorer` is
+    appended to (``--serve`` answers the page's detail requests with it)."""
+    from .explorer import DEFAULT_DETAIL_LIMIT, Explorer, write_explorer
 
     runs = runs if runs is not None else [load(d) for d in run_dirs]
     for r in runs:
         check_inputs(r, allow_changed_inputs, notice)
-    ex = [run_from_results(r, d) for r, d in zip(runs, run_dirs)]
+    ex, merged = _explorer_runs(list(run_dirs), runs)
     ids = [e.run_id for e in ex]
     if len(set(ids)) != len(ids):
         raise InputError(f"the same run is given twice ({', '.join(ids)}). Give each run folder once.")
-    title = "Pareto explorer: " + ", ".join(ids)
-    return write_explorer(out_path, ex, beside=beside, title=title, **kw)
+    if not ex:
+        raise InputError("nothing to show: the merged front has no designs.", str(run_dirs[0]))
+    title = "Pareto explorer: " + (f"merged front {Path(merged).name} ({', '.join(ids)})" if merged else ", ".join(ids))
+    explorer = Explorer(ex, title=title, merged_front=merged)
+    if explorer_out is not None:
+        explorer_out.append(explorer)
+    return write_explorer(out_path, explorer, beside=beside,
+                          detail_limit=DEFAULT_DETAIL_LIMIT if detail_limit is None else detail_limit)

@@ -63,6 +63,7 @@ class SheetInputs:
     provenance: dict = field(default_factory=dict)
     scenario: dict = field(default_factory=dict)
     command: str = ""
+    choice: object | None = None          # tiltopt.optimizer.selection.Choice that picked this design
 
 
 # ----------------------------------------------------------------- helpers
@@ -328,30 +329,36 @@ def _corners(r) -> list[tuple[int, int, str]]:
 def _clearance_section(an: Analysis) -> str:
     r = an.sweep
     cr = an.clearance_result
+    fm = an.marks
     rows = []
+
+    def lo(a):
+        return np.min(a) if np.all(np.isfinite(a)) or np.any(np.isinf(a)) else float("nan")
+
     for ti, li, label in _corners(r):
         ok = bool(r.converged[0, ti, li])
-        g = an.gaps
         row = [_num(label[0], 1), _num(label[1], 0),
                "yes" if ok else f'<span class="bad">{_e(r.status_text(0, ti, li))}</span>',
-               _num(g["wheel_link_mm"][0, ti, li], 1), _num(g["wheel_shell_mm"][0, ti, li], 1),
-               _num(g["ground_mm"][0, ti, li], 1)]
+               _clr(lo(fm.other_mm[0, ti, li])), _clr(lo(fm.carrier_mm[0, ti, li])), _clr(fm.pair_mm[0, ti, li]),
+               _clr(fm.tubes_mm[0, ti, li]), _clr(fm.ground_mm[0, ti, li])]
         if cr is not None:
             row += [_clr(np.min(cr.wheel_link_mm[0, ti, li])), _clr(np.min(cr.wheel_carrier_mm[0, ti, li])),
                     _clr(np.min(cr.wheel_shell_mm[0, ti, li])) if cr.has_shell else "-",
                     _clr(np.min(cr.ground_mm[0, ti, li])), _num(cr.max_steer_deg[0, ti, li], 0)]
         rows.append(row)
-    heads = ["lean [deg]", "travel [mm]", "reached", "tyre to links, front view [mm]",
-             "tyre to shell section, front view [mm]", "lowest link point [mm]"]
+    heads = ["lean [deg]", "travel [mm]", "reached", "to other members, straight ahead [mm]",
+             "to own upright and arms, straight ahead [mm]", "between the wheels [mm]", "between tubes [mm]",
+             "lowest tube above ground [mm]"]
     if cr is not None:
-        heads += ["wheel to other members, 3-D [mm]", "wheel to its upright and arms, 3-D [mm]",
-                  "wheel to shell, 3-D [mm]", "ground, 3-D [mm]", "steer range ± [deg]"]
+        heads += ["to other members, 3-D over the steer range [mm]", "to own upright and arms, 3-D [mm]",
+                  "to the shell, 3-D [mm]", "ground (shell and tubes), 3-D [mm]", "steer range ± [deg]"]
     s = _table(heads, rows, num_from=0)
-    s += ('<p class="note">Front-view gaps, measured in the linkage plane on the drawing (tyre outline to the '
-          'links and bodies not carrying it; tyre outline to the shell section at the linkage station, negative '
-          'inside). Steer is not included in the front-view figures' + ('; the 3-D figures are those of the wheel '
-          'as a solid (tyre, rim, spokes and hub) over the steer range given for that state.' if cr is not None
-          else '.') + '</p>')
+    s += ('<p class="note">Straight ahead: the wheel solids (tyre, rim and hub) and member tubes in the front '
+          'view, as the red marks of the drawings give them (with the wheels straight ahead, the 3-D clearance '
+          'of a member in the linkage plane is this front-view distance). Smallest of the two wheels.'
+          + (' The 3-D figures include every steer angle of the steer range given for that state, and the shell '
+             'in 3-D (not only its section at the linkage station): they are the figures the run checks.'
+             if cr is not None else '') + '</p>')
     if an.clearance:
         labels = {"min_wheel_shell_mm": "wheel to shell",
                   "min_wheel_link_mm": "wheel to the members that do not carry it",
@@ -529,6 +536,26 @@ def _curves(an: Analysis) -> str:
         f'<div class="chartbox">{c}</div>' for c in charts) + "</div>"
 
 
+def _choice_html(ch) -> str:
+    """How the design was chosen (the best compromise) and what it gives up against the best on each objective."""
+    rows = []
+    for r in ch.rows:
+        word = "more" if r["better"] == "lower" else "less"
+        gives = "the best" if r["gives_up"] <= 1e-9 * max(1.0, abs(r["best"])) else \
+            f"{_num(r['gives_up'], 3)} {_e(r['unit'])} {word}"
+        rows.append([_e(r["objective"].replace("_", " ")), _e(f"{r['better']} is better"),
+                     f"{_num(r['value'], 3)} {_e(r['unit'])}",
+                     f"{_num(r['best'], 3)} {_e(r['unit'])} ({_e(r['best_id'])})", gives,
+                     f"{_num(r['scale_to'], 3)} ({_e(r['scale_to_is'])})", _num(r["scaled"], 2), _num(r["weight"], 2)])
+    t = _table(["objective", "", "this design", "best meeting the bounds (design)", "gives up", "scaled to 1 at",
+                "scaled", "weight"], rows, num_from=2, text=(3, 4, 5))
+    return (f'<section class="avoid-break"><h2>Why this design</h2><p>This is the best compromise of the run. '
+            f'{_e(ch.method)}</p>{t}<p class="note">Gives up: how much worse than the best design meeting the bounds '
+            f'on that objective, as the objective reads (clearance larger is better). Change the bounds and '
+            f'weights in the run config\'s [targets] table, in the explorer page, or with tiltopt shortlist '
+            f'--where ... --weight ...</p></section>')
+
+
 def _joint_rows(model: Model, P) -> list[list]:
     mech, pidx = model.mech, model.point_index
     rows = []
@@ -610,10 +637,10 @@ def _sheet_html(inp: SheetInputs, an: Analysis, prow: list[dict], prov: str, sta
     ti0 = int(np.argmin(np.abs(np.asarray(r.travel_mm))))
     drawing = front_view_svg(spec, P, geom.static_camber[0], (0.0, 0.0, 0.0), an.shell_poly, dimensions=True,
                              jig_datum=jig if any(abs(v) > 1e-9 for v in jig) else None,
-                             labels=labels, title=f"{inp.candidate_id}: front view at the design position",
-                             show_gaps=False)
+                             labels=labels, title=f"{inp.candidate_id}: front view at the design position")
     lean_draw = front_view_svg(spec, r.points[0, ti0, -1], r.camber[0, ti0, -1], an.pose[0, ti0, -1],
-                               an.shell_poly, title="at the lean limit") if r.converged[0, ti0, -1] else \
+                               an.shell_poly, marks=an.marks.state(0, ti0, len(r.lean_deg) - 1),
+                               title="at the lean limit") if r.converged[0, ti0, -1] else \
         f'<p class="bad">The lean limit was not reached: {_e(r.status_text(0, ti0, len(r.lean_deg) - 1))}</p>'
     member_html, lock_html, cases_html = _sizing_sections(an, _members(model, P))
     spring_rows, spring_notes, spring_setup = _spring_data(model, an, inp)
@@ -628,7 +655,8 @@ def _sheet_html(inp: SheetInputs, an: Analysis, prow: list[dict], prov: str, sta
     fragments = dict(
         css=_template_text("sheet.css"), candidate=_e(inp.candidate_id), caution=_e(SAFETY),
         subtitle=_e(mech.name) + (" · run " + _e(inp.run_id) if inp.run_id else "") + " · " + _e(stamp),
-        summary=summary, variables=variables, scenario=scenario, metrics=metrics, choice="",
+        summary=summary, variables=variables, scenario=scenario, metrics=metrics,
+        choice=_choice_html(inp.choice) if inp.choice is not None else "",
         recreate=('<p class="note">Re-create: <code>' + _e(inp.command) + "</code></p>") if inp.command else "",
         drawing=drawing, jig_y=f"{jig[0]:g}", jig_z=f"{jig[1]:g}", pivots=piv_table, members=member_html,
         joints=_table(["joint", "kind", "joins", "y [mm]", "z [mm]"], _joint_rows(model, P), num_from=3),
