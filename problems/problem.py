@@ -160,7 +160,7 @@ class TiltProblem(Problem):
     #: share of the first population seeded round the base design (the rest is random in the bounds)
     SEED_SHARE = 0.25
     #: standard deviation of the seeded perturbations, as a share of each variable's range
-    SEED_SPREAD = 0.05
+    SEED_SPREAD = 0.15
 
     def initial_designs(self, n: int, seed: int) -> np.ndarray:
         """The first population: the base design (a user's sketch), small perturbations of it, the rest
