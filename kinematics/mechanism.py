@@ -54,7 +54,8 @@ The steering linkage (optional; see :mod:`tiltopt.kinematics.steering`)::
                 degree, e.g. a pinion's pitch radius x pi / 180; lever: degrees per input
                 degree), points = ["body.p", ...] (the points the drive moves: tie rod ends)
     [[steering.rods]]     wheel = "left" | "right", arm = "upright.point" (the steering arm:
-                a point of the steered part, turning with the wheel about its steering axis),
+                a point of the steered part, turning with the wheel about its steering axis: the
+                wheel's upright, or the guide a slider joins it to),
                 end = "body.point" (a point a drive moves), name (optional); the rod's length
                 is fixed at its design-position length
 
@@ -764,6 +765,17 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
     return mech
 
 
+def steered_bodies(mech: "Mechanism", wheel: Wheel) -> tuple[str, ...]:
+    """The bodies that turn with a wheel about its steering axis: its upright and any body a slider
+    joins it to (a telescopic leg turns with its guide: the slider keeps their relative angle)."""
+    out = [wheel.upright]
+    for s in mech.sliders:
+        guide, runner = split_ref(s.a_from)[0], split_ref(s.b)[0]
+        if wheel.upright in (guide, runner):
+            out.append(runner if guide == wheel.upright else guide)
+    return tuple(dict.fromkeys(out))
+
+
 def axis_refs(mech: "Mechanism", wheel: Wheel) -> tuple[str, str | None]:
     """The points a wheel's steering axis is given by: (the point it runs through, the second point or None)."""
     if wheel.steer_axis is not None:
@@ -939,9 +951,11 @@ def _parse_steering(raw: Any, mech: "Mechanism", ref, unique, src: str) -> Steer
         if any(r.wheel == wn for r in rods):
             raise InputError(f"wheel '{wn}' has two rods; give one per steered wheel.", src, w + ".wheel")
         arm = ref(t["arm"], w + ".arm")
-        if split_ref(arm)[0] != wheel.upright:
-            raise InputError(f"the steering arm point must be a point of the wheel's upright '{wheel.upright}' (its "
-                             f"steered part). Got {arm!r}.", src, w + ".arm")
+        turning = steered_bodies(mech, wheel)
+        if split_ref(arm)[0] not in turning:
+            raise InputError(f"the steering arm point must be a point of the part that steers with the wheel (the "
+                             f"wheel's upright '{wheel.upright}', or the guide a slider joins it to: "
+                             f"{', '.join(turning)}). Got {arm!r}.", src, w + ".arm")
         a_ref, b_ref = axis_refs(mech, wheel)
         if arm in joints or arm in centres or arm in (a_ref, b_ref) or arm in moved or arm in arms:
             raise InputError(f"{arm} is a joint of the tilting linkage, a wheel centre, a steering axis point or "
