@@ -20,7 +20,7 @@ Run ``python benchmarks/front_quality.py`` (about 10-20 min on two cores with th
 from __future__ import annotations
 
 import argparse
-import dataclasses
+import copy
 import json
 import sys
 import tempfile
@@ -34,7 +34,7 @@ sys.path.insert(0, str(ROOT))
 
 from pymoo.indicators.hv import HV  # noqa: E402
 
-from tiltopt.optimizer.config import load_config  # noqa: E402
+from tiltopt.optimizer.config import load_config, parse_config  # noqa: E402
 from tiltopt.optimizer.pareto import nondominated_mask  # noqa: E402
 from tiltopt.optimizer.results import load_run  # noqa: E402
 from tiltopt.optimizer.runner import start_run  # noqa: E402
@@ -78,11 +78,16 @@ def main(argv=None) -> dict:
     t_demo = time.perf_counter() - t0
     runs = []
     for k in range(args.reference_runs):
-        c = load_config(args.config)
-        c.run = dataclasses.replace(c.run, seed=101 + k, generations=args.reference_generations)
+        # the run reads its settings from the config data (it re-parses them from its input copies)
+        data = copy.deepcopy(cfg.data)
+        data["run"].update(seed=101 + k, generations=args.reference_generations)
+        c = parse_config(data, cfg.source, cfg.base_dir)
         t = time.perf_counter()
         o = start_run(c, run_id=f"reference-{k}", output=out, overwrite=True, progress=False,
                       workers=args.processes)
+        done = load_run(o.run_dir).generations["generation"].max()
+        if done != args.reference_generations or load_run(o.run_dir).meta.get("seed") != 101 + k:
+            raise SystemExit(f"front_quality: reference run {k} ran {done} generations, not as asked")
         runs.append((o, time.perf_counter() - t))
     t_all = time.perf_counter() - t0
 

@@ -621,41 +621,61 @@ def _predict(qa, ta, pa, qb, tb, pb, phi, two, out):
                 out[i, c] = qb[i, c] + tb[i, c] * (x - b)
 
 
-def branch_test(q_new, t_new, q_old, t_old, phi_old, phi_new, col_scale, items):
+def branch_test(q_new, t_new, q_old, t_old, phi_old, phi_new, col_scale, lc, items):
     """Trapezoid ratio and tangent turn of continuation steps (see sweep.BRANCH_JUMP_RATIO).
 
-    On one assembly branch the secant (q_new - q_old) / dphi matches the mean of the path
-    tangents at both ends to second order in the step. Returns ``ratio`` (N,):
-    |secant - mean tangent| / (|secant| + |mean tangent|) in scaled coordinates (0 for a
-    zero step, NaN where a tangent is not finite), and ``turned`` (N,): the tangent turned
-    by more than a right angle. ``items``: the rows of ``col_scale`` (n_items, n_q).
+    The trapezoid rule is applied along the arclength of the lean path, a curve in (q, phi)
+    space (scaled coordinates: angles, the lean included, times the item's characteristic
+    length ``lc``), whose unit tangent ``T = (dq/dphi, 1) / |(dq/dphi, 1)|`` stays smooth
+    through a fold: the step ``(dq, dphi) = l (T0 + T1) / 2`` up to a relative error of about
+    ``(l kappa)^2 / 12`` (``l`` its arclength, ``kappa`` the curvature of the path), however
+    near the fold the step ends. Taking ``l`` from the lean component, the secant dq/dphi of a
+    step on one branch matches the mean of the end tangents dq/dphi weighted by
+    ``w = 1 / |(dq/dphi, 1)|``. Returns ``ratio`` (N,):
+    |secant - weighted mean| / (|secant| + |weighted mean|) in scaled coordinates (0 for a
+    zero step, NaN where a tangent is not finite), and ``turned`` (N,): the tangent dq/dphi
+    turned by more than a right angle. ``items``: the rows of ``col_scale`` (n_items, n_q)
+    and ``lc`` (n_items,).
+
+    The plain mean of the end tangents (the trapezoid rule in the lean) fails near a fold:
+    there dq/dphi grows like 1 / sqrt(phi_fold - phi), the plain mean outruns the secant, and
+    its ratio tends to 1 for a good step that ends just before the fold.
     """
     N = q_new.shape[0]
     ratio, turned = np.empty(N), np.empty(N, np.bool_)
     c = np.ascontiguousarray
     _branch_test(c(q_new), c(t_new), c(q_old), c(t_old), c(phi_old, dtype=float), c(phi_new, dtype=float),
-                 c(col_scale), c(items, dtype=np.int64), ratio, turned)
+                 c(col_scale), c(lc, dtype=float), c(items, dtype=np.int64), ratio, turned)
     return ratio, turned
 
 
 @numba.njit(cache=True, error_model="numpy")
-def _branch_test(q1, t1, q0, t0, p0, p1, col_scale, items, ratio, turned):
+def _branch_test(q1, t1, q0, t0, p0, p1, col_scale, lc, items, ratio, turned):
     N, n = q1.shape
     for i in range(N):
         row = items[i]
         dphi = p1[i] - p0[i]
-        mis = 0.0
-        sec2 = 0.0
-        mean2 = 0.0
+        L2 = lc[row] * lc[row]             # the lean component of (dq/dphi, 1), scaled, squared
+        a0 = L2
+        a1 = L2
         dot = 0.0
         for c in range(n):
             s = 1.0 / col_scale[row, c]
-            sec = (q1[i, c] - q0[i, c]) / dphi
-            mean = 0.5 * (t0[i, c] + t1[i, c])
+            a0 += (t0[i, c] * s) ** 2
+            a1 += (t1[i, c] * s) ** 2
+            dot += t0[i, c] * t1[i, c] * s * s
+        w0 = 1.0 / np.sqrt(a0)             # weights of the end tangents: 1 / |(dq/dphi, 1)|
+        w1 = 1.0 / np.sqrt(a1)
+        mis = 0.0
+        sec2 = 0.0
+        mean2 = 0.0
+        for c in range(n):
+            s = 1.0 / col_scale[row, c]
+            sec = (q1[i, c] - q0[i, c]) / dphi if dphi != 0.0 else 0.0
+            mean = (w0 * t0[i, c] + w1 * t1[i, c]) / (w0 + w1)
             mis += ((sec - mean) * s) ** 2
             sec2 += (sec * s) ** 2
             mean2 += (mean * s) ** 2
-            dot += t0[i, c] * t1[i, c] * s * s
         ratio[i] = np.sqrt(mis) / max(np.sqrt(sec2) + np.sqrt(mean2), 1e-12) if dphi != 0.0 else 0.0
         turned[i] = dot < 0.0
 

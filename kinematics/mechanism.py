@@ -1149,9 +1149,12 @@ def _tube_lines(m, mech) -> list[str]:
 _LR = re.compile(r"(?<![A-Za-z])(left|right)(?![A-Za-z])")
 
 
-def _swap_lr(s: str) -> str:
-    """Swap the words left and right (not inside other words: 'upright' stays)."""
+def swap_lr(s: str) -> str:
+    """Swap the words left and right (not inside other words: 'upright' stays): a name's mirror partner."""
     return _LR.sub(lambda m: "right" if m.group(1) == "left" else "left", s)
+
+
+_swap_lr = swap_lr
 
 
 def mirror(mech: Mechanism) -> Mechanism:

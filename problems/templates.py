@@ -40,7 +40,6 @@ optimisation problem turns that into a constraint violation with a reason).
 from __future__ import annotations
 
 import math
-import re
 from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Callable, Iterable, Mapping, Sequence
@@ -51,7 +50,8 @@ from tiltopt.base.errors import InputError, decode_toml, read_toml
 from tiltopt.base.limits import MAX_COORD_MM
 from tiltopt.base.resources import config_path
 from tiltopt.kinematics.disjoint_sets import DisjointSets
-from tiltopt.kinematics.mechanism import Mechanism, load_mechanism, mechanism_to_toml, parse_mechanism, split_ref
+from tiltopt.kinematics.mechanism import (Mechanism, load_mechanism, mechanism_to_toml, parse_mechanism, split_ref,
+                                         swap_lr as _swap_lr)
 from tiltopt.kinematics.model import Geometry, Model
 
 SYMMETRY_TOLERANCE_MM = 0.01
@@ -109,14 +109,6 @@ class DesignVariable:
         return cls(name=d["name"], unit=d.get("unit", "mm"), lower=float(d["lower"]), upper=float(d["upper"]),
                    default=float(d["default"]), description=d.get("description", ""),
                    kind=d.get("kind", POINT), moves=tuple(Move(r, a, float(f)) for r, a, f in d.get("moves", [])))
-
-
-_LR = re.compile(r"(?<![A-Za-z])(left|right)(?![A-Za-z])")
-
-
-def _swap_lr(s: str) -> str:
-    """Swap the words ``left`` and ``right`` (whole words only: ``upright`` stays)."""
-    return _LR.sub(lambda m: "right" if m.group(1) == "left" else "left", s)
 
 
 class Template:

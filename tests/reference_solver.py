@@ -387,6 +387,35 @@ def _lean_nodes(leans: list[float], max_step: float) -> list[float]:
     return nodes
 
 
+def lean_start(ref: ReferenceMechanism, travel_mm: float, max_travel_step_mm: float = 5.0):
+    """The start of a lean path: travel ``travel_mm`` reached at lean 0, its spring lengths held.
+
+    The travel is reached by continuation from the design position (free modes held, see
+    :func:`free_modes`).
+
+    Returns
+    -------
+    travel_solution : StateSolution
+        The last travel-stage state (not converged: the travel is not reached).
+    base : StateSolution or None
+        The same state solved with the springs held (the lean-0 state of the path).
+    held : ndarray of shape (n_springs,) or None
+        The held spring lengths, mm.
+    """
+    x = ref.design_x()
+    modes = free_modes(ref, x)
+    hold = None if modes is None else (modes, x.copy())
+    n = max(1, math.ceil(abs(travel_mm) / max_travel_step_mm - 1e-9))
+    t_sol = None
+    for k in range(1, n + 1):
+        t_sol = reference_solve_state(ref, x, 0.0, travel_mm=travel_mm * k / n, hold_modes=hold)
+        if not t_sol.converged:
+            return t_sol, None, None
+        x = t_sol.x
+    held = np.array(list(_state_geometry(ref, t_sol.x)["springs"].values()))
+    return t_sol, reference_solve_state(ref, t_sol.x, 0.0, spring_lengths_mm=held), held
+
+
 def reference_sweep(mech: Mechanism, lean_deg, travel_mm, *, max_lean_step_deg: float = 1.0,
                     max_travel_step_mm: float = 5.0, with_body_angles: bool = False) -> list[dict]:
     """The sweep of docs/domain.md, one state at a time.
@@ -420,21 +449,9 @@ def reference_sweep(mech: Mechanism, lean_deg, travel_mm, *, max_lean_step_deg: 
     r_mean = 0.5 * sum(w.crown_radius_mm for w in mech.wheels)
     out = []
     for s in travels:
-        # ---- travel at lean 0
-        x = ref.design_x()
-        modes = free_modes(ref, x)
-        hold = None if modes is None else (modes, x.copy())
-        n = max(1, math.ceil(abs(s) / max_travel_step_mm - 1e-9))
-        t_sol = None
-        for k in range(1, n + 1):
-            t_sol = reference_solve_state(ref, x, 0.0, travel_mm=s * k / n, hold_modes=hold)
-            if not t_sol.converged:
-                break
-            x = t_sol.x
+        t_sol, base, held = lean_start(ref, s, max_travel_step_mm)
         solved: dict[float, StateSolution] = {}
         if t_sol.converged:
-            held = np.array(list(_state_geometry(ref, t_sol.x)["springs"].values()))
-            base = reference_solve_state(ref, t_sol.x, 0.0, spring_lengths_mm=held)
             solved[0.0] = base
             if base.converged:
                 for branch in (sorted(v for v in set(leans) if v > 0),

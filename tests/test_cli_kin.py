@@ -26,9 +26,12 @@ METRICS = ["track_mm", "track_change_mm", "scrub_mm", "heave_mm", "camber_error_
 
 
 def run(*args):
+    """stdout of a command (JSON and CSV go there; the caution goes to stderr)."""
     out = CliRunner().invoke(main, list(args))
     assert out.exit_code == 0, out.output
-    return out.output
+    if "--format" in args:
+        assert "Caution" in out.stderr and "Caution" not in out.stdout
+    return out.stdout
 
 
 def test_json_has_issue_keys_and_nulls_where_not_converged():

@@ -598,7 +598,7 @@ def _cli_json(*args):
 
     res = CliRunner().invoke(main, list(args))
     assert res.exit_code == 0, res.output
-    return json.loads(res.output)
+    return json.loads(res.stdout)
 
 
 def test_sweep_json_record_keys():

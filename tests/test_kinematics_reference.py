@@ -15,7 +15,9 @@ import pytest
 from tests.helpers import CONFIGS, mech_of, sprung_twin_beam, twin_beam, wishbone_rocker
 from tiltopt.kinematics.mechanism import load_mechanism
 from tiltopt.kinematics.model import Model
-from tests.reference_solver import free_modes, prepare, reference_solve_state, reference_sweep, residuals
+from tests.reference_solver import (_Evaluator, free_modes, lean_start, prepare, reference_solve_state,
+                                    reference_sweep, residuals)
+from tiltopt.kinematics.solver import SolveSettings
 from tiltopt.kinematics.sweep import SweepSettings, sweep
 
 LENGTH_KEYS = ["track_mm", "track_change_mm", "scrub_mm", "heave_mm", "lean_point_offset_mm"]
@@ -373,6 +375,130 @@ def test_second_fold_case_batched_coarse_step():
     res = sweep(Model(mech), lean_deg=[0.0, 20.0, 25.0], travel_mm=[10.0])
     # reference: test_second_fold_case_reference
     assert res.converged[0, 0].tolist() == [True, True, False]
+
+
+def keller_trace(mech, travel_mm: float, ds: float = 2.0, max_steps: int = 1000):
+    """The lean path of one travel traced by pseudo-arclength continuation (Keller's method).
+
+    The lean-stage equations F(x, phi) = 0 of tests.reference_solver (absolute body coordinates,
+    springs held at their lengths at lean 0 and the given travel) define a curve in (x, phi). Each
+    step predicts along the unit tangent (the null vector of [dF/dx, dF/dphi], scaled: angles and
+    the lean times the characteristic length) by ``ds`` and corrects by Newton on F = 0 plus the
+    hyperplane through the prediction normal to the tangent, so the trace passes a fold, where
+    phi turns back, like any other point. It stops half a degree after the lean turned back.
+
+    Returns the reference model, the held spring lengths, and per node the state x, the lean
+    (deg), the lean component of the tangent oriented along the path, and det(dF/dx).
+    """
+    ref = prepare(mech)
+    _, base, held = lean_start(ref, travel_mm)
+    n = ref.n_unknowns
+    col = np.ones(n + 1)
+    col[2::3] = ref.char_length_mm
+    col[-1] = ref.char_length_mm
+
+    def fj(z):
+        f, J = residuals(ref, z[:n], z[n], spring_lengths_mm=held)
+        dphi = np.zeros((len(f), 1))
+        dphi[-1, 0] = -ref.char_length_mm          # the last row is (theta_chassis - phi) * L
+        return f, np.hstack([J, dphi])
+
+    def tangent(J, prev):
+        t = np.linalg.svd(J * col)[2][-1]
+        return t if t @ prev > 0 else -t
+
+    z = np.concatenate([base.x, [0.0]])
+    f, J = fj(z)
+    t = tangent(J, np.eye(n + 1)[-1])               # start toward positive lean
+    xs, leans, tphi, dets = [z[:n]], [0.0], [t[-1]], [np.linalg.det(J[:, :n])]
+    for _ in range(max_steps):
+        zp = z + ds * t / col
+        w = zp.copy()
+        for _ in range(20):
+            f, J = fj(w)
+            dw = np.linalg.solve(np.vstack([J, t * col]), -np.concatenate([f, [t @ ((w - zp) * col)]]))
+            w += dw
+            if np.max(np.abs(dw * col)) < 1e-10:
+                break
+        f, J = fj(w)
+        assert np.max(np.abs(f)) < 1e-8              # on the curve
+        z, t = w, tangent(J, t)
+        xs.append(z[:n])
+        leans.append(math.degrees(z[n]))
+        tphi.append(t[-1])
+        dets.append(np.linalg.det(J[:, :n]))
+        if t[-1] < 0 and leans[-1] < max(leans) - 0.5:
+            break
+    return ref, held, np.array(xs), np.array(leans), np.array(tphi), np.array(dets)
+
+
+# a third fold case (found by the random tests): at travel -10 mm the lean path folds 0.008 deg
+# past 10 deg; the batched solver's trapezoid test rejected the good 10 deg state (its plain mean
+# of dq/dphi outran the secant near the fold) until the test was taken along the arclength
+FOLD_CASE_3 = dict(upper_inner=(52.0, 441.25), upper_outer=(260.0, 380.0), lower_inner=(30.0, 180.0),
+                   lower_outer=(300.75, 190.0), hub_y=330.0, rocker_z=520.0, rocker_half=90.0,
+                   mount_frac=0.3125, R=200.0, r=5.0)
+
+
+def _upper_arm_to_upright_deg(ref, x, side):
+    """Angle between the upper wishbone (inner -> outer) and the upright (lower -> upper joint)."""
+    ev = _Evaluator(ref, x)
+    arm = ev.point(f"upper_arm_{side}.outer")[0] - ev.point(f"upper_arm_{side}.inner")[0]
+    up = ev.point(f"upright_{side}.upper_joint")[0] - ev.point(f"upright_{side}.lower_joint")[0]
+    return math.degrees(math.acos(arm @ up / np.linalg.norm(arm) / np.linalg.norm(up)))
+
+
+@pytest.fixture(scope="module")
+def third_fold_trace():
+    return keller_trace(mech_of(wishbone_rocker(**FOLD_CASE_3)), -10.0)
+
+
+def test_third_fold_case_folds_just_past_10_deg(third_fold_trace):
+    """Reference: keller_trace (pseudo-arclength continuation of the reference equations). The
+    lean rises to a fold between 10.0 and 10.02 deg, where the lean component of the tangent and
+    det(dF/dx) change sign together, once. There the left (high-side) upper wishbone has swung
+    nearly in line with its upright: the double-wishbone quadrilateral near its toggle."""
+    ref, held, xs, leans, tphi, dets = third_fold_trace
+    k = int(np.argmax(leans))
+    # the fold between the nodes: a parabola through the three nodes around the largest lean
+    # (equal arclength steps)
+    a, b, c = leans[k - 1], leans[k], leans[k + 1]
+    fold = b + (c - a) ** 2 / (8.0 * (2.0 * b - a - c))
+    assert 10.0 < fold < 10.02
+    turn = np.flatnonzero(np.diff(np.sign(tphi)))
+    flip = np.flatnonzero(np.diff(np.sign(dets)))
+    assert len(turn) == 1 and turn.tolist() == flip.tolist() and abs(turn[0] - k) <= 1
+    assert _upper_arm_to_upright_deg(ref, xs[k], "left") > 165.0      # 123 deg at lean 0
+    assert _upper_arm_to_upright_deg(ref, xs[0], "left") < 125.0
+
+
+@pytest.mark.parametrize("engine", ["compiled", "numpy"])
+def test_third_fold_case_state_before_the_fold_is_reached(third_fold_trace, engine):
+    """The batched sweep in its default 5 deg steps reaches 10 deg at travel -10 mm (it reported
+    "toggles before it"), on the branch of keller_trace, and stops after the fold."""
+    ref, held, xs, leans, tphi, dets = third_fold_trace
+    k = int(np.argmax(leans))
+    # keller_trace's state at 10 deg, corrected from the last node below it on the rising part
+    j = max(i for i in range(k) if leans[i] < 10.0)
+    at10 = reference_solve_state(ref, xs[j], 10.0, spring_lengths_mm=held)
+    assert at10.converged
+    det10 = np.linalg.det(residuals(ref, at10.x, math.radians(10.0), spring_lengths_mm=held)[1])
+    assert np.sign(det10) == np.sign(dets[0])                          # before the fold
+    mech = mech_of(wishbone_rocker(**FOLD_CASE_3))
+    model = Model(mech)
+    res = sweep(model, lean_deg=[0.0, 10.0, 11.0], travel_mm=[-10.0],
+                settings=SweepSettings(solve=SolveSettings(engine=engine)))
+    assert res.converged[0, 0].tolist() == [True, True, False]
+    for i, body in enumerate(ref.body_names):
+        got = math.degrees(res.body_angle[0, 0, 1, model.body_names.index(body)])
+        assert got == pytest.approx(math.degrees(at10.x[3 * i + 2]), abs=1e-7), body
+
+
+def test_third_fold_case_matches_reference_solver():
+    """The failing example of test_random_wishbones_match_reference_solver, states and metrics
+    against tests.reference_solver (it reports 10 deg at travel -10 mm as reached)."""
+    mech = mech_of(wishbone_rocker(**FOLD_CASE_3))
+    assert compare(mech, [-15.0, 0.0, 10.0, 25.0], [-10.0, 0.0, 10.0]) == 6
 
 
 def test_reference_records_have_the_sweep_record_keys():

@@ -90,7 +90,7 @@ def test_cli_sweep_rereads_candidate_toml(sheet_dir):
     assert out.exit_code == 0, out.output
     import json
 
-    recs = json.loads(out.output)
+    recs = json.loads(out.stdout)
     assert max(abs(r["scrub_mm"]) for r in recs) == pytest.approx(row["max_scrub_mm"], abs=1e-6)
 
 
@@ -244,7 +244,7 @@ def test_real_candidate_toml_round_trips_to_the_stored_metrics(real_sheet):
     assert out.exit_code == 0, out.output
     import json
 
-    recs = json.loads(out.output)
+    recs = json.loads(out.stdout)
     assert all(r["converged"] for r in recs)
     assert max(abs(r["scrub_mm"]) for r in recs) == pytest.approx(row["max_scrub_mm"], abs=1e-6)
     assert max(abs(r["heave_mm"]) for r in recs) == pytest.approx(row["max_heave_mm"], abs=1e-6)

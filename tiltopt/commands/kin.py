@@ -42,9 +42,11 @@ def sweep_cmd(mech, lean, travel, fmt):
     rows = res.records(0)
     if fmt == "json":
         click.echo(to_json(rows))
+        click.echo(SAFETY_CAUTION, err=True)     # stdout stays machine-readable; the person still reads it
         return
     if fmt == "csv":
         click.echo(to_csv(rows), nl=False)
+        click.echo(SAFETY_CAUTION, err=True)
         return
     cols = list(SWEEP_COLUMNS) + [(f"spring_lengths_mm.{n}", f"{n}_mm") for n in model.spring_names]
     flat = []
