@@ -590,7 +590,12 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
     paths["pivots"] = atomic_write_text(out_dir / "pivots.csv", buf.getvalue())
 
     # linkage.dxf
-    paths["dxf"] = write_dxf(out_dir / "linkage.dxf", model, jig_datum=jig, provenance=f"tiltopt: {prov}")
+    from .side_view import side_view, steering_html
+    ti_0 = int(np.argmin(np.abs(np.asarray(an.sweep.travel_mm))))
+    side = side_view(model, geom, an.sweep, ti_0, 0, 0) if model.mech.steering is not None else None
+    paths["dxf"] = write_dxf(out_dir / "linkage.dxf", model, jig_datum=jig, provenance=f"tiltopt: {prov}",
+                             side_view=side)
+    steer_html = steering_html(model, geom, an.sweep, line_chart, _table, _e)
 
     # sheet.html
     labels = [f"P{k + 1}" for k in range(len(spec["pivots"]))]
@@ -694,6 +699,7 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
   {('<h3>Spring setup</h3>' + spring_setup) if spring_setup else ''}
 </section>
 <section class="avoid-break"><h2>Kinematic curves against lean</h2>{_curves(an)}</section>
+{('<section class="avoid-break"><h2>Steering and side view</h2>' + steer_html + '</section>') if steer_html else ''}
 <section class="avoid-break"><h2>Clearance at the envelope corners</h2>{_clearance_section(an)}</section>
 <section class="avoid-break grid2">
   <div><h2>At the lean limit</h2>
