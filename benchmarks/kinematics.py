@@ -13,7 +13,15 @@ Measures, on the wishbone-rocker demo mechanism (c):
   same machine, and each figure is its best round;
 * ``bound_states_per_s``: raw throughput of numpy's batched ``linalg.solve``
   for the system size used, divided by the Newton iterations used per state,
-  and ``bound_fraction`` = states_per_s / bound_states_per_s.
+  and ``bound_fraction`` = states_per_s / bound_states_per_s;
+* ``steering_seconds``: the steering solve over the same envelope
+  (:func:`tiltopt.kinematics.steering.steer_envelope` as the optimiser runs it: every
+  state at 9 steering inputs, both wheels, their reach and steer ranges, the trail and
+  caster of every state), the point positions it reads included (computed afresh
+  each time), and
+  ``steering_share`` = steering_seconds / batch_seconds: what the steering adds
+  to a candidate's kinematics time (target at most 0.30). Timed in turns with the
+  sweep, best of ``--repeat`` rounds each.
 
 Run ``python benchmarks/kinematics.py --json``. Pin to one core with
 ``taskset -c 0`` for a clean single-core figure.
@@ -35,6 +43,7 @@ sys.path.insert(0, str(ROOT))
 from tests.reference_solver import reference_sweep  # noqa: E402
 from tiltopt.kinematics import Model, load_mechanism, sweep  # noqa: E402
 from tiltopt.kinematics.solver import n_rows  # noqa: E402
+from tiltopt.kinematics.steering import ENVELOPE_INPUTS, steer_envelope  # noqa: E402
 
 
 def candidates(model: Model, n: int, seed: int = 0) -> np.ndarray:
@@ -86,9 +95,16 @@ def main(argv=None) -> dict:
     sc = min(args.scalar_candidates, C)
     mechs = [mech.with_points({ref: tuple(pts[c, i]) for i, ref in enumerate(model.point_refs)})
              for c in range(sc)]
-    t_batch, t_scalar = np.inf, np.inf
+    t_batch, t_scalar, t_steer = np.inf, np.inf, np.inf
+
+    def steer_fresh():
+        res._points = None                   # nothing of the clearance check's points is reused
+        steer_envelope(model, geom, res, every_input=False)   # as the optimiser runs it
+
+    steer_fresh()
     for _ in range(args.repeat):
         t_batch = min(t_batch, best_of(lambda: sweep(model, geom, leans, travels), 1))
+        t_steer = min(t_steer, best_of(steer_fresh, 1))
         t_scalar = min(t_scalar, best_of(lambda: [reference_sweep(m_c, leans, travels, max_lean_step_deg=5.0,
                                                                   max_travel_step_mm=15.0) for m_c in mechs], 1))
     states_per_s = n_states / t_batch
@@ -121,7 +137,10 @@ def main(argv=None) -> dict:
         "raw_solves_per_s": round(solves_per_s, 1),
         "bound_states_per_s": round(bound, 1),
         "bound_fraction": round(states_per_s / bound, 4),
-        "targets": {"states_per_s": 50000, "speedup": 300},
+        "steering_inputs_per_state": ENVELOPE_INPUTS,
+        "steering_seconds": round(t_steer, 5),
+        "steering_share": round(t_steer / t_batch, 4),
+        "targets": {"states_per_s": 50000, "speedup": 300, "steering_share": 0.30},
         "numpy": np.__version__,
     }
     print(json.dumps(out, indent=None if args.json else 2))

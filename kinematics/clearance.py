@@ -1,8 +1,8 @@
 """Batched 3-D clearance of wheels, tubes, body shell and ground over a sweep's envelope.
 
 For every state of a :class:`tiltopt.kinematics.sweep.SweepResult` (lean x travel,
-many candidates of one topology at once) and the steer envelope of the
-mechanism file, this computes:
+many candidates of one topology at once) and the steer range of each wheel (from
+its steering linkage, or the steer envelope of a file without one), this computes:
 
 * wheel-to-shell clearance of each wheel: the signed minimum distance
   between the tyre (a torus R, r) steered about its steering axis and the
@@ -16,18 +16,23 @@ mechanism file, this computes:
 * ground clearance of the shell and of every tube; overall width
   (outermost tyre or shell extent) and track.
 
-Geometry and frames (docs/domain.md): x forward, y right, z up; every link,
-segment and upright point lies in the linkage plane ``x = station_x_mm``.
+Geometry and frames (docs/domain.md): x forward, y right, z up; every link and
+segment is checked as a tube in the linkage plane ``x = station_x_mm`` (a point
+given off that plane, such as a ball joint set back for caster, is taken there:
+the tubes' own x offsets are not modelled); the wheel centre and the steering
+axis keep their own x.
 
 Wheel and steer. The tyre is the crown circle (radius R - r, in the wheel
 plane, about the wheel centre) swept by a ball of radius r, so its distance
-to anything is the crown circle's distance minus r. The steering axis passes
-through ``steer_axis_point`` (default the wheel centre); in the design
-position its top leans inboard by ``kingpin_inclination_deg`` (front view)
-and rearward by ``caster_deg`` (side view), and it turns with the upright.
-Steer delta > 0 turns the front of the wheel toward +y; both signs up to the
-envelope's ``max_steer_deg`` at the state's |lean| are checked, as a rigid
-rotation of the wheel about the axis in that state.
+to anything is the crown circle's distance minus r. The steering axis
+(:func:`tiltopt.kinematics.steering.design_axis_dirs`: through two upright points,
+or through ``steer_axis_point``, default the wheel centre, leaning inboard by
+``kingpin_inclination_deg`` and rearward by ``caster_deg``) turns with the upright.
+Steer delta > 0 turns the front of the wheel toward +y. With a steering linkage each
+wheel is swept through the range its linkage reaches at the state (the input's lock,
+tapered with lean by the steer envelope; :func:`tiltopt.kinematics.steering.steer_envelope`);
+without one, both signs up to the envelope's ``max_steer_deg`` at the state's |lean|,
+as a rigid rotation of the wheel about the axis in that state.
 
 Search and its error estimate. For each (state, wheel) the crown circle x
 steer range is sampled on a coarse grid (``crown_samples`` x
@@ -390,49 +395,35 @@ def _rotate(vx, vy, vz, ex, ey, ez, c, s):
 
 
 class _Wheels:
-    """Per-(state, wheel) item data of the converged states, flattened."""
+    """Per-(state, wheel) item data of the converged states, flattened.
 
-    def __init__(self, model: Model, geom: Geometry, sr, items: np.ndarray, shape):
+    ``steer``: a :class:`tiltopt.kinematics.steering.SteerResult` (the steer range of each item from
+    the steering linkage), or None (the symmetric range of the steer envelope, :func:`max_steer_deg`).
+    """
+
+    def __init__(self, model: Model, geom: Geometry, sr, items: np.ndarray, shape, steer=None):
+        from .steering import design_axis_dirs, steering_model
+
         mech = model.mech
         C, T, L = shape
         cand, t_i, l_i, w_i = np.unravel_index(items, (C, T, L, 2))
         self.cand, self.t, self.l, self.w = cand, t_i, l_i, w_i
-        xs = mech.station_x_mm
         pts = sr.points
-        centre_idx = np.array(model.wheel_centre)[w_i]
+        sm = steering_model(model)
+        centre_idx = sm.centre[w_i]
         c = pts[cand, t_i, l_i, centre_idx]
-        self.cx = np.full(len(items), xs)
+        self.cx = geom.x[cand, centre_idx]
         self.cy, self.cz = c[:, 0], c[:, 1]
         gam = sr.camber[cand, t_i, l_i, w_i]
         self.sg, self.cg = np.sin(gam), np.cos(gam)
-        cas = np.radians([w.caster_deg for w in mech.wheels])[w_i]
-        # the steering axis: through two upright points (front view) or a point and the kingpin angle
-        two = np.array([w.steer_axis is not None for w in mech.wheels])[w_i]
-        axis_a = np.array([model.point_index[w.steer_axis[0] if w.steer_axis else (w.steer_axis_point or w.centre)]
-                           for w in mech.wheels])[w_i]
-        axis_b = np.array([model.point_index[w.steer_axis[1] if w.steer_axis else w.centre]
-                           for w in mech.wheels])[w_i]
+        # the steering axis (tiltopt.kinematics.steering): through its point, turning with the upright
+        axis_a = sm.axis_a[w_i]
         P = pts[cand, t_i, l_i, axis_a]
-        Q = pts[cand, t_i, l_i, axis_b]
-        self.px, self.py, self.pz = self.cx, P[:, 0], P[:, 1]
-        beta = sr.body_angle[cand, t_i, l_i, np.array(model.wheel_upright)[w_i]]
-        kpi = np.radians([w.kingpin_inclination_deg for w in mech.wheels])[w_i]
-        inboard = np.array([+1.0 if w.name == "left" else -1.0 for w in mech.wheels])[w_i]
-        e0x, e0y, e0z = -np.tan(cas), inboard * np.tan(kpi), np.ones(len(items))
-        nrm = np.sqrt(e0x ** 2 + e0y ** 2 + 1.0)
-        e0x, e0y, e0z = e0x / nrm, e0y / nrm, e0z / nrm
+        self.px, self.py, self.pz = geom.x[cand, axis_a], P[:, 0], P[:, 1]
+        beta = sr.body_angle[cand, t_i, l_i, sm.upright[w_i]]
+        e0 = design_axis_dirs(sm, geom)[cand, w_i]
         cb, sb = np.cos(beta), np.sin(beta)
-        ex, ey, ez = e0x, cb * e0y + sb * e0z, -sb * e0y + cb * e0z
-        # two points: the front-view direction upward, then the caster's rearward tilt
-        dy, dz = Q[:, 0] - P[:, 0], Q[:, 1] - P[:, 1]
-        up = np.where(dz < 0, -1.0, 1.0)
-        fy, fz = dy * up, dz * up
-        with np.errstate(divide="ignore", invalid="ignore"):
-            tx, ty = -np.tan(cas), fy / fz
-        n2 = np.sqrt(tx * tx + ty * ty + 1.0)
-        self.ex = np.where(two, tx / n2, ex)
-        self.ey = np.where(two, ty / n2, ey)
-        self.ez = np.where(two, 1.0 / n2, ez)
+        self.ex, self.ey, self.ez = e0[:, 0], cb * e0[:, 1] + sb * e0[:, 2], -sb * e0[:, 1] + cb * e0[:, 2]
         R = geom.outer_radius[cand, w_i]
         self.R = R
         self.r = geom.crown_radius[cand, w_i]
@@ -441,7 +432,14 @@ class _Wheels:
         self.hub_zone = np.array([w.hub_radius_mm for w in mech.wheels])[w_i]
         self.lean = np.radians(sr.lean_deg)[l_i]
         steered = np.array([w.steered for w in mech.wheels])[w_i]
-        self.delta_max = np.where(steered, np.radians(max_steer_deg(mech, sr.lean_deg))[l_i], 0.0)
+        if steer is None:            # the steer envelope's symmetric range
+            self.delta_max = np.where(steered, np.radians(max_steer_deg(mech, sr.lean_deg))[l_i], 0.0)
+            self.delta_mid = np.zeros(len(items))
+        else:                        # the linkage's range at this state (its reached inputs)
+            lo = np.nan_to_num(steer.lo[cand, t_i, l_i, w_i])
+            hi = np.nan_to_num(steer.hi[cand, t_i, l_i, w_i])
+            self.delta_max = np.where(steered, 0.5 * (hi - lo), 0.0)
+            self.delta_mid = np.where(steered, 0.5 * (hi + lo), 0.0)
         off = np.sqrt((self.cy - self.py) ** 2 + (self.cz - self.pz) ** 2)
         self.arm = off + self.rho                    # largest distance of a crown point from the axis point
         self.reach = np.maximum(R, self.hub_half)        # largest distance of a solid point from its centre
@@ -453,7 +451,7 @@ class _Wheels:
         cols = {S.CX: self.cx, S.CY: self.cy, S.CZ: self.cz, S.NX: 0.0, S.NY: self.cg, S.NZ: -self.sg,
                 S.PX: self.px, S.PY: self.py, S.PZ: self.pz, S.EX: self.ex, S.EY: self.ey, S.EZ: self.ez,
                 S.RHOC: self.rho, S.RT: self.r, S.WH: self.hub_half, S.RHOH: self.hub_zone,
-                S.DMAX: self.delta_max, S.REACH: self.reach}
+                S.DMAX: self.delta_max, S.REACH: self.reach, S.DMID: self.delta_mid}
         for k, v in cols.items():
             q[:, k] = v
         return q
@@ -466,11 +464,13 @@ class _Wheels:
         vx = self.cx[sl] - self.px[sl] + rho * ct
         vy = self.cy[sl] - self.py[sl] + rho * st * self.sg[sl]
         vz = self.cz[sl] - self.pz[sl] + rho * st * self.cg[sl]
+        delta = delta + self.delta_mid[sl]
         x, y, z = _rotate(vx, vy, vz, self.ex[sl], self.ey[sl], self.ez[sl], np.cos(delta), np.sin(delta))
         return x + self.px[sl], y + self.py[sl], z + self.pz[sl]
 
     def crown_fixed_steer(self, idx, delta, theta):
         """World crown points at one steer per item: delta (n,), theta (n, m) -> three arrays (n, m)."""
+        delta = delta + self.delta_mid[idx]
         cd, sd = np.cos(delta), np.sin(delta)
         e = (self.ex[idx], self.ey[idx], self.ez[idx])
         px, py, pz = self.px[idx], self.py[idx], self.pz[idx]
@@ -484,6 +484,7 @@ class _Wheels:
 
     def crown_grid(self, delta, theta):
         """World crown points on a grid: delta (n, S), theta (K,) -> three arrays (n, S, K)."""
+        delta = delta + self.delta_mid[:, None]
         cd, sd = np.cos(delta), np.sin(delta)
         e = (self.ex[:, None], self.ey[:, None], self.ez[:, None])
         sl = (slice(None), None)
@@ -568,7 +569,8 @@ def _search(W: _Wheels, pfun, coarse_pfun, st: ClearanceSettings, grid, early_pf
     # error estimate: lower bounds of the true minimum from the coarse samples outside the refined
     # neighbourhood and from the final steps (semiconcavity of the squared distance)
     with np.errstate(invalid="ignore"):
-        return _estimate(W, fb, db, tb, flat, si, ki, S, K, hth0, hd0, st)
+        fb, db, tb, err = _estimate(W, fb, db, tb, flat, si, ki, S, K, hth0, hd0, st)
+    return fb, db + W.delta_mid, tb, err
 
 
 def _lower(D, rho, arm, h_t, h_d):
@@ -641,7 +643,7 @@ def _search_compiled(W: _Wheels, st: ClearanceSettings, it_trans, shell: Shell |
                    (_kernel.EZ, W.ez), (_kernel.SG, W.sg), (_kernel.CG, W.cg), (_kernel.RHO, W.rho),
                    (_kernel.R, W.r), (_kernel.DMAX, W.delta_max), (_kernel.ARM, W.arm),
                    (_kernel.TY, it_trans[:, 0]), (_kernel.TZ, it_trans[:, 1]), (_kernel.CL, np.cos(W.lean)),
-                   (_kernel.SL, np.sin(W.lean))):
+                   (_kernel.SL, np.sin(W.lean)), (_kernel.DMID, W.delta_mid)):
         q[:, col] = v
     any_steer = bool((W.delta_max > 0).any())
     S = st.steer_samples if any_steer else 1
@@ -685,7 +687,7 @@ def _segment_distance(px, py, pz, ay, az, by, bz, x0):
 
 # ---------------------------------------------------------------------- main
 def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell: Shell | None,
-                       settings: ClearanceSettings | None = None) -> ClearanceResult:
+                       settings: ClearanceSettings | None = None, steer=None) -> ClearanceResult:
     """Clearances of many candidates over their envelope, in one batch.
 
     Parameters
@@ -699,6 +701,11 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
         The body shell, fixed to the chassis; None: no shell (the wheel solids, members, the two
         wheels, widths and the tubes' ground clearance are still checked).
     settings : ClearanceSettings, optional
+    steer : tiltopt.kinematics.steering.SteerResult, optional
+        The steering over the same sweep; a mechanism with a steering linkage gets its own
+        (:func:`tiltopt.kinematics.steering.steer_envelope`) when not given. Each wheel is swept
+        through the steer range its linkage reaches at each state; without a linkage, through the
+        steer envelope's ``+-max_steer_deg``.
 
     Returns
     -------
@@ -725,7 +732,11 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
 
     # ---------------------------------------------------------- wheels
     ok_items = np.flatnonzero(np.repeat(conv[..., None], 2, axis=-1).ravel())
-    W = _Wheels(model, geom, sr, ok_items, (C, T, L))
+    if steer is None and mech.steering is not None:
+        from .steering import steer_envelope
+
+        steer = steer_envelope(model, geom, sr)
+    W = _Wheels(model, geom, sr, ok_items, (C, T, L), steer)
     it_trans = trans[W.cand, W.t, W.l]                                    # (n, 2)
 
     def shell_fun(lower_bound):
@@ -791,7 +802,7 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
     # ------------------------------------------------- widths, the two wheels, ground
     S = st.steer_samples if (W.delta_max > 0).any() else 1
     sg = np.linspace(-1.0, 1.0, S) if S > 1 else np.zeros(1)
-    delta = W.delta_max[:, None] * sg                                      # (n, S)
+    delta = W.delta_mid[:, None] + W.delta_max[:, None] * sg              # (n, S)
     cd, sd = np.cos(delta), np.sin(delta)
     sl_ = (slice(None), None)
     ccy = _rotate((W.cx - W.px)[sl_], (W.cy - W.py)[sl_], (W.cz - W.pz)[sl_], W.ex[sl_], W.ey[sl_], W.ez[sl_],
@@ -881,11 +892,19 @@ def evaluate_clearance(model: Model, geom: Geometry | None, sweep_result, shell:
         wheel_carrier_mm=scatter(wc_val), wheel_carrier_error_mm=scatter(wc_err),
         wheel_carrier_steer_deg=scatter(np.degrees(wc_steer)), wheel_carrier_member=scatter(wc_member, -1, int),
         wheel_pair_mm=pair, member_gap_mm=member_gap,
-        max_steer_deg=np.where(conv, np.broadcast_to(max_steer_deg(mech, sr.lean_deg), (C, T, L)), np.nan),
+        max_steer_deg=np.where(conv, _max_steer_of(mech, sr.lean_deg, steer, (C, T, L)), np.nan),
         steer_deg=steer_deg, ground_mm=ground, overall_width_mm=extent0, extent_mm=extent,
         track_mm=np.where(conv, sr.track, np.nan), inside_violation_mm=inside_v, outside_violation_mm=outside_v,
         slot_length_mm=slot_len, slot_position_mm=slot_pos, member_names=list(mem.names),
         through_names=[mem.names[k] for k in through], settings=st, has_shell=shell is not None)
+
+
+def _max_steer_of(mech, lean_deg, steer, shape) -> np.ndarray:
+    """Largest |steer| (deg) of either wheel at each state: the linkage's reach, or the steer envelope's."""
+    if steer is None:
+        return np.broadcast_to(max_steer_deg(mech, lean_deg), shape)
+    m = np.fmax(np.abs(steer.lo), np.abs(steer.hi))
+    return np.degrees(np.fmax(m[..., 0], m[..., 1]))
 
 
 def member_pairs(model: Model, mem: Members) -> np.ndarray:

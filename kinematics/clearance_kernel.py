@@ -31,9 +31,10 @@ import math
 import numba
 import numpy as np
 
-# columns of the item array q
-CX, CY, CZ, PX, PY, PZ, EX, EY, EZ, SG, CG, RHO, R, DMAX, ARM, TY, TZ, CL, SL = range(19)
-N_COLUMNS = 19
+# columns of the item array q; the steer range is DMID +- DMAX (rad): the search runs over the offset
+# from DMID (the middle of a linkage's steer range, 0 for a symmetric envelope)
+CX, CY, CZ, PX, PY, PZ, EX, EY, EZ, SG, CG, RHO, R, DMAX, ARM, TY, TZ, CL, SL, DMID = range(20)
+N_COLUMNS = 20
 
 # what the item's clearance is measured to
 SHELL_SUPERELLIPSE, SHELL_POLYGON, MEMBERS = 0, 1, 2
@@ -410,8 +411,9 @@ def _rotate(vx, vy, vz, ex, ey, ez, c, s):
 
 @numba.njit(cache=True)
 def _frame(q, i, delta):
-    """Steered crown frame of item i: centre (from the axis point), forward and up unit vectors."""
-    cd, sd = math.cos(delta), math.sin(delta)
+    """Steered crown frame of item i at the steer offset delta from DMID: centre (from the axis
+    point), forward and up unit vectors."""
+    cd, sd = math.cos(delta + q[i, DMID]), math.sin(delta + q[i, DMID])
     ex, ey, ez = q[i, EX], q[i, EY], q[i, EZ]
     c = _rotate(q[i, CX] - q[i, PX], q[i, CY] - q[i, PY], q[i, CZ] - q[i, PZ], ex, ey, ez, cd, sd)
     f = _rotate(1.0, 0.0, 0.0, ex, ey, ez, cd, sd)
@@ -629,6 +631,6 @@ def search(mode, q, sg, K, refine_iterations, any_steer, reach, tab, outlines, c
                     lb = min(lb, _lower(Dc, rho, arm, hth0, hd0))
         lb = min(lb, _lower(Db, rho, arm, reach * hth0 / 2 ** nfin, reach * hd0 / 2 ** nfin))
         out[i, 0] = fb
-        out[i, 1] = db
+        out[i, 1] = db + q[i, DMID]
         out[i, 2] = tb
         out[i, 3] = max(Db - lb, 0.0) if math.isfinite(fb) else np.nan

@@ -178,8 +178,9 @@ def positions(model: Model, q: np.ndarray, lean: np.ndarray, V: np.ndarray, U: n
         Per-candidate design vectors of the point table (:meth:`Model.design_vectors`).
     cand : ndarray of shape (N,)
         Candidate (row of V and U) of each state.
-    which : {'needed', 'all'}
-        The points of the equations (``model._np``) or every point (``model._all``).
+    which : {'needed', 'all'} or str
+        The points of the equations (``model._np``), every point (``model._all``), or a table of
+        the model's own made by :meth:`Model._compile_points` with tag ``"_" + which``.
 
     Returns
     -------
@@ -187,7 +188,7 @@ def positions(model: Model, q: np.ndarray, lean: np.ndarray, V: np.ndarray, U: n
     ang : ndarray of shape (N, n_ang)
         Angle sources: the lean, then the angle coordinates.
     """
-    tab = model._np if which == "needed" else model._all
+    tab = _table(model, which)
     pt = _point_tables(model, which)
     N = q.shape[0]
     x = np.empty((N, tab["n"], 2))
@@ -199,10 +200,14 @@ def positions(model: Model, q: np.ndarray, lean: np.ndarray, V: np.ndarray, U: n
     return x, ang
 
 
+def _table(model: Model, which: str) -> dict:
+    return getattr(model, {"needed": "_np", "all": "_all"}.get(which, "_" + which))
+
+
 def _point_tables(model: Model, which: str) -> dict:
     cache = model.__dict__.setdefault("_kernel_point_tables", {})
     if which not in cache:
-        tab = model._np if which == "needed" else model._all
+        tab = _table(model, which)
         i64 = (lambda a: np.ascontiguousarray(np.asarray(a, dtype=np.int64)))
         cache[which] = dict(ang_coord=i64(model.ang_coord), pk_src=i64(tab["pk_src"]),
                             pk_point=i64(tab["pk_point"]), ty=i64(tab["ty"]), tz=i64(tab["tz"]),

@@ -1,9 +1,17 @@
 """The mechanism file: a frozen description of a planar tilting linkage.
 
-A mechanism is bodies with named points (front view, ``[y, z]`` in mm, design
-position, global coordinates), joined by pins, links, springs and sliders,
-with exactly two wheels. This module reads and writes the TOML file and
-checks it; it never solves anything (see :mod:`tiltopt.kinematics.model`).
+A mechanism is bodies with named points (``[y, z]`` in mm, or ``[x, y, z]`` where the forward
+position matters; design position, global coordinates), joined by pins, links, springs and
+sliders, with exactly two wheels, and optionally a steering linkage. This module reads and writes
+the TOML file and checks it; it never solves anything (see :mod:`tiltopt.kinematics.model` and
+:mod:`tiltopt.kinematics.steering`).
+
+The tilting linkage is planar: every pin's axis runs along x, so a pin's two points coincide
+(in x too), and every link, spring and slider lies in one plane ``x = const`` (its points share
+their x). The bodies move in y and z only; a point's x never changes. A point given as ``[y, z]``
+lies in the linkage plane, ``x = station_x_mm``. Points off that plane matter to the steering
+(the steering axis through two upright points: their x difference is the caster) and to the
+side view.
 
 File format (all lengths mm, angles degrees)::
 
@@ -31,6 +39,25 @@ File format (all lengths mm, angles degrees)::
                 their relative angle)
     [[wheels]]  name = "left" | "right", upright, centre, outer_radius_mm,
                 crown_radius_mm, static_camber_deg
+
+The steering linkage (optional; see :mod:`tiltopt.kinematics.steering`)::
+
+    [steering]
+    input_range_deg = [-40.0, 40.0]   # the lock of the steering input (the steering column's
+                                      # angle, deg): the input is a state variable of this range
+    wheelbase_mm = 1650.0             # optional: for the Ackermann error
+    ackermann_inputs_deg = [20.0, 40.0]   # optional: inputs of the Ackermann error
+                                      # (default: half and full lock each way)
+    [[steering.drives]]   name (optional), kind = "slide" | "lever", body, axis = ["body.a",
+                "body.b"] (the line a rack slides along, a -> b for a positive input, or the
+                axis a lever turns about, right hand, through a), gain (slide: mm per input
+                degree, e.g. a pinion's pitch radius x pi / 180; lever: degrees per input
+                degree), points = ["body.p", ...] (the points the drive moves: tie rod ends)
+    [[steering.rods]]     wheel = "left" | "right", arm = "upright.point" (the steering arm:
+                a point of the steered part, turning with the wheel about its steering axis: the
+                wheel's upright, or the guide a slider joins it to),
+                end = "body.point" (a point a drive moves), name (optional); the rod's length
+                is fixed at its design-position length
 
 Keys for the 3-D clearance check (all optional; see :mod:`tiltopt.kinematics.clearance`)::
 
@@ -73,7 +100,16 @@ from pathlib import Path
 from typing import Any, Iterable
 
 from tiltopt.base.errors import InputError, check_keys, read_toml
-from tiltopt.base.limits import MAX_ABS_LEAN_DEG, MAX_FORCE_N, MAX_RANGE_VALUES, check_coord, check_count
+from tiltopt.base.limits import (
+    MAX_ABS_LEAN_DEG,
+    MAX_FORCE_N,
+    MAX_RANGE_VALUES,
+    MAX_STEER_GAIN,
+    MAX_STEER_INPUT_DEG,
+    MAX_STEER_ITEMS,
+    check_coord,
+    check_count,
+)
 
 PIN_TOLERANCE_MM = 0.01
 _NAME = re.compile(r"^[A-Za-z_][A-Za-z0-9_]*$")
@@ -173,6 +209,80 @@ class Wheel:
     hub_radius_mm: float = DEFAULT_HUB_RADIUS_MM
 
 
+STEER_DRIVE_KINDS = ("slide", "lever")
+
+
+@dataclass(frozen=True)
+class SteerDrive:
+    """How the steering input moves points: a rack (``slide``) or a lever (``lever``) on a body.
+
+    A slide moves its points by ``gain * u`` mm along the line ``axis[0] -> axis[1]``; a lever
+    turns them by ``gain * u`` degrees about the line through ``axis[0]`` and ``axis[1]`` (right
+    hand about ``axis[0] -> axis[1]``), u the steering input (deg). The axis points are fixed to
+    ``body`` and move with it.
+    """
+
+    name: str
+    kind: str
+    body: str
+    axis: tuple[str, str]
+    gain: float
+    points: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class TieRod:
+    """A rod of fixed length from a steering arm point (on the steered part of ``wheel``) to a point
+    a drive moves."""
+
+    name: str
+    wheel: str
+    arm: str
+    end: str
+
+
+@dataclass(frozen=True)
+class Steering:
+    """The steering linkage: the input's range (its lock), the drives and one rod per steered wheel."""
+
+    input_range_deg: tuple[float, float]
+    drives: tuple[SteerDrive, ...]
+    rods: tuple[TieRod, ...]
+    wheelbase_mm: float | None = None
+    ackermann_inputs_deg: tuple[float, ...] | None = None
+
+    @property
+    def ackermann_inputs(self) -> tuple[float, ...]:
+        """The inputs the Ackermann error is taken at: the file's, else half and full lock each way."""
+        if self.ackermann_inputs_deg is not None:
+            return self.ackermann_inputs_deg
+        lo, hi = self.input_range_deg
+        return (0.5 * lo, lo, 0.5 * hi, hi)
+
+    def drive_of(self, ref: str) -> SteerDrive | None:
+        """The drive that moves a point, or None."""
+        for d in self.drives:
+            if ref in d.points:
+                return d
+        return None
+
+    def rod_of(self, wheel: str) -> TieRod | None:
+        for r in self.rods:
+            if r.wheel == wheel:
+                return r
+        return None
+
+    @property
+    def point_refs(self) -> list[str]:
+        """Every point the steering uses (axis, moved and arm points), in order, no repeats."""
+        out: list[str] = []
+        for d in self.drives:
+            out += [*d.axis, *d.points]
+        for r in self.rods:
+            out += [r.arm, r.end]
+        return list(dict.fromkeys(out))
+
+
 @dataclass(frozen=True)
 class Mechanism:
     """A planar tilting linkage in its design position.
@@ -198,12 +308,25 @@ class Mechanism:
     #: steers), () = given empty (no steer)
     steer_envelope: tuple[tuple[float, float], ...] | None = None
     tube_od_mm: float = DEFAULT_TUBE_OD_MM
+    #: "body.point" -> x (mm) of the points given as [x, y, z]; any other point lies at station_x_mm
+    point_x: dict[str, float] = field(default_factory=dict)
+    steering: Steering | None = None
     source: str = field(default="<memory>", compare=False)
 
     # ------------------------------------------------------------------ lookup
     def point(self, ref: str) -> tuple[float, float]:
+        """The front-view position ``(y, z)`` of a point (design position)."""
         body, pt = split_ref(ref)
         return self.bodies[body][pt]
+
+    def x_of(self, ref: str) -> float:
+        """The forward position x of a point (mm): its own, or the linkage plane's."""
+        return self.point_x.get(ref, self.station_x_mm)
+
+    def point3(self, ref: str) -> tuple[float, float, float]:
+        """The point ``(x, y, z)`` in the design position."""
+        y, z = self.point(ref)
+        return (self.x_of(ref), y, z)
 
     def body_of(self, ref: str) -> str:
         return split_ref(ref)[0]
@@ -226,13 +349,20 @@ class Mechanism:
             return self.steer_envelope
         return DEFAULT_STEER_ENVELOPE if any(w.steered for w in self.wheels) else ()
 
-    def with_points(self, points: dict[str, tuple[float, float]]) -> "Mechanism":
-        """A copy with some points moved (``{"body.point": (y, z)}``)."""
+    def with_points(self, points: dict[str, tuple]) -> "Mechanism":
+        """A copy with some points moved (``{"body.point": (y, z)}``, or ``(x, y, z)`` to set x too:
+        an x equal to the station is kept as an own x only where the point had one)."""
         bodies = {b: dict(pts) for b, pts in self.bodies.items()}
-        for ref, yz in points.items():
+        px = dict(self.point_x)
+        for ref, p_ in points.items():
             b, p = split_ref(ref)
-            bodies[b][p] = (float(yz[0]), float(yz[1]))
-        return replace(self, bodies=bodies)
+            if len(p_) == 3:
+                x = float(p_[0])
+                if ref in px or x != self.station_x_mm:
+                    px[ref] = x
+                p_ = p_[1:]
+            bodies[b][p] = (float(p_[0]), float(p_[1]))
+        return replace(self, bodies=bodies, point_x=px)
 
 
 def split_ref(ref: str) -> tuple[str, str]:
@@ -397,7 +527,7 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
     _check_keys(
         data,
         ["name", "chassis", "description", "station_x_mm", "bodies", "pins", "links", "springs",
-         "sliders", "wheels", "segments", "steer_envelope", "tube_od_mm"],
+         "sliders", "wheels", "segments", "steer_envelope", "tube_od_mm", "steering"],
         ["name", "chassis", "bodies", "wheels"], src, "")
     name = _string(data["name"], src, "name")
     chassis = _string(data["chassis"], src, "chassis")
@@ -409,20 +539,25 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
     if not isinstance(raw_bodies, dict) or not raw_bodies:
         raise InputError("expected at least one [bodies.NAME] table.", src, "bodies")
     bodies: dict[str, dict[str, tuple[float, float]]] = {}
+    point_x: dict[str, float] = {}
     for bname, pts in raw_bodies.items():
         key = f"bodies.{bname}"
         if not _NAME.match(bname):
             raise InputError("body names must be letters, digits and '_' (not starting with a digit).", src, key)
         if not isinstance(pts, dict) or not pts:
-            raise InputError("expected a table of points, name = [y_mm, z_mm].", src, key)
+            raise InputError("expected a table of points, name = [y_mm, z_mm] or [x_mm, y_mm, z_mm].", src, key)
         bodies[bname] = {}
         for pname, yz in pts.items():
             pkey = f"{key}.{pname}"
             if not _NAME.match(pname):
                 raise InputError("point names must be letters, digits and '_'.", src, pkey)
-            if not (isinstance(yz, list) and len(yz) == 2):
-                raise InputError(f"expected a point [y_mm, z_mm]. Got {yz!r} instead.", src, pkey)
-            bodies[bname][pname] = (_number(yz[0], src, pkey + "[0]"), _number(yz[1], src, pkey + "[1]"))
+            if not (isinstance(yz, list) and len(yz) in (2, 3)):
+                raise InputError(f"expected a point [y_mm, z_mm] or [x_mm, y_mm, z_mm]. Got {reprlib.repr(yz)} "
+                                 f"instead.", src, pkey)
+            c = [_number(v, src, f"{pkey}[{k}]") for k, v in enumerate(yz)]
+            if len(c) == 3:
+                point_x[f"{bname}.{pname}"] = c.pop(0)
+            bodies[bname][pname] = (c[0], c[1])
     if chassis not in bodies:
         raise InputError(
             f"the chassis body '{chassis}' is not defined. Add a [bodies.{chassis}] table, or set "
@@ -439,6 +574,13 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
             raise InputError(
                 f"unknown point '{pt}' of body '{body}'. Its points: {', '.join(bodies[body])}.", src, key)
         return value
+
+    def _same_x(refs, why: str, src_: str, where: str):
+        xs = [point_x.get(r, station_x) for r in refs]
+        if max(xs) - min(xs) > PIN_TOLERANCE_MM:
+            raise InputError(f"{why}: the points {', '.join(refs)} must have the same x (within "
+                             f"{PIN_TOLERANCE_MM} mm). They are at x = {', '.join(f'{v:g}' for v in xs)} mm.",
+                             src_, where)
 
     used_names: set[str] = set()
 
@@ -465,6 +607,7 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
             raise InputError(
                 f"the points {a} {list(pa)} and {b} {list(pb)} of a pin must coincide in the design "
                 f"position (within {PIN_TOLERANCE_MM} mm). They are {gap:.3f} mm apart.", src, w)
+        _same_x((a, b), "the two points of a pin coincide: the pin's axis runs along x", src, w)
         pins.append(Pin(a, b, unique(_string(t.get("name", f"{a}~{b}"), src, w + ".name"), w + ".name"), base))
 
     links = []
@@ -473,6 +616,7 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
         _check_keys(t, ["a", "b", "name", "tube_od_mm", "shell"], ["a", "b"], src, w)
         a, b = ref(t["a"], w + ".a"), ref(t["b"], w + ".b")
         _check_length(bodies, a, b, src, w)
+        _same_x((a, b), "a link of the tilting linkage lies in a plane x = const", src, w)
         links.append(Link(a, b, unique(_string(t.get("name", f"{a}~{b}"), src, w + ".name"), w + ".name"),
                           *_tube(t, src, w, default_od)))
 
@@ -501,6 +645,7 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
                         "max_deflection_mm"], ["name", "a", "b"], src, w)
         a, b = ref(t["a"], w + ".a"), ref(t["b"], w + ".b")
         _check_length(bodies, a, b, src, w)
+        _same_x((a, b), "a spring of the tilting linkage lies in a plane x = const", src, w)
         opt = {}
         for k, kw in (("rate_n_per_mm", dict(positive=True, length=False)), ("free_length_mm", dict(positive=True)),
                       ("preload_n", dict(nonneg=True, length=False, force=True)),
@@ -528,6 +673,8 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
         if off > PIN_TOLERANCE_MM:
             raise InputError(f"the point {b} must lie on the guide line {a0} -> {a1} in the design position "
                              f"(within {PIN_TOLERANCE_MM} mm). It is {off:.3f} mm off.", src, w)
+        _same_x((a0, a1, b), "a slider of the tilting linkage lies in a plane x = const (its guide runs in y "
+                "and z)", src, w)
         nm = _string(t.get("name", f"{b}@{split_ref(a0)[0]}"), src, w + ".name")
         sliders.append(Slider(unique(nm, w + ".name"), a0, a1, b))
 
@@ -588,7 +735,8 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
                 raise InputError(f"the steering axis points must be points of the upright '{up}'. Got {ax!r}.",
                                  src, w + ".steer_axis")
             pa, pb = (bodies[up][split_ref(r)[1]] for r in refs)
-            if math.hypot(pa[0] - pb[0], pa[1] - pb[1]) < 1.0:
+            xa, xb = (point_x.get(r, station_x) for r in refs)
+            if math.hypot(xa - xb, pa[0] - pb[0], pa[1] - pb[1]) < 1.0:
                 raise InputError("the two steering axis points are less than 1 mm apart.", src, w + ".steer_axis")
             if abs(pa[1] - pb[1]) < 1e-9:
                 raise InputError("the steering axis through these points is horizontal; it must rise.", src,
@@ -596,6 +744,9 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
             if "steer_axis_point" in t or "kingpin_inclination_deg" in t:
                 raise InputError("give either steer_axis (two points) or steer_axis_point / "
                                  "kingpin_inclination_deg, not both.", src, w + ".steer_axis")
+            if "caster_deg" in t and abs(xa - xb) > PIN_TOLERANCE_MM:
+                raise InputError("the two steering axis points lie at different x, which gives the caster; give "
+                                 "either that or caster_deg, not both.", src, w + ".caster_deg")
             steer["steer_axis"] = refs
         if "steered" in t:
             if not isinstance(t["steered"], bool):
@@ -613,10 +764,238 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
                          src, "wheels")
     wheels.sort(key=lambda w: w.name)  # left first
 
-    return Mechanism(name=name, chassis=chassis, bodies=bodies, pins=tuple(pins), links=tuple(links),
+    mech = Mechanism(name=name, chassis=chassis, bodies=bodies, pins=tuple(pins), links=tuple(links),
                      springs=tuple(springs), sliders=tuple(sliders), wheels=tuple(wheels),
                      description=description, station_x_mm=station_x, segments=tuple(segments),
-                     steer_envelope=_steer_envelope(data, src), tube_od_mm=default_od, source=src)
+                     steer_envelope=_steer_envelope(data, src), tube_od_mm=default_od, point_x=point_x, source=src)
+    if "steering" in data:
+        mech = replace(mech, steering=_parse_steering(data["steering"], mech, ref, unique, src))
+    return mech
+
+
+def steered_bodies(mech: "Mechanism", wheel: Wheel) -> tuple[str, ...]:
+    """The bodies that turn with a wheel about its steering axis: its upright and any body a slider
+    joins it to (a telescopic leg turns with its guide: the slider keeps their relative angle)."""
+    out = [wheel.upright]
+    for s in mech.sliders:
+        guide, runner = split_ref(s.a_from)[0], split_ref(s.b)[0]
+        if wheel.upright in (guide, runner):
+            out.append(runner if guide == wheel.upright else guide)
+    return tuple(dict.fromkeys(out))
+
+
+def axis_refs(mech: "Mechanism", wheel: Wheel) -> tuple[str, str | None]:
+    """The points a wheel's steering axis is given by: (the point it runs through, the second point or None)."""
+    if wheel.steer_axis is not None:
+        return wheel.steer_axis[0], wheel.steer_axis[1]
+    return wheel.steer_axis_point or wheel.centre, None
+
+
+def axis_parts(mech: "Mechanism", wheel: Wheel) -> tuple[float, float, float]:
+    """The parts of a wheel's steering axis direction that do not come from its two points.
+
+    Returns ``(tx, ty, two)``: with two points (``two`` = 1) the direction is
+    ``(dx / dz + tx, dy / dz, 1)`` from the points' difference (dx, dy, dz) with ``tx = -tan(caster_deg)``
+    and ``ty = 0``; with one point (``two`` = 0) it is ``(tx, ty, 1)`` with ``ty`` the kingpin
+    inclination toward the vehicle's centre (``+tan`` for the left wheel, whose inboard side is +y).
+    Either is normalised; it turns with the upright (docs/domain.md, "Steering").
+    """
+    tx = -math.tan(math.radians(wheel.caster_deg))
+    if wheel.steer_axis is not None:
+        return tx, 0.0, 1.0
+    inboard = 1.0 if wheel.name == "left" else -1.0
+    return tx, inboard * math.tan(math.radians(wheel.kingpin_inclination_deg)), 0.0
+
+
+def design_axis(mech: "Mechanism", wheel: Wheel) -> tuple[tuple[float, float, float], tuple[float, float, float]]:
+    """A point of a wheel's steering axis and its upward unit direction, design position, (x, y, z)."""
+    a, b = axis_refs(mech, wheel)
+    tx, ty, two = axis_parts(mech, wheel)
+    pa = mech.point3(a)
+    if b is not None:
+        pb = mech.point3(b)
+        dz = pb[2] - pa[2]
+        d = ((pb[0] - pa[0]) / dz + tx, (pb[1] - pa[1]) / dz, 1.0)
+    else:
+        d = (tx, ty, 1.0)
+    n = math.sqrt(sum(v * v for v in d))
+    return pa, tuple(v / n for v in d)
+
+
+def _rotate3(v, e, ang):
+    """Rodrigues rotation of v about the unit vector e by ang (rad)."""
+    c, s_ = math.cos(ang), math.sin(ang)
+    dot = sum(a * b for a, b in zip(e, v)) * (1.0 - c)
+    cr = (e[1] * v[2] - e[2] * v[1], e[2] * v[0] - e[0] * v[2], e[0] * v[1] - e[1] * v[0])
+    return tuple(v[k] * c + cr[k] * s_ + e[k] * dot for k in range(3))
+
+
+def _sub(a, b):
+    return tuple(x - y for x, y in zip(a, b))
+
+
+def _dot(a, b):
+    return sum(x * y for x, y in zip(a, b))
+
+
+def _cross(a, b):
+    return (a[1] * b[2] - a[2] * b[1], a[2] * b[0] - a[0] * b[2], a[0] * b[1] - a[1] * b[0])
+
+
+def _norm(a):
+    return math.sqrt(_dot(a, a))
+
+
+#: |sin| of the angle between a tie rod and the path of its steering arm point below which the
+#: design position counts as a toggle (about 1 deg: the rod would barely turn the wheel)
+TOGGLE_SIN = 0.02
+
+
+def _parse_steering(raw: Any, mech: "Mechanism", ref, unique, src: str) -> Steering:
+    """The ``[steering]`` table (see module docs and docs/formats.md)."""
+    k0 = "steering"
+    if not isinstance(raw, dict):
+        raise InputError("expected a table [steering] with input_range_deg, [[steering.drives]] and "
+                         "[[steering.rods]].", src, k0)
+    _check_keys(raw, ["input_range_deg", "wheelbase_mm", "ackermann_inputs_deg", "drives", "rods"],
+                ["input_range_deg", "drives", "rods"], src, k0)
+    rng = raw["input_range_deg"]
+    if not (isinstance(rng, list) and len(rng) == 2):
+        raise InputError(f"expected [lower, upper] in degrees, e.g. [-40.0, 40.0]. Got {reprlib.repr(rng)} instead.",
+                         src, k0 + ".input_range_deg")
+    lo, hi = (_number(v, src, f"{k0}.input_range_deg[{i}]", length=False) for i, v in enumerate(rng))
+    if not (lo < 0.0 < hi) or max(-lo, hi) > MAX_STEER_INPUT_DEG:
+        raise InputError(f"the input range must hold 0 (straight ahead) strictly inside, within "
+                         f"+-{MAX_STEER_INPUT_DEG:g} deg. Got [{lo:g}, {hi:g}] instead.", src, k0 + ".input_range_deg")
+    wb = None
+    if "wheelbase_mm" in raw:
+        wb = _number(raw["wheelbase_mm"], src, k0 + ".wheelbase_mm", positive=True)
+    ack = None
+    if "ackermann_inputs_deg" in raw:
+        v = raw["ackermann_inputs_deg"]
+        if not isinstance(v, list) or not v:
+            raise InputError(f"expected a non-empty list of inputs in degrees. Got {reprlib.repr(v)} instead.", src,
+                             k0 + ".ackermann_inputs_deg")
+        check_count(len(v), MAX_STEER_ITEMS, "Ackermann inputs", "Give fewer inputs.", src,
+                    k0 + ".ackermann_inputs_deg")
+        ack = tuple(_number(x, src, f"{k0}.ackermann_inputs_deg[{i}]", length=False) for i, x in enumerate(v))
+        for i, x in enumerate(ack):
+            if x == 0.0 or not lo <= x <= hi:
+                raise InputError(f"an Ackermann input must be non-zero and within the input range [{lo:g}, "
+                                 f"{hi:g}]. Got {x:g}.", src, f"{k0}.ackermann_inputs_deg[{i}]")
+    joints = set()
+    for p_ in mech.pins:
+        joints |= {p_.a, p_.b}
+    for j in (*mech.links, *mech.springs):
+        joints |= {j.a, j.b}
+    for sl in mech.sliders:
+        joints |= {sl.a_from, sl.a_to, sl.b}
+    centres = {w.centre for w in mech.wheels}
+
+    drives, moved = [], {}
+    raw_d = raw["drives"]
+    if not isinstance(raw_d, list) or not all(isinstance(t, dict) for t in raw_d):
+        raise InputError("expected an array of tables [[steering.drives]].", src, k0 + ".drives")
+    check_count(len(raw_d), MAX_STEER_ITEMS, "steering drives", "Give fewer drives.", src, k0 + ".drives")
+    if not raw_d:
+        raise InputError("expected at least one [[steering.drives]] table (a rack or a lever).", src, k0 + ".drives")
+    for i, t in enumerate(raw_d):
+        w = f"{k0}.drives[{i}]"
+        _check_keys(t, ["name", "kind", "body", "axis", "gain", "points"], ["kind", "body", "axis", "points"], src, w)
+        kind = _string(t["kind"], src, w + ".kind")
+        if kind not in STEER_DRIVE_KINDS:
+            raise InputError(f"expected one of {', '.join(STEER_DRIVE_KINDS)}. Got {kind!r} instead.", src, w + ".kind")
+        body = _string(t["body"], src, w + ".body")
+        if body not in mech.bodies:
+            raise InputError(f"unknown body '{body}'. Bodies: {', '.join(mech.bodies)}.", src, w + ".body")
+        ax = t["axis"]
+        if not (isinstance(ax, list) and len(ax) == 2):
+            raise InputError(f"expected two points of body '{body}', [\"{body}.a\", \"{body}.b\"]: the line of the "
+                             f"drive. Got {reprlib.repr(ax)} instead.", src, w + ".axis")
+        axis = tuple(ref(a, f"{w}.axis[{k}]") for k, a in enumerate(ax))
+        if any(split_ref(a)[0] != body for a in axis):
+            raise InputError(f"the axis points must be points of body '{body}'. Got {ax!r}.", src, w + ".axis")
+        if _norm(_sub(mech.point3(axis[1]), mech.point3(axis[0]))) < 1.0:
+            raise InputError("the two axis points are less than 1 mm apart.", src, w + ".axis")
+        gain = _number(t.get("gain", 1.0), src, w + ".gain", length=False)
+        if gain == 0.0 or abs(gain) > MAX_STEER_GAIN:
+            raise InputError(f"the gain must be non-zero and within +-{MAX_STEER_GAIN:g} (mm or deg per input "
+                             f"degree). Got {gain:g}.", src, w + ".gain")
+        pts = t["points"]
+        if not isinstance(pts, list) or not pts:
+            raise InputError(f"expected a non-empty list of points of body '{body}' the drive moves. Got "
+                             f"{reprlib.repr(pts)} instead.", src, w + ".points")
+        check_count(len(pts), MAX_STEER_ITEMS, "points of a drive", "Give fewer points.", src, w + ".points")
+        prefs = []
+        for k, pr in enumerate(pts):
+            r_ = ref(pr, f"{w}.points[{k}]")
+            if split_ref(r_)[0] != body:
+                raise InputError(f"a drive moves points of its own body '{body}'. Got {r_!r}.", src, f"{w}.points[{k}]")
+            if r_ in joints or r_ in centres or r_ in axis:
+                raise InputError(f"{r_} is a joint of the tilting linkage, a wheel centre or an axis point: a "
+                                 f"point a drive moves must be a point of its own.", src, f"{w}.points[{k}]")
+            if r_ in moved:
+                raise InputError(f"{r_} is moved by two drives.", src, f"{w}.points[{k}]")
+            moved[r_] = i
+            prefs.append(r_)
+        nm = unique(_string(t.get("name", f"{kind}_{body}"), src, w + ".name"), w + ".name")
+        drives.append(SteerDrive(nm, kind, body, axis, gain, tuple(prefs)))
+
+    rods = []
+    raw_r = raw["rods"]
+    if not isinstance(raw_r, list) or not all(isinstance(t, dict) for t in raw_r):
+        raise InputError("expected an array of tables [[steering.rods]].", src, k0 + ".rods")
+    if not raw_r:
+        raise InputError("expected a [[steering.rods]] table per steered wheel.", src, k0 + ".rods")
+    arms = set()
+    for i, t in enumerate(raw_r):
+        w = f"{k0}.rods[{i}]"
+        _check_keys(t, ["name", "wheel", "arm", "end"], ["wheel", "arm", "end"], src, w)
+        wn = _string(t["wheel"], src, w + ".wheel")
+        if wn not in ("left", "right"):
+            raise InputError(f"expected 'left' or 'right'. Got {wn!r} instead.", src, w + ".wheel")
+        wheel = mech.wheel(wn)
+        if not wheel.steered:
+            raise InputError(f"wheel '{wn}' does not steer (steered = false); it has no rod.", src, w + ".wheel")
+        if any(r.wheel == wn for r in rods):
+            raise InputError(f"wheel '{wn}' has two rods; give one per steered wheel.", src, w + ".wheel")
+        arm = ref(t["arm"], w + ".arm")
+        turning = steered_bodies(mech, wheel)
+        if split_ref(arm)[0] not in turning:
+            raise InputError(f"the steering arm point must be a point of the part that steers with the wheel (the "
+                             f"wheel's upright '{wheel.upright}', or the guide a slider joins it to: "
+                             f"{', '.join(turning)}). Got {arm!r}.", src, w + ".arm")
+        a_ref, b_ref = axis_refs(mech, wheel)
+        if arm in joints or arm in centres or arm in (a_ref, b_ref) or arm in moved or arm in arms:
+            raise InputError(f"{arm} is a joint of the tilting linkage, a wheel centre, a steering axis point or "
+                             f"used twice: the steering arm point must be a point of its own.", src, w + ".arm")
+        arms.add(arm)
+        end = ref(t["end"], w + ".end")
+        if end not in moved:
+            raise InputError(f"the rod's end {end} is not a point a drive moves (the points of "
+                             f"[[steering.drives]]), so the input would not steer the wheel.", src, w + ".end")
+        pa, e = design_axis(mech, wheel)
+        S, I = mech.point3(arm), mech.point3(end)
+        rel = _sub(S, pa)
+        rad = _sub(rel, tuple(_dot(rel, e) * c for c in e))
+        if _norm(rad) < 1.0:
+            raise InputError(f"the steering arm point {arm} lies on the steering axis (within 1 mm): it cannot "
+                             f"turn the wheel.", src, w + ".arm")
+        rod = _sub(S, I)
+        if _norm(rod) < 1.0:
+            raise InputError("the rod's two ends are less than 1 mm apart in the design position.", src, w)
+        path = _cross(e, rel)                         # how the arm point moves as the wheel steers
+        if abs(_dot(rod, path)) < TOGGLE_SIN * _norm(rod) * _norm(path):
+            raise InputError(f"the rod of wheel '{wn}' is at its toggle in the design position: it runs square to "
+                             f"the path of the steering arm point {arm}, so it cannot turn the wheel. Move the "
+                             f"arm point or the rod's end.", src, w)
+        nm = unique(_string(t.get("name", f"rod_{wn}"), src, w + ".name"), w + ".name")
+        rods.append(TieRod(nm, wn, arm, end))
+    missing = [w.name for w in mech.wheels if w.steered and all(r.wheel != w.name for r in rods)]
+    if missing:
+        raise InputError(f"wheel '{missing[0]}' steers but has no rod: give a [[steering.rods]] table for it, or "
+                         f"set steered = false.", src, k0 + ".rods")
+    return Steering((lo, hi), tuple(drives), tuple(rods), wb, ack)
 
 
 def _tube(t: dict, src: str, where: str, default_od: float = DEFAULT_TUBE_OD_MM) -> tuple[float, str]:
@@ -703,7 +1082,8 @@ def mechanism_to_toml(mech: Mechanism, header: str = "") -> str:
         out.append(f"tube_od_mm = {_fmt(mech.tube_od_mm)}")
     for b, pts in mech.bodies.items():
         out += ["", f"[bodies.{b}]"]
-        out += [f"{p} = [{_fmt(y)}, {_fmt(z)}]" for p, (y, z) in pts.items()]
+        out += [f"{p} = [{_fmt(mech.point_x[f'{b}.{p}'])}, {_fmt(y)}, {_fmt(z)}]" if f"{b}.{p}" in mech.point_x
+                else f"{p} = [{_fmt(y)}, {_fmt(z)}]" for p, (y, z) in pts.items()]
     for p in mech.pins:
         out += ["", "[[pins]]", f"name = {_q(p.name)}", f"a = {_q(p.a)}", f"b = {_q(p.b)}"]
         if p.base_mm is not None:
@@ -748,6 +1128,20 @@ def mechanism_to_toml(mech: Mechanism, header: str = "") -> str:
         if mech.steer_envelope:
             out += ["lean_deg = [" + ", ".join(_fmt(r[0]) for r in mech.steer_envelope) + "]",
                     "max_steer_deg = [" + ", ".join(_fmt(r[1]) for r in mech.steer_envelope) + "]"]
+    if mech.steering is not None:
+        st = mech.steering
+        out += ["", "[steering]", f"input_range_deg = [{_fmt(st.input_range_deg[0])}, {_fmt(st.input_range_deg[1])}]"]
+        if st.wheelbase_mm is not None:
+            out.append(f"wheelbase_mm = {_fmt(st.wheelbase_mm)}")
+        if st.ackermann_inputs_deg is not None:
+            out.append("ackermann_inputs_deg = [" + ", ".join(_fmt(v) for v in st.ackermann_inputs_deg) + "]")
+        for d in st.drives:
+            out += ["", "[[steering.drives]]", f"name = {_q(d.name)}", f"kind = {_q(d.kind)}", f"body = {_q(d.body)}",
+                    f"axis = [{_q(d.axis[0])}, {_q(d.axis[1])}]", f"gain = {_fmt(d.gain)}",
+                    "points = [" + ", ".join(_q(r) for r in d.points) + "]"]
+        for r in st.rods:
+            out += ["", "[[steering.rods]]", f"name = {_q(r.name)}", f"wheel = {_q(r.wheel)}", f"arm = {_q(r.arm)}",
+                    f"end = {_q(r.end)}"]
     return "\n".join(out) + "\n"
 
 
@@ -797,4 +1191,17 @@ def mirror(mech: Mechanism) -> Mechanism:
                        for g in mech.segments),
         steer_envelope=mech.steer_envelope,   # by |lean|, and KPI/caster are inboard/rearward: unchanged
         tube_od_mm=mech.tube_od_mm,
+        point_x={_swap_lr(r): x for r, x in mech.point_x.items()},
+        steering=None if mech.steering is None else _mirror_steering(mech.steering),
     )
+
+
+def _mirror_steering(st: Steering) -> Steering:
+    """The steering of the mirror image, input for input: a rack moves its points the mirrored way (its
+    axis points are mirrored); a lever's turn is mirrored too, so its gain changes sign."""
+    drives = tuple(SteerDrive(_swap_lr(d.name), d.kind, _swap_lr(d.body), tuple(_swap_lr(a) for a in d.axis),
+                              d.gain if d.kind == "slide" else -d.gain, tuple(_swap_lr(p) for p in d.points))
+                   for d in st.drives)
+    rods = tuple(sorted((TieRod(_swap_lr(r.name), _swap_lr(r.wheel), _swap_lr(r.arm), _swap_lr(r.end))
+                         for r in st.rods), key=lambda r: r.wheel))
+    return replace(st, drives=drives, rods=rods)

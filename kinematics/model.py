@@ -50,20 +50,30 @@ class Geometry:
         Tyre crown radius r, mm.
     static_camber : ndarray of shape (n_candidates, 2)
         Static camber, radians, docs/domain.md sign (positive = top toward +y).
+    x : ndarray of shape (n_candidates, n_points)
+        Forward position x of every point, mm (the linkage plane's x where a point has none of its
+        own). The planar linkage never moves a point in x; the steering and the side view use it.
     """
 
     points: np.ndarray
     outer_radius: np.ndarray
     crown_radius: np.ndarray
     static_camber: np.ndarray
+    x: np.ndarray | None = None
 
     @property
     def n_candidates(self) -> int:
         return self.points.shape[0]
 
+    @property
+    def points3(self) -> np.ndarray:
+        """Every point as (x, y, z), shape (n_candidates, n_points, 3), mm, design position."""
+        return np.concatenate([self.x[..., None], self.points], axis=-1)
+
     def take(self, idx) -> "Geometry":
         idx = np.asarray(idx)
-        return Geometry(self.points[idx], self.outer_radius[idx], self.crown_radius[idx], self.static_camber[idx])
+        return Geometry(self.points[idx], self.outer_radius[idx], self.crown_radius[idx], self.static_camber[idx],
+                        self.x[idx])
 
 
 @dataclass
@@ -317,22 +327,23 @@ class Model:
             outer_radius=np.array([[w.outer_radius_mm for w in ws]]),
             crown_radius=np.array([[w.crown_radius_mm for w in ws]]),
             static_camber=np.radians([[w.static_camber_deg for w in ws]]),
+            x=np.array([[mech.x_of(r) for r in self.point_refs]], dtype=float),
         )
 
     def batch_geometry(self, points: np.ndarray, outer_radius=None, crown_radius=None,
-                       static_camber=None) -> Geometry:
-        """Geometry of many candidates; wheel data default to the mechanism's."""
+                       static_camber=None, x=None) -> Geometry:
+        """Geometry of many candidates; wheel data and x default to the mechanism's."""
         points = np.asarray(points, dtype=float)
         if points.ndim != 3 or points.shape[1:] != (len(self.point_refs), 2):
             raise ValueError(f"points must have shape (n, {len(self.point_refs)}, 2); got {points.shape}")
         n = points.shape[0]
         d = self.default_geometry
 
-        def fill(v, default):
-            return np.broadcast_to(default if v is None else np.asarray(v, float), (n, 2)).copy()
+        def fill(v, default, shape=(n, 2)):
+            return np.broadcast_to(default if v is None else np.asarray(v, float), shape).copy()
 
         return Geometry(points, fill(outer_radius, d.outer_radius), fill(crown_radius, d.crown_radius),
-                        fill(static_camber, d.static_camber))
+                        fill(static_camber, d.static_camber), fill(x, d.x, (n, len(self.point_refs))))
 
     def design_vectors(self, geom: Geometry, tab: dict) -> tuple[np.ndarray, np.ndarray]:
         """Per-candidate design vectors of a point table, as complex numbers ``y + i z``.

@@ -40,10 +40,11 @@ import numba
 import numpy as np
 
 # item columns: wheel centre, axle unit vector (unsteered), steering axis point and unit vector,
-# crown circle radius, crown radius, half hub width, hub zone radius, largest steer (rad), bound
-# of every solid point's distance from the wheel centre (max(R, half hub width))
-CX, CY, CZ, NX, NY, NZ, PX, PY, PZ, EX, EY, EZ, RHOC, RT, WH, RHOH, DMAX, REACH = range(18)
-N_ITEM = 18
+# crown circle radius, crown radius, half hub width, hub zone radius, half the steer range (rad), bound
+# of every solid point's distance from the wheel centre (max(R, half hub width)), the middle of the
+# steer range (rad; the range is DMID +- DMAX, 0 +- max for a symmetric envelope)
+CX, CY, CZ, NX, NY, NZ, PX, PY, PZ, EX, EY, EZ, RHOC, RT, WH, RHOH, DMAX, REACH, DMID = range(19)
+N_ITEM = 19
 # member columns: ends (y, z) in the linkage plane, tube radius, class (0 other, 1 carrier: the hub
 # zone left out), own (1: a tube of the wheel's upright: checked straight ahead), global member index
 AY, AZ, BY, BZ, RAD, CLS, OWN, IDX = range(8)
@@ -125,11 +126,12 @@ def _cell_bound(f00, f01, f10, f11, rad, L, arm, Ht, Hd):
 
 
 @numba.njit(cache=True)
-def _member_search(q, i, m, xs, dmax, enough):
+def _member_search(q, i, m, xs, dmax, dmid, enough):
     """Branch-and-bound minimum of one member's clearance to item i's solid.
 
     enough : the smallest clearance already found for the member's class; cells whose bound lies
     above it are not refined (they cannot hold the class minimum).
+    Steers run over dmid + [-dmax, dmax] (the search works on the offset from dmid).
     Returns (best clearance, its steer (rad), lower bound of the true minimum, or of the part of
     it below ``enough``).
     """
@@ -147,7 +149,7 @@ def _member_search(q, i, m, xs, dmax, enough):
         y, z = ay + t * (by - ay), az + t * (bz - az)
         for b in range(nd):
             dl = -dmax + 2.0 * dmax * b / (nd - 1.0) if nd > 1 else 0.0
-            v = _point_value(q, i, xs, y, z, math.cos(dl), math.sin(dl), rho_lo) - rad
+            v = _point_value(q, i, xs, y, z, math.cos(dl + dmid), math.sin(dl + dmid), rho_lo) - rad
             grid[a, b] = v
             if v < best:
                 best, best_d, best_t = v, dl, t
@@ -180,8 +182,9 @@ def _member_search(q, i, m, xs, dmax, enough):
         if L * L * Ht * Ht >= (arm * arm + arm * (best + rad + L * Ht + arm * Hd)) * Hd * Hd:
             tm = 0.5 * (t0 + t1)
             y, z = ay + tm * (by - ay), az + tm * (bz - az)
-            g0 = _point_value(q, i, xs, y, z, math.cos(d0), math.sin(d0), rho_lo) - rad
-            g1 = g0 if Hd == 0.0 else _point_value(q, i, xs, y, z, math.cos(d1), math.sin(d1), rho_lo) - rad
+            g0 = _point_value(q, i, xs, y, z, math.cos(d0 + dmid), math.sin(d0 + dmid), rho_lo) - rad
+            g1 = g0 if Hd == 0.0 else _point_value(q, i, xs, y, z, math.cos(d1 + dmid), math.sin(d1 + dmid),
+                                                   rho_lo) - rad
             if g0 < best:
                 best, best_d, best_t = g0, d0, tm
             if g1 < best:
@@ -192,7 +195,7 @@ def _member_search(q, i, m, xs, dmax, enough):
             cells[j, 1], cells[j, 6], cells[j, 7] = tm, g0, g1
         else:
             dm = 0.5 * (d0 + d1)
-            cm, sm = math.cos(dm), math.sin(dm)
+            cm, sm = math.cos(dm + dmid), math.sin(dm + dmid)
             g0 = _point_value(q, i, xs, ay + t0 * (by - ay), az + t0 * (bz - az), cm, sm, rho_lo) - rad
             g1 = _point_value(q, i, xs, ay + t1 * (by - ay), az + t1 * (bz - az), cm, sm, rho_lo) - rad
             if g0 < best:
@@ -220,13 +223,13 @@ def _member_search(q, i, m, xs, dmax, enough):
                     continue
                 t = min(max(best_t + dt_, 0.0), 1.0)
                 dl = min(max(best_d + dd_, -dmax), dmax)
-                v = _point_value(q, i, xs, ay + t * (by - ay), az + t * (bz - az), math.cos(dl), math.sin(dl),
-                                 rho_lo) - rad
+                v = _point_value(q, i, xs, ay + t * (by - ay), az + t * (bz - az), math.cos(dl + dmid),
+                                 math.sin(dl + dmid), rho_lo) - rad
                 if v < best:
                     best, best_d, best_t = v, dl, t
             ht, hd = 0.5 * ht, 0.5 * hd
         lb = best
-    return best, best_d, lb
+    return best, best_d + dmid, lb
 
 
 @numba.njit(cache=True)
@@ -258,7 +261,8 @@ def search(q, mem, xs, out):
         low = np.full(N_CLASSES, np.inf)
         # every point of the solid lies within REACH of the wheel centre, which steering moves by at
         # most the chord of its circle about the axis: a lower bound per member
-        swing = 2.0 * _axis_distance(q, i, q[i, CX], q[i, CY], q[i, CZ]) * math.sin(0.5 * q[i, DMAX])
+        swing = 2.0 * _axis_distance(q, i, q[i, CX], q[i, CY], q[i, CZ]) * math.sin(
+            0.5 * min(abs(q[i, DMID]) + q[i, DMAX], math.pi))
         for j in range(k):
             m = mem[i, j]
             if m[IDX] < 0:
@@ -277,8 +281,9 @@ def search(q, mem, xs, out):
             if pre[j] >= out[i, c, 0]:
                 low[c] = min(low[c], pre[j])
                 continue
-            dmax = 0.0 if m[OWN] > 0.5 else q[i, DMAX]
-            v, d, lb = _member_search(q, i, m, xs, dmax, out[i, c, 0])
+            own = m[OWN] > 0.5
+            v, d, lb = _member_search(q, i, m, xs, 0.0 if own else q[i, DMAX], 0.0 if own else q[i, DMID],
+                                      out[i, c, 0])
             low[c] = min(low[c], lb)
             if v < out[i, c, 0]:
                 out[i, c, 0], out[i, c, 2], out[i, c, 3] = v, m[IDX], d

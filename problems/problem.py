@@ -50,7 +50,8 @@ from .spec import ProblemSpec
 #: penalty objective per name, as (multiple of the template size in mm) or a fixed value
 PENALTY_SIZE_FACTOR = {"overall_width": 4.0, "lean_sweep_width": 4.0, "max_scrub": 2.0, "max_heave": 2.0,
                        "min_clearance": 1.0, "slot_length": 10.0}
-PENALTY_FIXED = {"max_camber_error": 90.0, "linkage_mass": 1000.0}
+PENALTY_FIXED = {"max_camber_error": 90.0, "linkage_mass": 1000.0, "max_lean_steer": 90.0, "max_bump_steer": 90.0,
+                 "ackermann_error": 90.0}
 
 METRIC_UNITS = {
     "overall_width_mm": "mm", "lean_sweep_width_mm": "mm", "design_width_mm": "mm", "design_track_mm": "mm",
@@ -65,6 +66,9 @@ METRIC_UNITS = {
     "inside_violation_mm": "mm", "outside_violation_mm": "mm", "pivot_shell_distance_mm": "mm",
     "linkage_mass_kg": "kg", "max_utilisation": "1", "tilt_lock_torque_nm": "N*m", "min_wheel_load_n": "N",
     "max_spring_force_n": "N", "spring_stroke_mm": "mm", "spring_bottoming_margin_mm": "mm",
+    "max_lean_steer_deg": "deg", "max_bump_steer_deg": "deg", "ackermann_error_deg": "deg", "steering_ratio": "1",
+    "lock_steer_deg": "deg", "min_trail_mm": "mm", "max_trail_mm": "mm", "design_trail_mm": "mm",
+    "design_scrub_radius_mm": "mm", "design_caster_deg": "deg", "design_kpi_deg": "deg",
 }
 #: scaled violation of a design that fails to assemble or converge, times (1 + share of failed states)
 FAILED_G = 1.0e4
@@ -79,6 +83,10 @@ CLEARANCE_KEYS = ("min_wheel_shell_mm", "min_wheel_shell_error_mm", "min_wheel_s
 SHELL_ONLY_KEYS = ("min_wheel_shell_mm", "min_wheel_shell_error_mm", "min_wheel_shell_lower_mm",
                    "total_slot_length_mm", "inside_violation_mm", "outside_violation_mm")
 SIZING_KEYS = ("linkage_mass_kg", "max_utilisation", "tilt_lock_torque_nm", "min_wheel_load_n")
+#: the steering part's metrics (a template with a steering linkage)
+STEERING_KEYS = ("max_lean_steer_deg", "max_bump_steer_deg", "ackermann_error_deg", "steering_ratio", "lock_steer_deg",
+                 "min_trail_mm", "max_trail_mm", "design_trail_mm", "design_scrub_radius_mm", "design_caster_deg",
+                 "design_kpi_deg")
 
 
 @dataclass
@@ -210,7 +218,11 @@ class TiltProblem(Problem):
             g = geom.take(idx)
             sr = sweep(self.model, g, self.spec.envelope.lean_deg, self.spec.envelope.travel_mm, self.sweep_settings)
             ok = self._sweep_metrics(sr, idx, metrics, state, reasons)
-            self._clearance_metrics(g, sr, idx, ok, metrics)
+            steer = None
+            if self.spec.needs_steering:
+                steer = self._steering_metrics(g, sr, idx, ok, metrics, state, reasons)
+            ok = state["all_conv"][idx]
+            self._clearance_metrics(g, sr, idx, ok, metrics, steer)
             if self.spec.needs_sizing:
                 self._sizing_metrics(g, idx, ok, metrics, state, reasons, sr)
 
@@ -247,6 +259,8 @@ class TiltProblem(Problem):
             names += list(SIZING_KEYS)
             if sprung:
                 names += ["max_spring_force_n", "spring_bottoming_margin_mm"]
+        if self.spec.needs_steering:
+            names += list(STEERING_KEYS)
         return names
 
     def _design_metrics(self, geom, geom_ok, metrics):
@@ -302,12 +316,59 @@ class TiltProblem(Problem):
                 f"{env.lean_deg[l]:g} deg, travel {env.travel_mm[t]:g} mm: {STATUS_TEXT[int(sr.status[j, t, l])]})")
         return ok
 
-    def _clearance_metrics(self, g, sr, idx, ok, metrics):
+    def _steering_metrics(self, g, sr, idx, ok, metrics, state, reasons):
+        """Lean steer, bump steer, Ackermann error, ratio, trail, caster (docs/domain.md, "Steering").
+
+        A design whose steering does not reach every state of its envelope (a rod past its toggle)
+        does not converge: it fails with the first such state as its reason. Returns the
+        :class:`tiltopt.kinematics.steering.SteerResult`.
+        """
+        from tiltopt.kinematics import steering as S
+
+        env = self.spec.envelope
+        st = S.steer_envelope(self.model, g, sr, every_input=False)
+        ds = S.design_steer(self.model, g, np.array(self.model.mech.steering.input_range_deg))
+        good = ok & st.reached
+        n = len(idx)
+        deg = 180.0 / math.pi
+
+        def worst(a):
+            a = np.abs(a).reshape(n, -1)
+            return np.where(good, np.max(np.where(np.isfinite(a), a, -np.inf), axis=1), np.nan)
+
+        metrics["max_lean_steer_deg"][idx] = worst(st.lean_steer) * deg
+        metrics["max_bump_steer_deg"][idx] = worst(st.bump_steer) * deg
+        with np.errstate(invalid="ignore"):
+            ack = np.max(np.abs(ds.ackermann_error), axis=1) * deg
+        metrics["ackermann_error_deg"][idx] = np.where(good, ack, np.nan)
+        metrics["steering_ratio"][idx] = np.where(good, ds.ratio, np.nan)
+        metrics["lock_steer_deg"][idx] = np.where(good, np.max(np.abs(ds.steer).reshape(n, -1), axis=1) * deg, np.nan)
+        tr = st.trail.reshape(n, -1)
+        metrics["min_trail_mm"][idx] = np.where(good, np.min(tr, axis=1), np.nan)
+        metrics["max_trail_mm"][idx] = np.where(good, np.max(tr, axis=1), np.nan)
+        t0 = int(np.argmin(np.abs(env.travel_mm)))
+        l0 = int(np.argmin(np.abs(env.lean_deg)))
+        for key, a, f in (("design_trail_mm", st.trail, 1.0), ("design_scrub_radius_mm", st.scrub_radius, 1.0),
+                          ("design_caster_deg", st.caster, deg), ("design_kpi_deg", st.kpi, deg)):
+            metrics[key][idx] = np.where(good, np.mean(a[:, t0, l0], axis=-1) * f, np.nan)
+        bad = np.flatnonzero(ok & ~st.reached)
+        state["all_conv"][idx[bad]] = False
+        for j in bad:
+            t, l, u, w, code = st.first_failure(j)
+            k = int((st.status[j] != S.REACHED).any(axis=(-1, -2)).sum())
+            state["failed_share"][idx[j]] = max(state["failed_share"][idx[j]], k / sr.status[j].size)
+            reasons[idx[j]].append(
+                f"not converged: the steering of the {('left', 'right')[w]} wheel does not reach {k} of "
+                f"{sr.status[j].size} envelope states (first: input {st.input_deg[l, u]:g} deg at lean "
+                f"{env.lean_deg[l]:g} deg, travel {env.travel_mm[t]:g} mm: {S.STATUS_TEXT[code]})")
+        return st
+
+    def _clearance_metrics(self, g, sr, idx, ok, metrics, steer=None):
         """Wheel solids, members, the two wheels, widths (and with a shell: shell, slots, pivots)."""
         from tiltopt.kinematics.clearance import evaluate_clearance
         from tiltopt.kinematics.shell import shell_signed_distance
 
-        summ = evaluate_clearance(self.model, g, sr, self.spec.shell).summary()
+        summ = evaluate_clearance(self.model, g, sr, self.spec.shell, steer=steer).summary()
         for k in CLEARANCE_KEYS:
             if k in metrics:   # +-inf (nothing to measure, e.g. no members) is reported as NaN
                 v = np.asarray(summ[k], float)

@@ -3,8 +3,9 @@
 The CLI, the config checker and the docs list these same dicts, so they
 never disagree. Each entry says its unit and which part of the evaluation it
 needs: ``"sweep"`` (kinematics only), ``"clearance"`` (a body shell and
-:mod:`tiltopt.kinematics.clearance`) or ``"sizing"`` (loads and
-:mod:`tiltopt.kinematics.sizing`).
+:mod:`tiltopt.kinematics.clearance`), ``"sizing"`` (loads and
+:mod:`tiltopt.kinematics.sizing`) or ``"steering"`` (a template with a steering linkage,
+:mod:`tiltopt.kinematics.steering`).
 """
 from __future__ import annotations
 
@@ -15,7 +16,7 @@ import numpy as np
 
 from .templates import TEMPLATES as _TEMPLATE_ENTRIES
 
-SWEEP, CLEARANCE, SIZING = "sweep", "clearance", "sizing"
+SWEEP, CLEARANCE, SIZING, STEERING = "sweep", "clearance", "sizing", "steering"
 
 
 @dataclass(frozen=True)
@@ -27,7 +28,7 @@ class ObjectiveSpec:
     name : str
     unit : str
     description : str
-    needs : {'sweep', 'clearance', 'sizing'}
+    needs : {'sweep', 'clearance', 'sizing', 'steering'}
     metric : str
         The :attr:`Evaluation.metrics` column it comes from.
     sign : float
@@ -53,8 +54,9 @@ class ConstraintSpec:
     unit : str
         Unit of the constraint's value (its G before scaling).
     description : str
-    needs : {'sweep', 'clearance', 'sizing'}
-        ``clearance`` entries need the clearance part (always run: wheels, members, widths) and, where
+    needs : {'sweep', 'clearance', 'sizing', 'steering'}
+        ``steering`` entries need a template with a steering linkage; ``clearance`` entries need the clearance
+        part (always run: wheels, members, widths) and, where
         ``shell_only``, a body shell.
     key : str or None
         The ``[constraints]`` key of a run config that sets its margin or limit (None: always on,
@@ -96,6 +98,10 @@ def _margin(name):
     return lambda m, lim: lim - m[name]
 
 
+LEAN_STEER_SOURCE = ("our choice: a vehicle that steers itself as it leans cannot be ridden; the balanced steer at "
+                     "30 deg of lean and 10 m/s on a 1.65 m wheelbase is about 5 deg (L g tan(lean) / v^2), so "
+                     "0.5 deg of lean steer is a tenth of it (common practice, no source)")
+
 CAMBER_SOURCE = ("our choice: the wheels must lean with the body; a camber error of 1 deg changes the "
                  "balanced lean by about as much on tyres whose camber thrust follows their camber (common "
                  "practice, no source)")
@@ -122,6 +128,15 @@ OBJECTIVES: dict[str, ObjectiveSpec] = {o.name: o for o in [
                   CLEARANCE, "total_slot_length_mm"),
     ObjectiveSpec("max_camber_error", "deg", "largest |camber - lean| of either wheel over the envelope", SWEEP,
                   "max_camber_error_deg"),
+    ObjectiveSpec("max_lean_steer", "deg", "largest |lean steer| of either wheel over the envelope: how far the "
+                  "wheels steer themselves, at zero steering input, as the body leans", STEERING,
+                  "max_lean_steer_deg"),
+    ObjectiveSpec("max_bump_steer", "deg", "largest |bump steer| of either wheel over the travels: how far the "
+                  "wheels steer themselves, at zero steering input and lean 0, in bump and droop", STEERING,
+                  "max_bump_steer_deg"),
+    ObjectiveSpec("ackermann_error", "deg", "largest |Ackermann error| at the steering's Ackermann inputs: the "
+                  "outer wheel's steer against the ideal for the inner one's (needs the wheelbase)", STEERING,
+                  "ackermann_error_deg"),
 ]}
 
 CONSTRAINTS: dict[str, ConstraintSpec] = {c.name: c for c in [
@@ -194,6 +209,20 @@ CONSTRAINTS: dict[str, ConstraintSpec] = {c.name: c for c in [
                    "a spring is solid {v:.1f} mm before full bump", 10.0,
                    source="on with loads when a spring says where it is solid: a spring solid within the "
                           "travel cannot reach the envelope"),
+    ConstraintSpec("max_lean_steer", "deg", "the wheels do not steer themselves as the body leans: max |lean steer| "
+                   "at most the limit", STEERING, "max_lean_steer_deg", _m("max_lean_steer_deg"),
+                   "max lean steer {v:.2f} deg over the limit", 1.0, 0.5, LEAN_STEER_SOURCE),
+    ConstraintSpec("max_bump_steer", "deg", "max |bump steer| over the travels at most the limit", STEERING,
+                   "max_bump_steer_deg", _m("max_bump_steer_deg"), "max bump steer {v:.2f} deg over the limit", 1.0),
+    ConstraintSpec("ackermann_error", "deg", "max |Ackermann error| at the Ackermann inputs at most the limit "
+                   "(needs the steering's wheelbase_mm)", STEERING, "max_ackermann_error_deg",
+                   _m("ackermann_error_deg"), "Ackermann error {v:.2f} deg over the limit", 1.0),
+    ConstraintSpec("trail_min", "mm", "mechanical trail at least the limit over the envelope (the lower end of "
+                   "the trail band; G = limit - smallest trail)", STEERING, "min_trail_mm", _margin("min_trail_mm"),
+                   "trail {v:.1f} mm short of the band", 10.0),
+    ConstraintSpec("trail_max", "mm", "mechanical trail at most the limit over the envelope (the upper end of "
+                   "the trail band; G = largest trail - limit)", STEERING, "max_trail_mm", _m("max_trail_mm"),
+                   "trail {v:.1f} mm over the band", 10.0),
 ]}
 
 #: constraint keys that are switches (true / false) rather than limits

@@ -50,6 +50,11 @@ Tables (TOML, our own format; lengths mm, angles degrees)::
     max_spring_force_n = 2500.0     # with loads, sprung: largest spring force over the load cases
     max_spring_stroke_mm = 50.0     # sprung: spring stroke over the envelope
     spring_bottoming = false        # with loads, sprung: no spring solid over the envelope
+    max_lean_steer_deg = 0.5        # with a steering linkage: the wheels do not steer as the body leans (default 0.5)
+    max_bump_steer_deg = 0.5        # with a steering linkage: nor in bump and droop
+    max_ackermann_error_deg = 2.0   # with a steering linkage and its wheelbase_mm
+    min_trail_mm = 20.0             # with a steering linkage: the trail band over the envelope
+    max_trail_mm = 80.0
 
 The ``[run]`` and ``[targets]`` tables are the optimiser's (:mod:`tiltopt.optimizer.config`) and are
 skipped here: targets choose among the designs of a front, they do not change the problem.
@@ -77,7 +82,7 @@ from tiltopt.base.limits import (
 )
 from tiltopt.kinematics.mechanism import load_mechanism
 
-from .registry import CLEARANCE, CONSTRAINTS, OBJECTIVES, SIZING, SWITCH_KEYS, TEMPLATES
+from .registry import CLEARANCE, CONSTRAINTS, OBJECTIVES, SIZING, STEERING, SWITCH_KEYS, TEMPLATES
 from .templates import Template, get_template, template_from_mechanism
 
 PROBLEM_KEYS = ("template", "envelope", "objectives", "constraints", "shell", "loads", "vehicle", "sizing",
@@ -88,7 +93,11 @@ DEFAULT_LEAN_LIMIT_DEG = 30.0
 DEFAULT_LEAN_STEP_DEG = 5.0
 DEFAULT_SPRUNG_TRAVEL_MM = (-30.0, 0.0, 30.0)
 _CONSTRAINT_KEYS = tuple(c.key for c in CONSTRAINTS.values() if c.key is not None)
-_CONSTRAINT_MAX = {"max_spring_force_n": MAX_FORCE_N, "max_spring_stroke_mm": MAX_COORD_MM}   # upper input limits
+_CONSTRAINT_MAX = {"max_spring_force_n": MAX_FORCE_N, "max_spring_stroke_mm": MAX_COORD_MM,   # upper input limits
+                   "max_lean_steer_deg": 90.0, "max_bump_steer_deg": 90.0, "max_ackermann_error_deg": 90.0,
+                   "min_trail_mm": MAX_COORD_MM, "max_trail_mm": MAX_COORD_MM}
+_CONSTRAINT_NO_LOWER = ("pivot_margin_mm", "clearance_margin_mm", "wheel_shell_margin_mm", "carrier_margin_mm",
+                        "wheel_gap_mm", "min_wheel_load_n", "member_gap_mm")
 
 
 @dataclass(frozen=True)
@@ -138,6 +147,11 @@ class Limits:
     max_spring_force_n: float | None = None
     max_spring_stroke_mm: float | None = None
     spring_bottoming: bool = False
+    max_lean_steer_deg: float | None = None
+    max_bump_steer_deg: float | None = None
+    max_ackermann_error_deg: float | None = None
+    min_trail_mm: float | None = None
+    max_trail_mm: float | None = None
     given: tuple[str, ...] = ()
 
     def requirements(self, constraints) -> list[dict]:
@@ -190,6 +204,11 @@ class ProblemSpec:
         return True
 
     @property
+    def needs_steering(self) -> bool:
+        """The steering part runs whenever the template has a steering linkage."""
+        return self.template.mechanism.steering is not None
+
+    @property
     def needs_sizing(self) -> bool:
         return self.loads is not None and ("linkage_mass" in self.objectives or "stress" in self.constraints
                                            or "wheel_loads" in self.constraints
@@ -201,7 +220,7 @@ class ProblemSpec:
         return {"template": self.template.name, "n_var": self.template.n_var, "n_obj": len(self.objectives),
                 "n_constr": len(self.constraints), "n_lean": len(self.envelope.lean_deg),
                 "n_travel": len(self.envelope.travel_mm), "states_per_candidate": self.envelope.n_states,
-                "clearance": self.needs_clearance, "sizing": self.needs_sizing}
+                "clearance": self.needs_clearance, "sizing": self.needs_sizing, "steering": self.needs_steering}
 
 
 # ------------------------------------------------------------------ helpers
@@ -339,7 +358,7 @@ def _parse_envelope(e: Any, src: str, template: Template, default_limit: float) 
     return Envelope(limit, step, envelope_leans(limit, step, both), travel, steer, both)
 
 
-def _parse_constraints(c: Any, src: str, has_shell: bool, has_loads: bool) -> Limits:
+def _parse_constraints(c: Any, src: str, has_shell: bool, has_loads: bool, has_steering: bool = False) -> Limits:
     c = {} if c is None else c
     _keys(c, set(_CONSTRAINT_KEYS), src, "constraints")
     vals: dict[str, Any] = {}
@@ -347,9 +366,16 @@ def _parse_constraints(c: Any, src: str, has_shell: bool, has_loads: bool) -> Li
     for k in _CONSTRAINT_KEYS:
         if k in SWITCH_KEYS or k not in c:
             continue
-        lo = None if k in ("pivot_margin_mm", "clearance_margin_mm", "wheel_shell_margin_mm", "carrier_margin_mm",
-                           "wheel_gap_mm", "min_wheel_load_n", "member_gap_mm") else 0.0
+        lo = None if k in _CONSTRAINT_NO_LOWER else (-MAX_COORD_MM if k == "min_trail_mm" else 0.0)
         vals[k] = _num(c[k], src, f"constraints.{k}", lo=lo, lo_open=k.startswith("max_"), hi=_CONSTRAINT_MAX.get(k))
+    needs_steering = [k for k in vals if by_key[k].needs == STEERING]
+    if needs_steering and not has_steering:
+        raise InputError(f"{needs_steering[0]} needs a template with a steering linkage ([steering] in its mechanism "
+                         f"file). Add one, or remove the key.", src, f"constraints.{needs_steering[0]}")
+    if vals.get("min_trail_mm") is not None and vals.get("max_trail_mm") is not None \
+            and vals["min_trail_mm"] >= vals["max_trail_mm"]:
+        raise InputError(f"the trail band needs min_trail_mm < max_trail_mm. Got {vals['min_trail_mm']:g} and "
+                         f"{vals['max_trail_mm']:g}.", src, "constraints.min_trail_mm")
     needs_shell = [k for k in vals if by_key[k].shell_only]
     if needs_shell and not has_shell:
         raise InputError(f"{needs_shell[0]} needs a body shell. Add shell = \"shell.toml\" to the config, or remove "
@@ -361,7 +387,7 @@ def _parse_constraints(c: Any, src: str, has_shell: bool, has_loads: bool) -> Li
     given = tuple(vals)
     for k, spec in by_key.items():          # the defaults every run gets
         if k in vals or k in SWITCH_KEYS or spec.default is None or (spec.shell_only and not has_shell) or (
-                spec.needs == SIZING and not has_loads):
+                spec.needs == SIZING and not has_loads) or (spec.needs == STEERING and not has_steering):
             continue
         vals[k] = spec.default
     switches = {}
@@ -485,10 +511,21 @@ def parse_problem(data: dict, src: str = "<memory>", base_dir: str | Path | None
         if need == SIZING and loads is None:
             raise InputError(f"objective {o!r} needs loads. Add loads = \"loads.toml\" or a [vehicle] table.", src,
                              f"objectives[{i}]")
+        if need == STEERING and template.mechanism.steering is None:
+            raise InputError(f"objective {o!r} needs a template with a steering linkage ([steering] in its mechanism "
+                             f"file).", src, f"objectives[{i}]")
+        if o == "ackermann_error" and template.mechanism.steering.wheelbase_mm is None:
+            raise InputError("objective 'ackermann_error' needs the steering's wheelbase_mm in the mechanism file.",
+                             src, f"objectives[{i}]")
     if len(set(obj)) != len(obj):
         raise InputError(f"each objective may appear once. Got {obj}.", src, "objectives")
 
-    limits = _parse_constraints(data.get("constraints"), src, shell is not None, loads is not None)
+    steering = template.mechanism.steering
+    limits = _parse_constraints(data.get("constraints"), src, shell is not None, loads is not None,
+                                steering is not None)
+    if limits.max_ackermann_error_deg is not None and steering.wheelbase_mm is None:
+        raise InputError("max_ackermann_error_deg needs the steering's wheelbase_mm in the mechanism file.", src,
+                         "constraints.max_ackermann_error_deg")
     if (loads is not None and "spring_bottoming" not in limits.given
             and any(s.max_deflection_mm is not None or (s.kind == "elastomer" and s.curve)
                     for s in template.mechanism.springs)):

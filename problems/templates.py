@@ -11,7 +11,7 @@ one matrix product::
 Rules (the same for the built-in templates and for
 :func:`template_from_mechanism`):
 
-- A point variable names one or more points and an axis (``y`` or ``z``).
+- A point variable names one or more points and an axis (``x``, ``y`` or ``z``).
   Its value is the coordinate of the first named point (mm, global frame,
   design position), unless its definition gives a ``default``: then the
   value is a quantity of its own whose base-mechanism value is that default
@@ -19,9 +19,11 @@ Rules (the same for the built-in templates and for
   the value by ``d`` moves every named point by ``factor * d`` along the
   axis (factor 1 unless given).
 - Symmetric by construction: each moved point's mirror partner (the point
-  whose name swaps ``left``/``right``, at ``(-y, z)``) moves by the mirrored
-  amount (``-d`` in y, ``+d`` in z). A point on the centre plane (its own
-  partner) may only move in z.
+  whose name swaps ``left``/``right``, at ``(x, -y, z)``) moves by the mirrored
+  amount (``-d`` in y, ``+d`` in x and z). A point on the centre plane (its own
+  partner) may only move in x and z.
+- The tilting linkage stays planar: an ``x`` move may not name an end of a link,
+  spring or slider (they lie in planes x = const); a pin's points move together.
 - A moved point takes its pin partners along (points joined to it by a pin
   coincide in the design position and keep coinciding).
 - Points that no variable names keep their design coordinates.
@@ -64,7 +66,7 @@ class Move:
     """One rule of a point variable: ``ref`` moves by ``factor * d`` along ``axis``."""
 
     ref: str
-    axis: str          # "y" | "z"
+    axis: str          # "x" | "y" | "z"
     factor: float = 1.0
 
 
@@ -190,7 +192,16 @@ class Template:
         hubs = {idx[w.centre]: w for w in mech.wheels}
 
         A = np.zeros((n_var, n_pts, 2))
+        AX = np.zeros((n_var, n_pts))
         AR = np.zeros((n_var, 2))
+        planar = {idx[r] for j in (*mech.links, *mech.springs) for r in (j.a, j.b)}
+        planar |= {idx[r] for s_ in mech.sliders for r in (s_.a_from, s_.a_to, s_.b)}
+        X0 = model.default_geometry.x[0]
+        for i, r in enumerate(refs):
+            if abs(X0[partner[i]] - X0[i]) > SYMMETRY_TOLERANCE_MM:
+                raise InputError(f"a template must be symmetric left/right: point {r} at x = {X0[i]:g} mm needs its "
+                                 f"mirror partner {refs[partner[i]]} at the same x (it is at {X0[partner[i]]:g}).",
+                                 self.source)
         x0 = np.array([v.default for v in self.variables], dtype=float)
         for k, v in enumerate(self.variables):
             key = f"template.variables.{v.name}"
@@ -212,15 +223,19 @@ class Template:
             for m in v.moves:
                 if m.ref not in idx:
                     raise InputError(f"unknown point {m.ref!r}. Points: {', '.join(refs)}.", self.source, key)
-                if m.axis not in ("y", "z"):
-                    raise InputError(f"expected axis 'y' or 'z'. Got {m.axis!r} instead.", self.source, key)
-                ax = 0 if m.axis == "y" else 1
+                if m.axis not in ("x", "y", "z"):
+                    raise InputError(f"expected axis 'x', 'y' or 'z'. Got {m.axis!r} instead.", self.source, key)
+                ax = {"y": 0, "z": 1, "x": 2}[m.axis]
                 for p in group_of[idx[m.ref]]:
                     q = int(partner[p])
                     if ax == 0 and q == p:
                         raise InputError(
-                            f"point {refs[p]} lies on the centre plane; it can only move in z (a y move would "
-                            f"break the left/right symmetry).", self.source, key)
+                            f"point {refs[p]} lies on the centre plane; it can only move in x and z (a y move "
+                            f"would break the left/right symmetry).", self.source, key)
+                    if ax == 2 and (p in planar or q in planar):
+                        raise InputError(
+                            f"point {refs[p]} is an end of a link, spring or slider, which lie in planes x = const "
+                            f"(the tilting linkage is planar): it cannot move in x.", self.source, key)
                     if ax == 1 and (p in hubs or q in hubs):
                         raise InputError(
                             f"point {refs[p]} is a wheel centre: its height follows the tyre "
@@ -230,8 +245,13 @@ class Template:
                     for qq in group_of[q]:
                         target[(qq, ax)] = -m.factor if ax == 0 else m.factor
             for (p, ax), f in target.items():
-                A[k, p, ax] = f
+                if ax == 2:
+                    AX[k, p] = f
+                else:
+                    A[k, p, ax] = f
         self._P0 = P0
+        self._X0 = X0
+        self._AX = AX
         self._R0 = model.default_geometry.outer_radius[0].copy()
         self._x0 = x0
         self._A = A.reshape(n_var, n_pts * 2)
@@ -311,7 +331,7 @@ class Template:
         D = X - self._x0
         pts = self._P0[None] + (D @ self._A).reshape(len(X), -1, 2)
         R = self._R0[None] + D @ self._AR
-        return self.model.batch_geometry(pts, outer_radius=R)
+        return self.model.batch_geometry(pts, outer_radius=R, x=self._X0[None] + D @ self._AX)
 
     def mechanism_for(self, x) -> Mechanism:
         """The mechanism of one design vector (same points as ``geometry(x[None])``).
@@ -322,8 +342,9 @@ class Template:
         """
         x = np.asarray(x, dtype=float).reshape(-1)
         g = self.geometry(x[None])
-        pts = g.points[0]
-        mech = self.mechanism.with_points({r: (pts[i, 0], pts[i, 1]) for i, r in enumerate(self.model.point_refs)})
+        pts, xs = g.points[0], g.x[0]
+        mech = self.mechanism.with_points({r: (xs[i], pts[i, 0], pts[i, 1])
+                                           for i, r in enumerate(self.model.point_refs)})
         wheels = tuple(replace(w, outer_radius_mm=float(g.outer_radius[0, k])) for k, w in enumerate(mech.wheels))
         values = ", ".join(f"{v.name} = {xv:g} {v.unit}" for v, xv in zip(self.variables, x))
         return replace(mech, wheels=wheels, name=mech.name,
@@ -575,15 +596,14 @@ def template_from_mechanism(mech: Mechanism, variables: Sequence[Mapping | Desig
             if p not in idx:
                 raise InputError(f"unknown point {p!r}. Points: {', '.join(mech.point_refs)}.", src, f"{w}.points")
         axis = v["axis"]
-        if axis not in ("y", "z"):
-            raise InputError(f"expected 'y' or 'z'. Got {axis!r} instead.", src, f"{w}.axis")
+        if axis not in ("x", "y", "z"):
+            raise InputError(f"expected 'x', 'y' or 'z'. Got {axis!r} instead.", src, f"{w}.axis")
         factors = v.get("factors", [1.0] * len(pts))
         if not isinstance(factors, list) or len(factors) != len(pts) or not all(
                 isinstance(f, (int, float)) and not isinstance(f, bool) and math.isfinite(f) for f in factors):
             raise InputError(f"expected one finite factor per point ({len(pts)}). Got {factors!r}.", src,
                              f"{w}.factors")
-        ax = 0 if axis == "y" else 1
-        default = nums.get("default", mech.point(pts[0])[ax])
+        default = nums.get("default", mech.point3(pts[0])["xyz".index(axis)])
         out.append(DesignVariable(nm, v.get("unit", "mm"), nums["lower"], nums["upper"], default,
                                   v.get("description", f"{axis} of {', '.join(pts)}"), POINT,
                                   tuple(Move(p, axis, float(f)) for p, f in zip(pts, factors))))

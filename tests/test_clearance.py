@@ -232,6 +232,7 @@ def test_rule_of_thumb_inner_wheel_clearance_trend_on_the_demo():
 @pytest.fixture
 def demo_files(tmp_path):
     d = tomllib.loads((CONFIGS / "wishbone_rocker.toml").read_text())
+    d.pop("steering")          # the fixed steer envelope of a file without a steering linkage
     d["steer_envelope"] = {"lean_deg": [0.0, 20.0, 40.0], "max_steer_deg": [25.0, 10.0, 4.0]}
     d["segments"] = [{"name": f"{b}_tube", "body": b, "a": "inner", "b": "outer", "tube_od_mm": 25.0}
                      for b in ("upper_arm_left", "upper_arm_right", "lower_arm_left", "lower_arm_right")]

@@ -224,6 +224,16 @@ def _first(name):
     return lambda d: (d[name][0], f"{name}[0]")
 
 
+def _steering_item(name, first=False):
+    """Probe target: the first table of ``[[steering.NAME]]``, or (probing) a copy appended to it."""
+    def target(d):
+        items = d["steering"][name]
+        if not first:
+            items.append(copy.deepcopy(items[0]))
+        return items[-1 if not first else 0], f"steering.{name}[{len(items) - 1 if not first else 0}]"
+    return target
+
+
 PROBES = [
     Probe("Mechanism file", "Top level", _mechanism, _top, _parse_mechanism, _top),
     Probe("Mechanism file", "[[pins]]", _mechanism, _append("pins"), _parse_mechanism, _first("pins")),
@@ -233,6 +243,11 @@ PROBES = [
     Probe("Mechanism file", "[[wheels]]", _mechanism, _append("wheels"), _parse_mechanism, _first("wheels")),
     Probe("Mechanism file", "[[segments]]", _mechanism, _append("segments"), _parse_mechanism),
     Probe("Mechanism file", "[steer_envelope]", _mechanism, _table("steer_envelope"), _parse_mechanism),
+    Probe("Mechanism file", "[steering]", _mechanism, _table("steering"), _parse_mechanism, _table("steering")),
+    Probe("Mechanism file", "[[steering.drives]]", _mechanism, _steering_item("drives"), _parse_mechanism,
+          _steering_item("drives", first=True)),
+    Probe("Mechanism file", "[[steering.rods]]", _mechanism, _steering_item("rods"), _parse_mechanism,
+          _steering_item("rods", first=True)),
     Probe("Shell files", "Top level", lambda: _toml(config_path("shell_demo.toml")), _top, _parse_shell, _top),
     Probe("Shell files", "[[stations]]", lambda: _toml(config_path("shell_demo.toml")), _append("stations"),
           _parse_shell, _first("stations")),

@@ -30,10 +30,11 @@ def test_envelope_defaults():
     s = parse_problem(_cfg(template={"name": "twin_beam_sprung"}), "c.toml")
     np.testing.assert_array_equal(s.envelope.travel_mm, [-30.0, 0.0, 30.0])  # sprung template
     # the requirements every run gets (registry defaults): wheels lean with the body, wheel solids clear
-    # of members and of each other, members clear of each other
+    # of members and of each other, members clear of each other, and (the template steers) no lean steer
     assert s.constraints == ("converged", "max_camber_error", "clearance", "carrier_clearance", "wheel_gap",
-                             "member_gap")
-    assert (s.limits.max_camber_error_deg, s.limits.clearance_margin_mm, s.limits.carrier_margin_mm) == (1.0, 10.0, 3.0)
+                             "member_gap", "max_lean_steer")
+    assert (s.limits.max_camber_error_deg, s.limits.clearance_margin_mm, s.limits.carrier_margin_mm,
+            s.limits.max_lean_steer_deg) == (1.0, 10.0, 3.0, 0.5)
     assert s.limits.given == ()
     np.testing.assert_array_equal(lean_grid(32.0, 5.0), [0, 5, 10, 15, 20, 25, 30, 32])
     s = parse_problem(_cfg(envelope={"lean_limit_deg": 20.0, "lean_step_deg": 10.0, "both_sides": True}), "c")
@@ -68,10 +69,10 @@ def test_strict_validation_names_the_key(data, key):
 def test_run_table_is_skipped_and_limits_become_constraints():
     s = parse_problem(_cfg(run={"seed": 1}, constraints={"max_width_mm": 900.0, "max_scrub_mm": 4.0}), "c.toml")
     assert s.constraints == ("converged", "max_width", "max_scrub", "max_camber_error", "clearance",
-                             "carrier_clearance", "wheel_gap", "member_gap")
+                             "carrier_clearance", "wheel_gap", "member_gap", "max_lean_steer")
     assert s.limits.given == ("max_width_mm", "max_scrub_mm")
     p = TiltProblem(s)
-    assert (p.n_var, p.n_obj, p.n_ieq_constr) == (4, 2, 8)
+    assert (p.n_var, p.n_obj, p.n_ieq_constr) == (4, 2, 9)
     # a default switched off by the config? No: a default is a requirement; a config may loosen it
     s = parse_problem(_cfg(constraints={"max_camber_error_deg": 3.0}), "c.toml")
     assert s.limits.max_camber_error_deg == 3.0 and s.limits.given == ("max_camber_error_deg",)
@@ -79,7 +80,8 @@ def test_run_table_is_skipped_and_limits_become_constraints():
 
 def test_registry_lists_the_contract_names():
     assert set(OBJECTIVES) == {"overall_width", "lean_sweep_width", "max_scrub", "max_heave", "min_clearance",
-                               "linkage_mass", "slot_length", "max_camber_error"}
+                               "linkage_mass", "slot_length", "max_camber_error", "max_lean_steer",
+                               "max_bump_steer", "ackermann_error"}
     assert set(ALGORITHMS) == {"nsga2", "nsga3"}
     assert set(TEMPLATES) == {"twin_beam", "twin_beam_sprung", "wishbone_rocker"}
     assert names()["constraints"] == list(CONSTRAINTS)

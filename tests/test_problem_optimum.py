@@ -127,7 +127,8 @@ def test_linkage_mass_objective_and_stress_constraint():
     from tiltopt.kinematics.sizing import size_linkage
     spec = parse_problem({"template": {"name": "twin_beam"}, "vehicle": VEHICLE,
                           "objectives": ["linkage_mass", "max_scrub"], "envelope": {"lean_step_deg": 15.0}}, "c")
-    assert spec.constraints[-2:] == ("wheel_loads", "stress")      # with loads: tyres loaded, members sized
+    # with loads: tyres loaded, members sized; the template steers: no lean steer
+    assert spec.constraints[-3:] == ("wheel_loads", "stress", "max_lean_steer")
     np.testing.assert_array_equal(spec.envelope.lean_deg, [0.0, 15.0, 30.0])   # lean limit from [vehicle]
     p = TiltProblem(spec)
     X = np.random.default_rng(6).uniform(p.xl, p.xu, (8, p.n_var))

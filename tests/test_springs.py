@@ -173,7 +173,8 @@ def test_spring_constraints_in_the_optimiser():
     from tiltopt.problems.spec import parse_problem
 
     spec = parse_problem(_cfg(max_spring_force_n=1000.0, max_spring_stroke_mm=50.0, spring_bottoming=True), "c.toml")
-    assert spec.constraints[-3:] == ("spring_force", "spring_stroke", "spring_bottoming") and spec.needs_sizing
+    assert spec.constraints[-4:] == ("spring_force", "spring_stroke", "spring_bottoming", "max_lean_steer") \
+        and spec.needs_sizing
     prob = TiltProblem(spec)
     ev = prob.evaluate_designs(spec.template.defaults[None])
     G = dict(zip(ev.constraint_names, ev.G[0]))

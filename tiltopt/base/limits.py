@@ -50,6 +50,12 @@ MAX_REFERENCE_DIRECTIONS = 100_000
 MAX_CROWN_SAMPLES = 3600
 MAX_STEER_SAMPLES = 361
 MAX_CLEARANCE_SAMPLES = 50_000_000
+#: a steering input's range, deg either way (mechanism [steering] input_range_deg: two turns of a column)
+MAX_STEER_INPUT_DEG = 720.0
+#: |gain| of a steering drive, mm or deg per input degree (mechanism [[steering.drives]] gain)
+MAX_STEER_GAIN = 1000.0
+#: drives, points of one drive, Ackermann inputs of a steering linkage
+MAX_STEER_ITEMS = 100
 #: vertices of a polygon shell (sections x vertices per section, after resampling)
 MAX_SHELL_VERTICES = 1_000_000
 #: a user's text file (mechanism, shell, loads, config, batch, template, run.json), bytes

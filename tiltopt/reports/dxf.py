@@ -10,7 +10,10 @@ origin at the chassis datum O. Layers:
 - ``LINKS``, ``SPRINGS``: centre lines of links and springs;
 - ``WHEELS``: tyre outlines (toroidal crown shape) and ground line;
 - ``DATUMS``: chassis datum cross and, if set, the jig datum cross;
-- ``NOTES``: labels, provenance and the safety caution.
+- ``NOTES``: labels, provenance and the safety caution;
+- ``SIDE_VIEW`` (a mechanism with a steering linkage, on the build sheet's DXF): the left
+  wheel seen from the side right of the front view (DXF x = offset + vehicle x, forward):
+  wheel outline, steering axis to the ground, trail, steering arm and rod.
 """
 from __future__ import annotations
 
@@ -30,7 +33,7 @@ def body_layer(name: str) -> str:
 
 
 def write_dxf(path: str | Path, model, *, candidate: int = 0, geom=None, jig_datum=(0.0, 0.0),
-              hole_diameter_mm: float = 10.0, provenance: str = "") -> Path:
+              hole_diameter_mm: float = 10.0, provenance: str = "", side_view: dict | None = None) -> Path:
     """Write the design-position layout of one candidate.
 
     Parameters
@@ -40,6 +43,9 @@ def write_dxf(path: str | Path, model, *, candidate: int = 0, geom=None, jig_dat
         Default: the model's own mechanism.
     jig_datum : (y_mm, z_mm)
         Marked on layer DATUMS when not the chassis datum.
+    side_view : dict, optional
+        A wheel's side view (:func:`tiltopt.reports.side_view.side_view`), drawn on layer
+        SIDE_VIEW right of the front view, forward (x) along the drawing's first axis.
     """
     import ezdxf
 
@@ -90,6 +96,9 @@ def write_dxf(path: str | Path, model, *, candidate: int = 0, geom=None, jig_dat
         msp.add_line((y - 20, z), (y + 20, z), dxfattribs={"layer": "DATUMS"})
         msp.add_line((y, z - 20), (y, z + 20), dxfattribs={"layer": "DATUMS"})
         msp.add_text(label, height=8.0, dxfattribs={"layer": "DATUMS"}).set_placement((y + 6, z - 16))
+    if side_view is not None:
+        from .side_view import add_side_view_dxf
+        add_side_view_dxf(doc, msp, side_view, float(ys.max()) + 400.0 + 2.0 * side_view["radius"])
     note = (f"{provenance}\\PFront view at the design position, mm, origin at the chassis datum O; "
             f"x = lateral (right), y = height.\\P{SAFETY}")
     msp.add_mtext(note, dxfattribs={"layer": "NOTES", "char_height": 7.0, "width": 600.0}).set_location(

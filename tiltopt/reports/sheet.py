@@ -621,14 +621,20 @@ def write_sheet(out_dir: str | Path, inp: SheetInputs) -> dict[str, Path]:
     paths["pivots"] = atomic_write_text(out_dir / "pivots.csv", buf.getvalue())
 
     # linkage.dxf
-    paths["dxf"] = write_dxf(out_dir / "linkage.dxf", model, jig_datum=jig, provenance=f"tiltopt: {prov}")
+    from .side_view import side_view, steering_html
+    ti_0 = int(np.argmin(np.abs(np.asarray(an.sweep.travel_mm))))
+    li_0 = int(np.argmin(np.abs(an.sweep.lean_deg)))             # lean 0 (the envelope may lean both ways)
+    side = side_view(model, geom, an.sweep, ti_0, li_0, 0) if model.mech.steering is not None else None
+    paths["dxf"] = write_dxf(out_dir / "linkage.dxf", model, jig_datum=jig, provenance=f"tiltopt: {prov}",
+                             side_view=side)
+    steer_html = steering_html(model, geom, an.sweep, line_chart, _table, _e)
 
     # sheet.html
-    paths["sheet"] = atomic_write_text(out_dir / "sheet.html", _sheet_html(inp, an, prow, prov, stamp))
+    paths["sheet"] = atomic_write_text(out_dir / "sheet.html", _sheet_html(inp, an, prow, prov, stamp, steer_html))
     return paths
 
 
-def _sheet_html(inp: SheetInputs, an: Analysis, prow: list[dict], prov: str, stamp: str) -> str:
+def _sheet_html(inp: SheetInputs, an: Analysis, prow: list[dict], prov: str, stamp: str, steer_html: str) -> str:
     """sheet.html: the fragments of the page (each escaped HTML) put into templates/sheet.html."""
     model, geom, spec, r = an.model, an.geom, an.spec, an.sweep
     mech, P = inp.mech, np.asarray(an.geom.points[0])
@@ -661,7 +667,9 @@ def _sheet_html(inp: SheetInputs, an: Analysis, prow: list[dict], prov: str, sta
         drawing=drawing, jig_y=f"{jig[0]:g}", jig_z=f"{jig[1]:g}", pivots=piv_table, members=member_html,
         joints=_table(["joint", "kind", "joins", "y [mm]", "z [mm]"], _joint_rows(model, P), num_from=3),
         springs=springs, spring_setup=("<h3>Spring setup</h3>" + spring_setup) if spring_setup else "",
-        curves=_curves(an), clearance=_clearance_section(an), lean_drawing=lean_draw,
+        curves=_curves(an), clearance=_clearance_section(an),
+        steering=('<section class="avoid-break"><h2>Steering and side view</h2>' + steer_html + "</section>")
+        if steer_html else "", lean_drawing=lean_draw,
         lean_limit=f"{inp.lean_limit_deg:g}", lean_travel=f"{float(r.travel_mm[ti0]):g}",
         tilt_lock=lock_html or '<p class="note">Not available for this sheet (see the notes).</p>',
         load_cases=('<section class="avoid-break"><h2>Load cases</h2>' + cases_html + '<p class="note">Tyre loads '
