@@ -131,14 +131,19 @@ def test_marks_are_the_three_d_clearance_at_steer_zero(name):
     from tiltopt.reports.marks import front_marks
 
     mech = load_mechanism(CONFIGS / f"{name}.toml")
-    model = Model(replace(mech, steer_envelope=()))
+    # no steer: neither the fixed steer envelope nor the steer range a steering linkage reaches
+    model = Model(replace(mech, steer_envelope=(), steering=None))
     res = sweep(model, None, [0.0, 10.0, 20.0, 30.0], [-30.0, 0.0, 30.0] if mech.springs else [0.0])
     fm = front_marks(model, model.default_geometry, res)
     cr = evaluate_clearance(model, None, res, None)
+    # the marks are front-view figures: exact in 3-D where the wheel centres lie in the linkage plane, and
+    # never above the 3-D clearance where a hub sits behind it (the sprung twin beam's 20 mm of trail)
+    planar = all(abs(mech.x_of(w.centre) - mech.station_x_mm) < 1e-9 for w in mech.wheels)
     for kind, ref in (("other", cr.wheel_link_mm), ("carrier", cr.wheel_carrier_mm)):
         got = getattr(fm, f"{kind}_mm")
         assert np.all(ref >= got - 1e-9), kind
-        assert np.all(ref <= got + TOLERANCE_MM + 1e-9), kind
+        if planar:
+            assert np.all(ref <= got + TOLERANCE_MM + 1e-9), kind
 
 
 def test_a_member_through_the_wheel_is_an_overlap():

@@ -257,8 +257,9 @@ def test_sheet_envelope_figures_cover_both_sides(tmp_path):
     from tiltopt.reports.sheet import SheetInputs, write_sheet
 
     text = (Path(__file__).resolve().parents[1] / "configs" / "wishbone_rocker.toml").read_text(encoding="utf-8")
-    text = text.replace("outer = [320.0, 400.0]", "outer = [320.0, 385.0]")
-    text = text.replace("upper_joint = [320.0, 400.0]", "upper_joint = [320.0, 385.0]")
+    for old in ("outer = [-15.0, 320.0, 400.0]", "upper_joint = [-15.0, 320.0, 400.0]"):
+        assert old in text, old                   # the right upper ball joint of the built-in file
+        text = text.replace(old, old.replace("400.0]", "385.0]"))
     mech = parse_mechanism(tomllib.loads(text), "asymmetric.toml")
     res = sweep(Model(mech), None, envelope_leans(30.0, None, True), [0.0])
     assert bool(res.converged.all())
