@@ -522,6 +522,18 @@ def _spring_curve(t: dict, opt: dict, src: str, w: str) -> dict:
     return out
 
 
+def _two_points(ax: Any, body: str, ref, src: str, key: str, what: str) -> tuple[str, str]:
+    """Two point references of ``body`` that give a line (a steering axis, a drive's axis), each read with
+    ``ref(value, key)``; InputError naming ``key`` otherwise."""
+    if not (isinstance(ax, list) and len(ax) == 2):
+        raise InputError(f"expected two points of body '{body}', [\"{body}.a\", \"{body}.b\"]: the {what}. "
+                         f"Got {reprlib.repr(ax)} instead.", src, key)
+    refs = tuple(ref(a, f"{key}[{k}]") for k, a in enumerate(ax))
+    if any(split_ref(r)[0] != body for r in refs):
+        raise InputError(f"the {what} points must be points of body '{body}'. Got {reprlib.repr(ax)}.", src, key)
+    return refs
+
+
 def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
     """Validate a mechanism given as a TOML-like dict (see module docs)."""
     _check_keys(
@@ -726,14 +738,7 @@ def parse_mechanism(data: dict, src: str = "<memory>") -> Mechanism:
                                  src, w + ".steer_axis_point")
             steer["steer_axis_point"] = sp
         if "steer_axis" in t:
-            ax = t["steer_axis"]
-            if not (isinstance(ax, list) and len(ax) == 2):
-                raise InputError(f"expected two point references of the upright, [\"{up}.a\", \"{up}.b\"]. "
-                                 f"Got {ax!r} instead.", src, w + ".steer_axis")
-            refs = tuple(ref(a, f"{w}.steer_axis[{k}]") for k, a in enumerate(ax))
-            if any(split_ref(r)[0] != up for r in refs):
-                raise InputError(f"the steering axis points must be points of the upright '{up}'. Got {ax!r}.",
-                                 src, w + ".steer_axis")
+            refs = _two_points(t["steer_axis"], up, ref, src, w + ".steer_axis", "steering axis")
             pa, pb = (bodies[up][split_ref(r)[1]] for r in refs)
             xa, xb = (point_x.get(r, station_x) for r in refs)
             if math.hypot(xa - xb, pa[0] - pb[0], pa[1] - pb[1]) < 1.0:
@@ -908,13 +913,7 @@ def _parse_steering(raw: Any, mech: "Mechanism", ref, unique, src: str) -> Steer
         body = _string(t["body"], src, w + ".body")
         if body not in mech.bodies:
             raise InputError(f"unknown body '{body}'. Bodies: {', '.join(mech.bodies)}.", src, w + ".body")
-        ax = t["axis"]
-        if not (isinstance(ax, list) and len(ax) == 2):
-            raise InputError(f"expected two points of body '{body}', [\"{body}.a\", \"{body}.b\"]: the line of the "
-                             f"drive. Got {reprlib.repr(ax)} instead.", src, w + ".axis")
-        axis = tuple(ref(a, f"{w}.axis[{k}]") for k, a in enumerate(ax))
-        if any(split_ref(a)[0] != body for a in axis):
-            raise InputError(f"the axis points must be points of body '{body}'. Got {ax!r}.", src, w + ".axis")
+        axis = _two_points(t["axis"], body, ref, src, w + ".axis", "drive axis")
         if _norm(_sub(mech.point3(axis[1]), mech.point3(axis[0]))) < 1.0:
             raise InputError("the two axis points are less than 1 mm apart.", src, w + ".axis")
         gain = _number(t.get("gain", 1.0), src, w + ".gain", length=False)
